@@ -1,0 +1,693 @@
+"""Build the two demo recognisers: train with torch, export to ONNX, write cards.
+
+Usage (needs the ``train`` extra: ``pip install -e .[train]``)::
+
+    python models/build.py train ctc --minutes 35 --threads 1
+    python models/build.py train seq --minutes 90 --threads 1
+    python models/build.py export            # ONNX, parity checks, cards, figures
+
+Training is deterministic by seed for a given number of steps; the time budget
+decides how many steps are run, so the figures of a rebuild may differ slightly.
+Checkpoints go to ``models/_work/`` (ignored by git) so training can resume.
+
+The data generator (``ocrbench.synth.line_samples``) and the batching
+(``ocrbench.recognisers.preprocess``) are the ones the runner uses, so the
+models see at training time exactly the preprocessing they get at run time.
+This module imports torch lazily: ``make_batch_lines`` runs without it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+import math
+import os
+import random
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+
+from ocrbench import synth  # noqa: E402
+from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line  # noqa: E402
+
+WORK = Path(os.environ.get("OCRBENCH_BUILD_WORK", HERE / "_work"))
+OUT = Path(os.environ.get("OCRBENCH_BUILD_OUT", HERE))
+SPEC = InputSpec(height=32, width_multiple=4)
+CTC_NAME = "ledger-ctc"
+SEQ_NAME = "ledger-seq"
+
+# Vocabularies. CTC: blank at 0, then the alphabet. Seq: pad, bos, eos, then the alphabet.
+CTC_CLASSES = ["<blank>"] + list(synth.ALPHABET)
+SEQ_VOCAB = ["<pad>", "<bos>", "<eos>"] + list(synth.ALPHABET)
+PAD, BOS, EOS = 0, 1, 2
+D_MODEL, N_HEADS, N_LAYERS, D_FF = 192, 4, 3, 576
+MAX_TOKENS = 200
+
+
+# --------------------------------------------------------------------------- data (no torch)
+
+
+def make_batch_lines(rng: random.Random, n: int, fonts=synth.TRAIN_FONTS):
+    """n training lines: (batch (n,1,32,W) float32, widths, texts)."""
+    imgs, texts = [], []
+    for _ in range(n):
+        img, text = synth.line_sample(rng, fonts)
+        imgs.append(resize_line(np.asarray(img), SPEC))
+        texts.append(text)
+    batch, widths = make_batch(imgs, SPEC)
+    return batch, widths, texts
+
+
+def heldout_lines(n: int = 300, seed: int = 987654):
+    """Held-out lines: unseen seeds, half of them in the held-out faces."""
+    rng = random.Random(seed)
+    out = []
+    for i in range(n):
+        fonts = synth.HELDOUT_FONTS if i % 2 else synth.TRAIN_FONTS
+        img, text = synth.line_sample(rng, fonts)
+        out.append((resize_line(np.asarray(img), SPEC), text))
+    return out
+
+
+def collapse_ws(s: str) -> str:
+    return " ".join(s.split())
+
+
+def cer(refs, hyps) -> float:
+    from rapidfuzz.distance import Levenshtein
+    e = sum(Levenshtein.distance(r, h) for r, h in zip(refs, hyps))
+    n = sum(len(r) for r in refs)
+    return e / max(1, n)
+
+
+# --------------------------------------------------------------------------- models
+
+
+def build_modules():
+    import torch
+    from torch import nn
+
+    def conv_stack(channels=(16, 32, 64, 96, 128, 128)):
+        pools = [(2, 2), (2, 2), None, (2, 1), (2, 1), (2, 1)]
+        layers, cin = [], 1
+        for cout, p in zip(channels, pools):
+            layers += [nn.Conv2d(cin, cout, 3, padding=1, bias=False), nn.BatchNorm2d(cout), nn.ReLU(inplace=True)]
+            if p:
+                layers.append(nn.MaxPool2d(p, p))
+            cin = cout
+        return nn.Sequential(*layers), cin
+
+    class CRNN(nn.Module):
+        """Convolutions (height 32 -> 1, width / 4), two BiLSTM layers, a linear classifier."""
+
+        def __init__(self, n_classes: int):
+            super().__init__()
+            self.conv, c = conv_stack()
+            self.rnn = nn.LSTM(c, 128, num_layers=2, bidirectional=True, batch_first=True)
+            self.fc = nn.Linear(256, n_classes)
+
+        def forward(self, image):                      # (B,1,32,W)
+            f = self.conv(image).squeeze(2).transpose(1, 2)  # (B,T,C)
+            f, _ = self.rnn(f)
+            return self.fc(f)                         # (B,T,classes) logits
+
+    def sinusoid(positions, d):
+        # positions: float tensor (...,); returns (..., d)
+        i = torch.arange(d // 2, dtype=torch.float32)
+        freq = torch.exp(-math.log(10000.0) * 2 * i / d)
+        ang = positions.unsqueeze(-1) * freq
+        return torch.cat([torch.sin(ang), torch.cos(ang)], dim=-1)
+
+    class Encoder(nn.Module):
+        """Conv stack, one BiLSTM layer, sinusoidal positions; emits the cross-attention keys/values."""
+
+        def __init__(self):
+            super().__init__()
+            self.conv, c = conv_stack((16, 32, 64, 96, 128, 160))
+            self.rnn = nn.LSTM(c, D_MODEL // 2, num_layers=1, bidirectional=True, batch_first=True)
+            self.norm = nn.LayerNorm(D_MODEL)
+            self.k = nn.ModuleList([nn.Linear(D_MODEL, D_MODEL) for _ in range(N_LAYERS)])
+            self.v = nn.ModuleList([nn.Linear(D_MODEL, D_MODEL) for _ in range(N_LAYERS)])
+
+        def memory(self, image):
+            f = self.conv(image).squeeze(2).transpose(1, 2)
+            f, _ = self.rnn(f)
+            T = f.shape[1]
+            pos = sinusoid(torch.arange(T, dtype=torch.float32), D_MODEL)
+            return self.norm(f + pos)
+
+        def forward(self, image):
+            m = self.memory(image)
+            B, S, _ = m.shape
+            ks = [self.k[l](m).view(B, S, N_HEADS, D_MODEL // N_HEADS).transpose(1, 2) for l in range(N_LAYERS)]
+            vs = [self.v[l](m).view(B, S, N_HEADS, D_MODEL // N_HEADS).transpose(1, 2) for l in range(N_LAYERS)]
+            return torch.stack(ks), torch.stack(vs)   # (L,B,H,S,dh) each
+
+    class DecoderLayer(nn.Module):
+        def __init__(self):
+            super().__init__()
+            self.ln1, self.ln2, self.ln3 = nn.LayerNorm(D_MODEL), nn.LayerNorm(D_MODEL), nn.LayerNorm(D_MODEL)
+            self.qkv = nn.Linear(D_MODEL, 3 * D_MODEL)
+            self.proj = nn.Linear(D_MODEL, D_MODEL)
+            self.q_cross = nn.Linear(D_MODEL, D_MODEL)
+            self.proj_cross = nn.Linear(D_MODEL, D_MODEL)
+            self.ff = nn.Sequential(nn.Linear(D_MODEL, D_FF), nn.GELU(), nn.Linear(D_FF, D_MODEL))
+
+        @staticmethod
+        def heads(x):
+            B, T, _ = x.shape
+            return x.view(B, T, N_HEADS, D_MODEL // N_HEADS).transpose(1, 2)
+
+        def forward(self, x, past_k, past_v, self_mask, cross_k, cross_v, mem_mask):
+            """x (B,t,d) new positions; past_k/v (B,H,tp,dh); masks additive."""
+            B, t, _ = x.shape
+            scale = 1.0 / math.sqrt(D_MODEL // N_HEADS)
+            q, k, v = self.qkv(self.ln1(x)).split(D_MODEL, dim=-1)
+            q, k, v = self.heads(q), self.heads(k), self.heads(v)
+            k = torch.cat([past_k, k], dim=2)
+            v = torch.cat([past_v, v], dim=2)
+            att = torch.matmul(q, k.transpose(-1, -2)) * scale + self_mask
+            att = torch.softmax(att, dim=-1)
+            y = torch.matmul(att, v).transpose(1, 2).reshape(B, t, D_MODEL)
+            x = x + self.proj(y)
+            qc = self.heads(self.q_cross(self.ln2(x)))
+            att = torch.matmul(qc, cross_k.transpose(-1, -2)) * scale + mem_mask[:, None, None, :]
+            att = torch.softmax(att, dim=-1)
+            y = torch.matmul(att, cross_v).transpose(1, 2).reshape(B, t, D_MODEL)
+            x = x + self.proj_cross(y)
+            x = x + self.ff(self.ln3(x))
+            return x, k, v
+
+    class Decoder(nn.Module):
+        def __init__(self, vocab: int):
+            super().__init__()
+            self.emb = nn.Embedding(vocab, D_MODEL)
+            self.layers = nn.ModuleList([DecoderLayer() for _ in range(N_LAYERS)])
+            self.ln = nn.LayerNorm(D_MODEL)
+            self.out = nn.Linear(D_MODEL, vocab)
+
+        def run(self, tokens, start, past_k, past_v, cross_k, cross_v, mem_mask):
+            """tokens (B,t) at positions start..start+t-1; past (L,B,H,start,dh)."""
+            B, t = tokens.shape
+            pos = torch.arange(t, dtype=torch.float32) + start.to(torch.float32)
+            x = self.emb(tokens) * math.sqrt(D_MODEL) + sinusoid(pos, D_MODEL)
+            tp = past_k.shape[3]
+            # causal mask over [past + new]: new position i sees past and new j <= i
+            qi = torch.arange(t).unsqueeze(1)
+            kj = torch.arange(tp + t).unsqueeze(0) - tp
+            self_mask = torch.where(kj <= qi, torch.zeros((), dtype=torch.float32),
+                                    torch.full((), -1e9, dtype=torch.float32))
+            ks, vs = [], []
+            for l, layer in enumerate(self.layers):
+                x, k, v = layer(x, past_k[l], past_v[l], self_mask, cross_k[l], cross_v[l], mem_mask)
+                ks.append(k)
+                vs.append(v)
+            return self.out(self.ln(x)), torch.stack(ks), torch.stack(vs)
+
+    class Seq2Seq(nn.Module):
+        def __init__(self, vocab: int):
+            super().__init__()
+            self.encoder = Encoder()
+            self.decoder = Decoder(vocab)
+
+        def forward(self, image, mem_mask, tokens_in):
+            ck, cv = self.encoder(image)
+            B = image.shape[0]
+            empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS)
+            logits, _, _ = self.decoder.run(tokens_in, torch.zeros((), dtype=torch.int64), empty, empty, ck, cv, mem_mask)
+            return logits
+
+    class StepWrapper(nn.Module):
+        """Decoder step graph: one token per line, with the key/value cache in and out."""
+
+        def __init__(self, dec):
+            super().__init__()
+            self.dec = dec
+
+        def forward(self, tokens, step, past_k, past_v, cross_k, cross_v, memory_mask):
+            logits, k, v = self.dec.run(tokens, step, past_k, past_v, cross_k, cross_v, memory_mask)
+            return torch.log_softmax(logits[:, -1, :], dim=-1), k, v
+
+    class FullWrapper(nn.Module):
+        """Uncached decoder graph: the whole prefix every step."""
+
+        def __init__(self, dec):
+            super().__init__()
+            self.dec = dec
+
+        def forward(self, tokens, cross_k, cross_v, memory_mask):
+            B = tokens.shape[0]
+            empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS)
+            logits, _, _ = self.dec.run(tokens, torch.zeros((), dtype=torch.int64), empty, empty, cross_k, cross_v, memory_mask)
+            return torch.log_softmax(logits[:, -1, :], dim=-1)
+
+    return CRNN, Seq2Seq, StepWrapper, FullWrapper
+
+
+# --------------------------------------------------------------------------- training
+
+
+def mem_mask_for(widths, W):
+    S = W // SPEC.width_multiple
+    valid = np.ceil(np.asarray(widths) / SPEC.width_multiple).astype(int)
+    m = np.where(np.arange(S)[None, :] < valid[:, None], 0.0, -1e9).astype(np.float32)
+    return m
+
+
+def encode_ctc(texts):
+    idx = {c: i + 1 for i, c in enumerate(synth.ALPHABET)}
+    return [[idx[c] for c in t if c in idx] for t in texts]
+
+
+def encode_seq(texts):
+    idx = {c: i + 3 for i, c in enumerate(synth.ALPHABET)}
+    return [[idx[c] for c in t if c in idx] for t in texts]
+
+
+def greedy_ctc(logits: np.ndarray, widths) -> list[str]:
+    out = []
+    for b in range(logits.shape[0]):
+        T = int(math.ceil(widths[b] / SPEC.width_multiple))
+        best = logits[b, :T].argmax(-1)
+        prev, s = 0, []
+        for k in best:
+            if k != prev and k != 0:
+                s.append(CTC_CLASSES[k])
+            prev = k
+        out.append("".join(s))
+    return out
+
+
+def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float):
+    import torch
+    from torch import nn
+    torch.manual_seed(seed)
+    torch.set_num_threads(threads)
+    CRNN, Seq2Seq, _, _ = build_modules()
+    WORK.mkdir(parents=True, exist_ok=True)
+    ckpt = WORK / f"{kind}.pt"
+    model = CRNN(len(CTC_CLASSES)) if kind == "ctc" else Seq2Seq(len(SEQ_VOCAB))
+    opt = torch.optim.AdamW(model.parameters(), lr=lr, weight_decay=1e-4)
+    step, elapsed0 = 0, 0.0
+    if ckpt.exists():
+        st = torch.load(ckpt, weights_only=False)
+        model.load_state_dict(st["model"])
+        opt.load_state_dict(st["opt"])
+        step, elapsed0 = st["step"], st["elapsed"]
+        print(f"resumed {kind} at step {step}, {elapsed0 / 60:.1f} min", flush=True)
+    budget = minutes * 60
+    heldout = heldout_lines(200)
+    ctc_loss = nn.CTCLoss(blank=0, zero_infinity=True)
+    ce = nn.CrossEntropyLoss(ignore_index=PAD, label_smoothing=0.1)
+    t0 = time.time() - elapsed0
+    last_ck = time.time()
+    last_eval = time.time()
+    warm = 300
+    queue: list = []
+    log = open(WORK / f"{kind}.log", "a")
+    while True:
+        elapsed = time.time() - t0
+        if elapsed > budget:
+            break
+        frac = min(1.0, elapsed / budget)
+        cur_lr = lr * min(1.0, (step + 1) / warm) * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * frac)))
+        for g in opt.param_groups:
+            g["lr"] = cur_lr
+        if not queue:
+            # draw a pool of lines, sort by width, cut into batches: little padding
+            rng = random.Random(seed * 1_000_003 + step)
+            pool = [synth.line_sample(rng) for _ in range(batch_size * 4)]
+            pool = [(resize_line(np.asarray(im), SPEC), t) for im, t in pool]
+            pool.sort(key=lambda p: p[0].shape[1])
+            queue = [pool[i:i + batch_size] for i in range(0, len(pool), batch_size)]
+            rng.shuffle(queue)
+        chunk = queue.pop()
+        batch, widths = make_batch([c[0] for c in chunk], SPEC)
+        texts = [c[1] for c in chunk]
+        x = torch.from_numpy(batch)
+        model.train()
+        if kind == "ctc":
+            targets = encode_ctc(texts)
+            logits = model(x)                                  # (B,T,C)
+            lp = logits.log_softmax(-1).transpose(0, 1)        # (T,B,C)
+            in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
+            tgt_len = torch.tensor([len(t) for t in targets])
+            flat = torch.tensor([c for t in targets for c in t], dtype=torch.long)
+            loss = ctc_loss(lp, flat, in_len, tgt_len)
+        else:
+            seqs = encode_seq(texts)
+            L = max(len(s) for s in seqs) + 1
+            tin = np.full((len(seqs), L), PAD, np.int64)
+            tout = np.full((len(seqs), L), PAD, np.int64)
+            for i, s in enumerate(seqs):
+                tin[i, : len(s) + 1] = [BOS] + s
+                tout[i, : len(s) + 1] = s + [EOS]
+            mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1]))
+            logits = model(x, mm, torch.from_numpy(tin))
+            loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).reshape(-1))
+        opt.zero_grad()
+        loss.backward()
+        nn.utils.clip_grad_norm_(model.parameters(), 5.0)
+        opt.step()
+        step += 1
+        if step % 25 == 0:
+            print(f"{kind} step {step} {elapsed / 60:.1f}min loss {loss.item():.4f} lr {cur_lr:.2e}", file=log, flush=True)
+        if time.time() - last_eval > 300:
+            c = evaluate(kind, model, heldout[:100])
+            print(f"{kind} step {step} {elapsed / 60:.1f}min heldout CER(ws collapsed) {c:.4f}", file=log, flush=True)
+            last_eval = time.time()
+        if time.time() - last_ck > 120:
+            save_ckpt(ckpt, model, opt, step, time.time() - t0)
+            last_ck = time.time()
+        if kind == "seq" and threads == 1 and (WORK / "ctc.done").exists():
+            torch.set_num_threads(2)
+            threads = 2
+            print("seq: ctc finished, now 2 threads", file=log, flush=True)
+    save_ckpt(ckpt, model, opt, step, time.time() - t0)
+    c = evaluate(kind, model, heldout)
+    print(f"{kind} FINAL step {step} heldout CER(ws collapsed) {c:.4f}", file=log, flush=True)
+    (WORK / f"{kind}.done").write_text(json.dumps({"step": step, "minutes": (time.time() - t0) / 60,
+                                                   "heldout_cer": c}))
+
+
+def save_ckpt(path, model, opt, step, elapsed):
+    import torch
+    tmp = path.with_suffix(".tmp")
+    torch.save({"model": model.state_dict(), "opt": opt.state_dict(), "step": step, "elapsed": elapsed}, tmp)
+    os.replace(tmp, path)
+
+
+def evaluate(kind, model, lines, batch=32) -> float:
+    import torch
+    model.eval()
+    refs, hyps = [], []
+    with torch.no_grad():
+        for i in range(0, len(lines), batch):
+            chunk = lines[i: i + batch]
+            b, widths = make_batch([c[0] for c in chunk], SPEC)
+            x = torch.from_numpy(b)
+            if kind == "ctc":
+                hyps += greedy_ctc(model(x).numpy(), widths)
+            else:
+                hyps += greedy_seq_torch(model, x, mem_mask_for(widths, b.shape[-1]))
+            refs += [c[1] for c in chunk]
+    model.train()
+    return cer([collapse_ws(r) for r in refs], [collapse_ws(h) for h in hyps])
+
+
+def greedy_seq_torch(model, x, mm):
+    import torch
+    mm = torch.from_numpy(mm)
+    ck, cv = model.encoder(x)
+    B = x.shape[0]
+    dh = D_MODEL // N_HEADS
+    pk = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh)
+    pv = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh)
+    tok = torch.full((B, 1), BOS, dtype=torch.long)
+    done = torch.zeros(B, dtype=torch.bool)
+    out = [[] for _ in range(B)]
+    for step in range(MAX_TOKENS):
+        logits, pk, pv = model.decoder.run(tok, torch.tensor(step), pk, pv, ck, cv, mm)
+        nxt = logits[:, -1].argmax(-1)
+        for b in range(B):
+            if not done[b]:
+                if nxt[b].item() == EOS:
+                    done[b] = True
+                else:
+                    out[b].append(SEQ_VOCAB[nxt[b].item()])
+        if done.all():
+            break
+        tok = nxt.unsqueeze(1)
+    return ["".join(o) for o in out]
+
+
+# --------------------------------------------------------------------------- export
+
+
+def sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def export(opset: int = 17):
+    import torch
+    import onnx
+    import onnxruntime as ort
+    CRNN, Seq2Seq, StepWrapper, FullWrapper = build_modules()
+    heldout = heldout_lines(300)
+    figures = {}
+
+    # ---- CTC
+    if (WORK / "ctc.pt").exists():
+        m = CRNN(len(CTC_CLASSES))
+        m.load_state_dict(torch.load(WORK / "ctc.pt", weights_only=False)["model"])
+        m.eval()
+        out = OUT / CTC_NAME
+        out.mkdir(exist_ok=True)
+        x = torch.from_numpy(make_batch([heldout[0][0], heldout[1][0]], SPEC)[0])
+        path = out / "model.onnx"
+        torch.onnx.export(m, (x,), str(path), input_names=["image"], output_names=["logits"],
+                          dynamic_axes={"image": {0: "batch", 3: "width"}, "logits": {0: "batch", 1: "frames"}},
+                          opset_version=opset, dynamo=False, external_data=False)
+        onnx.checker.check_model(onnx.load(str(path)))
+        sess = ort.InferenceSession(str(path), providers=["CPUExecutionProvider"])
+        with torch.no_grad():
+            diff = float(np.abs(sess.run(None, {"image": x.numpy()})[0] - m(x).numpy()).max())
+        print(f"ctc: onnxruntime vs torch max abs diff {diff:.2e}")
+        refs, hyps = [], []
+        for i in range(0, len(heldout), 32):
+            chunk = heldout[i:i + 32]
+            b, w = make_batch([c[0] for c in chunk], SPEC)
+            hyps += greedy_ctc(sess.run(None, {"image": b})[0], w)
+            refs += [c[1] for c in chunk]
+        c_raw = cer(refs, hyps)
+        c_ws = cer([collapse_ws(r) for r in refs], [collapse_ws(h) for h in hyps])
+        (out / "alphabet.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in CTC_CLASSES) + "\n", encoding="utf-8")
+        done = json.loads((WORK / "ctc.done").read_text()) if (WORK / "ctc.done").exists() else {}
+        figures[CTC_NAME] = {"parameters": sum(p.numel() for p in m.parameters()),
+                             "onnx_bytes": path.stat().st_size, "parity_max_abs_diff": diff,
+                             "heldout_lines": len(heldout), "heldout_cer_raw": c_raw,
+                             "heldout_cer_ws_collapsed": c_ws, "train_steps": done.get("step"),
+                             "train_minutes": done.get("minutes")}
+        print(json.dumps(figures[CTC_NAME], indent=1))
+
+    # ---- seq
+    if (WORK / "seq.pt").exists():
+        m = Seq2Seq(len(SEQ_VOCAB))
+        m.load_state_dict(torch.load(WORK / "seq.pt", weights_only=False)["model"])
+        m.eval()
+        enc = m.encoder.eval()
+        step_w = StepWrapper(m.decoder).eval()
+        full_w = FullWrapper(m.decoder).eval()
+        out = OUT / SEQ_NAME
+        out.mkdir(exist_ok=True)
+        b, w = make_batch([heldout[0][0], heldout[1][0]], SPEC)
+        x = torch.from_numpy(b)
+        mm = torch.from_numpy(mem_mask_for(w, b.shape[-1]))
+        torch.onnx.export(enc, (x,), str(out / "encoder.onnx"), input_names=["image"],
+                          output_names=["cross_k", "cross_v"],
+                          dynamic_axes={"image": {0: "batch", 3: "width"},
+                                        "cross_k": {1: "batch", 3: "frames"}, "cross_v": {1: "batch", 3: "frames"}},
+                          opset_version=opset, dynamo=False, external_data=False)
+        with torch.no_grad():
+            ck, cv = enc(x)
+        B = 2
+        dh = D_MODEL // N_HEADS
+        pk = torch.randn(N_LAYERS, B, N_HEADS, 3, dh)
+        pv = torch.randn(N_LAYERS, B, N_HEADS, 3, dh)
+        tok = torch.tensor([[5], [7]], dtype=torch.long)
+        stp = torch.tensor(3, dtype=torch.long)
+        torch.onnx.export(step_w, (tok, stp, pk, pv, ck, cv, mm), str(out / "decoder_step.onnx"),
+                          input_names=["tokens", "step", "past_k", "past_v", "cross_k", "cross_v", "memory_mask"],
+                          output_names=["log_probs", "present_k", "present_v"],
+                          dynamic_axes={"tokens": {0: "batch"}, "past_k": {1: "batch", 3: "past"},
+                                        "past_v": {1: "batch", 3: "past"}, "cross_k": {1: "batch", 3: "frames"},
+                                        "cross_v": {1: "batch", 3: "frames"}, "memory_mask": {0: "batch", 1: "frames"},
+                                        "log_probs": {0: "batch"}, "present_k": {1: "batch", 3: "total"},
+                                        "present_v": {1: "batch", 3: "total"}},
+                          opset_version=opset, dynamo=False, external_data=False)
+        toks = torch.tensor([[1, 5, 9], [1, 7, 8]], dtype=torch.long)
+        torch.onnx.export(full_w, (toks, ck, cv, mm), str(out / "decoder_full.onnx"),
+                          input_names=["tokens", "cross_k", "cross_v", "memory_mask"], output_names=["log_probs"],
+                          dynamic_axes={"tokens": {0: "batch", 1: "length"}, "cross_k": {1: "batch", 3: "frames"},
+                                        "cross_v": {1: "batch", 3: "frames"}, "memory_mask": {0: "batch", 1: "frames"},
+                                        "log_probs": {0: "batch"}},
+                          opset_version=opset, dynamo=False, external_data=False)
+        diffs = {}
+        for name in ["encoder", "decoder_step", "decoder_full"]:
+            onnx.checker.check_model(onnx.load(str(out / f"{name}.onnx")))
+        so = ort.SessionOptions()
+        es = ort.InferenceSession(str(out / "encoder.onnx"), so, providers=["CPUExecutionProvider"])
+        ss = ort.InferenceSession(str(out / "decoder_step.onnx"), so, providers=["CPUExecutionProvider"])
+        fs = ort.InferenceSession(str(out / "decoder_full.onnx"), so, providers=["CPUExecutionProvider"])
+        ok, ov = es.run(None, {"image": x.numpy()})
+        diffs["encoder"] = float(max(np.abs(ok - ck.numpy()).max(), np.abs(ov - cv.numpy()).max()))
+        with torch.no_grad():
+            ref = step_w(tok, stp, pk, pv, ck, cv, mm)
+            reff = full_w(toks, ck, cv, mm)
+        got = ss.run(None, {"tokens": tok.numpy(), "step": stp.numpy(), "past_k": pk.numpy(), "past_v": pv.numpy(),
+                            "cross_k": ck.numpy(), "cross_v": cv.numpy(), "memory_mask": mm.numpy()})
+        diffs["decoder_step"] = float(max(np.abs(g - r.numpy()).max() for g, r in zip(got, ref)))
+        gotf = fs.run(None, {"tokens": toks.numpy(), "cross_k": ck.numpy(), "cross_v": cv.numpy(), "memory_mask": mm.numpy()})
+        diffs["decoder_full"] = float(np.abs(gotf[0] - reff.numpy()).max())
+        print("seq: onnxruntime vs torch max abs diff", diffs)
+        # held-out CER with onnxruntime, cached greedy
+        refs, hyps = [], []
+        for i in range(0, len(heldout), 32):
+            chunk = heldout[i:i + 32]
+            b, w = make_batch([c[0] for c in chunk], SPEC)
+            hyps += greedy_seq_ort(es, ss, b, mem_mask_for(w, b.shape[-1]))
+            refs += [c[1] for c in chunk]
+        c_raw = cer(refs, hyps)
+        c_ws = cer([collapse_ws(r) for r in refs], [collapse_ws(h) for h in hyps])
+        (out / "vocab.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in SEQ_VOCAB) + "\n", encoding="utf-8")
+        done = json.loads((WORK / "seq.done").read_text()) if (WORK / "seq.done").exists() else {}
+        figures[SEQ_NAME] = {"parameters": sum(p.numel() for p in m.parameters()),
+                             "onnx_bytes": sum((out / f"{n}.onnx").stat().st_size for n in ["encoder", "decoder_step", "decoder_full"]),
+                             "parity_max_abs_diff": diffs, "heldout_lines": len(heldout),
+                             "heldout_cer_raw": c_raw, "heldout_cer_ws_collapsed": c_ws,
+                             "train_steps": done.get("step"), "train_minutes": done.get("minutes")}
+        print(json.dumps(figures[SEQ_NAME], indent=1))
+
+    for name, fig in figures.items():
+        (OUT / name / "figures.json").write_text(json.dumps(fig, indent=1) + "\n")
+    write_cards()
+
+
+def greedy_seq_ort(es, ss, batch, mm):
+    ck, cv = es.run(None, {"image": batch})
+    B = batch.shape[0]
+    dh = D_MODEL // N_HEADS
+    pk = np.zeros((N_LAYERS, B, N_HEADS, 0, dh), np.float32)
+    pv = np.zeros_like(pk)
+    tok = np.full((B, 1), BOS, np.int64)
+    done = np.zeros(B, bool)
+    out = [[] for _ in range(B)]
+    for step in range(MAX_TOKENS):
+        lp, pk, pv = ss.run(None, {"tokens": tok, "step": np.array(step, np.int64), "past_k": pk, "past_v": pv,
+                                   "cross_k": ck, "cross_v": cv, "memory_mask": mm})
+        nxt = lp.argmax(-1)
+        for b in range(B):
+            if not done[b]:
+                if nxt[b] == EOS:
+                    done[b] = True
+                else:
+                    out[b].append(SEQ_VOCAB[nxt[b]])
+        if done.all():
+            break
+        tok = nxt[:, None].astype(np.int64)
+    return ["".join(o) for o in out]
+
+
+CTC_CARD = """# Recogniser card: see models/README.md for every field.
+name = "{name}"
+kind = "ctc"
+description = "Demo CTC line recogniser (CRNN: 6 convolutions, 2 BiLSTM layers), trained by ocrbench on synthetic ledger and prose lines."
+version = "1"
+
+[input]
+height = 32
+width_multiple = 4
+invert = true
+scale = 0.00392156862745098
+mean = 0.0
+std = 1.0
+
+[ctc]
+model = "model.onnx"
+input = "image"
+output = "logits"
+layout = "BTC"          # batch, frames, classes
+output_is_log_probs = false
+frames_per_pixel = 0.25 # width / 4
+blank_index = 0
+alphabet = "alphabet.txt"
+"""
+
+SEQ_CARD = """# Recogniser card: see models/README.md for every field.
+name = "{name}"
+kind = "seq"
+description = "Demo autoregressive recogniser: convolutional + BiLSTM encoder, 3-layer transformer decoder (d=192, 4 heads) with a key/value cache, trained by ocrbench on synthetic ledger and prose lines."
+version = "1"
+
+[input]
+height = 32
+width_multiple = 4
+invert = true
+scale = 0.00392156862745098
+mean = 0.0
+std = 1.0
+
+[seq]
+vocab = "vocab.txt"
+bos_index = 1
+eos_index = 2
+pad_index = 0
+max_tokens = 200
+frames_per_pixel = 0.25
+
+[seq.encoder]
+model = "encoder.onnx"
+input = "image"
+outputs = ["cross_k", "cross_v"]
+
+[seq.decoder_step]
+model = "decoder_step.onnx"
+tokens = "tokens"
+step = "step"
+past_k = "past_k"
+past_v = "past_v"
+memory = ["cross_k", "cross_v"]
+memory_mask = "memory_mask"
+log_probs = "log_probs"
+present_k = "present_k"
+present_v = "present_v"
+cache_layout = "LBHTD"   # layers, batch, heads, positions, head size
+
+[seq.decoder_full]
+model = "decoder_full.onnx"
+tokens = "tokens"
+memory = ["cross_k", "cross_v"]
+memory_mask = "memory_mask"
+log_probs = "log_probs"
+"""
+
+
+def write_cards():
+    if (OUT / CTC_NAME / "model.onnx").exists():
+        (OUT / CTC_NAME / "card.toml").write_text(CTC_CARD.format(name=CTC_NAME))
+    if (OUT / SEQ_NAME / "encoder.onnx").exists():
+        (OUT / SEQ_NAME / "card.toml").write_text(SEQ_CARD.format(name=SEQ_NAME))
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = ap.add_subparsers(dest="cmd", required=True)
+    t = sub.add_parser("train")
+    t.add_argument("kind", choices=["ctc", "seq"])
+    t.add_argument("--minutes", type=float, default=35)
+    t.add_argument("--threads", type=int, default=1)
+    t.add_argument("--seed", type=int, default=7)
+    t.add_argument("--batch", type=int, default=32)
+    t.add_argument("--lr", type=float, default=None)
+    e = sub.add_parser("export")
+    e.add_argument("--opset", type=int, default=17)
+    a = ap.parse_args(argv)
+    if a.cmd == "train":
+        lr = a.lr or (1.5e-3 if a.kind == "ctc" else 7e-4)
+        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr)
+    else:
+        export(a.opset)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,1 @@
+"""Recognisers: card parsing, preprocessing, CTC and autoregressive decoding."""
