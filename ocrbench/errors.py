@@ -44,3 +44,7 @@ class StoreError(OcrbenchError):
 
 class PlanError(OcrbenchError):
     """A plan cannot be made from what was given (no calibration data, bad numbers)."""
+
+
+class PostprocessError(OcrbenchError):
+    """A post-processing pipeline cannot be built or applied (unknown step, bad option, missing word list)."""
