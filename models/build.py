@@ -633,25 +633,26 @@ bos_index = 1
 eos_index = 2
 pad_index = 0
 max_tokens = 200
-frames_per_pixel = 0.25
+frames_per_pixel = 0.25     # memory frames = width / 4
+memory_mask_valid = 0.0     # additive mask: 0 where a frame is real,
+memory_mask_padded = -1e9   # a large negative number where it is padding
 
 [seq.encoder]
 model = "encoder.onnx"
 input = "image"
 outputs = ["cross_k", "cross_v"]
+layout = "LBHTD"            # layers, batch, heads, frames, head size
 
 [seq.decoder_step]
 model = "decoder_step.onnx"
 tokens = "tokens"
 step = "step"
-past_k = "past_k"
-past_v = "past_v"
+past = ["past_k", "past_v"]
+present = ["present_k", "present_v"]
 memory = ["cross_k", "cross_v"]
 memory_mask = "memory_mask"
 log_probs = "log_probs"
-present_k = "present_k"
-present_v = "present_v"
-cache_layout = "LBHTD"   # layers, batch, heads, positions, head size
+cache_layout = "LBHTD"      # layers, batch, heads, positions, head size
 
 [seq.decoder_full]
 model = "decoder_full.onnx"

@@ -1,0 +1,345 @@
+"""Autoregressive (encoder-decoder) recognisers: encoder once per batch, then one token per step.
+
+The encoder turns a batch of line images into a memory; the decoder then emits
+one token per step for every line still running, until each line's end token
+or the max-tokens guard. Its cost therefore grows with the length of each
+line -- the figure the whole project is about.
+
+Two decoder graphs may be declared by the card:
+
+* ``decoder_step`` (cached): takes the last token and the key/value cache of
+  the earlier positions, returns the next-token log-probabilities and the
+  extended cache -- one position of work per step;
+* ``decoder_full`` (uncached): takes the whole prefix every step and recomputes
+  it -- quadratic work, kept for comparison and for models without a cache.
+
+Decoding is greedy (best token each step) or beam search. Greedy runs all
+lines of a batch together; a line that emits its end token is either dropped
+from the batch (``batch_mode="drop"``: its rows of the cache and memory are
+removed) or kept in and ignored (``"mask"``). Beam search also runs every
+line's hypotheses together in one decoder call per step and stops a line as
+soon as no running hypothesis can beat its best finished one (scores are sums
+of log-probabilities and can only fall), so it is exact with respect to its
+beam.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from ocrbench.errors import CardError, OcrbenchError
+from ocrbench.recognisers.base import (BatchTiming, Clock, EngineOptions, LineResult, PreparedBatch, Recogniser,
+                                       make_session, onnx_dtype, share_time, valid_frames)
+from ocrbench.recognisers.card import Card
+
+
+@dataclass
+class Decoded:
+    """One line's decoder output before detokenisation."""
+
+    tokens: list[int]                # emitted tokens, end token excluded
+    log_probs: list[float]           # log-probability of each decision (end token included when ended)
+    ended: bool                      # False: stopped by the max-tokens guard
+
+    @property
+    def steps(self) -> int:
+        return len(self.tokens) + (1 if self.ended else 0)
+
+
+class _Timer:
+    """Accumulates the time spent inside decoder session runs."""
+
+    def __init__(self, clock: Clock):
+        self.clock = clock
+        self.t = 0.0
+
+
+class SeqRecogniser(Recogniser):
+    """A card of kind ``seq``: encoder, then a cached or uncached decoder loop."""
+
+    def __init__(self, card: Card, options: EngineOptions):
+        super().__init__(card, options)
+        s = self.s = card.seq
+        self.cached = bool(options.use_cache and s.decoder_step is not None)
+        if not self.cached and s.decoder_full is None:
+            raise OcrbenchError(f"{card.path}: uncached decoding was asked for but the card declares no "
+                                "[seq.decoder_full] graph")
+        self.encoder = make_session(s.encoder.model, options, "encoder")
+        self.step_session = make_session(s.decoder_step.model, options, "decoder_step") if self.cached else None
+        self.full_session = (make_session(s.decoder_full.model, options, "decoder_full")
+                             if not self.cached else None)
+        self.max_tokens = options.max_tokens or s.max_tokens
+        d = s.decoder_step if self.cached else s.decoder_full
+        g = d.graph
+        self.tok_dtype = onnx_dtype(g.inputs[d.tokens].elem_type, np.int64)
+        self.mask_dtype = onnx_dtype(g.inputs[d.memory_mask].elem_type) if d.memory_mask else None
+        if self.cached:
+            ds = s.decoder_step
+            self.step_dtype = onnx_dtype(g.inputs[ds.step].elem_type, np.int64) if ds.step else None
+            self.step_rank = g.inputs[ds.step].rank if ds.step else None
+            self.cache_shapes = []
+            for name in ds.past:
+                ti = g.inputs[name]
+                self.cache_shapes.append((ti.shape, onnx_dtype(ti.elem_type)))
+            self.fetch = [ds.log_probs, *ds.present]
+        else:
+            self.fetch = [s.decoder_full.log_probs]
+
+    def _sessions(self) -> list:
+        return [self.encoder, self.step_session or self.full_session]
+
+    # ------------------------------------------------------------------ pieces
+
+    def encode(self, tensor: np.ndarray, widths: np.ndarray) -> tuple[list[np.ndarray], np.ndarray | None]:
+        """Run the encoder; return the memory tensors and the (B, frames) memory mask."""
+        e = self.s.encoder
+        memory = self.encoder.run(list(e.outputs), {e.input: tensor})
+        return memory, self._mask(memory, widths, tensor.shape[-1])
+
+    def _mask(self, memory, widths, padded_width) -> np.ndarray | None:
+        if self.mask_dtype is None:
+            return None
+        S = memory[0].shape[self.s.encoder.frames_axis]
+        valid = valid_frames(widths, padded_width, S, self.s.frames_per_pixel)
+        real = np.arange(S)[None, :] < valid[:, None]
+        m = np.where(real, self.s.mask_valid, self.s.mask_padded)
+        if self.mask_dtype == np.bool_:
+            return real if self.s.mask_valid else ~real
+        return m.astype(self.mask_dtype)
+
+    def _init_cache(self, rows: int) -> list[np.ndarray]:
+        ds = self.s.decoder_step
+        out = []
+        for shape, dtype in self.cache_shapes:
+            dims = [int(d) if isinstance(d, int) and d > 0 else 0 for d in shape]
+            dims[ds.batch_axis] = rows
+            dims[ds.time_axis] = 0
+            out.append(np.zeros(dims, dtype))
+        return out
+
+    def _step_value(self, step: int) -> np.ndarray:
+        v = np.array(step, dtype=self.step_dtype)
+        return v.reshape(1) if self.step_rank == 1 else v
+
+    def decoder(self, hist: np.ndarray, cache: list[np.ndarray] | None, memory: list[np.ndarray],
+                mask: np.ndarray | None, step: int, timer: _Timer) -> tuple[np.ndarray, list[np.ndarray] | None]:
+        """One decoder call for R rows. ``hist``: (R, step+1) tokens so far (BOS first).
+
+        Returns the (R, V) log-probabilities of the next token and the new cache (cached mode).
+        """
+        if self.cached:
+            ds = self.s.decoder_step
+            feeds = {ds.tokens: hist[:, -1:].astype(self.tok_dtype, copy=False)}
+            if ds.step:
+                feeds[ds.step] = self._step_value(step)
+            for name, c in zip(ds.past, cache):
+                feeds[name] = c
+            for name, m in zip(ds.memory, memory):
+                feeds[name] = m
+            if ds.memory_mask:
+                feeds[ds.memory_mask] = mask
+            t0 = timer.clock()
+            outs = self.step_session.run(self.fetch, feeds)
+            timer.t += timer.clock() - t0
+            return outs[0], outs[1:]
+        df = self.s.decoder_full
+        feeds = {df.tokens: hist.astype(self.tok_dtype, copy=False)}
+        for name, m in zip(df.memory, memory):
+            feeds[name] = m
+        if df.memory_mask:
+            feeds[df.memory_mask] = mask
+        t0 = timer.clock()
+        outs = self.full_session.run(self.fetch, feeds)
+        timer.t += timer.clock() - t0
+        return outs[0], None
+
+    def _take_rows(self, memory, mask, cache, idx: np.ndarray):
+        ba = self.s.encoder.batch_axis
+        memory = [np.take(m, idx, axis=ba) for m in memory]
+        mask = None if mask is None else mask[idx]
+        if cache is not None:
+            ca = self.s.decoder_step.batch_axis
+            cache = [np.take(c, idx, axis=ca) for c in cache]
+        return memory, mask, cache
+
+    # ------------------------------------------------------------------ greedy
+
+    def greedy(self, memory, mask, *, timer: _Timer, max_tokens: int | None = None,
+               batch_mode: str | None = None) -> list[Decoded]:
+        """Batched greedy decoding of every line of the batch."""
+        max_tokens = max_tokens or self.max_tokens
+        mode = batch_mode or self.options.batch_mode
+        s = self.s
+        B = memory[0].shape[s.encoder.batch_axis]
+        out = [Decoded([], [], False) for _ in range(B)]
+        rows = np.arange(B)                     # line of each decoder row
+        active = np.ones(B, bool)               # mask mode: rows still running
+        hist = np.full((B, 1), s.bos_index, np.int64)
+        cache = self._init_cache(B) if self.cached else None
+        for step in range(max_tokens):
+            lp, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
+            nxt = np.argmax(lp, axis=1)
+            best = lp[np.arange(len(nxt)), nxt]
+            fin = nxt == s.eos_index
+            for r in (range(len(rows)) if mode == "drop" else np.flatnonzero(active)):
+                d = out[rows[r]]
+                d.log_probs.append(float(best[r]))
+                if fin[r]:
+                    d.ended = True
+                else:
+                    d.tokens.append(int(nxt[r]))
+            cache = new_cache
+            if mode == "drop":
+                if fin.all():
+                    break
+                if fin.any():
+                    keep = np.flatnonzero(~fin)
+                    rows, nxt, hist = rows[keep], nxt[keep], hist[keep]
+                    memory, mask, cache = self._take_rows(memory, mask, cache, keep)
+            else:
+                active &= ~fin
+                if not active.any():
+                    break
+                nxt = np.where(active, nxt, s.eos_index)
+            hist = np.concatenate([hist, nxt[:, None]], axis=1)
+        return out
+
+    # ------------------------------------------------------------------ beam
+
+    def beam(self, memory, mask, *, timer: _Timer, beam_width: int | None = None,
+             max_tokens: int | None = None) -> list[Decoded]:
+        """Beam search for every line of the batch, all hypotheses in one decoder call per step."""
+        K = beam_width or self.options.beam_width
+        max_tokens = max_tokens or self.max_tokens
+        s = self.s
+        eos = s.eos_index
+        B = memory[0].shape[s.encoder.batch_axis]
+        # running hypotheses: per row (line, score, tokens, log_probs)
+        hyps: list[tuple[int, float, list[int], list[float]]] = [(b, 0.0, [], []) for b in range(B)]
+        finished: list[list[tuple[float, list[int], list[float], bool]]] = [[] for _ in range(B)]
+        hist = np.full((B, 1), s.bos_index, np.int64)
+        cache = self._init_cache(B) if self.cached else None
+        row_lines = np.arange(B)
+        mem_rows, mask_rows = memory, mask
+        for step in range(max_tokens):
+            lp, new_cache = self.decoder(hist, cache, mem_rows, mask_rows, step, timer)
+            V = lp.shape[1]
+            n_top = min(V, K + 1)
+            top = np.argpartition(-lp, n_top - 1, axis=1)[:, :n_top] if n_top < V else np.tile(np.arange(V), (len(lp), 1))
+            last = step == max_tokens - 1
+            new_hyps, parents, next_tok = [], [], []
+            r = 0
+            while r < len(hyps):
+                line = hyps[r][0]
+                r_end = r
+                while r_end < len(hyps) and hyps[r_end][0] == line:
+                    r_end += 1
+                cands = []
+                for rr in range(r, r_end):
+                    _, score, toks, lps = hyps[rr]
+                    for tok in sorted(top[rr].tolist()):
+                        cands.append((score + float(lp[rr, tok]), rr, tok))
+                cands.sort(key=lambda c: -c[0])      # stable: ties keep row, then token order
+                alive = []
+                for score, rr, tok in cands:
+                    _, _, toks, lps = hyps[rr]
+                    if tok == eos:
+                        finished[line].append((score, toks, lps + [float(lp[rr, tok])], True))
+                    else:
+                        alive.append((score, rr, tok))
+                        if len(alive) == K:
+                            break
+                if last:
+                    for score, rr, tok in alive:
+                        _, _, toks, lps = hyps[rr]
+                        finished[line].append((score, toks + [tok], lps + [float(lp[rr, tok])], False))
+                    alive = []
+                best_fin = max((f[0] for f in finished[line]), default=None)
+                if alive and (best_fin is None or alive[0][0] > best_fin):
+                    for score, rr, tok in alive:
+                        _, _, toks, lps = hyps[rr]
+                        new_hyps.append((line, score, toks + [tok], lps + [float(lp[rr, tok])]))
+                        parents.append(rr)
+                        next_tok.append(tok)
+                r = r_end
+            if not new_hyps:
+                break
+            idx = np.asarray(parents)
+            hist = np.concatenate([hist[idx], np.asarray(next_tok, np.int64)[:, None]], axis=1)
+            if new_cache is not None:
+                ca = s.decoder_step.batch_axis
+                cache = [np.take(c, idx, axis=ca) for c in new_cache]
+            lines = np.asarray([h[0] for h in new_hyps])
+            if not np.array_equal(lines, row_lines):
+                row_lines = lines
+                mem_rows, mask_rows, _ = self._take_rows(memory, mask, None, row_lines)
+            hyps = new_hyps
+        out = []
+        for b in range(B):
+            if not finished[b]:
+                out.append(Decoded([], [], False))
+                continue
+            best = max(range(len(finished[b])), key=lambda i: (finished[b][i][0], -i))
+            score, toks, lps, ended = finished[b][best]
+            out.append(Decoded(list(toks), list(lps), ended))
+        return out
+
+    # ------------------------------------------------------------------ batch
+
+    def detokenise(self, d: Decoded) -> tuple[str, float, list[float]]:
+        """Text, line confidence (geometric mean of the decision probabilities) and per-character confidences."""
+        sym = self.s.symbols
+        text, chars = [], []
+        for tok, lp in zip(d.tokens, d.log_probs):
+            piece = sym[tok] if 0 <= tok < len(sym) else ""
+            text.append(piece)
+            chars += [float(np.exp(lp))] * len(piece)
+        conf = float(np.exp(np.mean(d.log_probs))) if d.log_probs else 1.0
+        return "".join(text), conf, chars
+
+    def run_batch(self, pb: PreparedBatch, *, clock: Clock = time.perf_counter,
+                  max_tokens: int | None = None) -> tuple[list[LineResult], BatchTiming]:
+        t0 = clock()
+        memory, mask = self.encode(pb.tensor, pb.widths)
+        t1 = clock()
+        timer = _Timer(clock)
+        if self.options.decoding == "beam":
+            decoded = self.beam(memory, mask, timer=timer, max_tokens=max_tokens)
+        else:
+            decoded = self.greedy(memory, mask, timer=timer, max_tokens=max_tokens)
+        results = []
+        for b, d in enumerate(decoded):
+            text, conf, chars = self.detokenise(d)
+            results.append(LineResult(text=text, confidence=conf, char_confidences=chars, steps=d.steps,
+                                      width_px=int(pb.widths[b]), batch_no=pb.batch_no, tokens=len(d.tokens),
+                                      truncated=not d.ended))
+        t2 = clock()
+        frames = int(memory[0].shape[self.s.encoder.frames_axis])
+        n_steps = [r.steps for r in results]
+        n_tok = [r.tokens for r in results]
+        timing = BatchTiming(batch_no=pb.batch_no, n_lines=len(results), padded_width=int(pb.tensor.shape[-1]),
+                             sum_width=int(np.sum(pb.widths)), frames=frames, steps_max=max(n_steps, default=0),
+                             tokens_sum=int(sum(n_tok)), tokens_sq_sum=int(sum(n * n for n in n_tok)),
+                             t_preprocess=pb.t_preprocess, t_encode=t1 - t0, t_steps=timer.t,
+                             t_collapse=(t2 - t1) - timer.t)
+        enc = share_time(timing.t_encode, [float(w) for w in pb.widths])
+        dec = share_time(timing.t_steps + timing.t_collapse, [float(n) for n in n_steps])
+        for r, a, b in zip(results, enc, dec):
+            r.t_line = a + b
+        return results, timing
+
+    def warm_up(self) -> None:
+        w = max(self.spec.min_width, 32 * self.spec.width_multiple)
+        blank = np.full((self.spec.height, w), 255, np.uint8)
+        for pb in self.prepare([blank, blank[:, : w // 2]]):
+            _, timing = self.run_batch(pb, max_tokens=3)
+        # a vocabulary axis left free in the graph is checked here, on real output
+        memory, mask = self.encode(self.prepare([blank])[0].tensor, np.array([w]))
+        lp, _ = self.decoder(np.full((1, 1), self.s.bos_index, np.int64),
+                             self._init_cache(1) if self.cached else None, memory, mask, 0, _Timer(time.perf_counter))
+        if lp.shape[-1] != len(self.s.symbols):
+            raise CardError(self.card.path, f"field 'seq.vocab': the vocabulary has {len(self.s.symbols)} entries "
+                                            f"but the decoder scores {lp.shape[-1]} tokens")

@@ -1,0 +1,341 @@
+"""Run recognisers over pages, page by page, timing every stage and writing the run store.
+
+For each page: load it, find its lines (once, shared by every recogniser so
+they compare on the same crops), then let each recogniser read the lines and
+write the page with its lines and batches to the store in one transaction.
+A page that cannot be loaded or read is written as failed with the reason and
+the run goes on. Rerunning the same command resumes: the same card hash, the
+same settings and the same input folder name the same run, and its finished
+pages are skipped.
+
+Time is read from ``clock`` (monotonic, replaceable in tests). Session
+creation and warm-up happen before the first page, outside every timing.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import platform
+import socket
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Callable, Sequence
+
+import numpy as np
+
+from ocrbench.errors import InputError, OcrbenchError, StoreError
+from ocrbench.pages import DEFAULT_MAX_PIXELS, PageRef, analyse_page, list_pages, load_page
+from ocrbench.recognisers.base import Clock, EngineOptions, LineResult, Recogniser, open_recogniser
+from ocrbench.recognisers.card import Card, load_card
+from ocrbench.store import BatchRecord, LineRecord, PageRecord, RunStore
+
+PostProcess = Callable[[list[str], list[float]], list[str]]
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """Options of a run: the engine options plus page handling. All are recorded as the run's settings."""
+
+    engine: EngineOptions = field(default_factory=EngineOptions)
+    deskew: bool = True
+    max_pixels: int = DEFAULT_MAX_PIXELS
+    warm_up: bool = True
+
+    def settings(self, postprocess: PostProcess | None) -> dict:
+        d = self.engine.to_dict()
+        d.update(deskew=self.deskew, max_pixels=self.max_pixels,
+                 postprocess=None if postprocess is None else _callable_name(postprocess))
+        return d
+
+
+@dataclass(frozen=True)
+class ProgressEvent:
+    """Passed to the progress callback: once at the start ("start") and after each page ("page")."""
+
+    kind: str
+    pages_total: int
+    pages_done: int                  # pages finished in this call, skipped ones included
+    pages_skipped: int               # pages every recogniser had already finished (resume)
+    pages_failed: int
+    lines_done: int                  # lines recognised in this call, summed over recognisers
+    page_id: str | None = None
+    failed: bool = False
+    elapsed: float = 0.0
+
+
+@dataclass
+class RecogniserSummary:
+    """One recogniser's run, counted over the whole run (earlier, resumed sessions included)."""
+
+    name: str
+    kind: str
+    run_id: int
+    card_hash: str
+    resumed: bool
+    pages_done: int
+    pages_failed: int
+    pages_new: int                   # pages written in this call
+    lines: int
+    chars: int
+    model_seconds: float             # encoder/model + decoder steps + collapse, summed over pages
+    page_seconds_p50: float | None
+    page_seconds_p90: float | None
+    page_seconds_p99: float | None
+    pages_per_hour: float | None     # one stream: 3600 * pages / sum of page times
+    lines_per_second: float | None
+    failures: list[tuple[str, str]] = field(default_factory=list)
+
+
+@dataclass
+class RunSummary:
+    input_dir: str
+    pages_total: int
+    pages_processed: int             # pages at least one recogniser worked on in this call
+    pages_skipped: int
+    wall_seconds: float
+    recognisers: list[RecogniserSummary]
+
+    @property
+    def failed_pages(self) -> list[str]:
+        """Distinct page ids that failed for at least one recogniser."""
+        return sorted({pid for r in self.recognisers for pid, _ in r.failures})
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["failed_pages"] = self.failed_pages
+        for r in d["recognisers"]:
+            r["failures"] = [{"page_id": p, "error": e} for p, e in r["failures"]]
+        return d
+
+
+def _callable_name(fn) -> str:
+    return f"{getattr(fn, '__module__', '?')}.{getattr(fn, '__qualname__', type(fn).__name__)}"
+
+
+def file_sha256(path: Path) -> str | None:
+    """sha256 of a page file, or None when it cannot be read."""
+    h = hashlib.sha256()
+    try:
+        with open(path, "rb") as f:
+            for chunk in iter(lambda: f.read(1 << 20), b""):
+                h.update(chunk)
+    except OSError:
+        return None
+    return h.hexdigest()
+
+
+def _cpu_model() -> str:
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.lower().startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or platform.machine()
+
+
+def host_info(rec: Recogniser) -> dict:
+    """What the planner needs to know about the machine and engine a run was measured on."""
+    import onnxruntime as ort
+
+    try:
+        import psutil
+
+        physical = psutil.cpu_count(logical=False)
+    except Exception:  # noqa: BLE001 - psutil is optional here
+        physical = None
+    return {"cpu_model": _cpu_model(), "cores": os.cpu_count(), "physical_cores": physical,
+            "os": platform.platform(), "python": platform.python_version(), "onnxruntime": ort.__version__,
+            "providers": rec.providers, "intra_threads": rec.options.intra_threads,
+            "inter_threads": rec.options.inter_threads, "hostname": socket.gethostname()}
+
+
+def _percentile(values: Sequence[float], q: float) -> float | None:
+    return float(np.percentile(np.asarray(values, dtype=float), q)) if len(values) else None
+
+
+def _line_records(layout_lines, results: list[LineResult], post: list[str] | None) -> list[LineRecord]:
+    out = []
+    for i, (box, r) in enumerate(zip(layout_lines, results)):
+        out.append(LineRecord(line_no=i + 1, x0=int(box.x0), y0=int(box.y0), x1=int(box.x1), y1=int(box.y1),
+                              width_px=r.width_px, text=r.text, text_post=None if post is None else post[i],
+                              confidence=float(r.confidence), char_conf=list(r.char_confidences),
+                              n_chars=len(r.text), steps=r.steps, batch_no=r.batch_no, t_line=r.t_line))
+    return out
+
+
+@dataclass
+class _RunState:
+    card: Card
+    rec: Recogniser
+    run_id: int
+    resumed: bool
+    done: set[str]
+    new: int = 0
+
+
+def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: RunStore | Path | str,
+              options: RunOptions | EngineOptions | None = None, clock: Clock = time.perf_counter,
+              progress: Callable[[ProgressEvent], None] | None = None, postprocess: PostProcess | None = None,
+              fresh: bool = False) -> RunSummary:
+    """Recognise every page of ``target`` (a folder or one file) with every card, into ``store``.
+
+    ``postprocess`` (optional) maps a page's (raw texts, line confidences) to
+    corrected texts, stored in ``lines.text_post``; the raw text is kept.
+    ``fresh`` starts new runs instead of resuming matching ones. Raises
+    CardError / StoreError / InputError for problems that stop everything;
+    problems of one page are recorded as a failed page.
+    """
+    if isinstance(options, EngineOptions):
+        options = RunOptions(engine=options)
+    options = options or RunOptions()
+    cards = [c if isinstance(c, Card) else load_card(c) for c in cards]
+    if not cards:
+        raise OcrbenchError("no recogniser given")
+    names = [c.name for c in cards]
+    if len(set(names)) != len(names):
+        raise OcrbenchError(f"two recognisers share the name {sorted({n for n in names if names.count(n) > 1})[0]!r}; "
+                            "give each card a distinct name")
+    target = Path(target)
+    refs = list_pages(target)
+    input_dir = str((target if target.is_dir() else target.parent).resolve())
+    own_store = not isinstance(store, RunStore)
+    st = RunStore(store) if own_store else store
+    try:
+        settings = options.settings(postprocess)
+        states: list[_RunState] = []
+        for card in cards:
+            rec = open_recogniser(card, options=options.engine, warm_up=options.warm_up)
+            run_id = None if fresh else st.find_run(card_hash=card.card_hash, settings=settings, input_dir=input_dir)
+            resumed = run_id is not None
+            if run_id is None:
+                run_id = st.start_run(recogniser=card.name, kind=card.kind, card_path=str(card.path),
+                                      card_hash=card.card_hash, settings=settings, input_dir=input_dir,
+                                      host=host_info(rec), engine=f"onnxruntime {_ort_version()}")
+            done = {pid for pid, (status, _) in st.page_status(run_id).items() if status == "done"}
+            states.append(_RunState(card, rec, run_id, resumed, done))
+        return _run(refs, states, st, options, clock, progress, postprocess, input_dir)
+    finally:
+        if own_store:
+            st.close()
+
+
+def _ort_version() -> str:
+    import onnxruntime as ort
+
+    return ort.__version__
+
+
+def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: RunOptions, clock: Clock,
+         progress, postprocess, input_dir: str) -> RunSummary:
+    start = clock()
+    total = len(refs)
+    skipped_ids = {r.id for r in refs if all(r.id in s.done for s in states)}
+    n_done = n_failed = n_lines = n_processed = 0
+    n_skipped = len(skipped_ids)
+
+    def emit(kind, page_id=None, failed=False):
+        if progress is not None:
+            progress(ProgressEvent(kind=kind, pages_total=total, pages_done=n_done, pages_skipped=n_skipped,
+                                   pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
+                                   elapsed=clock() - start))
+
+    emit("start")
+    for ref in refs:
+        page_id = ref.id
+        if page_id in skipped_ids:
+            n_done += 1
+            emit("page", page_id)
+            continue
+        todo = [s for s in states if page_id not in s.done]
+        n_processed += 1
+        chash = file_sha256(Path(ref.path))
+        path = ref.display()
+        page_failed = False
+        t0 = clock()
+        t_load = t_segment = None
+        try:
+            page = load_page(ref, max_pixels=options.max_pixels)
+            t1 = clock()
+            t_load = t1 - t0
+            layout = analyse_page(page.gray, deskew=options.deskew)
+            t_segment = clock() - t1
+        except StoreError:
+            raise
+        except Exception as e:  # noqa: BLE001 - one bad page must not stop the run; the reason is stored
+            reason = _reason(e)
+            for s in todo:
+                st.write_page(s.run_id, PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
+                                                   error=reason, t_load=t_load, t_segment=t_segment))
+                s.new += 1
+            n_done += 1
+            n_failed += 1
+            emit("page", page_id, failed=True)
+            continue
+        crops = [lb.crop for lb in layout.lines]
+        h, w = page.gray.shape[:2]
+        for s in todo:
+            t3 = clock()
+            try:
+                results, timings = s.rec.recognise(crops, clock=clock) if crops else ([], [])
+                t4 = clock()
+                post = None
+                if postprocess is not None:
+                    post = list(postprocess([r.text for r in results], [r.confidence for r in results]))
+                    if len(post) != len(results):
+                        raise OcrbenchError(f"post-processing returned {len(post)} lines for {len(results)}")
+                t5 = clock()
+            except StoreError:
+                raise
+            except Exception as e:  # noqa: BLE001 - recorded as a failed page
+                st.write_page(s.run_id, PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
+                                                   error=_reason(e), width=w, height=h, n_lines=len(crops),
+                                                   skew_degrees=layout.skew_degrees, t_load=t_load,
+                                                   t_segment=t_segment))
+                s.new += 1
+                page_failed = True
+                continue
+            rec = PageRecord(
+                page_id=page_id, path=path, content_hash=chash, status="done", width=w, height=h,
+                n_lines=len(crops), skew_degrees=float(layout.skew_degrees), t_load=t_load, t_segment=t_segment,
+                t_preprocess=sum(b.t_preprocess for b in timings), t_encode=sum(b.t_encode for b in timings),
+                t_steps=sum(b.t_steps for b in timings), t_collapse=sum(b.t_collapse for b in timings),
+                t_postprocess=(t5 - t4) if postprocess is not None else 0.0,
+                t_total=t_load + t_segment + (t5 - t3))
+            st.write_page(s.run_id, rec, _line_records(layout.lines, results, post),
+                          [BatchRecord(**asdict(b)) for b in timings])
+            s.new += 1
+            s.done.add(page_id)
+            n_lines += len(results)
+        n_done += 1
+        n_failed += page_failed
+        emit("page", page_id, failed=page_failed)
+    wall = clock() - start
+    for s in states:
+        st.finish_run(s.run_id)
+    return RunSummary(input_dir=input_dir, pages_total=total, pages_processed=n_processed, pages_skipped=n_skipped,
+                      wall_seconds=wall, recognisers=[_summary(st, s) for s in states])
+
+
+def _reason(e: BaseException) -> str:
+    if isinstance(e, InputError):
+        return e.reason
+    if isinstance(e, OcrbenchError):
+        return str(e)
+    return f"{type(e).__name__}: {e}"
+
+
+def _summary(st: RunStore, s: _RunState) -> RecogniserSummary:
+    tot = st.run_totals(s.run_id)
+    times = tot["t_total"]
+    busy = sum(times)
+    return RecogniserSummary(
+        name=s.card.name, kind=s.card.kind, run_id=s.run_id, card_hash=s.card.card_hash, resumed=s.resumed,
+        pages_done=tot["pages_done"], pages_failed=tot["pages_failed"], pages_new=s.new, lines=tot["lines"],
+        chars=tot["chars"], model_seconds=tot["model_seconds"], page_seconds_p50=_percentile(times, 50),
+        page_seconds_p90=_percentile(times, 90), page_seconds_p99=_percentile(times, 99),
+        pages_per_hour=3600.0 * len(times) / busy if busy > 0 else None,
+        lines_per_second=tot["lines"] / busy if busy > 0 else None,
+        failures=st.failed_pages(s.run_id))

@@ -1,0 +1,474 @@
+"""The run store: one SQLite file that holds every run, page, line and batch.
+
+Why SQLite: one file a person can copy, open with any SQLite tool, and append
+to from a long run without a server. The journal is in WAL mode and every page
+is written in one transaction, so a killed process loses at most the page it
+was working on; readers (report, planner) can read while a run writes.
+
+The tables and their column names are a contract (see the project's
+CONTRACTS notes): the planner, the report and the accuracy code read them.
+``meta`` holds ``schema_version``; a store written by another schema version is
+refused with a StoreError rather than misread.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import sqlite3
+from dataclasses import asdict, dataclass, field, fields
+from pathlib import Path
+from typing import Iterable, Sequence
+
+from ocrbench.errors import StoreError
+
+SCHEMA_VERSION = 1
+
+TABLES = ("runs", "pages", "lines", "batches")
+
+_DDL = """
+CREATE TABLE IF NOT EXISTS meta(
+    key TEXT PRIMARY KEY,
+    value TEXT
+);
+CREATE TABLE IF NOT EXISTS runs(
+    run_id INTEGER PRIMARY KEY,
+    recogniser TEXT NOT NULL,
+    kind TEXT NOT NULL,
+    card_path TEXT,
+    card_hash TEXT NOT NULL,
+    settings_json TEXT NOT NULL,
+    input_dir TEXT NOT NULL,
+    host_json TEXT,
+    engine TEXT,
+    ocrbench_version TEXT,
+    started_at TEXT,
+    finished_at TEXT
+);
+CREATE INDEX IF NOT EXISTS runs_identity ON runs(card_hash, input_dir);
+CREATE TABLE IF NOT EXISTS pages(
+    run_id INTEGER NOT NULL REFERENCES runs(run_id),
+    page_id TEXT NOT NULL,
+    path TEXT,
+    content_hash TEXT,
+    status TEXT NOT NULL CHECK (status IN ('done', 'failed')),
+    error TEXT,
+    width INTEGER,
+    height INTEGER,
+    n_lines INTEGER,
+    skew_degrees REAL,
+    t_load REAL,
+    t_segment REAL,
+    t_preprocess REAL,
+    t_encode REAL,
+    t_steps REAL,
+    t_collapse REAL,
+    t_postprocess REAL,
+    t_total REAL,
+    finished_at TEXT,
+    PRIMARY KEY (run_id, page_id)
+);
+CREATE TABLE IF NOT EXISTS lines(
+    run_id INTEGER NOT NULL,
+    page_id TEXT NOT NULL,
+    line_no INTEGER NOT NULL,
+    x0 INTEGER, y0 INTEGER, x1 INTEGER, y1 INTEGER,
+    width_px INTEGER,
+    text TEXT,
+    text_post TEXT,
+    confidence REAL,
+    char_conf_json TEXT,
+    n_chars INTEGER,
+    steps INTEGER,
+    batch_no INTEGER,
+    t_line REAL,
+    PRIMARY KEY (run_id, page_id, line_no)
+);
+CREATE TABLE IF NOT EXISTS batches(
+    run_id INTEGER NOT NULL,
+    page_id TEXT NOT NULL,
+    batch_no INTEGER NOT NULL,
+    n_lines INTEGER,
+    padded_width INTEGER,
+    sum_width INTEGER,
+    frames INTEGER,
+    steps_max INTEGER,
+    tokens_sum INTEGER,
+    tokens_sq_sum INTEGER,
+    t_preprocess REAL,
+    t_encode REAL,
+    t_steps REAL,
+    t_collapse REAL,
+    PRIMARY KEY (run_id, page_id, batch_no)
+);
+"""
+
+
+def now_iso() -> str:
+    """The current UTC time, ISO 8601 to the second."""
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+
+
+@dataclass
+class PageRecord:
+    """One row of ``pages``."""
+
+    page_id: str
+    path: str
+    content_hash: str | None
+    status: str                      # "done" | "failed"
+    error: str | None = None
+    width: int | None = None
+    height: int | None = None
+    n_lines: int | None = None
+    skew_degrees: float | None = None
+    t_load: float | None = None
+    t_segment: float | None = None
+    t_preprocess: float | None = None
+    t_encode: float | None = None
+    t_steps: float | None = None
+    t_collapse: float | None = None
+    t_postprocess: float | None = None
+    t_total: float | None = None
+    finished_at: str | None = None
+
+
+@dataclass
+class LineRecord:
+    """One row of ``lines`` (without run and page)."""
+
+    line_no: int
+    x0: int
+    y0: int
+    x1: int
+    y1: int
+    width_px: int
+    text: str
+    text_post: str | None
+    confidence: float
+    char_conf: list[float] = field(default_factory=list)
+    n_chars: int = 0
+    steps: int = 0
+    batch_no: int = 0
+    t_line: float = 0.0
+
+
+@dataclass
+class BatchRecord:
+    """One row of ``batches`` (without run and page)."""
+
+    batch_no: int
+    n_lines: int
+    padded_width: int
+    sum_width: int
+    frames: int
+    steps_max: int
+    tokens_sum: int
+    tokens_sq_sum: int
+    t_preprocess: float
+    t_encode: float
+    t_steps: float
+    t_collapse: float
+
+
+@dataclass(frozen=True)
+class RunInfo:
+    """One row of ``runs``, settings and host decoded."""
+
+    run_id: int
+    recogniser: str
+    kind: str
+    card_path: str
+    card_hash: str
+    settings: dict
+    input_dir: str
+    host: dict
+    engine: str
+    ocrbench_version: str
+    started_at: str
+    finished_at: str | None
+
+
+def _explain(path: Path, e: sqlite3.Error, doing: str) -> StoreError:
+    msg = str(e).lower()
+    if "readonly" in msg or "read-only" in msg:
+        why = "the store is read-only (check the file's and its folder's permissions)"
+    elif "disk is full" in msg or "disk i/o" in msg and "full" in msg:
+        why = "the disk is full (or the store reached its size limit); free space and rerun to resume"
+    elif "unable to open" in msg:
+        why = "cannot open or create the store here (missing or read-only folder?)"
+    elif "not a database" in msg or "malformed" in msg:
+        why = "this file is not an ocrbench run store (or it is damaged)"
+    elif "locked" in msg or "busy" in msg:
+        why = "another process holds the store locked; try again when it has finished"
+    else:
+        why = f"SQLite error: {e}"
+    return StoreError(f"{path}: {doing}: {why}")
+
+
+def _settings_key(settings: dict) -> str:
+    return json.dumps(settings, sort_keys=True, separators=(",", ":"))
+
+
+class RunStore:
+    """A run store at ``path`` (created if missing unless ``read_only``).
+
+    Use as a context manager or call :meth:`close`. Every method raises
+    StoreError (naming the file and what to do) rather than a raw sqlite3 error.
+    """
+
+    def __init__(self, path: Path | str, *, read_only: bool = False, timeout: float = 30.0):
+        self.path = Path(path)
+        self.read_only = read_only
+        if read_only and not self.path.is_file():
+            raise StoreError(f"{self.path}: run store not found")
+        if not read_only and not self.path.parent.exists():
+            raise StoreError(f"{self.path}: the folder {self.path.parent} does not exist")
+        if self.path.is_dir():
+            raise StoreError(f"{self.path}: is a folder, not a store file")
+        try:
+            if read_only:
+                self.con = sqlite3.connect(f"{self.path.resolve().as_uri()}?mode=ro", uri=True,
+                                           timeout=timeout, isolation_level=None)
+            else:
+                self.con = sqlite3.connect(str(self.path), timeout=timeout, isolation_level=None)
+            self.con.execute("PRAGMA busy_timeout = %d" % int(timeout * 1000))
+            if not read_only:
+                mode = self.con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+                if str(mode).lower() != "wal":
+                    raise StoreError(f"{self.path}: cannot switch the store to WAL mode (got {mode!r})")
+                self.con.execute("PRAGMA synchronous = NORMAL")
+            self._check_schema()
+        except sqlite3.Error as e:
+            raise _explain(self.path, e, "opening the run store") from e
+
+    # ------------------------------------------------------------------ plumbing
+
+    def _check_schema(self) -> None:
+        have = {r[0] for r in self.con.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+        if "meta" in have:
+            row = self.con.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+            version = None if row is None else row[0]
+            if str(version) != str(SCHEMA_VERSION):
+                raise StoreError(f"{self.path}: store schema version {version} is not the version this "
+                                 f"ocrbench writes ({SCHEMA_VERSION}); use a new store file")
+            return
+        if have:
+            raise StoreError(f"{self.path}: this SQLite file is not an ocrbench run store "
+                             f"(tables: {', '.join(sorted(have))})")
+        if self.read_only:
+            raise StoreError(f"{self.path}: empty file, not an ocrbench run store")
+        from ocrbench import __version__
+
+        self.con.execute("BEGIN IMMEDIATE")
+        try:
+            for stmt in _DDL.split(";"):
+                if stmt.strip():
+                    self.con.execute(stmt)
+            self.con.executemany("INSERT OR REPLACE INTO meta(key, value) VALUES (?, ?)",
+                                 [("schema_version", str(SCHEMA_VERSION)), ("created_by", f"ocrbench {__version__}"),
+                                  ("created_at", now_iso())])
+            self.con.execute("COMMIT")
+        except BaseException:
+            if self.con.in_transaction:
+                self.con.execute("ROLLBACK")
+            raise
+
+    def close(self) -> None:
+        try:
+            self.con.close()
+        except sqlite3.Error:
+            pass
+
+    def __enter__(self) -> "RunStore":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def _write(self, doing: str, fn) -> object:
+        """Run ``fn(con)`` inside one transaction; map SQLite errors to StoreError."""
+        if self.read_only:
+            raise StoreError(f"{self.path}: {doing}: the store was opened read-only")
+        try:
+            self.con.execute("BEGIN IMMEDIATE")
+            try:
+                out = fn(self.con)
+                self.con.execute("COMMIT")
+                return out
+            except BaseException:
+                if self.con.in_transaction:
+                    self.con.execute("ROLLBACK")
+                raise
+        except sqlite3.Error as e:
+            raise _explain(self.path, e, doing) from e
+
+    def _read(self, sql: str, params: Sequence = ()) -> list[tuple]:
+        try:
+            return self.con.execute(sql, params).fetchall()
+        except sqlite3.Error as e:
+            raise _explain(self.path, e, "reading the run store") from e
+
+    @property
+    def schema_version(self) -> int:
+        return int(self._read("SELECT value FROM meta WHERE key='schema_version'")[0][0])
+
+    @property
+    def journal_mode(self) -> str:
+        return str(self._read("PRAGMA journal_mode")[0][0])
+
+    # ------------------------------------------------------------------ runs
+
+    def find_run(self, *, card_hash: str, settings: dict, input_dir: str) -> int | None:
+        """The latest run with the same card hash, settings and input folder (what resuming continues)."""
+        key = _settings_key(settings)
+        rows = self._read("SELECT run_id, settings_json FROM runs WHERE card_hash=? AND input_dir=? "
+                          "ORDER BY run_id DESC", (card_hash, input_dir))
+        for run_id, sj in rows:
+            try:
+                if _settings_key(json.loads(sj)) == key:
+                    return int(run_id)
+            except json.JSONDecodeError:
+                continue
+        return None
+
+    def start_run(self, *, recogniser: str, kind: str, card_path: str, card_hash: str, settings: dict,
+                  input_dir: str, host: dict, engine: str) -> int:
+        """Insert a new run; returns its run_id."""
+        from ocrbench import __version__
+
+        def do(con):
+            cur = con.execute(
+                "INSERT INTO runs(recogniser, kind, card_path, card_hash, settings_json, input_dir, host_json, "
+                "engine, ocrbench_version, started_at, finished_at) VALUES (?,?,?,?,?,?,?,?,?,?,NULL)",
+                (recogniser, kind, card_path, card_hash, _settings_key(settings), input_dir,
+                 json.dumps(host, sort_keys=True), engine, __version__, now_iso()))
+            return int(cur.lastrowid)
+        return self._write("starting a run", do)  # type: ignore[return-value]
+
+    def finish_run(self, run_id: int) -> None:
+        """Stamp the run's finished_at (again, when a resumed run completes)."""
+        self._write("finishing a run",
+                    lambda con: con.execute("UPDATE runs SET finished_at=? WHERE run_id=?", (now_iso(), run_id)))
+
+    def run_info(self, run_id: int) -> RunInfo:
+        rows = self._read("SELECT run_id, recogniser, kind, card_path, card_hash, settings_json, input_dir, host_json, "
+                          "engine, ocrbench_version, started_at, finished_at FROM runs WHERE run_id=?", (run_id,))
+        if not rows:
+            raise StoreError(f"{self.path}: no run {run_id}")
+        r = rows[0]
+        return RunInfo(int(r[0]), r[1], r[2], r[3], r[4], json.loads(r[5] or "{}"), r[6], json.loads(r[7] or "{}"),
+                       r[8], r[9], r[10], r[11])
+
+    def run_ids(self) -> list[int]:
+        return [int(r[0]) for r in self._read("SELECT run_id FROM runs ORDER BY run_id")]
+
+    # ------------------------------------------------------------------ pages
+
+    def page_status(self, run_id: int) -> dict[str, tuple[str, str | None]]:
+        """page_id -> (status, content_hash) for every page the run has written."""
+        return {r[0]: (r[1], r[2]) for r in
+                self._read("SELECT page_id, status, content_hash FROM pages WHERE run_id=?", (run_id,))}
+
+    def failed_pages(self, run_id: int) -> list[tuple[str, str]]:
+        """(page_id, error) of the run's failed pages, by page_id."""
+        return [(r[0], r[1] or "") for r in
+                self._read("SELECT page_id, error FROM pages WHERE run_id=? AND status='failed' ORDER BY page_id",
+                           (run_id,))]
+
+    def run_totals(self, run_id: int) -> dict:
+        """Counts and page times of one run: pages_done, pages_failed, lines, chars, model_seconds, t_total (list)."""
+        done = self._read("SELECT t_total, COALESCE(t_encode,0)+COALESCE(t_steps,0)+COALESCE(t_collapse,0) "
+                          "FROM pages WHERE run_id=? AND status='done' ORDER BY page_id", (run_id,))
+        failed = self._read("SELECT COUNT(*) FROM pages WHERE run_id=? AND status='failed'", (run_id,))[0][0]
+        lines, chars = self._read("SELECT COUNT(*), COALESCE(SUM(l.n_chars),0) FROM lines l JOIN pages p "
+                                  "ON p.run_id=l.run_id AND p.page_id=l.page_id "
+                                  "WHERE l.run_id=? AND p.status='done'", (run_id,))[0]
+        return {"pages_done": len(done), "pages_failed": int(failed), "lines": int(lines), "chars": int(chars),
+                "model_seconds": float(sum(r[1] for r in done)), "t_total": [float(r[0] or 0.0) for r in done]}
+
+    def write_page(self, run_id: int, page: PageRecord, lines: Iterable[LineRecord] = (),
+                   batches: Iterable[BatchRecord] = ()) -> None:
+        """Write one page with its lines and batches in a single transaction (replacing an earlier attempt)."""
+        if page.status not in ("done", "failed"):
+            raise ValueError(f"page status must be 'done' or 'failed', not {page.status!r}")
+        prow = asdict(page)
+        if prow["finished_at"] is None:
+            prow["finished_at"] = now_iso()
+        pcols = [f.name for f in fields(PageRecord)]
+        lrows = [(run_id, page.page_id, ln.line_no, ln.x0, ln.y0, ln.x1, ln.y1, ln.width_px, ln.text, ln.text_post,
+                  ln.confidence, json.dumps([round(c, 5) for c in ln.char_conf]), ln.n_chars, ln.steps, ln.batch_no,
+                  ln.t_line) for ln in lines]
+        bcols = [f.name for f in fields(BatchRecord)]
+        brows = [(run_id, page.page_id, *[getattr(b, c) for c in bcols]) for b in batches]
+
+        def do(con):
+            key = (run_id, page.page_id)
+            con.execute("DELETE FROM lines WHERE run_id=? AND page_id=?", key)
+            con.execute("DELETE FROM batches WHERE run_id=? AND page_id=?", key)
+            con.execute(f"INSERT OR REPLACE INTO pages(run_id, {', '.join(pcols)}) "
+                        f"VALUES (?, {', '.join('?' * len(pcols))})", (run_id, *[prow[c] for c in pcols]))
+            con.executemany("INSERT INTO lines(run_id, page_id, line_no, x0, y0, x1, y1, width_px, text, text_post, "
+                            "confidence, char_conf_json, n_chars, steps, batch_no, t_line) "
+                            "VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)", lrows)
+            con.executemany(f"INSERT INTO batches(run_id, page_id, {', '.join(bcols)}) "
+                            f"VALUES (?, ?, {', '.join('?' * len(bcols))})", brows)
+        self._write(f"writing page {page.page_id}", do)
+
+    def page_texts(self, run_id: int, *, post: bool = False) -> dict[str, list[str]]:
+        """page_id -> the text of each line (raw; post-processed where present when ``post``), done pages only."""
+        col = "COALESCE(l.text_post, l.text)" if post else "l.text"
+        out: dict[str, list[str]] = {}
+        for pid, _ in self._read("SELECT page_id, n_lines FROM pages WHERE run_id=? AND status='done' "
+                                 "ORDER BY page_id", (run_id,)):
+            out[pid] = []
+        for pid, text in self._read(f"SELECT l.page_id, {col} FROM lines l JOIN pages p "
+                                    "ON p.run_id=l.run_id AND p.page_id=l.page_id "
+                                    "WHERE l.run_id=? AND p.status='done' ORDER BY l.page_id, l.line_no", (run_id,)):
+            out[pid].append(text or "")
+        return out
+
+    def read_frames(self, run_ids: Sequence[int] | None = None) -> dict[str, "pd.DataFrame"]:  # noqa: F821
+        """The four tables as pandas DataFrames (keys runs, pages, lines, batches), optionally for some runs."""
+        import pandas as pd
+
+        where, params = "", ()
+        if run_ids is not None:
+            ids = [int(r) for r in run_ids]
+            where = f" WHERE run_id IN ({', '.join('?' * len(ids))})" if ids else " WHERE 0"
+            params = tuple(ids)
+        out = {}
+        try:
+            for t in TABLES:
+                order = {"runs": "run_id", "pages": "run_id, page_id", "lines": "run_id, page_id, line_no",
+                         "batches": "run_id, page_id, batch_no"}[t]
+                out[t] = pd.read_sql_query(f"SELECT * FROM {t}{where} ORDER BY {order}", self.con, params=params)
+        except (sqlite3.Error, pd.errors.DatabaseError) as e:
+            raise _explain(self.path, e if isinstance(e, sqlite3.Error) else sqlite3.Error(str(e)),
+                           "reading the run store") from e
+        return out
+
+
+def export(store_path: Path | str, out_dir: Path | str, fmt: str = "parquet") -> list[Path]:
+    """Write runs, pages, lines and batches of a store to ``out_dir`` as Parquet or CSV files."""
+    if fmt not in ("parquet", "csv"):
+        raise StoreError(f"export format must be 'parquet' or 'csv', not {fmt!r}")
+    out = Path(out_dir)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise StoreError(f"{out}: cannot create the export folder ({e.strerror})") from e
+    with RunStore(store_path, read_only=True) as st:
+        frames = st.read_frames()
+    written = []
+    for name, df in frames.items():
+        p = out / f"{name}.{fmt}"
+        try:
+            if fmt == "csv":
+                df.to_csv(p, index=False, encoding="utf-8")
+            else:
+                df.to_parquet(p, index=False)
+        except OSError as e:
+            raise StoreError(f"{p}: cannot write the export ({e.strerror or e})") from e
+        written.append(p)
+    return written
