@@ -71,9 +71,9 @@ BATCH_FEATURES = (
     "n_lines",                # lines in the batch
     "sum_width",              # sum of the lines' resized widths (pixels actually filled)
     "area",                   # n_lines * padded_width: pixels the model runs over
-    "steps_max",              # decoder steps of the longest line (steps the batch loop runs)
-    "tokens_sum",             # sum over lines of their steps (lines leave when they end)
-    "tokens_sq_half",         # sum of steps^2 / 2: attention over a growing prefix, per line
+    "steps_max",              # decoder steps of the longest line, end token included (loop iterations)
+    "tokens_sum",             # emitted tokens summed over lines (lines leave the batch when they end)
+    "tokens_sq_half",         # sum of tokens^2 / 2: attention over a growing prefix, line by line
     "lines_x_steps",          # n_lines * steps_max: every line kept until the longest ends
     "lines_x_steps_sq_half",  # n_lines * steps_max^2 / 2: ... with a growing prefix
     "steps_x_area",           # steps_max * area / width_multiple: cross-attention over the memory
@@ -88,18 +88,18 @@ STAGE_CANDIDATES: dict[str, dict[str, tuple[tuple[str, ...], ...]]] = {
         "t_preprocess": (("const", "sum_width"), ("const", "n_lines", "sum_width")),
         "t_encode": (("const", "area"), ("const", "n_lines", "area")),
         "t_steps": (("const", "area"), ("const", "n_lines", "area")),
-        "t_collapse": (("const", "area"), ("const", "n_lines", "area")),
+        "t_collapse": (("const", "area"), ("const", "n_lines", "area"), ("const", "n_lines", "sum_width")),
     },
     "seq": {
         "t_preprocess": (("const", "sum_width"), ("const", "n_lines", "sum_width")),
         "t_encode": (("const", "area"), ("const", "n_lines", "area")),
         "t_steps": (
-            ("steps_max", "tokens_sum", "tokens_sq_half"),
+            ("steps_max", "n_lines", "tokens_sum", "tokens_sq_half"),
             ("steps_max", "lines_x_steps", "lines_x_steps_sq_half"),
             ("steps_max", "lines_x_steps", "lines_x_steps_sq_half", "steps_x_area"),
-            ("steps_max", "tokens_sum", "tokens_sq_half", "steps_x_area"),
+            ("steps_max", "n_lines", "tokens_sum", "tokens_sq_half", "steps_x_area"),
         ),
-        "t_collapse": (("const", "n_lines"), ("const", "tokens_sum")),
+        "t_collapse": (("const", "n_lines"), ("const", "n_lines", "tokens_sum"), ("const", "steps_max", "tokens_sum")),
     },
 }
 PAGE_CANDIDATES: tuple[tuple[str, ...], ...] = (("page_const", "pixels"), ("page_const", "pixels", "page_lines"))
@@ -346,8 +346,9 @@ def simulate_batches(widths: Sequence[int], tokens: Sequence[int] | None, *, bat
                      width_multiple: int = DEFAULT_WIDTH_MULTIPLE) -> pd.DataFrame:
     """Batch one page's lines as the runner does; one row per batch with the store's column names.
 
-    ``widths`` are the lines' resized widths; ``tokens`` the decoder steps per
-    line (characters + end token) for an autoregressive recogniser, else None.
+    ``widths`` are the lines' resized widths; ``tokens`` the tokens each line
+    emits (its characters) for an autoregressive recogniser, else None. A
+    line's decoder steps are its tokens plus the end token.
     """
     widths = [int(w) for w in widths]
     tok = np.asarray(tokens if tokens is not None else np.zeros(len(widths)), dtype=np.int64)
@@ -358,7 +359,7 @@ def simulate_batches(widths: Sequence[int], tokens: Sequence[int] | None, *, bat
         rows.append({
             "batch_no": no, "n_lines": len(idx),
             "padded_width": int(-(-int(w.max()) // width_multiple) * width_multiple),
-            "sum_width": int(w.sum()), "steps_max": int(t.max()) if len(t) else 0,
+            "sum_width": int(w.sum()), "steps_max": int(t.max()) + 1 if tokens is not None else 0,
             "tokens_sum": int(t.sum()), "tokens_sq_sum": int((t * t).sum()),
         })
     return pd.DataFrame(rows, columns=["batch_no", "n_lines", "padded_width", "sum_width", "steps_max",
@@ -574,8 +575,9 @@ class CostModel:
         c = np.atleast_1d(np.asarray(chars, dtype=float))
         B = float(self.batch_size)
         w = self.width.intercept + self.width.px_per_char * c
-        steps = np.minimum(c + 1.0, self.max_tokens) if self.kind == "seq" else np.zeros_like(c)
-        X = batch_feature_matrix(np.full_like(c, B), w, B * w, steps, B * steps, B * steps * steps,
+        tok = np.minimum(c, self.max_tokens - 1.0) if self.kind == "seq" else np.zeros_like(c)
+        steps = tok + 1.0 if self.kind == "seq" else np.zeros_like(c)
+        X = batch_feature_matrix(np.full_like(c, B), w, B * w, steps, B * tok, B * tok * tok,
                                  width_multiple=self.width_multiple)
         return (X @ self.coef[:_NB]) / B
 
@@ -615,51 +617,56 @@ def _page_key(run_id, page_id) -> str:
     return f"{int(run_id)}\x00{page_id}"
 
 
-def _timeline(runs: pd.DataFrame, pages: pd.DataFrame, run_ids: Sequence[int]) -> tuple[dict[str, float], float, list[str]]:
-    """Per-page gap (seconds between pages not inside any page's own t_total) and start-up time.
+def _timeline(runs: pd.DataFrame, pages: pd.DataFrame, run_ids: Sequence[int]) -> tuple[dict[str, float], float | None, list[str]]:
+    """Per-page gap (time between pages outside each page's own t_total) and start-up, from timestamps.
 
-    All pages of the store are put on one timeline (several recognisers may
-    take turns on the same page), so the gap before a page is the time since
-    the previous page of *any* run finished, less the page's own time. The
-    first page of each run has no gap; its lead time counts as start-up
-    (loading the models, warm-up). Returns ``({page key: gap}, startup, notes)``.
+    Only used when the store's timestamps resolve fractions of a second and a
+    run's pages are not interleaved with another run's (several recognisers in
+    one command share each page's loading, so the gap is not theirs alone).
+    Returns ``({page key: gap}, startup or None, notes)``.
     """
     notes: list[str] = []
+    mine = pages[pages["run_id"].isin(list(run_ids))]
     done = pages[pages["status"] == "done"].copy()
-    if done.empty:
-        return {}, 0.0, notes
+    if mine.empty:
+        return {}, None, notes
+    fin_text = mine["finished_at"].astype(str)
+    if not fin_text.str.contains(r"T\d\d:\d\d:\d\d\.\d", regex=True).any():
+        notes.append("the store's timestamps are whole seconds: the time between pages (store writes, hashing) "
+                     "and the start-up are not in this model; measure a session with `ocrbench measure-scaling` "
+                     "to include them")
+        return {}, None, notes
     done["_fin"] = _parse_times(done["finished_at"])
-    if done["_fin"].isna().any() or "t_total" not in done or done["t_total"].isna().any():
-        notes.append("page finish times unreadable: gap between pages and start-up taken as 0")
-        return {}, 0.0, notes
-    done = done.sort_values("_fin", kind="stable")
-    prev = done["_fin"].shift(1)
-    gap = (done["_fin"] - prev).dt.total_seconds() - done["t_total"].astype(float)
-    first_of_run = done.groupby("run_id")["_fin"].transform("min") == done["_fin"]
-    gap[first_of_run | prev.isna()] = np.nan
-    if (gap.dropna() < -0.05 * float(done["t_total"].median())).mean() > 0.2:
-        notes.append("pages of this store overlap in time (several workers?): gap between pages taken as 0; "
-                     "calibrate with one worker for a faithful model")
-        gap[gap.notna()] = 0.0
-    startup = []
+    done = done.dropna(subset=["_fin", "t_total"]).sort_values("_fin", kind="stable")
+    other = done["run_id"].shift(1)
+    gaps: dict[str, float] = {}
+    interleaved = False
+    startups = []
     for rid in run_ids:
-        r = runs[runs["run_id"] == rid]
-        mine = done[done["run_id"] == rid]
-        if r.empty or mine.empty:
+        idx = done.index[done["run_id"] == rid]
+        if len(idx) == 0:
             continue
-        t0 = _parse_times(r["started_at"]).iloc[0]
-        if pd.isna(t0):
+        d = done.loc[idx]
+        if (other.loc[idx[1:]] != rid).any():
+            interleaved = True
             continue
-        first = mine.iloc[0]
-        startup.append((first["_fin"] - t0).total_seconds() - float(first["t_total"]))
-    su = float(max(0.0, np.median(startup))) if startup else 0.0
-    keys = [_page_key(a, b) for a, b in zip(done["run_id"], done["page_id"])]
-    return {k: float(max(0.0, g)) for k, g in zip(keys, gap) if np.isfinite(g)}, su, notes
+        g = (d["_fin"].diff().dt.total_seconds() - d["t_total"].astype(float)).iloc[1:]
+        for (r, p), v in zip(d[["run_id", "page_id"]].iloc[1:].itertuples(index=False), g):
+            gaps[_page_key(r, p)] = float(max(0.0, v))
+        t0 = _parse_times(runs.loc[runs["run_id"] == rid, "started_at"]).iloc[0]
+        if not pd.isna(t0):
+            startups.append((d["_fin"].iloc[0] - t0).total_seconds() - float(d["t_total"].iloc[0]))
+    if interleaved:
+        notes.append("several recognisers took turns on each page in the calibration run: the time between "
+                     "pages is not attributed (measure a session per recogniser with `ocrbench measure-scaling`)")
+    su = float(max(0.0, np.median(startups))) if startups else None
+    return gaps, su, notes
 
 
 def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
                    run_ids: Sequence[int] | None = None, profile: str | None = None,
-                   n_boot: int = 200, seed: int = 0) -> CostModel:
+                   line_height: int | None = None, width_multiple: int | None = None,
+                   session: Mapping | None = None, n_boot: int = 200, seed: int = 0) -> CostModel:
     """Fit one recogniser's cost model on a store's tables (``runs``, ``pages``, ``batches``, ``lines``).
 
     Uses every run of ``recogniser`` that has the same settings as its latest
@@ -692,12 +699,12 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         raise PlanError(f"recogniser {recogniser!r}: {len(pages)} finished page(s) and {len(batches)} batch(es) "
                         "in the calibration store; at least 2 pages and 3 batches are needed")
 
-    width_multiple = int(_deep_get(settings, "width_multiple", default=DEFAULT_WIDTH_MULTIPLE))
+    width_multiple = int(width_multiple or _deep_get(settings, "width_multiple", default=DEFAULT_WIDTH_MULTIPLE))
     batch_size = int(_deep_get(settings, "batch_size", default=DEFAULT_BATCH_SIZE))
     if int(batches["n_lines"].max()) > batch_size:
         batch_size = int(batches["n_lines"].max())
     max_pad_ratio = float(_deep_get(settings, "max_pad_ratio", default=DEFAULT_MAX_PAD_RATIO))
-    line_height = int(_deep_get(settings, "line_height", "height", default=DEFAULT_LINE_HEIGHT))
+    line_height = int(line_height or _deep_get(settings, "line_height", "height", default=DEFAULT_LINE_HEIGHT))
     max_tokens = int(_deep_get(settings, "max_tokens", default=None) or DEFAULT_MAX_TOKENS)
     threads = int(_deep_get(settings, "intra_threads", default=None) or host.get("intra_threads") or 1)
 
@@ -734,9 +741,16 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
     page_fit = _fit_stage("page overhead", Xp, y_page, pkeys, PAGE_CANDIDATES, PAGE_FEATURES)
 
     gaps, startup, tl_notes = _timeline(runs, frames["pages"], ids)
-    notes += tl_notes
     my_gaps = np.array([gaps.get(k, np.nan) for k in pkeys], dtype=float)
     gap_mean = float(np.nanmean(my_gaps)) if np.isfinite(my_gaps).any() else 0.0
+    if session:
+        # measured directly around a run (ocrbench.scaling): more precise than store timestamps
+        gap_mean = float(session.get("gap_seconds_per_page", gap_mean) or 0.0)
+        startup = float(session.get("startup_seconds", startup or 0.0) or 0.0)
+        my_gaps = np.full(len(pkeys), gap_mean)
+    else:
+        notes += tl_notes
+    startup = float(startup or 0.0)
 
     coef = _coef_vector(stages, page_fit, gap_mean)
     y_tot = batch_total.to_numpy(dtype=float)
@@ -947,6 +961,7 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
 def _page_batch_features(widths: np.ndarray, tokens: np.ndarray | None, model: CostModel) -> tuple[np.ndarray, int, float, float]:
     """Sum of :data:`BATCH_FEATURES` over one page's batches, batched as the runner does.
 
+    ``tokens``: tokens emitted per line (seq), steps being tokens + 1.
     Returns ``(feature sums, number of batches, widest padded batch, most decoder steps)``.
     """
     wl = [int(w) for w in widths]
@@ -957,7 +972,7 @@ def _page_batch_features(widths: np.ndarray, tokens: np.ndarray | None, model: C
     n = np.array([len(g) for g in groups], dtype=float)
     padded = np.array([-(-int(w[g].max()) // m) * m for g in groups], dtype=float)
     sum_w = np.array([w[g].sum() for g in groups], dtype=float)
-    smax = np.array([t[g].max() for g in groups], dtype=float)
+    smax = np.array([t[g].max() + 1 if tokens is not None else 0 for g in groups], dtype=float)
     tsum = np.array([t[g].sum() for g in groups], dtype=float)
     tsq = np.array([(t[g] * t[g]).sum() for g in groups], dtype=float)
     X = batch_feature_matrix(n, padded, sum_w, smax, tsum, tsq, width_multiple=m)
@@ -974,7 +989,7 @@ def simulate_pool(model: CostModel, archive: Archive, *, rng: np.random.Generato
     for w, chars, px in _page_lines(model, archive, rng, k, wf):
         v = np.zeros(len(COEF_NAMES))
         if len(w):
-            tokens = np.minimum(chars + 1, model.max_tokens) if model.kind == "seq" else None
+            tokens = np.minimum(chars, model.max_tokens - 1) if model.kind == "seq" else None
             v[:_NB], n_b, p, st = _page_batch_features(w, tokens, model)
             nb.append(n_b)
             pmax, smax = max(pmax, p), max(smax, st)
