@@ -147,50 +147,60 @@ def amount_misread_detection(hyp_pages: Sequence[Sequence[str]], truth_pages: Se
 # --------------------------------------------------------------------------- CER before / after
 
 
-def cer_before_after(pages: Sequence[tuple[str, Sequence[str], Sequence[str], Sequence[str]]], *,
-                     profile: str = "nfc", n_boot: int = 2000, seed: int = 0) -> pd.DataFrame:
+def cer_before_after(pages: Sequence[tuple[str, Sequence[str] | str, Sequence[str] | str, Sequence[str] | str]], *,
+                     profile: str | None = None, n_boot: int = 2000, level: float = 0.95,
+                     seed: int = 0) -> pd.DataFrame:
     """CER of raw and post-processed text against the truth, overall and per character class.
 
-    ``pages``: (page_id, raw_lines, post_lines, truth_lines). Scores with
-    ``ocrbench.accuracy.score.score_pages`` and compares each class with
-    ``ocrbench.accuracy.stats.paired_comparison`` (paired over pages).
-    Returns one row per class (``"all"`` first): cer_before, cer_after, diff
-    (after - before), low, high (paired interval of diff), p_value and
-    ``raised`` (True when the whole interval lies above zero, i.e. the class got
-    worse beyond what chance explains).
-    """
-    from ocrbench.accuracy import score as _score, stats as _stats
+    ``pages``: (page_id, truth, raw, post), truth first; each text a list of
+    lines or one string. Both sides are scored by
+    :func:`ocrbench.accuracy.score.score_pages` with the same ``profile`` (the
+    accuracy module's default when None) and compared page-paired with
+    :func:`ocrbench.accuracy.stats.paired_comparison`.
 
-    raw = _score.score_pages([(pid, r, t) for pid, r, _, t in pages], profile=profile, classes=True)
-    post = _score.score_pages([(pid, p, t) for pid, _, p, t in pages], profile=profile, classes=True)
+    Class CER: the edits charged to a class over the truth characters of that
+    class, where substitutions and deletions are charged to the class of the
+    truth character and insertions to the class of the inserted character (the
+    accuracy module's ``err_<class>`` and ``ins_<class>`` columns). So defined,
+    the class figures add up to the overall CER when weighted by class size.
+
+    Returns one row per class (``"all"`` first): ref_chars, edits_before,
+    edits_after, cer_before, cer_after, diff (after - before), low and high (the
+    paired bootstrap interval of diff), p_value, and ``raised``: True when the
+    whole interval lies above zero, i.e. post-processing made that class worse
+    beyond what chance explains. Classes absent from the truth have no rate (NaN)
+    and are never ``raised``.
+    """
+    from ocrbench.accuracy.align import CLASSES
+    from ocrbench.accuracy.score import score_pages
+    from ocrbench.accuracy.stats import paired_comparison
+
+    kw: dict[str, Any] = {"classes": True, "amounts": False, "n_boot": n_boot, "level": level, "seed": seed}
+    if profile is not None:
+        kw["profile"] = profile
+    before = score_pages([(pid, truth, raw) for pid, truth, raw, _ in pages], **kw).pages
+    after = score_pages([(pid, truth, post) for pid, truth, _, post in pages], **kw).pages
+
+    def frame(df: pd.DataFrame, cls: str | None) -> pd.DataFrame:
+        if cls is None:
+            return df[["page_id", "char_edits", "ref_chars"]]
+        return pd.DataFrame({"page_id": df["page_id"],
+                             "char_edits": df[f"err_{cls}"].astype("int64") + df[f"ins_{cls}"].astype("int64"),
+                             "ref_chars": df[f"ref_{cls}"].astype("int64")})
+
     rows = []
-    for cls, before_df, after_df in _class_page_frames(raw, post):
-        cmp = _stats.paired_comparison(after_df, before_df, n_boot=n_boot, seed=seed)
-        cb = _ratio(before_df)
-        ca = _ratio(after_df)
-        rows.append({"class": cls, "cer_before": cb, "cer_after": ca, "diff": cmp["diff"],
-                     "low": cmp["low"], "high": cmp["high"], "p_value": cmp.get("p_value"),
-                     "raised": bool(cmp["low"] is not None and cmp["low"] > 0)})
+    for cls in ("all", *CLASSES):
+        fb, fa = frame(before, None if cls == "all" else cls), frame(after, None if cls == "all" else cls)
+        ref = int(fb["ref_chars"].sum())
+        eb, ea = int(fb["char_edits"].sum()), int(fa["char_edits"].sum())
+        row: dict[str, Any] = {"class": cls, "ref_chars": ref, "edits_before": eb, "edits_after": ea,
+                               "cer_before": eb / ref if ref else float("nan"),
+                               "cer_after": ea / ref if ref else float("nan"),
+                               "diff": float("nan"), "low": None, "high": None, "p_value": None, "raised": False}
+        if ref:
+            cmp = paired_comparison(fa, fb, metric="cer", n_boot=n_boot, level=level, seed=seed,
+                                    names=("post", "raw"))
+            row.update(diff=cmp["diff"], low=cmp["low"], high=cmp["high"], p_value=cmp["p_value"],
+                       raised=bool(cmp["low"] is not None and cmp["low"] > 0))
+        rows.append(row)
     return pd.DataFrame(rows)
-
-
-def _ratio(df: pd.DataFrame) -> float:
-    ref = float(df["ref_chars"].sum())
-    return float(df["char_edits"].sum()) / ref if ref else float("nan")
-
-
-def _class_page_frames(raw: Any, post: Any):
-    """(class, raw per-page frame, post per-page frame) with columns page_id, ref_chars, char_edits.
-
-    The overall frame is Scores.pages; per-class frames come from the accuracy
-    module's per-page class table when it provides one.
-    """
-    yield "all", raw.pages, post.pages
-    raw_cls = getattr(raw, "page_classes", None)
-    post_cls = getattr(post, "page_classes", None)
-    if raw_cls is None or post_cls is None:
-        return
-    for cls in sorted(set(raw_cls["class"]) | set(post_cls["class"])):
-        a = raw_cls[raw_cls["class"] == cls]
-        b = post_cls[post_cls["class"] == cls]
-        yield cls, a, b

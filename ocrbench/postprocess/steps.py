@@ -463,6 +463,11 @@ class Pipeline:
             changes.extend(ch)
         return PageResult(page, changes)
 
+    def __call__(self, texts: Sequence[str], confidences: Sequence[float | None] | None = None,
+                 char_confidences: Sequence[Sequence[float] | None] | None = None) -> list[str]:
+        """The runner's post-processing hook: a page's raw texts and line confidences in, texts out."""
+        return self.apply_texts(texts, confidences=confidences, char_confidences=char_confidences)
+
     def apply_texts(self, lines: Sequence[str], *, confidences: Sequence[float | None] | None = None,
                     char_confidences: Sequence[Sequence[float] | None] | None = None) -> list[str]:
         """Convenience: plain texts in, texts out (optional line / per-character confidences)."""
