@@ -62,6 +62,7 @@ class ProgressEvent:
     lines_done: int                  # lines recognised in this call, summed over recognisers
     page_id: str | None = None
     failed: bool = False
+    skipped: bool = False            # this page was finished before (resume)
     elapsed: float = 0.0
 
 
@@ -236,18 +237,18 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
     n_done = n_failed = n_lines = n_processed = 0
     n_skipped = len(skipped_ids)
 
-    def emit(kind, page_id=None, failed=False):
+    def emit(kind, page_id=None, failed=False, skipped=False):
         if progress is not None:
             progress(ProgressEvent(kind=kind, pages_total=total, pages_done=n_done, pages_skipped=n_skipped,
                                    pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
-                                   elapsed=clock() - start))
+                                   skipped=skipped, elapsed=clock() - start))
 
     emit("start")
     for ref in refs:
         page_id = ref.id
         if page_id in skipped_ids:
             n_done += 1
-            emit("page", page_id)
+            emit("page", page_id, skipped=True)
             continue
         todo = [s for s in states if page_id not in s.done]
         n_processed += 1

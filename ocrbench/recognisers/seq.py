@@ -167,9 +167,10 @@ class SeqRecogniser(Recogniser):
 
     # ------------------------------------------------------------------ greedy
 
-    def greedy(self, memory, mask, *, timer: _Timer, max_tokens: int | None = None,
+    def greedy(self, memory, mask, *, timer: _Timer | None = None, max_tokens: int | None = None,
                batch_mode: str | None = None) -> list[Decoded]:
         """Batched greedy decoding of every line of the batch."""
+        timer = timer or _Timer(time.perf_counter)
         max_tokens = max_tokens or self.max_tokens
         mode = batch_mode or self.options.batch_mode
         s = self.s
@@ -209,9 +210,10 @@ class SeqRecogniser(Recogniser):
 
     # ------------------------------------------------------------------ beam
 
-    def beam(self, memory, mask, *, timer: _Timer, beam_width: int | None = None,
+    def beam(self, memory, mask, *, timer: _Timer | None = None, beam_width: int | None = None,
              max_tokens: int | None = None) -> list[Decoded]:
         """Beam search for every line of the batch, all hypotheses in one decoder call per step."""
+        timer = timer or _Timer(time.perf_counter)
         K = beam_width or self.options.beam_width
         max_tokens = max_tokens or self.max_tokens
         s = self.s

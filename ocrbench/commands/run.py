@@ -1,0 +1,146 @@
+"""``ocrbench run DIR --recogniser PATH ... --store FILE``: recognise pages into a run store.
+
+Every recogniser reads the same line crops of the same pages, so their
+timings and texts compare fairly. Rerunning the same command resumes where it
+stopped; ``--fresh`` starts new runs. ``--text-out DIR`` also writes
+``DIR/<recogniser>/<page stem>.txt``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Optional
+
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+from rich.table import Table
+
+from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.errors import OcrbenchError, TextFileError
+from ocrbench.recognisers.base import DECODINGS, EngineOptions
+
+
+def text_stem(page_id: str) -> str:
+    """File stem of a page's text: ``page_001.png`` -> ``page_001``, ``book.tif#3`` -> ``book_3``."""
+    name, _, frame = page_id.partition("#")
+    stem = Path(name).stem
+    return f"{stem}_{frame}" if frame else stem
+
+
+def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]]) -> int:
+    """Write each page's lines to ``out_dir/recogniser/<stem>.txt`` (UTF-8, one line per text line)."""
+    folder = out_dir / recogniser
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise TextFileError(folder, f"cannot create the folder ({e.strerror or e})") from e
+    for page_id, lines in texts.items():
+        path = folder / f"{text_stem(page_id)}.txt"
+        tmp = path.with_name(path.name + ".part")
+        try:
+            tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
+            tmp.replace(path)
+        except OSError as e:
+            raise TextFileError(path, f"cannot write ({e.strerror or e})") from e
+    return len(texts)
+
+
+def _fmt(v, spec: str) -> str:
+    return "-" if v is None else format(v, spec)
+
+
+@app.command("run")
+def run(
+    target: Path = typer.Argument(..., help="A folder of page images (PNG, JPEG, TIFF), or one image."),
+    recogniser: list[Path] = typer.Option(..., "--recogniser", "-r",
+                                          help="A recogniser card (card.toml or its folder); repeat to compare."),
+    store: Path = typer.Option(..., "--store", help="The run store (SQLite file; created if missing)."),
+    text_out: Optional[Path] = typer.Option(None, "--text-out",
+                                            help="Also write DIR/<recogniser>/<page stem>.txt per page."),
+    batch_size: int = typer.Option(16, "--batch-size", min=1, help="Lines per model batch."),
+    threads: int = typer.Option(1, "--threads", min=1, help="Threads inside each model run (intra-op)."),
+    decoding: str = typer.Option("greedy", "--decoding", help="greedy or beam."),
+    beam_width: int = typer.Option(8, "--beam-width", min=1, help="Hypotheses kept by beam search."),
+    no_cache: bool = typer.Option(False, "--no-cache",
+                                  help="Seq recognisers: recompute the whole prefix each step (for comparison)."),
+    max_tokens: Optional[int] = typer.Option(None, "--max-tokens", min=1,
+                                             help="Seq recognisers: stop a line after this many tokens "
+                                                  "(default: the card's)."),
+    fresh: bool = typer.Option(False, "--fresh", help="Start new runs instead of resuming matching ones."),
+    as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
+) -> None:
+    """Recognise every page with every recogniser and record texts and timings in the run store."""
+    from ocrbench.runner import RunOptions, run_pages
+    from ocrbench.store import RunStore
+
+    if decoding not in DECODINGS:
+        raise fail(f"--decoding must be one of {', '.join(DECODINGS)}, not {decoding!r}", EXIT_USAGE)
+    err = Console(stderr=True)
+    try:
+        engine = EngineOptions(intra_threads=threads, batch_size=batch_size, decoding=decoding,
+                               beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
+        with RunStore(store) as st:
+            with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                          TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
+                          console=err, transient=False) as bar:
+                task = bar.add_task("loading recognisers", total=None, lps="-")
+                summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
+                                    progress=_Progress(bar, task), fresh=fresh)
+            written = {}
+            if text_out is not None:
+                for r in summary.recognisers:
+                    written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
+    except KeyboardInterrupt:
+        raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
+    except OcrbenchError as e:
+        raise fail(str(e), EXIT_USAGE)
+
+    failed = summary.failed_pages
+    if as_json:
+        d = summary.to_dict()
+        d["store"] = str(store)
+        d["text_out"] = {k: str(text_out / k) for k in written} if text_out is not None else None
+        typer.echo(json.dumps(d, ensure_ascii=False))
+    else:
+        out = Console()
+        if not out.is_terminal:
+            out = Console(width=max(out.width, 132))
+        table = Table(title=f"Run summary: {summary.input_dir}")
+        for col in ("recogniser", "kind", "run", "pages done", "failed", "lines", "page s p50", "p90", "p99",
+                    "pages/hour", "lines/s"):
+            table.add_column(col, justify="left" if col in ("recogniser", "kind") else "right")
+        for r in summary.recognisers:
+            table.add_row(r.name, r.kind, f"{r.run_id}{' (resumed)' if r.resumed else ''}", str(r.pages_done),
+                          str(r.pages_failed), str(r.lines), _fmt(r.page_seconds_p50, ".3f"),
+                          _fmt(r.page_seconds_p90, ".3f"), _fmt(r.page_seconds_p99, ".3f"),
+                          _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
+        out.print(table)
+        out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
+                  f"{summary.wall_seconds:.1f} s; store: {store}")
+        if text_out is not None:
+            out.print(f"texts: {', '.join(str(text_out / k) for k in written)}")
+    for r in summary.recognisers:
+        for page_id, error in r.failures:
+            err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False)
+    if failed:
+        err.print(f"ocrbench: {len(failed)} of {summary.pages_total} pages failed", markup=False, highlight=False)
+        raise typer.Exit(EXIT_SOME_FAILED)
+    raise typer.Exit(EXIT_OK)
+
+
+class _Progress:
+    """Feeds runner progress events to a rich progress bar: pages worked on, lines/s, time left."""
+
+    def __init__(self, bar: Progress, task):
+        self.bar, self.task = bar, task
+
+    def __call__(self, ev) -> None:
+        if ev.kind == "start":
+            note = f" ({ev.pages_skipped} already done)" if ev.pages_skipped else ""
+            self.bar.update(self.task, description=f"recognising{note}", total=ev.pages_total - ev.pages_skipped,
+                            completed=0)
+        elif not ev.skipped:
+            lps = f"{ev.lines_done / ev.elapsed:.1f}" if ev.elapsed > 0 else "-"
+            self.bar.update(self.task, advance=1, lps=lps)
