@@ -23,7 +23,7 @@ from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
 from ocrbench.commands._postprocess_io import list_text_files, read_lines, write_lines
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.postprocess.lexicon import Lexicon, read_word_list
-from ocrbench.postprocess.steps import LineText, Pipeline, build_pipeline, describe_steps, pipeline_from_config
+from ocrbench.postprocess.steps import LineText, Pipeline, describe_steps, pipeline_from_config
 
 
 def load_pipeline(*, steps: str | None, config: Path | None, word_list: Path | None) -> Pipeline:

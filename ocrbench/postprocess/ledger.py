@@ -34,7 +34,7 @@ from __future__ import annotations
 import datetime as _dt
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from statistics import NormalDist
 from typing import Iterable, Sequence
 
@@ -471,8 +471,7 @@ def check_page(lines: Sequence[str], *, form: str | None = None, decimal_mark: s
     entries = [ln for ln in read if ln.kind == ENTRY]
     if not entries:
         return nc("no entries before the total line")
-    if len(totals) > 1:
-        # an intermediate "total" line with entries after it: treat it as an entry-less subtotal? not supported
+    if len(totals) > 1:          # running subtotals within a page are not supported
         return nc(f"{len(totals)} total lines")
     computed = sum(ln.amount.value for ln in entries) + sum(ln.amount.value for ln in brought)  # type: ignore[union-attr]
     diff = closing.amount.value - computed  # type: ignore[union-attr]

@@ -33,7 +33,7 @@ Steps (see each class for details):
 from __future__ import annotations
 
 import unicodedata
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
 from ocrbench.errors import PostprocessError
