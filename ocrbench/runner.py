@@ -189,19 +189,11 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     CardError / StoreError / InputError for problems that stop everything;
     problems of one page are recorded as a failed page.
     """
-    if isinstance(options, EngineOptions):
-        options = RunOptions(engine=options)
-    options = options or RunOptions()
-    cards = [c if isinstance(c, Card) else load_card(c) for c in cards]
-    if not cards:
-        raise OcrbenchError("no recogniser given")
-    names = [c.name for c in cards]
-    if len(set(names)) != len(names):
-        raise OcrbenchError(f"two recognisers share the name {sorted({n for n in names if names.count(n) > 1})[0]!r}; "
-                            "give each card a distinct name")
+    options = as_run_options(options)
+    cards = load_cards(cards)
     target = Path(target)
     refs = list_pages(target)
-    input_dir = str((target if target.is_dir() else target.parent).resolve())
+    input_dir = input_folder(target)
     own_store = not isinstance(store, RunStore)
     st = RunStore(store) if own_store else store
     try:
@@ -209,18 +201,54 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
         states: list[_RunState] = []
         for card in cards:
             rec = open_recogniser(card, options=options.engine, warm_up=options.warm_up)
-            run_id = None if fresh else st.find_run(card_hash=card.card_hash, settings=settings, input_dir=input_dir)
-            resumed = run_id is not None
-            if run_id is None:
-                run_id = st.start_run(recogniser=card.name, kind=card.kind, card_path=str(card.path),
-                                      card_hash=card.card_hash, settings=settings, input_dir=input_dir,
-                                      host=host_info(rec), engine=f"onnxruntime {_ort_version()}")
-            done = {pid for pid, (status, _) in st.page_status(run_id).items() if status == "done"}
-            states.append(_RunState(card, rec, run_id, resumed, done))
+            states.append(open_run(st, card, rec, settings=settings, input_dir=input_dir, fresh=fresh,
+                                   engine=f"onnxruntime {_ort_version()}", host=lambda rec=rec: host_info(rec)))
         return _run(refs, states, st, options, clock, progress, postprocess, input_dir)
     finally:
         if own_store:
             st.close()
+
+
+def as_run_options(options: RunOptions | EngineOptions | None) -> RunOptions:
+    """RunOptions from what callers may pass (engine options alone, or nothing for the defaults)."""
+    if isinstance(options, EngineOptions):
+        return RunOptions(engine=options)
+    return options or RunOptions()
+
+
+def load_cards(cards: Sequence[Card | Path | str]) -> list[Card]:
+    """Load and validate every card (CardError on the first bad one); their names must differ."""
+    cards = [c if isinstance(c, Card) else load_card(c) for c in cards]
+    if not cards:
+        raise OcrbenchError("no recogniser given")
+    names = [c.name for c in cards]
+    if len(set(names)) != len(names):
+        raise OcrbenchError(f"two recognisers share the name {sorted({n for n in names if names.count(n) > 1})[0]!r}; "
+                            "give each card a distinct name")
+    return cards
+
+
+def input_folder(target: Path) -> str:
+    """The run's input folder (part of the run identity): the folder itself, or a file's folder."""
+    return str((target if target.is_dir() else target.parent).resolve())
+
+
+def open_run(st: RunStore, card: Card, rec: Recogniser | None, *, settings: dict, input_dir: str, fresh: bool,
+             engine: str, host: Callable[[], dict]) -> _RunState:
+    """Resume the run with this card, settings and input folder, or start one; ``host()`` is asked only then.
+
+    Whichever engine ran it before, a resumed run records ``engine`` as the one that ran it last.
+    """
+    run_id = None if fresh else st.find_run(card_hash=card.card_hash, settings=settings, input_dir=input_dir)
+    resumed = run_id is not None
+    if run_id is None:
+        run_id = st.start_run(recogniser=card.name, kind=card.kind, card_path=str(card.path),
+                              card_hash=card.card_hash, settings=settings, input_dir=input_dir,
+                              host=host(), engine=engine)
+    else:
+        st.set_engine(run_id, engine)
+    done = {pid for pid, (status, _) in st.page_status(run_id).items() if status == "done"}
+    return _RunState(card, rec, run_id, resumed, done)  # type: ignore[arg-type]
 
 
 def _ort_version() -> str:
@@ -252,64 +280,16 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
             continue
         todo = [s for s in states if page_id not in s.done]
         n_processed += 1
-        chash = file_sha256(Path(ref.path))
-        path = ref.display()
+        outcomes = recognise_page(ref, [s.rec for s in todo], options=options, clock=clock, postprocess=postprocess)
         page_failed = False
-        t0 = clock()
-        t_load = t_segment = None
-        try:
-            page = load_page(ref, max_pixels=options.max_pixels)
-            t1 = clock()
-            t_load = t1 - t0
-            layout = analyse_page(page.gray, deskew=options.deskew)
-            t_segment = clock() - t1
-        except StoreError:
-            raise
-        except Exception as e:  # noqa: BLE001 - one bad page must not stop the run; the reason is stored
-            reason = _reason(e)
-            for s in todo:
-                st.write_page(s.run_id, PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
-                                                   error=reason, t_load=t_load, t_segment=t_segment))
-                s.new += 1
-            n_done += 1
-            n_failed += 1
-            emit("page", page_id, failed=True)
-            continue
-        crops = [lb.crop for lb in layout.lines]
-        h, w = page.gray.shape[:2]
-        for s in todo:
-            t3 = clock()
-            try:
-                results, timings = s.rec.recognise(crops, clock=clock) if crops else ([], [])
-                t4 = clock()
-                post = None
-                if postprocess is not None:
-                    post = list(postprocess([r.text for r in results], [r.confidence for r in results]))
-                    if len(post) != len(results):
-                        raise OcrbenchError(f"post-processing returned {len(post)} lines for {len(results)}")
-                t5 = clock()
-            except StoreError:
-                raise
-            except Exception as e:  # noqa: BLE001 - recorded as a failed page
-                st.write_page(s.run_id, PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
-                                                   error=_reason(e), width=w, height=h, n_lines=len(crops),
-                                                   skew_degrees=layout.skew_degrees, t_load=t_load,
-                                                   t_segment=t_segment))
-                s.new += 1
-                page_failed = True
-                continue
-            rec = PageRecord(
-                page_id=page_id, path=path, content_hash=chash, status="done", width=w, height=h,
-                n_lines=len(crops), skew_degrees=float(layout.skew_degrees), t_load=t_load, t_segment=t_segment,
-                t_preprocess=sum(b.t_preprocess for b in timings), t_encode=sum(b.t_encode for b in timings),
-                t_steps=sum(b.t_steps for b in timings), t_collapse=sum(b.t_collapse for b in timings),
-                t_postprocess=(t5 - t4) if postprocess is not None else 0.0,
-                t_total=t_load + t_segment + (t5 - t3))
-            st.write_page(s.run_id, rec, _line_records(layout.lines, results, post),
-                          [BatchRecord(**asdict(b)) for b in timings])
+        for s, o in zip(todo, outcomes):
+            st.write_page(s.run_id, o.page, o.lines, o.batches)
             s.new += 1
-            s.done.add(page_id)
-            n_lines += len(results)
+            if o.failed:
+                page_failed = True
+            else:
+                s.done.add(page_id)
+                n_lines += len(o.lines)
         n_done += 1
         n_failed += page_failed
         emit("page", page_id, failed=page_failed)
@@ -318,6 +298,78 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
         st.finish_run(s.run_id)
     return RunSummary(input_dir=input_dir, pages_total=total, pages_processed=n_processed, pages_skipped=n_skipped,
                       wall_seconds=wall, recognisers=[_summary(st, s) for s in states])
+
+
+@dataclass
+class PageOutcome:
+    """What one recogniser made of one page, ready to be written to the store in one transaction."""
+
+    page: PageRecord
+    lines: list[LineRecord] = field(default_factory=list)
+    batches: list[BatchRecord] = field(default_factory=list)
+
+    @property
+    def failed(self) -> bool:
+        return self.page.status == "failed"
+
+
+def recognise_page(ref: PageRef, recognisers: Sequence[Recogniser], *, options: RunOptions,
+                   clock: Clock = time.perf_counter, postprocess: PostProcess | None = None) -> list[PageOutcome]:
+    """Load and segment one page once, then let each recogniser read its lines; one outcome per recogniser.
+
+    Touches no store, so the serial runner and the scale-out workers share it.
+    A problem of the page (unreadable, too large, a recogniser failing on it)
+    becomes a failed outcome carrying the reason; it is never raised.
+    """
+    page_id = ref.id
+    chash = file_sha256(Path(ref.path))
+    path = ref.display()
+    t0 = clock()
+    t_load = t_segment = None
+    try:
+        page = load_page(ref, max_pixels=options.max_pixels)
+        t1 = clock()
+        t_load = t1 - t0
+        layout = analyse_page(page.gray, deskew=options.deskew)
+        t_segment = clock() - t1
+    except StoreError:
+        raise
+    except Exception as e:  # noqa: BLE001 - one bad page must not stop the run; the reason is stored
+        reason = _reason(e)
+        return [PageOutcome(PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
+                                       error=reason, t_load=t_load, t_segment=t_segment)) for _ in recognisers]
+    crops = [lb.crop for lb in layout.lines]
+    h, w = page.gray.shape[:2]
+    out: list[PageOutcome] = []
+    for rec_ in recognisers:
+        t3 = clock()
+        try:
+            results, timings = rec_.recognise(crops, clock=clock) if crops else ([], [])
+            t4 = clock()
+            post = None
+            if postprocess is not None:
+                post = list(postprocess([r.text for r in results], [r.confidence for r in results]))
+                if len(post) != len(results):
+                    raise OcrbenchError(f"post-processing returned {len(post)} lines for {len(results)}")
+            t5 = clock()
+        except StoreError:
+            raise
+        except Exception as e:  # noqa: BLE001 - recorded as a failed page
+            out.append(PageOutcome(PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
+                                              error=_reason(e), width=w, height=h, n_lines=len(crops),
+                                              skew_degrees=layout.skew_degrees, t_load=t_load,
+                                              t_segment=t_segment)))
+            continue
+        rec = PageRecord(
+            page_id=page_id, path=path, content_hash=chash, status="done", width=w, height=h,
+            n_lines=len(crops), skew_degrees=float(layout.skew_degrees), t_load=t_load, t_segment=t_segment,
+            t_preprocess=sum(b.t_preprocess for b in timings), t_encode=sum(b.t_encode for b in timings),
+            t_steps=sum(b.t_steps for b in timings), t_collapse=sum(b.t_collapse for b in timings),
+            t_postprocess=(t5 - t4) if postprocess is not None else 0.0,
+            t_total=t_load + t_segment + (t5 - t3))
+        out.append(PageOutcome(rec, _line_records(layout.lines, results, post),
+                               [BatchRecord(**asdict(b)) for b in timings]))
+    return out
 
 
 def _reason(e: BaseException) -> str:

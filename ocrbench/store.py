@@ -351,6 +351,11 @@ class RunStore:
         self._write("finishing a run",
                     lambda con: con.execute("UPDATE runs SET finished_at=? WHERE run_id=?", (now_iso(), run_id)))
 
+    def set_engine(self, run_id: int, engine: str) -> None:
+        """Record ``engine`` as the one that ran the run last (a run may be resumed by another engine)."""
+        self._write("recording the run's engine",
+                    lambda con: con.execute("UPDATE runs SET engine=? WHERE run_id=?", (engine, run_id)))
+
     def run_info(self, run_id: int) -> RunInfo:
         rows = self._read("SELECT run_id, recogniser, kind, card_path, card_hash, settings_json, input_dir, host_json, "
                           "engine, ocrbench_version, started_at, finished_at FROM runs WHERE run_id=?", (run_id,))
