@@ -530,7 +530,7 @@ class CostModel:
     boot: np.ndarray                   # (B, len(COEF_NAMES)) bootstrap refits over pages
     batch_resid: np.ndarray            # residual of each calibration batch's total model time
     page_resid: np.ndarray             # residual of each calibration page's overhead
-    width: WidthFit
+    width: WidthFit | None             # None when the calibration lines cannot support it (see notes)
     ranges: dict[str, tuple[float, float]]
     n_pages: int
     n_lines: int
@@ -544,16 +544,23 @@ class CostModel:
         rows = [s.as_row() for s in self.stages]
         if self.page is not None:
             rows.append(self.page.as_row() | {"stage": f"page overhead ({self.page_target})"})
-        rows.append({"stage": "line width vs characters", "features": "const+n_chars",
-                     "coefficients": json.dumps({"const": round(self.width.intercept, 3),
-                                                 "px_per_char": round(self.width.px_per_char, 4)}),
-                     "r2": self.width.r2, "resid_sd": float(np.std(self.width.resid, ddof=1)),
-                     "resid_p10": float(np.percentile(self.width.resid, 10)),
-                     "resid_p90": float(np.percentile(self.width.resid, 90)), "n": self.width.n,
-                     "cv_rmse": None, "measured": True})
+        if self.width is not None:
+            rows.append({"stage": "line width vs characters", "features": "const+n_chars",
+                         "coefficients": json.dumps({"const": round(self.width.intercept, 3),
+                                                     "px_per_char": round(self.width.px_per_char, 4)}),
+                         "r2": self.width.r2, "resid_sd": float(np.std(self.width.resid, ddof=1)),
+                         "resid_p10": float(np.percentile(self.width.resid, 10)),
+                         "resid_p90": float(np.percentile(self.width.resid, 90)), "n": self.width.n,
+                         "cv_rmse": None, "measured": True})
         df = pd.DataFrame(rows)
         df.insert(0, "recogniser", self.recogniser)
         return df
+
+    def require_width(self) -> WidthFit:
+        if self.width is None:
+            raise PlanError(f"{self.recogniser}: characters cannot be related to line widths from this calibration "
+                            "(too few lines with text, or no variation); describe the archive by a run store")
+        return self.width
 
     def batch_quality(self) -> dict:
         """R^2 and residual spread of a batch's total model time (all stages together)."""
@@ -574,6 +581,7 @@ class CostModel:
         """
         c = np.atleast_1d(np.asarray(chars, dtype=float))
         B = float(self.batch_size)
+        self.require_width()
         w = self.width.intercept + self.width.px_per_char * c
         tok = np.minimum(c, self.max_tokens - 1.0) if self.kind == "seq" else np.zeros_like(c)
         steps = tok + 1.0 if self.kind == "seq" else np.zeros_like(c)
@@ -783,7 +791,12 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         boot[b] = v
 
     ln = lines.dropna(subset=["width_px", "n_chars"])
-    width = fit_width(ln["n_chars"].to_numpy(dtype=float), ln["width_px"].to_numpy(dtype=float))
+    try:
+        width: WidthFit | None = fit_width(ln["n_chars"].to_numpy(dtype=float), ln["width_px"].to_numpy(dtype=float))
+    except PlanError as e:
+        width = None
+        notes.append(f"line width per character not fitted ({e}); plans must describe the archive by a run "
+                     "store, where characters and widths are both measured")
     ranges = {
         "line width (px)": (float(ln["width_px"].min()), float(ln["width_px"].max())),
         "characters per line": (float(ln["n_chars"].min()), float(ln["n_chars"].max())),
@@ -924,6 +937,8 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
                 width_fit: WidthFit) -> list[tuple[np.ndarray, np.ndarray, float]]:
     """``k`` pages of (widths, chars, pixels) drawn from the archive description."""
     out = []
+    if width_fit is None and (archive.sample_pages is None or "n_chars" not in archive.sample_lines):
+        model.require_width()
     if archive.sample_pages is None:
         px = archive.page_pixels
         if px is None:
@@ -1079,7 +1094,7 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
     n_pools = max(1, min(pools, draws))
     pool_list: list[PagePool] = []
     for k in range(n_pools):
-        wf = model.width if k == 0 else model.width.resampled(rng)
+        wf = model.width if (k == 0 or model.width is None) else model.width.resampled(rng)
         pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf))
     serial = np.empty(draws)
     chars = np.empty(draws)
@@ -1300,6 +1315,10 @@ def crossover(seq: CostModel, ctc: CostModel, *, max_chars: int | None = None) -
     characters, refined by bisection.
     """
     top = int(max_chars or min(seq.max_tokens - 1, 400))
+    if seq.width is None or ctc.width is None:
+        return {"seq": seq.recogniser, "ctc": ctc.recogniser, "profile": seq.profile, "chars": None, "always": None,
+                "text": f"crossover of {seq.recogniser} and {ctc.recogniser} not computed: line width per "
+                        "character was not fitted"}
     c = np.arange(1, top + 1, dtype=float)
     d = seq.line_time(c) - ctc.line_time(c)
     out = {"seq": seq.recogniser, "ctc": ctc.recogniser, "profile": seq.profile, "max_chars": top,

@@ -1,0 +1,170 @@
+"""Measure throughput on this machine: one timed session, and 1..k worker processes side by side.
+
+Why: the planner does not assume that k workers are k times faster. It takes
+the throughput measured here (pages per second at 1, 2, ... k workers, each
+with a given number of intra-op threads) and fits Amdahl's serial fraction
+(G. Amdahl 1967) to go beyond. A timed session also gives what the run store
+cannot: the start-up (opening and warming the sessions) and the time between
+pages that no page's own timing covers (hashing the file, writing the store).
+
+How: each worker is a separate process running the real runner
+(:func:`ocrbench.runner.run_pages`) over the whole page set into its own store
+(weak scaling: every worker has the same work, so none idles while others
+finish). Workers start together at a barrier after their sessions are open;
+throughput is the sum of the workers' own pages per second. Rows go to the
+``scaling`` table of the calibration store (:func:`ocrbench.planio.save_scaling`).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import multiprocessing as mp
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable, Sequence
+
+import pandas as pd
+
+from ocrbench.errors import OcrbenchError, PlanError
+
+Clock = Callable[[], float]
+
+
+@dataclass
+class _Timeline:
+    """What the progress callback saw: the call, the first page's start, each page's end."""
+
+    t_call: float
+    t_begin: float | None = None
+    page_ends: list | None = None
+    failed: int = 0
+
+
+def _now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="microseconds")
+
+
+def measure_session(pages: Path | str, card, *, store: Path | str, options=None, clock: Clock = time.perf_counter,
+                    fresh: bool = True, barrier=None) -> dict:
+    """Run one recogniser over ``pages`` with the real runner, timing the session around it.
+
+    Returns one row of the scaling table (``workers`` = 1) with
+    ``startup_seconds`` (call until the first page starts: sessions opened and
+    warmed), ``busy_seconds`` (the pages' own ``t_total`` summed),
+    ``gap_seconds_per_page`` (time between pages outside their own timing) and
+    ``pages_per_second``. ``barrier`` (multiprocessing) makes several workers
+    start their first page together.
+    """
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.card import Card, load_card
+    from ocrbench.runner import RunOptions, run_pages
+    from ocrbench.store import RunStore
+
+    card = card if isinstance(card, Card) else load_card(card)
+    if options is None:
+        options = RunOptions()
+    elif isinstance(options, EngineOptions):
+        options = RunOptions(engine=options)
+    tl = _Timeline(t_call=clock(), page_ends=[])
+
+    def progress(ev) -> None:
+        if ev.kind == "start":
+            if barrier is not None:
+                barrier.wait()
+            tl.t_begin = clock()
+        elif ev.kind == "page" and not ev.skipped:
+            tl.page_ends.append(clock())
+            tl.failed += bool(ev.failed)
+
+    summary = run_pages(pages, [card], store=store, options=options, clock=clock, progress=progress, fresh=fresh)
+    rs = summary.recognisers[0]
+    with RunStore(store, read_only=True) as st:
+        info = st.run_info(rs.run_id)
+        busy = float(sum(st.run_totals(rs.run_id)["t_total"]))
+    n = len(tl.page_ends)
+    if n == 0 or tl.t_begin is None:
+        raise PlanError(f"{pages}: no page was processed, nothing to time")
+    if rs.pages_failed:
+        raise PlanError(f"{pages}: {rs.pages_failed} page(s) failed; time a folder of good pages")
+    span = tl.page_ends[-1] - tl.t_begin
+    return {
+        "measured_at": _now(), "recogniser": card.name, "kind": card.kind, "card_hash": card.card_hash,
+        "host_json": json.dumps(info.host, sort_keys=True), "workers": 1,
+        "threads": int(options.engine.intra_threads), "pages": n, "wall_seconds": span,
+        "pages_per_second": n / span if span > 0 else float("nan"),
+        "startup_seconds": tl.t_begin - tl.t_call, "busy_seconds": busy,
+        "gap_seconds_per_page": max(0.0, (span - busy) / n), "run_id": rs.run_id,
+    }
+
+
+def _worker(args: tuple) -> None:
+    pages, card_path, store, intra, batch_size, barrier, queue = args
+    try:
+        from ocrbench.recognisers.base import EngineOptions
+
+        row = measure_session(pages, card_path, store=store, barrier=barrier, clock=time.perf_counter,
+                              options=EngineOptions(intra_threads=intra, batch_size=batch_size))
+        queue.put(("ok", row))
+    except BaseException as e:  # noqa: BLE001 - reported to the parent, which raises it
+        try:
+            barrier.abort()
+        except Exception:  # noqa: BLE001
+            pass
+        queue.put(("error", f"{type(e).__name__}: {e}"))
+
+
+def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequence[int] = (1, 2), threads: int = 1,
+                    batch_size: int = 16, work_dir: Path | str | None = None, timeout: float = 3600.0,
+                    progress: Callable[[int, int], None] | None = None) -> pd.DataFrame:
+    """Pages per second with each number of ``workers`` (processes) at ``threads`` intra-op threads each.
+
+    Every worker runs the whole page set (weak scaling) into its own store
+    under ``work_dir`` (a temporary folder by default); throughput is the sum
+    of the workers' own rates between the common start and each one's end.
+    Returns one row per worker count with the columns of the scaling table.
+    """
+    ws = sorted({int(w) for w in workers})
+    if not ws or ws[0] < 1:
+        raise PlanError("worker counts must be at least 1")
+    ctx = mp.get_context("spawn")
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="ocrbench-scaling-", dir=work_dir) as tmp:
+        for k, w in enumerate(ws):
+            barrier = ctx.Barrier(w)
+            queue = ctx.Queue()
+            procs = [ctx.Process(target=_worker, args=((str(pages), str(card_path), str(Path(tmp) / f"w{w}_{i}.sqlite"),
+                                                         threads, batch_size, barrier, queue),), daemon=True)
+                     for i in range(w)]
+            for p in procs:
+                p.start()
+            results = []
+            try:
+                for _ in procs:
+                    results.append(queue.get(timeout=timeout))
+            finally:
+                for p in procs:
+                    p.join(timeout=30)
+                    if p.is_alive():
+                        p.terminate()
+            errors = [r for s, r in results if s != "ok"]
+            if errors:
+                raise OcrbenchError(f"measuring {w} worker(s) failed: {errors[0]}")
+            got = [r for _, r in results]
+            rows.append({
+                **{c: got[0][c] for c in ("measured_at", "recogniser", "kind", "card_hash", "host_json")},
+                "workers": w, "threads": threads, "pages": sum(r["pages"] for r in got),
+                "wall_seconds": max(r["wall_seconds"] for r in got),
+                "pages_per_second": sum(r["pages_per_second"] for r in got),
+                "startup_seconds": max(r["startup_seconds"] for r in got),
+                "busy_seconds": sum(r["busy_seconds"] for r in got),
+                "gap_seconds_per_page": sum(r["gap_seconds_per_page"] for r in got) / w,
+            })
+            if progress:
+                progress(k + 1, len(ws))
+    df = pd.DataFrame(rows)
+    base = df.loc[df["workers"] == df["workers"].min(), "pages_per_second"].iloc[0]
+    df["speedup"] = df["pages_per_second"] / base
+    return df

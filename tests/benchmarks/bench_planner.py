@@ -1,0 +1,184 @@
+"""The planner's headline figure: predicted vs measured wall-clock on pages it has never seen.
+
+Procedure (issue 6, "Validation"):
+1. Calibrate on ~10 demo pages: each demo recogniser runs them with the real
+   runner, timed as a session (``ocrbench.scaling.measure_session``), into a
+   calibration store.
+2. Describe a held-out set of 60 generated pages with twice the lines per page
+   (``ocrbench.synth``, another seed) by segmentation only, no recognition.
+3. Predict each recogniser's wall-clock on one worker: P10/P50/P90.
+4. Run the held-out set with the runner, one recogniser at a time, and time it.
+5. Print predicted vs measured, the relative error and whether the measured
+   time lies inside P10-P90. Targets: |pred - meas| / meas <= 10% for both
+   kinds, measured inside P10-P90.
+
+Extra lines (for information): the same prediction from a 15-page sample of
+the held-out set, and from numbers only (pages, lines per page, characters).
+
+Run:  .venv/bin/python tests/benchmarks/bench_planner.py [--calib-pages 10] [--held-pages 60]
+      [--models DIR] [--work DIR] [--json]
+Until the runner and the demo models exist it says what is missing and exits with 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+TARGET = 0.10
+
+
+def prerequisites(models: Path) -> list[str]:
+    missing = []
+    for mod in ("ocrbench.runner", "ocrbench.store", "ocrbench.pages", "ocrbench.recognisers.card"):
+        try:
+            __import__(mod)
+        except ImportError as e:
+            missing.append(f"module {mod} ({e})")
+    for name in ("ledger-ctc", "ledger-seq"):
+        if not (models / name / "card.toml").is_file():
+            missing.append(f"demo model {models / name} (build it: python models/build.py export)")
+    return missing
+
+
+def calibration_pages(out: Path, n: int) -> Path:
+    """The first n demo pages (scans_demo/) when present, else n pages from the demo archive's generator."""
+    from ocrbench import synth
+    from ocrbench.pages import IMAGE_SUFFIXES
+
+    demo = ROOT / "scans_demo"
+    have = sorted(p for p in demo.glob("*") if p.suffix.lower() in IMAGE_SUFFIXES) if demo.is_dir() else []
+    out.mkdir(parents=True)
+    if len(have) >= n:
+        for p in have[:n]:
+            shutil.copy2(p, out / p.name)
+        return out
+    synth.write_archive(out, synth.ArchiveSpec(n_pages=n, seed=1))   # the demo archive's own spec and seed
+    return out
+
+
+def held_out_pages(out: Path, n: int) -> Path:
+    """n new pages, another seed, twice the demo archive's lines per page."""
+    from ocrbench import synth
+
+    base = synth.ArchiveSpec()
+    spec = synth.ArchiveSpec(n_pages=n, seed=4242,
+                             lines_per_page=(2 * base.lines_per_page[0], 2 * base.lines_per_page[1]))
+    synth.write_archive(out, spec)
+    return out
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--calib-pages", type=int, default=10)
+    ap.add_argument("--held-pages", type=int, default=60)
+    ap.add_argument("--models", type=Path, default=Path(os.environ.get("OCRBENCH_TEST_MODELS", ROOT / "models")))
+    ap.add_argument("--work", type=Path, default=None, help="keep the pages and stores here (default: a temp dir)")
+    ap.add_argument("--threads", type=int, default=1)
+    ap.add_argument("--draws", type=int, default=2000)
+    ap.add_argument("--json", action="store_true", help="print the figures as JSON")
+    a = ap.parse_args(argv)
+
+    missing = prerequisites(a.models)
+    if missing:
+        print("bench_planner: cannot run yet; missing:\n  - " + "\n  - ".join(missing), file=sys.stderr)
+        return 2
+
+    from ocrbench import planio
+    from ocrbench import planner as P
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.runner import RunOptions, run_pages
+    from ocrbench.scaling import measure_session
+
+    work = a.work or Path(tempfile.mkdtemp(prefix="ocrbench-bench-planner-"))
+    if a.work and work.exists():
+        shutil.rmtree(work)
+    work.mkdir(parents=True, exist_ok=True)
+    log = lambda m: print(m, file=sys.stderr, flush=True)  # noqa: E731
+    cards = [load_card(a.models / "ledger-ctc"), load_card(a.models / "ledger-seq")]
+    opts = RunOptions(engine=EngineOptions(intra_threads=a.threads))
+
+    log(f"generating {a.calib_pages} calibration and {a.held_pages} held-out pages in {work}")
+    calib = calibration_pages(work / "calib", a.calib_pages)
+    held = held_out_pages(work / "held", a.held_pages)
+
+    cal_store = work / "calibration.sqlite"
+    rows = []
+    for card in cards:
+        log(f"calibrating {card.name} on {a.calib_pages} pages")
+        rows.append(measure_session(calib, card, store=cal_store, options=opts))
+    import pandas as pd
+
+    planio.save_scaling(cal_store, pd.DataFrame(rows))
+
+    log("predicting the held-out set from its segmentation (no recognition)")
+    t0 = time.perf_counter()
+    full = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], sample=held,
+                                                 sample_pages=a.held_pages, draws=a.draws, seed=0)).table
+    t_plan = time.perf_counter() - t0
+    part = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], sample=held, sample_pages=15,
+                                                 pages=a.held_pages, draws=a.draws, seed=1)).table
+    base = __import__("ocrbench.synth", fromlist=["ArchiveSpec"]).ArchiveSpec()
+    lo, hi = 2 * base.lines_per_page[0] + 3, 2 * base.lines_per_page[1] + 3   # + header, headings, total rows
+    numbers = planio.run_request(planio.PlanRequest(
+        calibration=[str(cal_store)], pages=a.held_pages, lines_per_page=f"{lo}-{hi}",
+        chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}", draws=a.draws, seed=2)).table
+
+    measured = {}
+    for card in cards:
+        log(f"running {card.name} on the {a.held_pages} held-out pages")
+        t0 = time.perf_counter()
+        run_pages(held, [card], store=work / "held.sqlite", options=opts, fresh=True)
+        measured[card.name] = time.perf_counter() - t0
+
+    out = []
+    for _, r in full.iterrows():
+        m = measured[r["recogniser"]]
+        err = (r["wall_seconds_p50"] - m) / m
+        inside = bool(r["wall_seconds_p10"] <= m <= r["wall_seconds_p90"])
+        pr = part[part["recogniser"] == r["recogniser"]].iloc[0]
+        nu = numbers[numbers["recogniser"] == r["recogniser"]].iloc[0]
+        out.append({"recogniser": r["recogniser"], "kind": r["kind"], "measured_s": m,
+                    "pred_p10_s": r["wall_seconds_p10"], "pred_p50_s": r["wall_seconds_p50"],
+                    "pred_p90_s": r["wall_seconds_p90"], "rel_error": err, "inside_p10_p90": inside,
+                    "meets_10pct": abs(err) <= TARGET,
+                    "sample15_p50_s": pr["wall_seconds_p50"], "sample15_rel_error": (pr["wall_seconds_p50"] - m) / m,
+                    "numbers_p50_s": nu["wall_seconds_p50"], "numbers_rel_error": (nu["wall_seconds_p50"] - m) / m,
+                    "fit_r2_batch": r["fit_r2_batch"], "fit_r2_page": r["fit_r2_page"]})
+    if a.json:
+        print(json.dumps({"results": out, "crossover": full.attrs.get("crossover"),
+                          "warnings": full.attrs.get("warnings"), "plan_seconds": t_plan}, indent=1))
+        return 0
+    print(f"\nPlanner validation: calibrated on {a.calib_pages} pages, predicting {a.held_pages} held-out pages "
+          f"with twice the lines per page (one worker, {a.threads} thread(s))")
+    print(f"{'recogniser':<12}{'kind':<5}{'P10 s':>9}{'P50 s':>9}{'P90 s':>9}{'measured':>10}{'error':>8}"
+          f"{'in P10-P90':>12}{'<=10%':>7}{'15-page':>9}{'numbers':>9}")
+    for o in out:
+        print(f"{o['recogniser']:<12}{o['kind']:<5}{o['pred_p10_s']:>9.1f}{o['pred_p50_s']:>9.1f}"
+              f"{o['pred_p90_s']:>9.1f}{o['measured_s']:>10.1f}{100 * o['rel_error']:>7.1f}%"
+              f"{'yes' if o['inside_p10_p90'] else 'NO':>12}{'yes' if o['meets_10pct'] else 'NO':>7}"
+              f"{100 * o['sample15_rel_error']:>8.1f}%{100 * o['numbers_rel_error']:>8.1f}%")
+    print("(error = (P50 - measured) / measured; 15-page = predicted from a 15-page sample; numbers = from "
+          "page/line/character counts only)")
+    for c in full.attrs.get("crossover", []):
+        print("crossover:", c["text"])
+    fits = full.attrs["fits"]
+    print(fits[["recogniser", "stage", "features", "r2", "cv_rmse"]].to_string(index=False))
+    for w in full.attrs.get("warnings", []):
+        print("warning:", w)
+    print(f"(planning took {t_plan:.1f} s; work folder {work})")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
