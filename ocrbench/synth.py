@@ -436,6 +436,7 @@ def archive_page_specs(a: ArchiveSpec) -> list[tuple[str, PageSpec, str]]:
     rng = random.Random(a.seed)
     out = []
     folio = {"decimal": 0, "lsd": 0, "lsd_marked": 0}
+    n_clean_tif = 0
     for i in range(a.n_pages):
         currency = ["decimal", "lsd", "lsd_marked"][i % 3]
         folio[currency] += 1
@@ -454,8 +455,15 @@ def archive_page_specs(a: ArchiveSpec) -> list[tuple[str, PageSpec, str]]:
             brought_forward=0,
             year=1880 + (i % 3) * 10,
         )
-        # Degraded (grey, noisy) pages as JPEG; clean ones alternate PNG and TIFF.
-        fmt = "jpg" if degrade else ("png", "tif")[i % 2]
+        # Degraded (grey, noisy) pages as JPEG; clean ones alternate PNG and TIFF, the TIFFs
+        # mostly bilevel in CCITT Group 4, every third one grey in LZW.
+        if degrade:
+            fmt = "jpg"
+        elif i % 2 == 0:
+            fmt = "png"
+        else:
+            fmt = "tif_lzw" if n_clean_tif % 3 == 2 else "tif"
+            n_clean_tif += 1
         out.append((f"page_{i + 1:03d}", spec, fmt))
     return out
 
@@ -477,12 +485,14 @@ def save_image(img: Image.Image, path: Path, fmt: str) -> None:
 
 
 def write_page(out_dir: Path, stem: str, spec: PageSpec, fmt: str = "png") -> PageTruth:
+    """Write one page: ``fmt`` is "png", "jpg", "tif" (a clean page made bilevel, Group 4)
+    or "tif_lzw" (kept grey, LZW)."""
     out_dir.mkdir(parents=True, exist_ok=True)
     img, truth = render_page(spec)
-    ext = {"png": "png", "jpg": "jpg", "tif": "tif"}[fmt]
+    ext = {"png": "png", "jpg": "jpg", "tif": "tif", "tif_lzw": "tif"}[fmt]
     if fmt == "tif" and not spec.degrade:
         img = img.point(lambda v: 0 if v < 160 else 255).convert("1")
-    save_image(img, out_dir / f"{stem}.{ext}", fmt)
+    save_image(img, out_dir / f"{stem}.{ext}", "tif" if fmt == "tif_lzw" else fmt)
     (out_dir / f"{stem}.txt").write_text("\n".join(truth.lines) + "\n", encoding="utf-8")
     doc = {"image": f"{stem}.{ext}", "width": truth.width, "height": truth.height,
            "rotation_degrees_ccw": truth.rotation_degrees_ccw,
@@ -506,7 +516,7 @@ def write_archive(out_dir: Path | str, spec: ArchiveSpec | None = None) -> list[
         ps.brought_forward = carried.get(ps.currency, 0) if ps.folio > 1 else 0
         truth = write_page(out, stem, ps, fmt)
         carried[ps.currency] = truth.carried_forward
-        written.append(out / f"{stem}.{fmt}")
+        written.append(out / f"{stem}.{'tif' if fmt == 'tif_lzw' else fmt}")
     return written
 
 
@@ -646,3 +656,60 @@ def line_samples(seed: int, n: int, fonts: Sequence[str] = TRAIN_FONTS) -> Itera
     rng = random.Random(seed)
     for _ in range(n):
         yield line_sample(rng, fonts)
+
+
+# --------------------------------------------------------------------------- command line
+
+
+def _int_range(text: str) -> tuple[int, int]:
+    """``"16-30"`` -> (16, 30); ``"20"`` -> (20, 20)."""
+    import argparse
+
+    parts = text.split("-")
+    try:
+        lo, hi = (int(parts[0]), int(parts[-1])) if len(parts) <= 2 else (None, None)
+    except ValueError:
+        lo = hi = None
+    if lo is None or hi is None or lo < 1 or hi < lo:
+        raise argparse.ArgumentTypeError(f"expected N or A-B with 1 <= A <= B, got {text!r}")
+    return lo, hi
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """``python -m ocrbench.synth OUT_DIR``: write an invented archive of chosen size and density."""
+    import argparse
+
+    d = ArchiveSpec()
+    ap = argparse.ArgumentParser(
+        prog="python -m ocrbench.synth",
+        description=f"Write invented ledger pages ({FIRM}, a made-up firm) with exact ground truth: "
+                    "<stem>.png/.jpg/.tif, <stem>.txt (one line per text line) and <stem>.json (line boxes).")
+    ap.add_argument("out_dir", help="folder to write (created if missing)")
+    ap.add_argument("--pages", type=int, default=d.n_pages, help=f"number of pages (default {d.n_pages})")
+    ap.add_argument("--seed", type=int, default=d.seed, help=f"random seed (default {d.seed})")
+    ap.add_argument("--lines-per-page", type=_int_range, default=d.lines_per_page, metavar="A-B",
+                    help="entry lines per page, drawn from A..B (default %d-%d)" % d.lines_per_page)
+    ap.add_argument("--chars-per-line", type=_int_range, default=d.chars_per_line, metavar="A-B",
+                    help="target characters per entry line, drawn from A..B (default %d-%d)" % d.chars_per_line)
+    ap.add_argument("--degraded-share", type=float, default=d.degraded_share,
+                    help=f"share of degraded (noisy, blurred, unevenly lit) pages (default {d.degraded_share})")
+    ap.add_argument("--skewed-share", type=float, default=d.skewed_share,
+                    help=f"share of rotated pages (default {d.skewed_share})")
+    ap.add_argument("--max-skew", type=float, default=d.max_skew,
+                    help=f"largest rotation in degrees (default {d.max_skew})")
+    args = ap.parse_args(argv)
+    if args.pages < 1:
+        ap.error("--pages must be at least 1")
+    for name in ("degraded_share", "skewed_share"):
+        if not 0.0 <= getattr(args, name) <= 1.0:
+            ap.error(f"--{name.replace('_', '-')} must be between 0 and 1")
+    spec = ArchiveSpec(n_pages=args.pages, seed=args.seed, lines_per_page=args.lines_per_page,
+                       chars_per_line=args.chars_per_line, degraded_share=args.degraded_share,
+                       skewed_share=args.skewed_share, max_skew=args.max_skew)
+    written = write_archive(args.out_dir, spec)
+    print(f"wrote {len(written)} pages to {args.out_dir}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
