@@ -48,3 +48,7 @@ class PlanError(OcrbenchError):
 
 class PostprocessError(OcrbenchError):
     """A post-processing pipeline cannot be built or applied (unknown step, bad option, missing word list)."""
+
+
+class ClusterError(OcrbenchError):
+    """The Dask cluster cannot be started or reached, or its workers cannot run the recognisers."""

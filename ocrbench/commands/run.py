@@ -69,6 +69,16 @@ def run(
                                              help="Seq recognisers: stop a line after this many tokens "
                                                   "(default: the card's)."),
     fresh: bool = typer.Option(False, "--fresh", help="Start new runs instead of resuming matching ones."),
+    workers: Optional[int] = typer.Option(None, "--workers", min=1,
+                                          help="Read pages on a Dask cluster of N workers started on this machine."),
+    threads_per_worker: int = typer.Option(1, "--threads-per-worker", min=1,
+                                           help="With --workers: pages each worker reads at once."),
+    processes: bool = typer.Option(True, "--processes/--no-processes",
+                                   help="With --workers: workers as separate processes (default) or threads here."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler",
+                                            help="Read pages on an existing Dask cluster (tcp://HOST:PORT)."),
+    pages_per_task: int = typer.Option(1, "--pages-per-task", min=1,
+                                       help="With --workers/--scheduler: pages sent to a worker at a time."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
@@ -86,8 +96,16 @@ def run(
                           TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
                           console=err, transient=False) as bar:
                 task = bar.add_task("loading recognisers", total=None, lps="-")
-                summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                    progress=_Progress(bar, task), fresh=fresh)
+                if workers is None and scheduler is None:
+                    summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
+                                        progress=_Progress(bar, task), fresh=fresh)
+                else:
+                    from ocrbench.distributed import DaskOptions, run_distributed
+
+                    dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
+                                       scheduler=scheduler, pages_per_task=pages_per_task)
+                    summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
+                                              dask=dask, progress=_Progress(bar, task), fresh=fresh)
             written = {}
             if text_out is not None:
                 for r in summary.recognisers:

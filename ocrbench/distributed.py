@@ -1,0 +1,371 @@
+"""Run the runner on a Dask cluster: many pages at once, one writer, memory that stays flat.
+
+Scale-out wraps the runner and does not change it. Every page is read by
+:func:`ocrbench.runner.recognise_page`, the same function the serial runner
+calls, so a page's text and timings mean the same whichever engine made them.
+What differs is only where pages are read and how many at a time:
+
+* Workers (processes of a :class:`distributed.LocalCluster` on this machine, or
+  an existing cluster reached at ``tcp://HOST:PORT``) read pages. Each worker
+  process opens each recogniser once, on its first page, and keeps it in a
+  module-level cache keyed by the card hash and the engine options.
+* The client process is the single writer: it records each page in the SQLite
+  store, in one transaction, as soon as its task completes. SQLite has one
+  writer at a time anyway, and a single writer keeps "one transaction per
+  page, a killed run loses at most the pages in flight" true.
+* Only a bounded number of tasks is in flight (by default twice the cluster's
+  threads), so the client holds a few pages' results at a time however large
+  the archive is.
+
+Runs are identified exactly as the serial runner identifies them (card hash,
+settings, input folder), and the Dask options are not settings: a run started
+by one engine is resumed by the other, and ``runs.engine`` records the engine
+that ran it last.
+
+When a worker dies mid-page, Dask gives the page to another worker; a page
+whose workers died ``distributed.scheduler.allowed-failures`` + 1 times (a page
+that exhausts memory, say) is recorded as failed with that reason, and the run
+goes on. Workers of a remote cluster need ocrbench installed and must see the
+cards and pages at the same paths as the client.
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import logging
+import threading
+import time
+import uuid
+from collections import Counter
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable, Iterator, Sequence
+
+from ocrbench.errors import ClusterError, OcrbenchError
+from ocrbench.pages import PageRef, list_pages
+from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser, open_recogniser
+from ocrbench.recognisers.card import Card, load_card
+from ocrbench.runner import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, _RunState, _summary,
+                             as_run_options, file_sha256, host_info, input_folder, load_cards, open_run,
+                             recognise_page)
+from ocrbench.store import PageRecord, RunStore
+
+
+@dataclass(frozen=True)
+class DaskOptions:
+    """Where and how widely to run. None of these is part of a run's identity.
+
+    ``workers``/``threads_per_worker``/``processes`` shape a LocalCluster started
+    for this run; ``scheduler`` (``tcp://HOST:PORT``) uses an existing cluster
+    instead. ``pages_per_task`` groups pages into one task (1: each page is a
+    task). ``max_in_flight`` bounds the tasks submitted and not yet written
+    (default: twice the cluster's threads).
+    """
+
+    workers: int | None = None
+    threads_per_worker: int = 1
+    processes: bool = True
+    scheduler: str | None = None
+    pages_per_task: int = 1
+    max_in_flight: int | None = None
+    connect_timeout: float = 60.0
+
+    def __post_init__(self) -> None:
+        if self.workers is not None and self.workers < 1:
+            raise OcrbenchError(f"workers must be at least 1, not {self.workers}")
+        if self.threads_per_worker < 1:
+            raise OcrbenchError(f"threads per worker must be at least 1, not {self.threads_per_worker}")
+        if self.pages_per_task < 1:
+            raise OcrbenchError(f"pages per task must be at least 1, not {self.pages_per_task}")
+        if self.max_in_flight is not None and self.max_in_flight < 1:
+            raise OcrbenchError(f"tasks in flight must be at least 1, not {self.max_in_flight}")
+        if self.scheduler is not None and self.workers is not None:
+            raise OcrbenchError("give either a number of workers (a cluster started here) or a scheduler address "
+                                "(an existing cluster), not both")
+
+
+# --------------------------------------------------------------------------- worker side
+
+_CACHE: dict[tuple[str, str], Recogniser] = {}
+_LOADS: Counter = Counter()
+_LOCK = threading.Lock()
+
+
+def _engine_key(options: RunOptions) -> str:
+    return json.dumps({**options.engine.to_dict(), "warm_up": options.warm_up}, sort_keys=True)
+
+
+def worker_recogniser(card: Card, options: RunOptions) -> Recogniser:
+    """This process's recogniser for ``card``: opened (and warmed up) on first use, then reused.
+
+    The card is loaded again from its path here, so a worker that sees other
+    model files than the client (a remote worker with a stale copy) is refused
+    rather than silently mixing models in one run.
+    """
+    key = (card.card_hash, _engine_key(options))
+    rec = _CACHE.get(key)
+    if rec is not None:
+        return rec
+    with _LOCK:                                   # threads of one worker open it once between them
+        rec = _CACHE.get(key)
+        if rec is None:
+            here = load_card(card.path)
+            if here.card_hash != card.card_hash:
+                raise ClusterError(f"{card.path}: the worker's copy of recogniser {card.name!r} differs from the "
+                                   f"client's (card hash {here.card_hash[:12]} vs {card.card_hash[:12]})")
+            rec = open_recogniser(here, options=options.engine, warm_up=options.warm_up)
+            _CACHE[key] = rec
+            _LOADS[card.card_hash] += 1
+    return rec
+
+
+def recogniser_loads() -> dict[str, int]:
+    """card hash -> how many times this process opened that recogniser (for checks: once per worker)."""
+    return dict(_LOADS)
+
+
+def _portable_error(e: BaseException) -> tuple:
+    """An exception as plain values: ocrbench's errors take (path, reason) and do not survive pickling as-is."""
+    return ("error", type(e).__name__, getattr(e, "path", None), getattr(e, "reason", None), str(e))
+
+
+def _raise_portable(err: tuple) -> None:
+    import ocrbench.errors as errors
+
+    _, cls_name, path, reason, message = err
+    cls = getattr(errors, cls_name, None)
+    if isinstance(cls, type) and issubclass(cls, errors.InputError) and path is not None and reason is not None:
+        raise cls(path, reason)
+    if isinstance(cls, type) and issubclass(cls, errors.OcrbenchError) and not issubclass(cls, errors.InputError):
+        raise cls(message)
+    raise ClusterError(f"a Dask worker failed: {cls_name}: {message}")
+
+
+def _preflight(cards: Sequence[Card], options: RunOptions) -> tuple:
+    """On one worker: open every recogniser (caught early: a model onnxruntime cannot load) and describe the host."""
+    try:
+        return ("ok", [host_info(worker_recogniser(c, options)) for c in cards])
+    except Exception as e:  # noqa: BLE001 - sent back and raised in the client as a typed error
+        return _portable_error(e)
+
+
+def _recognise_chunk(refs: Sequence[PageRef], todo: Sequence[Sequence[int]], cards: Sequence[Card],
+                     options: RunOptions, postprocess: PostProcess | None) -> tuple:
+    """The task: read a few pages; for each, the outcomes of the recognisers listed in ``todo``."""
+    try:
+        recs = [worker_recogniser(c, options) for c in cards]
+    except Exception as e:  # noqa: BLE001 - a setup problem stops the run, in the client
+        return _portable_error(e)
+    out = []
+    for ref, idx in zip(refs, todo):
+        out.append((ref.id, recognise_page(ref, [recs[i] for i in idx], options=options, postprocess=postprocess)))
+    return ("ok", out)
+
+
+# --------------------------------------------------------------------------- client side
+
+
+@dataclass
+class _Cluster:
+    client: object
+    description: str
+    threads: int
+    workers: int
+    scheduler: str
+
+
+@contextmanager
+def connect(dask: DaskOptions) -> Iterator[_Cluster]:
+    """A Dask client: on a LocalCluster started here (closed on exit), or on the cluster at ``dask.scheduler``."""
+    from distributed import Client, LocalCluster
+
+    cluster = None
+    try:
+        if dask.scheduler is not None:
+            try:
+                client = Client(dask.scheduler, timeout=dask.connect_timeout)
+            except (OSError, TimeoutError) as e:
+                raise ClusterError(f"cannot reach the Dask scheduler at {dask.scheduler}: {e}") from e
+            try:
+                client.wait_for_workers(1, timeout=dask.connect_timeout)
+            except (OSError, TimeoutError) as e:
+                client.close()
+                raise ClusterError(f"the Dask scheduler at {dask.scheduler} has no workers "
+                                   f"(waited {dask.connect_timeout:.0f} s)") from e
+        else:
+            n = dask.workers or 1
+            try:
+                cluster = LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker,
+                                       processes=dask.processes, dashboard_address=None,
+                                       silence_logs=logging.CRITICAL)
+            except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
+                raise ClusterError(f"cannot start a local Dask cluster of {n} workers: {type(e).__name__}: {e}") from e
+            client = Client(cluster)
+    except ClusterError:
+        if cluster is not None:
+            cluster.close()
+        raise
+    try:
+        nthreads = client.nthreads()
+        import distributed
+
+        where = (f"scheduler {dask.scheduler}" if dask.scheduler is not None else
+                 f"local {'processes' if dask.processes else 'threads'}")
+        desc = (f"dask {distributed.__version__}: {len(nthreads)} workers x "
+                f"{max(nthreads.values(), default=0)} threads ({where})")
+        yield _Cluster(client, desc, sum(nthreads.values()), len(nthreads), client.scheduler.address)
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def _chunks(refs: Sequence[PageRef], states: Sequence[_RunState], size: int,
+            skipped: set[str]) -> Iterator[tuple[list[PageRef], list[list[int]]]]:
+    """Pages still to read, ``size`` at a time, each with the recognisers (by index) that still need it."""
+    todo = ((r, [i for i, s in enumerate(states) if r.id not in s.done]) for r in refs if r.id not in skipped)
+    while True:
+        chunk = list(itertools.islice(todo, size))
+        if not chunk:
+            return
+        yield [r for r, _ in chunk], [idx for _, idx in chunk]
+
+
+def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, store: RunStore | Path | str,
+                    options: RunOptions | EngineOptions | None = None, dask: DaskOptions | None = None,
+                    clock: Clock = time.perf_counter, progress: Callable[[ProgressEvent], None] | None = None,
+                    postprocess: PostProcess | None = None, fresh: bool = False) -> RunSummary:
+    """Like :func:`ocrbench.runner.run_pages`, with pages read on a Dask cluster and written here as they finish.
+
+    Cards are validated here and every recogniser is opened once on a worker
+    before any page is submitted, so a bad card or model stops the run before
+    any page runs. Raises CardError / StoreError / InputError / ClusterError for
+    problems that stop everything; a problem of one page is a failed page.
+    ``postprocess`` must be picklable (a module-level function or object).
+    """
+    options = as_run_options(options)
+    dask = dask or DaskOptions(workers=1)
+    card_list = load_cards(cards)
+    target = Path(target)
+    refs = list_pages(target)
+    input_dir = input_folder(target)
+    own_store = not isinstance(store, RunStore)
+    st = RunStore(store) if own_store else store
+    try:
+        with connect(dask) as cl:
+            client = cl.client
+            pre = client.submit(_preflight, card_list, options, pure=False).result()
+            if pre[0] == "error":
+                _raise_portable(pre)
+            hosts = pre[1]
+            import onnxruntime as ort
+
+            engine = f"{cl.description} / onnxruntime {ort.__version__}"
+            settings = options.settings(postprocess)
+            states = []
+            for card, host in zip(card_list, hosts):
+                extra = {"dask": {"scheduler": cl.scheduler, "workers": cl.workers, "threads": cl.threads,
+                                  "processes": dask.processes if dask.scheduler is None else None}}
+                states.append(open_run(st, card, None, settings=settings, input_dir=input_dir, fresh=fresh,
+                                       engine=engine, host=lambda host=host, extra=extra: {**host, **extra}))
+            window = dask.max_in_flight or max(2, 2 * cl.threads)
+            return _write_as_completed(client, refs, states, card_list, st, options, dask.pages_per_task, window,
+                                       clock, progress, postprocess, input_dir)
+    finally:
+        if own_store:
+            st.close()
+
+
+def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunOptions, per_task: int, window: int,
+                        clock: Clock, progress, postprocess, input_dir: str) -> RunSummary:
+    """Submit at most ``window`` tasks at a time and write each page as its task completes."""
+    from distributed import as_completed
+    from distributed.scheduler import KilledWorker
+
+    start = clock()
+    total = len(refs)
+    skipped = {r.id for r in refs if all(r.id in s.done for s in states)}
+    n_done = n_failed = n_lines = n_processed = 0
+    n_skipped = len(skipped)
+
+    def emit(kind, page_id=None, failed=False, skipped=False):
+        if progress is not None:
+            progress(ProgressEvent(kind=kind, pages_total=total, pages_done=n_done, pages_skipped=n_skipped,
+                                   pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
+                                   skipped=skipped, elapsed=clock() - start))
+
+    emit("start")
+    for r in refs:
+        if r.id in skipped:
+            n_done += 1
+            emit("page", r.id, skipped=True)
+
+    run_token = uuid.uuid4().hex[:12]
+    work = _chunks(refs, states, per_task, skipped)
+    in_flight: dict[str, tuple[object, list[PageRef], list[list[int]]]] = {}
+    counter = itertools.count()
+    ac = as_completed()
+
+    def submit_next() -> None:
+        try:
+            chunk = next(work)
+        except StopIteration:
+            return
+        key = f"ocrbench-pages-{run_token}-{next(counter)}"
+        fut = client.submit(_recognise_chunk, chunk[0], chunk[1], cards, options, postprocess, key=key, pure=False)
+        in_flight[key] = (fut, *chunk)
+        ac.add(fut)
+
+    for _ in range(window):
+        submit_next()
+    try:
+        for fut in ac:
+            _, chunk_refs, chunk_todo = in_flight.pop(fut.key)
+            try:
+                res = fut.result()
+            except KilledWorker as e:
+                res = ("ok", [(r.id, [_lost(r, e) for _ in idx]) for r, idx in zip(chunk_refs, chunk_todo)])
+            finally:
+                fut.release()
+            del fut
+            if res[0] == "error":
+                _raise_portable(res)
+            for (page_id, outcomes), idx in zip(res[1], chunk_todo):
+                n_processed += 1
+                page_failed = False
+                for i, o in zip(idx, outcomes):
+                    s = states[i]
+                    st.write_page(s.run_id, o.page, o.lines, o.batches)
+                    s.new += 1
+                    if o.failed:
+                        page_failed = True
+                    else:
+                        s.done.add(page_id)
+                        n_lines += len(o.lines)
+                n_done += 1
+                n_failed += page_failed
+                emit("page", page_id, failed=page_failed)
+            del res
+            submit_next()
+    finally:
+        if in_flight:                             # stopped early: leave nothing running on the cluster
+            client.cancel([f for f, _, _ in in_flight.values()])
+            in_flight.clear()
+    wall = clock() - start
+    for s in states:
+        st.finish_run(s.run_id)
+    return RunSummary(input_dir=input_dir, pages_total=total, pages_processed=n_processed, pages_skipped=n_skipped,
+                      wall_seconds=wall, recognisers=[_summary(st, s) for s in states])
+
+
+def _lost(ref: PageRef, e: BaseException) -> PageOutcome:
+    """A page whose workers kept dying while reading it (a page that exhausts memory, say)."""
+    import dask
+
+    tries = int(dask.config.get("distributed.scheduler.allowed-failures", 3)) + 1
+    return PageOutcome(PageRecord(page_id=ref.id, path=ref.display(), content_hash=file_sha256(Path(ref.path)),
+                                  status="failed",
+                                  error=f"the Dask worker reading this page died {tries} times "
+                                        f"(out of memory?): {type(e).__name__}"))
