@@ -19,6 +19,7 @@ import os
 import platform
 import socket
 import time
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable, Sequence
@@ -26,7 +27,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from ocrbench.errors import InputError, OcrbenchError, StoreError
-from ocrbench.pages import DEFAULT_MAX_PIXELS, PageRef, analyse_page, list_pages, load_page
+from ocrbench.pages import DEFAULT_MAX_PIXELS, Layout, PageRef, analyse_page, list_pages, load_page
 from ocrbench.recognisers.base import Clock, EngineOptions, LineResult, Recogniser, open_recogniser
 from ocrbench.recognisers.card import Card, load_card
 from ocrbench.store import BatchRecord, LineRecord, PageRecord, RunStore
@@ -36,12 +37,26 @@ PostProcess = Callable[[list[str], list[float]], list[str]]
 
 @dataclass(frozen=True)
 class RunOptions:
-    """Options of a run: the engine options plus page handling. All are recorded as the run's settings."""
+    """Options of a run: the engine options plus page handling.
+
+    All but ``warm_up`` and ``prefetch`` are recorded as the run's settings
+    (they decide what a run is). ``prefetch`` loads and segments the next page
+    in a second thread while the current one is recognised; ``None`` turns it
+    on when the machine has a core to spare beyond the model's intra-op
+    threads. With prefetch the clock is read from two threads, so tests that
+    step a fake clock turn it off.
+    """
 
     engine: EngineOptions = field(default_factory=EngineOptions)
     deskew: bool = True
     max_pixels: int = DEFAULT_MAX_PIXELS
     warm_up: bool = True
+    prefetch: bool | None = None
+
+    def use_prefetch(self) -> bool:
+        if self.prefetch is not None:
+            return self.prefetch
+        return (os.cpu_count() or 1) > self.engine.intra_threads
 
     def settings(self, postprocess: PostProcess | None) -> dict:
         d = self.engine.to_dict()
@@ -271,28 +286,46 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
                                    pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
                                    skipped=skipped, elapsed=clock() - start))
 
+    work = [r for r in refs if r.id not in skipped_ids]
+    pool = (ThreadPoolExecutor(max_workers=1, thread_name_prefix="ocrbench-prefetch")
+            if options.use_prefetch() and len(work) > 1 else None)
+    ahead: dict[int, Future] = {}
+
+    def loaded(i: int) -> LoadedPage:
+        """Page ``work[i]``; when prefetching it was loaded in the background, and ``work[i + 1]`` starts now."""
+        if pool is None:
+            return load_and_segment(work[i], options=options, clock=clock)
+        fut = ahead.pop(i, None) or pool.submit(load_and_segment, work[i], options=options, clock=clock)
+        if i + 1 < len(work):
+            ahead[i + 1] = pool.submit(load_and_segment, work[i + 1], options=options, clock=clock)
+        return fut.result()
+
     emit("start")
-    for ref in refs:
-        page_id = ref.id
-        if page_id in skipped_ids:
+    try:
+        for ref in refs:
+            page_id = ref.id
+            if page_id in skipped_ids:
+                n_done += 1
+                emit("page", page_id, skipped=True)
+                continue
+            todo = [s for s in states if page_id not in s.done]
+            outcomes = read_page(loaded(n_processed), [s.rec for s in todo], clock=clock, postprocess=postprocess)
+            n_processed += 1
+            page_failed = False
+            for s, o in zip(todo, outcomes):
+                st.write_page(s.run_id, o.page, o.lines, o.batches)
+                s.new += 1
+                if o.failed:
+                    page_failed = True
+                else:
+                    s.done.add(page_id)
+                    n_lines += len(o.lines)
             n_done += 1
-            emit("page", page_id, skipped=True)
-            continue
-        todo = [s for s in states if page_id not in s.done]
-        n_processed += 1
-        outcomes = recognise_page(ref, [s.rec for s in todo], options=options, clock=clock, postprocess=postprocess)
-        page_failed = False
-        for s, o in zip(todo, outcomes):
-            st.write_page(s.run_id, o.page, o.lines, o.batches)
-            s.new += 1
-            if o.failed:
-                page_failed = True
-            else:
-                s.done.add(page_id)
-                n_lines += len(o.lines)
-        n_done += 1
-        n_failed += page_failed
-        emit("page", page_id, failed=page_failed)
+            n_failed += page_failed
+            emit("page", page_id, failed=page_failed)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
     wall = clock() - start
     for s in states:
         st.finish_run(s.run_id)
@@ -313,19 +346,29 @@ class PageOutcome:
         return self.page.status == "failed"
 
 
-def recognise_page(ref: PageRef, recognisers: Sequence[Recogniser], *, options: RunOptions,
-                   clock: Clock = time.perf_counter, postprocess: PostProcess | None = None) -> list[PageOutcome]:
-    """Load and segment one page once, then let each recogniser read its lines; one outcome per recogniser.
+@dataclass
+class LoadedPage:
+    """A page loaded and segmented (or the reason it could not be), before any recogniser reads it."""
 
-    Touches no store, so the serial runner and the scale-out workers share it.
-    A problem of the page (unreadable, too large, a recogniser failing on it)
-    becomes a failed outcome carrying the reason; it is never raised.
-    """
-    page_id = ref.id
+    ref: PageRef
+    content_hash: str | None
+    t_load: float | None
+    t_segment: float | None
+    width: int | None = None
+    height: int | None = None
+    layout: Layout | None = None
+    error: str | None = None
+
+    @property
+    def page_id(self) -> str:
+        return self.ref.id
+
+
+def load_and_segment(ref: PageRef, *, options: RunOptions, clock: Clock = time.perf_counter) -> LoadedPage:
+    """Load one page and find its lines; a problem of the page is returned as ``error``, never raised."""
     chash = file_sha256(Path(ref.path))
-    path = ref.display()
     t0 = clock()
-    t_load = t_segment = None
+    t_load = None
     try:
         page = load_page(ref, max_pixels=options.max_pixels)
         t1 = clock()
@@ -335,11 +378,23 @@ def recognise_page(ref: PageRef, recognisers: Sequence[Recogniser], *, options: 
     except StoreError:
         raise
     except Exception as e:  # noqa: BLE001 - one bad page must not stop the run; the reason is stored
-        reason = _reason(e)
-        return [PageOutcome(PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
-                                       error=reason, t_load=t_load, t_segment=t_segment)) for _ in recognisers]
-    crops = [lb.crop for lb in layout.lines]
+        return LoadedPage(ref, chash, t_load, None, error=_reason(e))
     h, w = page.gray.shape[:2]
+    return LoadedPage(ref, chash, t_load, t_segment, width=w, height=h, layout=layout)
+
+
+def read_page(loaded: LoadedPage, recognisers: Sequence[Recogniser], *, clock: Clock = time.perf_counter,
+              postprocess: PostProcess | None = None) -> list[PageOutcome]:
+    """Let each recogniser read the lines of a loaded page; one outcome per recogniser (failures included)."""
+    page_id, path, chash = loaded.page_id, loaded.ref.display(), loaded.content_hash
+    t_load, t_segment = loaded.t_load, loaded.t_segment
+    if loaded.error is not None or loaded.layout is None:
+        return [PageOutcome(PageRecord(page_id=page_id, path=path, content_hash=chash, status="failed",
+                                       error=loaded.error, t_load=t_load, t_segment=t_segment))
+                for _ in recognisers]
+    layout = loaded.layout
+    crops = [lb.crop for lb in layout.lines]
+    w, h = loaded.width, loaded.height
     out: list[PageOutcome] = []
     for rec_ in recognisers:
         t3 = clock()
@@ -370,6 +425,18 @@ def recognise_page(ref: PageRef, recognisers: Sequence[Recogniser], *, options: 
         out.append(PageOutcome(rec, _line_records(layout.lines, results, post),
                                [BatchRecord(**asdict(b)) for b in timings]))
     return out
+
+
+def recognise_page(ref: PageRef, recognisers: Sequence[Recogniser], *, options: RunOptions,
+                   clock: Clock = time.perf_counter, postprocess: PostProcess | None = None) -> list[PageOutcome]:
+    """Load and segment one page once, then let each recogniser read its lines; one outcome per recogniser.
+
+    Touches no store, so the serial runner and the scale-out workers share it.
+    A problem of the page (unreadable, too large, a recogniser failing on it)
+    becomes a failed outcome carrying the reason; it is never raised.
+    """
+    return read_page(load_and_segment(ref, options=options, clock=clock), recognisers, clock=clock,
+                     postprocess=postprocess)
 
 
 def _reason(e: BaseException) -> str:

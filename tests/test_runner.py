@@ -91,6 +91,16 @@ def test_every_page_with_every_recogniser(pages, cards, tmp_path):
     assert set(runs.card_hash) == {c.card_hash for c in cards}
 
 
+def test_prefetch_changes_nothing_but_speed(with_bad_page, cards, tmp_path):
+    texts = []
+    for prefetch in (False, True):
+        with RunStore(tmp_path / f"s{prefetch}.sqlite") as st:
+            s = run_pages(with_bad_page, cards, store=st, options=RunOptions(prefetch=prefetch))
+            texts.append([st.page_texts(r.run_id) for r in s.recognisers])
+            assert s.failed_pages == ["page_000_broken.png"]
+    assert texts[0] == texts[1]
+
+
 def test_rerun_resumes_and_fresh_starts_again(pages, cards, tmp_path):
     db = tmp_path / "s.sqlite"
     first = run_pages(pages, cards, store=db)
@@ -202,7 +212,7 @@ def test_fake_clock_timings(pages, cards, tmp_path):
         clock.now += 2.5
         return texts
     with RunStore(tmp_path / "s.sqlite") as st:
-        s = run_pages(pages, cards[:1], store=st, clock=clock, postprocess=post)
+        s = run_pages(pages, cards[:1], store=st, clock=clock, postprocess=post, options=RunOptions(prefetch=False))
         p = st.read_frames()["pages"]
     assert p.t_postprocess.tolist() == [2.5] * N_PAGES
     assert p.t_total.tolist() == [2.5] * N_PAGES
@@ -222,7 +232,7 @@ def test_ticking_clock_times_each_stage(pages, cards, tmp_path):
             self.t += 1.0
             return self.t
     with RunStore(tmp_path / "s.sqlite") as st:
-        run_pages(pages, cards[:1], store=st, clock=Tick(), options=RunOptions(warm_up=False))
+        run_pages(pages, cards[:1], store=st, clock=Tick(), options=RunOptions(warm_up=False, prefetch=False))
         p = st.read_frames()["pages"]
     assert (p.t_load == 1.0).all() and (p.t_segment == 1.0).all()
 
