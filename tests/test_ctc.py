@@ -232,3 +232,19 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
         got = st.page_texts(summary.recognisers[0].run_id)
     assert got == direct
     assert sum(len(v) for v in direct.values()) > 10
+
+
+def test_session_options_reach_onnxruntime(tmp_path):
+    import onnxruntime as ort_
+
+    card = load_card(tm.write_ctc(tmp_path / "m"))
+    opts = EngineOptions(intra_threads=2, inter_threads=3, graph_optimisation="basic",
+                         providers=("NoSuchExecutionProvider", "CPUExecutionProvider"))
+    rec = open_recogniser(card, options=opts)
+    so = rec.session.get_session_options()
+    assert (so.intra_op_num_threads, so.inter_op_num_threads) == (2, 3)
+    assert so.graph_optimization_level == ort_.GraphOptimizationLevel.ORT_ENABLE_BASIC
+    assert rec.providers == ["CPUExecutionProvider"]            # unknown providers skipped, CPU as the fallback
+    crops = [tm.block_line(" a b  aa bb ")]
+    plain = open_recogniser(card, options=EngineOptions(graph_optimisation="disable")).recognise(crops)[0]
+    assert [r.text for r in rec.recognise(crops)[0]] == [r.text for r in plain] == ["abab"]

@@ -61,6 +61,13 @@ def run(
                                             help="Also write DIR/<recogniser>/<page stem>.txt per page."),
     batch_size: int = typer.Option(16, "--batch-size", min=1, help="Lines per model batch."),
     threads: int = typer.Option(1, "--threads", min=1, help="Threads inside each model run (intra-op)."),
+    inter_threads: int = typer.Option(1, "--inter-threads", min=1,
+                                      help="Threads running independent parts of a model in parallel (inter-op)."),
+    graph_optimisation: str = typer.Option("all", "--graph-optimisation",
+                                           help="onnxruntime graph optimisation: disable, basic, extended or all."),
+    provider: list[str] = typer.Option(["CPUExecutionProvider"], "--provider",
+                                       help="onnxruntime execution provider, in order of preference (repeat); "
+                                            "those not installed are skipped, CPU is always the fallback."),
     decoding: str = typer.Option("greedy", "--decoding", help="greedy or beam."),
     beam_width: int = typer.Option(8, "--beam-width", min=1, help="Hypotheses kept by beam search."),
     no_cache: bool = typer.Option(False, "--no-cache",
@@ -89,7 +96,9 @@ def run(
         raise fail(f"--decoding must be one of {', '.join(DECODINGS)}, not {decoding!r}", EXIT_USAGE)
     err = Console(stderr=True)
     try:
-        engine = EngineOptions(intra_threads=threads, batch_size=batch_size, decoding=decoding,
+        engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
+                               graph_optimisation=graph_optimisation, providers=tuple(provider),
+                               batch_size=batch_size, decoding=decoding,
                                beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
         with RunStore(store) as st:
             with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
