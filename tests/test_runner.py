@@ -278,3 +278,25 @@ def test_export_command(pages, cards, tmp_path):
     assert [Path(f).name for f in files] == ["runs.csv", "pages.csv", "lines.csv", "batches.csv"]
     res = CliRunner().invoke(app, ["export", str(tmp_path / "missing.sqlite"), "--out", str(tmp_path / "y")])
     assert res.exit_code == 2 and "not found" in res.stderr
+
+
+def test_text_out_names_follow_the_ground_truth_pairing():
+    # CONTRACTS.md: page_001.png <-> page_001.txt; a TIFF frame book.tif#3 <-> book_3.txt
+    from ocrbench.commands.run import text_stem
+
+    assert text_stem("page_001.png") == "page_001"
+    assert text_stem("book.tif#3") == "book_3"
+    assert text_stem("book.tif") == "book"
+
+
+def test_run_command_beam_decoding(pages, cards, tmp_path):
+    res = CliRunner().invoke(app, ["run", str(pages), "-r", str(cards[0].folder), "-r", str(cards[1].folder),
+                                   "--store", str(tmp_path / "s.sqlite"), "--decoding", "beam", "--beam-width", "3",
+                                   "--no-cache", "--json"])
+    assert res.exit_code == 0, res.stderr
+    doc = json.loads(res.stdout)
+    with RunStore(tmp_path / "s.sqlite") as st:
+        for r in doc["recognisers"]:
+            settings = st.run_info(r["run_id"]).settings
+            assert (settings["decoding"], settings["beam_width"], settings["use_cache"]) == ("beam", 3, False)
+            assert r["pages_done"] == N_PAGES
