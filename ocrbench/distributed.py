@@ -196,9 +196,9 @@ def connect(dask: DaskOptions) -> Iterator[_Cluster]:
                                    f"(waited {dask.connect_timeout:.0f} s)") from e
         else:
             n = dask.workers or 1
-            try:
+            try:   # the scheduler's HTTP server always starts: a free port on this machine only
                 cluster = LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker,
-                                       processes=dask.processes, dashboard_address=None,
+                                       processes=dask.processes, dashboard_address="127.0.0.1:0",
                                        silence_logs=logging.CRITICAL)
             except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
                 raise ClusterError(f"cannot start a local Dask cluster of {n} workers: {type(e).__name__}: {e}") from e
