@@ -91,12 +91,14 @@ def read_store_frames(path: Path | str) -> dict[str, pd.DataFrame]:
 
 
 SCALING_COLUMNS = ("measured_at", "recogniser", "kind", "card_hash", "host_json", "workers", "threads", "pages",
-                   "wall_seconds", "pages_per_second", "startup_seconds", "busy_seconds", "gap_seconds_per_page")
+                   "wall_seconds", "pages_per_second", "startup_seconds", "busy_seconds", "gap_seconds_per_page",
+                   "run_id")
 
 _SCALING_DDL = """CREATE TABLE IF NOT EXISTS scaling(
     measured_at TEXT, recogniser TEXT, kind TEXT, card_hash TEXT, host_json TEXT,
     workers INTEGER, threads INTEGER, pages INTEGER, wall_seconds REAL, pages_per_second REAL,
-    startup_seconds REAL, busy_seconds REAL, gap_seconds_per_page REAL)"""
+    startup_seconds REAL, busy_seconds REAL, gap_seconds_per_page REAL,
+    run_id INTEGER)  -- the calibration run a one-worker session wrote (NULL for scaling workers)"""
 
 
 def save_scaling(path: Path | str, table: pd.DataFrame) -> None:
@@ -189,8 +191,10 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         if len(mine):
             one = mine[mine["workers"] == 1]
             if len(one):
+                rid = one["run_id"].iloc[-1] if "run_id" in one else None
                 session = {"startup_seconds": float(one["startup_seconds"].iloc[-1]),
-                           "gap_seconds_per_page": float(one["gap_seconds_per_page"].iloc[-1])}
+                           "gap_seconds_per_page": float(one["gap_seconds_per_page"].iloc[-1]),
+                           "run_id": None if rid is None or pd.isna(rid) else int(rid)}
             scaling[n] = P.ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
             m = P.fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,

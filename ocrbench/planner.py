@@ -537,6 +537,17 @@ class CostModel:
     n_batches: int
     quality: dict = field(default_factory=dict)   # batch-total and page-overhead fit quality
     notes: list[str] = field(default_factory=list)
+    overlap: float = 0.0               # share of min(batch time, page overhead) hidden by loading ahead
+
+    def page_times(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
+        """Wall time of pages given their feature rows (layout :data:`COEF_NAMES`)."""
+        c = self.coef if coef is None else coef
+        b = X[:, :_NB] @ c[:_NB]
+        o = X[:, _NB:_NB + _NP] @ c[_NB:_NB + _NP]
+        t = b + o + X[:, -1] * c[-1]
+        if self.overlap:
+            t = t - self.overlap * np.minimum(b, np.maximum(o, 0.0))
+        return t
 
     # ---- reporting
     def fit_table(self) -> pd.DataFrame:
@@ -751,10 +762,25 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
     gaps, startup, tl_notes = _timeline(runs, frames["pages"], ids)
     my_gaps = np.array([gaps.get(k, np.nan) for k in pkeys], dtype=float)
     gap_mean = float(np.nanmean(my_gaps)) if np.isfinite(my_gaps).any() else 0.0
+    overlap = 0.0
     if session:
         # measured directly around a run (ocrbench.scaling): more precise than store timestamps
         gap_mean = float(session.get("gap_seconds_per_page", gap_mean) or 0.0)
         startup = float(session.get("startup_seconds", startup or 0.0) or 0.0)
+        if gap_mean < 0:
+            # The runner overlapped pages (loading the next while recognising this one): the session
+            # was shorter than its pages' own times. Model a page's wall time as
+            # batch + overhead - overlap * min(batch, overhead), overlap fitted to the session.
+            sel = np.ones(len(pkeys), dtype=bool)
+            if session.get("run_id") is not None:
+                sel = (pages["run_id"] == int(session["run_id"])).to_numpy()
+                sel = sel if sel.any() else np.ones(len(pkeys), dtype=bool)
+            both = float(np.minimum(batch_time[sel], np.maximum(y_page[sel], 0.0)).mean())
+            if both > 0:
+                overlap = min(1.0, -gap_mean / both)
+                gap_mean = min(0.0, gap_mean + overlap * both)
+            notes.append(f"pages overlapped in the timed session (loading ahead): {100 * overlap:.0f}% of the "
+                         "shorter of a page's recognition and its loading is hidden")
         my_gaps = np.full(len(pkeys), gap_mean)
     else:
         notes += tl_notes
@@ -818,7 +844,8 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         width_multiple=width_multiple, line_height=line_height, max_tokens=max_tokens, stages=stages,
         page=page_fit, page_target=page_target, gap_per_page=gap_mean, startup_s=startup, coef=coef,
         boot=boot, batch_resid=batch_resid, page_resid=page_resid, width=width, ranges=ranges,
-        n_pages=len(pages), n_lines=len(ln), n_batches=len(batches), quality=quality, notes=notes)
+        n_pages=len(pages), n_lines=len(ln), n_batches=len(batches), quality=quality, notes=notes,
+        overlap=overlap)
 
 
 def fit_cost_models(frames: Mapping[str, pd.DataFrame], *, profile: str | None = None,
@@ -1103,7 +1130,7 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
     for i in range(draws):
         pool = pool_list[i % n_pools]
         theta = model.boot[i % len(model.boot)] if len(model.boot) else model.coef
-        T = pool.X @ theta
+        T = model.page_times(pool.X, theta)
         C = pool.n_chars.astype(float)
         L = pool.n_lines.astype(float)
         if N <= 5000:
@@ -1256,7 +1283,8 @@ def evaluate_option(est: SerialEstimate, res: Resources, goals: Goals, *, scalin
 
     chars50 = _pct(est.chars, 50)
     row: dict = {
-        "recogniser": m.recogniser, "kind": m.kind, "profile": m.profile, "workers": res.workers,
+        "recogniser": m.recogniser, "kind": m.kind, "profile": m.profile,
+        "cpu_model": m.host.get("cpu_model"), "cores": m.host.get("cores"), "workers": res.workers,
         "threads": threads, "machines": res.machines, "pages": est.archive.n_pages,
         "lines": _pct(est.lines, 50), "characters": chars50,
         "characters_p10": _pct(est.chars, 10), "characters_p90": _pct(est.chars, 90),
@@ -1378,11 +1406,15 @@ def _scaling_for(inputs: PlanInputs, m: CostModel) -> ScalingFit | None:
 
 
 def _max_workers(m: CostModel, res: Resources, scaling: ScalingFit | None) -> int:
+    """The most workers one machine can be planned with: its cores, if scaling was measured to extrapolate."""
     if scaling is None:
         return 1
-    cores = int(m.host.get("cores") or 0)
     threads = res.threads or m.threads
-    return max(1, cores // threads) if cores else max(1, scaling.max_workers_measured(threads))
+    measured = scaling.max_workers_measured(threads)
+    if scaling.serial_fraction(threads) is None:
+        return max(1, measured)
+    cores = int(m.host.get("cores") or 0)
+    return max(1, cores // threads) if cores else max(1, measured)
 
 
 def _recommend(options: list[Option], inputs: PlanInputs) -> dict:
@@ -1409,8 +1441,11 @@ def _recommend(options: list[Option], inputs: PlanInputs) -> dict:
         res = inputs.resources_by_profile.get(m.profile, inputs.resources)
         sc = _scaling_for(inputs, m)
         for w in range(res.workers + 1, _max_workers(m, res, sc) + 1):
-            alt = evaluate_option(o.serial, replace(res, workers=w), goals, scaling=sc,
-                                  accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction)
+            try:
+                alt = evaluate_option(o.serial, replace(res, workers=w), goals, scaling=sc,
+                                      accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction)
+            except PlanError:
+                break
             if alt.row["meets_deadline"] is not False and alt.row["meets_budget"] is not False:
                 changes.append((0, w - res.workers, key(alt), {
                     "recogniser": m.recogniser, "profile": m.profile, "workers": w, "machines": res.machines,
@@ -1421,8 +1456,11 @@ def _recommend(options: list[Option], inputs: PlanInputs) -> dict:
                 break
         if r["meets_budget"] is not False:
             for mach in range(res.machines + 1, 4 * res.machines + 65):
-                alt = evaluate_option(o.serial, replace(res, machines=mach), goals, scaling=sc,
-                                      accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction)
+                try:
+                    alt = evaluate_option(o.serial, replace(res, machines=mach), goals, scaling=sc,
+                                          accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction)
+                except PlanError:
+                    break
                 if alt.row["meets_deadline"] is not False and alt.row["meets_budget"] is not False:
                     changes.append((1, mach - res.machines, key(alt), {
                         "recogniser": m.recogniser, "profile": m.profile, "workers": res.workers, "machines": mach,
@@ -1491,6 +1529,7 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
         "meets_deadline: the P90 wall-clock is within the deadline; meets_budget: compute at P90 plus "
         "correction at the CER's upper bound is within the budget",
         "wall-clock covers recognition only; human correction time is reported separately",
-        "characters per line of a segmented sample are estimated from line width (fitted px per character)",
+        "characters per line of a segmented sample are estimated from line width (fitted px per character "
+        "on the calibration's recognised lines); expected errors = CER x these characters",
     ]
     return table

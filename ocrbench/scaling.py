@@ -54,7 +54,8 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
     Returns one row of the scaling table (``workers`` = 1) with
     ``startup_seconds`` (call until the first page starts: sessions opened and
     warmed), ``busy_seconds`` (the pages' own ``t_total`` summed),
-    ``gap_seconds_per_page`` (time between pages outside their own timing) and
+    ``gap_seconds_per_page`` (time between pages outside their own timing;
+    negative when the runner overlaps pages, e.g. by loading ahead) and
     ``pages_per_second``. ``barrier`` (multiprocessing) makes several workers
     start their first page together.
     """
@@ -96,7 +97,8 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
         "threads": int(options.engine.intra_threads), "pages": n, "wall_seconds": span,
         "pages_per_second": n / span if span > 0 else float("nan"),
         "startup_seconds": tl.t_begin - tl.t_call, "busy_seconds": busy,
-        "gap_seconds_per_page": max(0.0, (span - busy) / n), "run_id": rs.run_id,
+        # negative when the runner overlaps work (e.g. loads the next page while recognising this one)
+        "gap_seconds_per_page": (span - busy) / n, "run_id": rs.run_id,
     }
 
 
@@ -161,6 +163,7 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
                 "startup_seconds": max(r["startup_seconds"] for r in got),
                 "busy_seconds": sum(r["busy_seconds"] for r in got),
                 "gap_seconds_per_page": sum(r["gap_seconds_per_page"] for r in got) / w,
+                "run_id": None,
             })
             if progress:
                 progress(k + 1, len(ws))

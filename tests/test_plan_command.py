@@ -99,6 +99,21 @@ def test_plan_json_from_a_run_store(calibrated):
     assert doc["recommendation"]["text"]
 
 
+def test_plan_with_ground_truth_gives_cer_and_sample_size(calibrated):
+    pytest.importorskip("ocrbench.accuracy.textio")
+    d, _ = calibrated
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "1000", "--truth", str(d / "pages"), "--draws", "100", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    for r in doc["recognisers"]:
+        assert r["cer_low"] <= r["cer"] <= r["cer_high"]
+        assert r["char_errors"] == pytest.approx(r["cer"] * r["characters"])
+        assert r["correction_hours"] == pytest.approx(r["char_errors"] * 10 / 3600)   # default 10 s per error
+        size = doc["ground_truth_sample"][r["recogniser"]]
+        assert r["gt_sample_pages"] == size["pages"] and 2 <= size["pages"] <= 1000
+
+
 def test_plan_file_and_its_errors(calibrated, tmp_path):
     d, _ = calibrated
     f = tmp_path / "plan.toml"

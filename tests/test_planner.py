@@ -427,6 +427,38 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
     assert any("whole seconds" in n for n in m.notes)
 
 
+def test_pages_overlapped_by_loading_ahead():
+    """A runner that loads the next page while recognising this one hides part of the shorter of the two.
+
+    Fake session: each page's wall time is batch + overhead - 0.6 * min(batch, overhead). The
+    session's span (all the planner is told besides the store) must give back 0.6, and the
+    held-out prediction must follow the same rule.
+    """
+    phi = 0.6
+
+    def span_of(t):
+        b = pd.DataFrame(t["batches"]).assign(
+            bt=lambda x: x[["t_preprocess", "t_encode", "t_steps", "t_collapse"]].sum(axis=1))
+        bsum = b.groupby("page_id")["bt"].sum()
+        pg = pd.DataFrame(t["pages"]).set_index("page_id")
+        o = pg["t_total"] - bsum.reindex(pg.index).fillna(0)
+        return float((pg["t_total"] - phi * np.minimum(bsum.reindex(pg.index).fillna(0), o)).sum()), float(
+            pg["t_total"].sum())
+
+    calib = run_fake("ctc", fake_pages(10, seed=21), FakeClock(), run_id=1, recogniser="r")
+    span, busy = span_of(calib)
+    session = {"gap_seconds_per_page": (span - busy) / 10, "startup_seconds": STARTUP, "run_id": 1}
+    m = P.fit_cost_model(frames_of(calib), "r", session=session, n_boot=20)
+    assert m.overlap == pytest.approx(phi, rel=1e-6) and m.gap_per_page == pytest.approx(0.0, abs=1e-12)
+    held = fake_pages(60, seed=22, lines=(32, 60))
+    measured, _ = span_of(run_fake("ctc", held, FakeClock(), run_id=2, recogniser="r"))
+    pages_df = pd.DataFrame({"page_id": [p["page_id"] for p in held], "width": [p["width"] for p in held],
+                             "height": [p["height"] for p in held]})
+    lines_df = pd.DataFrame([{"page_id": p["page_id"], "width_px": int(w)} for p in held for w in p["widths"]])
+    plan = P.make_plan([m], P.PlanInputs(archive=P.Archive.from_layouts(pages_df, lines_df, n_pages=60), draws=400))
+    assert plan.iloc[0]["wall_seconds_p50"] - STARTUP == pytest.approx(measured, rel=0.03)
+
+
 def test_bad_inputs_raise_plan_errors():
     frames = calibrate(noise=0.0, n=1, kinds=("ctc",))
     with pytest.raises(PlanError, match="at least 2 pages"):

@@ -20,7 +20,15 @@ from ocrbench.errors import OcrbenchError
 
 
 def _money(v) -> str:
-    return "-" if v is None else f"{v:,.2f}"
+    return "-" if v is None else (f"{v:,.2f}" if abs(v) >= 0.01 or v == 0 else f"{v:.2g}")
+
+
+def _amount(v) -> str:
+    """A quantity with sensible precision: 12,345 / 123.4 / 1.23 / 0.00123."""
+    if v is None:
+        return "-"
+    a = abs(v)
+    return f"{v:,.0f}" if a >= 1000 else f"{v:.1f}" if a >= 10 else f"{v:.3g}"
 
 
 def _num(v, spec=",.0f") -> str:
@@ -50,14 +58,15 @@ def render(table, console: Console) -> None:
     line("wall-clock P10", lambda r: format_duration(r["wall_seconds_p10"]))
     line("wall-clock P50", lambda r: format_duration(r["wall_seconds_p50"]))
     line("wall-clock P90", lambda r: format_duration(r["wall_seconds_p90"]))
-    line("core-hours (P50 / P90)", lambda r: f"{r['core_hours']:,.1f} / {r['core_hours_p90']:,.1f}")
+    line("core-hours (P50 / P90)", lambda r: f"{_amount(r['core_hours'])} / {_amount(r['core_hours_p90'])}")
     line("compute cost (P50 / P90)", lambda r: f"{_money(r['compute_cost'])} / {_money(r['compute_cost_p90'])}")
     line("CER (95% interval)", lambda r: "-" if r["cer"] is None else
          f"{100 * r['cer']:.2f}% ({100 * r['cer_low']:.2f}-{100 * r['cer_high']:.2f})")
     line("character errors", lambda r: "-" if r["char_errors"] is None else
          f"{r['char_errors']:,.0f} ({r['char_errors_low']:,.0f}-{r['char_errors_high']:,.0f})")
     line("correction hours", lambda r: "-" if r["correction_hours"] is None else
-         f"{r['correction_hours']:,.0f} ({r['correction_hours_low']:,.0f}-{r['correction_hours_high']:,.0f})")
+         f"{_amount(r['correction_hours'])} ({_amount(r['correction_hours_low'])}-"
+         f"{_amount(r['correction_hours_high'])})")
     line("total cost (P50 / high)", lambda r: f"{_money(r['cost'])} / {_money(r['cost_high'])}")
     line("meets deadline (P90)", lambda r: _yes(r["meets_deadline"]) + (
         "" if r["p_meets_deadline"] is None else f" ({100 * r['p_meets_deadline']:.0f}%)"))
@@ -198,8 +207,9 @@ def measure_scaling_cmd(
         typer.echo(planio.json_dumps({"scaling": rec}))
         raise typer.Exit(EXIT_OK)
     t = Table(title=f"Throughput on this machine (saved in {store})")
-    for c in cols:
-        t.add_column(c, justify="right" if c != "recogniser" else "left")
+    heads = ["recogniser", "workers", "threads", "pages", "pages/s", "speed-up", "start-up s", "gap s/page"]
+    for h in heads:
+        t.add_column(h, justify="left" if h == "recogniser" else "right")
     for r in df[cols].to_dict(orient="records"):
         t.add_row(*[f"{v:.3g}" if isinstance(v, float) else str(v) for v in r.values()])
     Console().print(t)
