@@ -482,6 +482,18 @@ def run_request(req: PlanRequest, *, progress: Callable[[str], None] | None = No
     return PlanResult(table=table, sample_failures=failures)
 
 
+def plan(**options) -> pd.DataFrame:
+    """Python API: the plan as a DataFrame (one row per recogniser and machine profile).
+
+    Keyword options are the fields of :class:`PlanRequest`, e.g.
+    ``plan(calibration=["cal.sqlite"], pages=180_000, lines_per_page="16-30",
+    chars_per_line="38-60", deadline="6w", price_core_hour=0.05)``. The
+    statements (choice, crossover, warnings, assumptions, fits) are in
+    ``DataFrame.attrs``.
+    """
+    return run_request(PlanRequest(**options)).table
+
+
 def plan_json(table: pd.DataFrame) -> dict:
     """The plan as a JSON-ready dict: ``recognisers`` (one object each) plus the plan's statements."""
     def clean(v):

@@ -67,8 +67,10 @@ def test_fake_clock_session_on_the_real_runner(tmp_path):
 
     for i in range(2):
         synth.write_page(tmp_path / "pages", f"p{i}", synth.PageSpec(seed=i, lines_per_page=3, width=400), "png")
+    from ocrbench.runner import RunOptions
+
     r = measure_session(tmp_path / "pages", write_ctc(tmp_path / "ctc"), store=tmp_path / "s.sqlite",
-                        clock=TickClock())
+                        clock=TickClock(), options=RunOptions(prefetch=False))   # one thread reads the clock
     ticks = round(r["wall_seconds"] / 0.001)
     assert abs(r["wall_seconds"] - ticks * 0.001) < 1e-9            # whole ticks only
     assert r["busy_seconds"] <= r["wall_seconds"]
@@ -97,6 +99,12 @@ def test_plan_json_from_a_run_store(calibrated):
         assert r["correction_hours"] is None          # no CER given: not guessed
     assert any("250x the 4 calibration pages" in w for w in doc["warnings"])
     assert doc["recommendation"]["text"]
+    # the Python API gives the same plan as a DataFrame
+    df = planio.plan(calibration=[str(d / "cal.sqlite")], archive_store=d / "cal.sqlite", pages=1000,
+                     deadline="1h", price_core_hour=0.10, draws=200)
+    assert set(df["recogniser"]) == set(rows)
+    for _, r in df.iterrows():
+        assert r["wall_seconds_p50"] == pytest.approx(rows[r["recogniser"]]["wall_seconds_p50"], rel=1e-12)
 
 
 def test_plan_with_ground_truth_gives_cer_and_sample_size(calibrated):
