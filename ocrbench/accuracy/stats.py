@@ -4,12 +4,17 @@ Pages are the sampling unit throughout: lines of one page share the scan, the
 hand and the layout, so their errors are correlated and resampling lines would
 make intervals too narrow.
 
-* :func:`bootstrap_ratio_ci` — percentile bootstrap interval for a corpus ratio
-  such as CER = Σ edits / Σ reference characters, resampling whole pages.
+* :func:`bootstrap_ratio_ci` — bootstrap interval for a corpus ratio such as
+  CER = Σ edits / Σ reference characters, resampling whole pages. The interval
+  is the *expanded percentile* interval (T. C. Hesterberg, "What teachers should
+  know about the bootstrap", The American Statistician 69(4), 2015): the
+  percentiles are taken at the tail probability Φ(−√(n/(n−1))·t_{n−1}) instead
+  of (1 − level)/2, which undoes the plain percentile interval's narrowness with
+  few pages (n = pages). With fewer than 2 pages there is no interval (None).
 * :func:`paired_comparison` — two recognisers scored on the same pages: the
   difference of their corpus rates, its bootstrap interval (the same resampled
-  pages for both) and a two-sided p-value; a winner is named only when the
-  interval excludes zero.
+  pages for both, expanded as above) and a two-sided p-value consistent with that
+  interval; a winner is named only when the interval excludes zero.
 * :func:`sample_size_for_cer` — how many pages to transcribe so the CER interval
   has a given half-width, from a pilot sample, using the large-sample variance of
   the ratio estimator (W. G. Cochran, *Sampling Techniques*, chapter on ratio
@@ -31,7 +36,7 @@ import pandas as pd
 
 from ocrbench.errors import PlanError
 
-__all__ = ["z_value", "resample_counts", "bootstrap_sums", "bootstrap_ratio_ci", "bootstrap_ratio_cis",
+__all__ = ["z_value", "t_cdf", "t_quantile", "expanded_tail", "resample_counts", "bootstrap_sums", "bootstrap_ratio_ci", "bootstrap_ratio_cis",
            "paired_comparison", "sample_size_for_cer", "cochran_n0"]
 
 #: Upper bound on the entries of one resampling block (memory: 8 bytes each).
@@ -45,6 +50,85 @@ def z_value(level: float) -> float:
     if not 0 < level < 1:
         raise ValueError(f"confidence level must be between 0 and 1, got {level}")
     return NormalDist().inv_cdf(0.5 + level / 2)
+
+
+def t_cdf(t: float, df: int) -> float:
+    """P(T <= t) for Student's t with ``df`` degrees of freedom.
+
+    Exact finite series for integer df (Abramowitz & Stegun, Handbook of
+    Mathematical Functions, 26.7.3 and 26.7.4) up to df = 200; above that the
+    quantile expansion 26.7.5 is inverted by bisection.
+    """
+    if df < 1:
+        raise ValueError(f"degrees of freedom must be >= 1, got {df}")
+    if math.isinf(t):
+        return 1.0 if t > 0 else 0.0
+    if df > 200:
+        lo, hi = 1e-300, 1 - 1e-16
+        for _ in range(100):
+            mid = (lo + hi) / 2
+            if t_quantile(mid, df) < t:
+                lo = mid
+            else:
+                hi = mid
+        return (lo + hi) / 2
+    theta = math.atan2(abs(t), math.sqrt(df))
+    c2 = math.cos(theta) ** 2
+    if df % 2:   # odd: A = (2/pi) [theta + sin cos (1 + 2/3 c2 + 2.4/(3.5) c2^2 + ...)]
+        term, total = 1.0, 1.0 if df > 1 else 0.0
+        for k in range(1, (df - 1) // 2):
+            term *= (2 * k) / (2 * k + 1) * c2
+            total += term
+        a = 2 / math.pi * (theta + (math.sin(theta) * math.cos(theta) * total if df > 1 else 0.0))
+    else:        # even: A = sin (1 + 1/2 c2 + 1.3/(2.4) c2^2 + ...)
+        term, total = 1.0, 1.0
+        for k in range(1, df // 2):
+            term *= (2 * k - 1) / (2 * k) * c2
+            total += term
+        a = math.sin(theta) * total
+    a = min(max(a, 0.0), 1.0)           # A = P(|T| <= |t|)
+    return 0.5 + a / 2 if t >= 0 else 0.5 - a / 2
+
+
+def t_quantile(p: float, df: int) -> float:
+    """The p-quantile of Student's t with ``df`` degrees of freedom (inverse of :func:`t_cdf`)."""
+    if not 0 < p < 1:
+        raise ValueError(f"p must be between 0 and 1, got {p}")
+    if df > 200:   # A&S 26.7.5 (Cornish-Fisher type expansion in 1/df)
+        z = NormalDist().inv_cdf(p)
+        g1 = (z ** 3 + z) / 4
+        g2 = (5 * z ** 5 + 16 * z ** 3 + 3 * z) / 96
+        g3 = (3 * z ** 7 + 19 * z ** 5 + 17 * z ** 3 - 15 * z) / 384
+        g4 = (79 * z ** 9 + 776 * z ** 7 + 1482 * z ** 5 - 1920 * z ** 3 - 945 * z) / 92160
+        return z + g1 / df + g2 / df ** 2 + g3 / df ** 3 + g4 / df ** 4
+    lo, hi = -1.0, 1.0
+    while t_cdf(lo, df) > p:
+        lo *= 2
+    while t_cdf(hi, df) < p:
+        hi *= 2
+    for _ in range(200):
+        mid = (lo + hi) / 2
+        if t_cdf(mid, df) < p:
+            lo = mid
+        else:
+            hi = mid
+        if hi - lo < 1e-12 * max(1.0, abs(mid)):
+            break
+    return (lo + hi) / 2
+
+
+def expanded_tail(level: float, n: int) -> float:
+    """Lower tail probability at which to read the bootstrap percentiles for ``n`` pages.
+
+    Φ(−√(n/(n−1)) · t_{(1+level)/2, n−1}) (Hesterberg 2015, expanded percentile
+    interval); tends to (1 − level)/2 as n grows.
+    """
+    if not 0 < level < 1:
+        raise ValueError(f"confidence level must be between 0 and 1, got {level}")
+    if n < 2:
+        raise ValueError("an interval needs at least 2 pages")
+    z = math.sqrt(n / (n - 1)) * t_quantile(0.5 + level / 2, n - 1)
+    return NormalDist().cdf(-z)
 
 
 def resample_counts(n: int, n_boot: int, seed: int) -> Iterator[np.ndarray]:
@@ -77,30 +161,30 @@ def bootstrap_sums(values: np.ndarray, *, n_boot: int = 2000, seed: int = 0) -> 
     return out
 
 
-def _percentiles(samples: np.ndarray, level: float) -> tuple[float | None, float | None]:
+def _percentiles(samples: np.ndarray, tail: float) -> tuple[float | None, float | None]:
     s = samples[np.isfinite(samples)]
     if s.size == 0:
         return None, None
-    a = (1 - level) / 2
-    lo, hi = np.quantile(s, [a, 1 - a])
+    lo, hi = np.quantile(s, [tail, 1 - tail])
     return float(lo), float(hi)
 
 
 def bootstrap_ratio_cis(numerators: np.ndarray, denominators: np.ndarray, *, n_boot: int = 2000,
                         level: float = 0.95, seed: int = 0) -> list[tuple[float | None, float | None]]:
-    """Percentile intervals for several corpus ratios Σnum_k / Σden_k from one set of page resamples.
+    """Expanded percentile intervals for several corpus ratios Σnum_k / Σden_k, one set of page resamples.
 
     ``numerators`` and ``denominators`` are (pages × k). Resamples whose
-    denominator sums to zero are left out; ``(None, None)`` when there are no pages
-    or no denominator at all.
+    denominator sums to zero are left out; ``(None, None)`` when there are fewer
+    than 2 pages or no denominator at all.
     """
     num = np.asarray(numerators, dtype=np.float64)
     den = np.asarray(denominators, dtype=np.float64)
     if num.ndim == 1:
         num, den = num[:, None], den[:, None]
     k = num.shape[1]
-    if num.shape[0] == 0:
+    if num.shape[0] < 2:
         return [(None, None)] * k
+    tail = expanded_tail(level, num.shape[0])
     sums = bootstrap_sums(np.hstack([num, den]), n_boot=n_boot, seed=seed)
     with np.errstate(invalid="ignore", divide="ignore"):
         ratios = np.where(sums[:, k:] > 0, sums[:, :k] / sums[:, k:], np.nan)
@@ -109,15 +193,16 @@ def bootstrap_ratio_cis(numerators: np.ndarray, denominators: np.ndarray, *, n_b
         if den[:, j].sum() <= 0:
             out.append((None, None))
         else:
-            out.append(_percentiles(ratios[:, j], level))
+            out.append(_percentiles(ratios[:, j], tail))
     return out
 
 
 def bootstrap_ratio_ci(edits: Any, totals: Any, *, n_boot: int = 2000, level: float = 0.95,
                        seed: int = 0) -> tuple[float | None, float | None]:
-    """Percentile bootstrap interval for Σedits / Σtotals, resampling pages (one entry per page).
+    """Bootstrap interval for Σedits / Σtotals, resampling pages (one entry per page).
 
-    Returns ``(None, None)`` when there is no page or no reference text at all.
+    Expanded percentile interval (see the module docstring). Returns
+    ``(None, None)`` with fewer than 2 pages or no reference text at all.
     """
     e = np.asarray(edits, dtype=np.float64)
     t = np.asarray(totals, dtype=np.float64)
@@ -145,12 +230,14 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
     one side are left out of the comparison and listed in the result.
 
     Returns a dict: ``diff`` (rate of a − rate of b; negative means a makes fewer
-    errors), ``low``/``high`` (percentile bootstrap interval of the difference,
-    both rates computed on the same resampled pages), ``p_value`` (two-sided,
-    from the bootstrap distribution: twice the smaller share of resampled
-    differences on either side of zero, with the +1 correction so it is never 0),
-    ``winner`` (the name with the lower rate, only when the interval excludes
-    zero, else ``None``), the two rates and the page counts.
+    errors), ``low``/``high`` (expanded percentile bootstrap interval of the
+    difference, both rates computed on the same resampled pages), ``p_value``
+    (two-sided, the smallest 1 − level at which that interval would touch zero:
+    g = share of resampled differences on the far side of zero, +1 corrected so
+    never 0; z = Φ⁻¹(1 − g); p = 2·(1 − T_{n−1}(z / √(n/(n−1))))), ``winner``
+    (the name with the lower rate, only when the interval excludes zero, else
+    ``None``), the two rates and the page counts. Fewer than 2 common pages give
+    no interval and no winner.
     """
     if metric not in _METRIC_COLUMNS:
         raise ValueError(f"metric must be one of {sorted(_METRIC_COLUMNS)}, got {metric!r}")
@@ -178,12 +265,21 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
         result.update(value_a=None, value_b=None, diff=None, low=None, high=None, p_value=None, winner=None)
         return result
     va, vb = ea.sum() / total, eb.sum() / total
+    n = len(m)
+    if n < 2:
+        result.update(value_a=float(va), value_b=float(vb), diff=float(va - vb), low=None, high=None,
+                      p_value=None, winner=None)
+        return result
     sums = bootstrap_sums(np.column_stack([ea, eb, t]), n_boot=n_boot, seed=seed)
     ok = sums[:, 2] > 0
     d = (sums[ok, 0] - sums[ok, 1]) / sums[ok, 2]
-    low, high = _percentiles(d, level)
-    nb = d.size
-    p = min(1.0, 2 * (min(np.count_nonzero(d <= 0), np.count_nonzero(d >= 0)) + 1) / (nb + 1))
+    low, high = _percentiles(d, expanded_tail(level, n))
+    g = (min(np.count_nonzero(d <= 0), np.count_nonzero(d >= 0)) + 1) / (d.size + 1)
+    if g >= 0.5:
+        p = 1.0
+    else:
+        z = NormalDist().inv_cdf(1 - g) / math.sqrt(n / (n - 1))
+        p = min(1.0, 2 * (1 - t_cdf(z, n - 1)))
     winner = None
     if low is not None and high is not None:
         if high < 0:
