@@ -34,6 +34,8 @@ unrotated original.
 from __future__ import annotations
 
 import math
+import re
+import struct
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -45,6 +47,12 @@ from ocrbench.errors import ImageTooLargeError, InputError, PageError
 
 DEFAULT_MAX_PIXELS = 200_000_000
 IMAGE_SUFFIXES = {".png", ".jpg", ".jpeg", ".tif", ".tiff"}
+
+# Pillow refuses images over 2 * MAX_IMAGE_PIXELS inside Image.open (before we see the
+# size). Align that hard limit with our default so DEFAULT_MAX_PIXELS is the one in force;
+# never lower a limit an application has raised or switched off.
+if Image.MAX_IMAGE_PIXELS is not None and 2 * Image.MAX_IMAGE_PIXELS < DEFAULT_MAX_PIXELS:
+    Image.MAX_IMAGE_PIXELS = DEFAULT_MAX_PIXELS // 2
 
 #: Pillow format names accepted.
 _FORMATS = ("PNG", "JPEG", "TIFF")
@@ -89,7 +97,7 @@ def _tiff_frame_count(path: Path) -> int | None:
     """Frames in a TIFF file, or None when it cannot be read (load_page will say why)."""
     try:
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore", Image.DecompressionBombWarning)
+            warnings.simplefilter("ignore")      # load_page reports what matters
             with Image.open(path, formats=("TIFF",)) as im:
                 return int(getattr(im, "n_frames", 1))
     except (OSError, SyntaxError, ValueError, EOFError, Image.DecompressionBombError):
@@ -185,11 +193,30 @@ def _to_gray(im: Image.Image) -> np.ndarray:
         raise ValueError(f"unsupported image mode {mode}") from e
 
 
+def _signature(path: Path) -> str | None:
+    """The image format a file's first bytes announce, if any."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(8)
+    except OSError:
+        return None
+    if head.startswith(b"\x89PNG\r\n\x1a\n"):
+        return "PNG"
+    if head.startswith(b"\xff\xd8"):
+        return "JPEG"
+    if head[:4] in (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+"):
+        return "TIFF"
+    return None
+
+
 def load_page(ref: PageRef, *, max_pixels: int = DEFAULT_MAX_PIXELS) -> Page:
     """Load one page as 8-bit grey.
 
     The declared size is checked against ``max_pixels`` before any pixel is
-    decoded (Pillow's own decompression-bomb error is reported the same way).
+    decoded. Pillow's own guard (raised at import to ``DEFAULT_MAX_PIXELS``)
+    fires even earlier for larger images and is reported the same way; an
+    application wanting ``max_pixels`` above it must raise
+    ``PIL.Image.MAX_IMAGE_PIXELS`` as well.
     Raises :class:`ImageTooLargeError` or :class:`PageError`, naming the file.
     """
     path = Path(ref.path)
@@ -202,10 +229,15 @@ def load_page(ref: PageRef, *, max_pixels: int = DEFAULT_MAX_PIXELS) -> Page:
     if size == 0:
         raise PageError(shown, "empty file (0 bytes)")
     try:
-        with warnings.catch_warnings():
-            # Our own limit below replaces Pillow's warning; its hard error still applies.
-            warnings.simplefilter("ignore", Image.DecompressionBombWarning)
-            with Image.open(path, formats=_FORMATS) as im:
+        fh = open(path, "rb")
+    except OSError as e:
+        raise PageError(shown, f"cannot read the file ({e.strerror or e})") from e
+    try:
+        with fh, warnings.catch_warnings():
+            # Our own limit below replaces Pillow's warning (its hard error still applies);
+            # warnings about damaged metadata (EXIF) do not stop a page whose pixels decode.
+            warnings.simplefilter("ignore")
+            with Image.open(fh, formats=_FORMATS) as im:
                 if ref.frame is not None:
                     n = int(getattr(im, "n_frames", 1))
                     if not 1 <= ref.frame <= n:
@@ -227,16 +259,22 @@ def load_page(ref: PageRef, *, max_pixels: int = DEFAULT_MAX_PIXELS) -> Page:
     except PageError:
         raise
     except Image.DecompressionBombError as e:
-        raise ImageTooLargeError(shown, f"too many pixels for a page (possible decompression bomb): {e}") from e
+        # Pillow's own guard fires inside Image.open, before our check can see the size.
+        m = re.search(r"\((\d+) pixels\)", str(e))
+        declared = f"declares {int(m.group(1)):,} pixels" if m else "declares too many pixels"
+        raise ImageTooLargeError(
+            shown, f"{declared}, over Pillow's safety limit of {2 * (Image.MAX_IMAGE_PIXELS or 0):,} "
+                   "(possible decompression bomb)") from e
     except UnidentifiedImageError as e:
-        raise PageError(shown, "not a readable PNG, JPEG or TIFF image") from e
-    except (OSError, SyntaxError, ValueError, EOFError, IndexError, KeyError, TypeError, MemoryError) as e:
-        reason = str(e) or type(e).__name__
-        if "truncated" in reason.lower() or isinstance(e, EOFError):
-            reason = f"truncated or damaged image data ({reason})"
-        else:
-            reason = f"cannot decode image ({reason})"
-        raise PageError(shown, reason) from e
+        kind = _signature(path)
+        if kind:
+            raise PageError(shown, f"damaged or truncated {kind} file (its header or directory cannot be read)") from e
+        raise PageError(shown, "not a PNG, JPEG or TIFF image") from e
+    except MemoryError as e:
+        raise PageError(shown, "not enough memory to decode this image") from e
+    except (OSError, SyntaxError, ValueError, EOFError, IndexError, KeyError, TypeError, struct.error) as e:
+        detail = str(e) or type(e).__name__
+        raise PageError(shown, f"damaged or truncated image data, cannot decode the pixels ({detail})") from e
     return Page(ref=ref, gray=np.ascontiguousarray(gray), dpi=dpi)
 
 
