@@ -195,6 +195,10 @@ def _explain(path: Path, e: sqlite3.Error, doing: str) -> StoreError:
         why = "the store is read-only (check the file's and its folder's permissions)"
     elif "disk is full" in msg or "disk i/o" in msg and "full" in msg:
         why = "the disk is full (or the store reached its size limit); free space and rerun to resume"
+    elif "disk i/o" in msg:
+        # A write the operating system refused: no space left, a file-size limit, or a failing disk.
+        why = (f"the disk refused a write ({getattr(e, 'sqlite_errorname', 'disk I/O error')}: full, over a "
+               "file-size limit, or failing); free space and rerun to resume")
     elif "unable to open" in msg:
         why = "cannot open or create the store here (missing or read-only folder?)"
     elif "not a database" in msg or "malformed" in msg:
