@@ -201,7 +201,7 @@ def test_recipe_strings_carry_the_choices():
                      n_boot=300, seed=5)
     r = Recipe.parse(sc.summary["recipe"])
     assert (r.metric, r.unit, r.profile, r.agg, r.rec) == ("cer", "codepoint", "ledger.1", "corpus", "ab" * 6)
-    assert r.ci == "boot-pages/300/95%/seed5" and r.tool.startswith("ocrbench-")
+    assert r.ci == "xboot-pages/300/95%/seed5" and r.tool.startswith("ocrbench-")
     assert Recipe.parse(sc.summary["recipes"]["wer"]).unit == "word"
     other = score_pages([("p", "abc", "abd")], profile="nfc", n_boot=300).summary["recipe"]
     assert differences(sc.summary["recipe"], other) == {"profile": ("ledger.1", "nfc.1")}

@@ -4,7 +4,7 @@ A CER of 2.1 % under the ``exact`` profile and one of 1.4 % under ``ledger`` are
 different measurements. Every figure ocrbench reports carries a recipe string:
 ``key=value`` fields separated by ``;`` in a fixed order, for example::
 
-    metric=cer;unit=codepoint;profile=nfc.1;agg=corpus;pair=line-else-page;ci=boot-pages/2000/95%/seed0;tool=ocrbench-0.1.0;rec=3f2a9c0d11e4
+    metric=cer;unit=codepoint;profile=nfc.1;agg=corpus;pair=line-else-page;ci=xboot-pages/2000/95%/seed0;tool=ocrbench-0.1.0;rec=3f2a9c0d11e4
 
 Fields:
 
@@ -17,7 +17,9 @@ Fields:
              text left out)
 ``pair``     how lines were paired: ``line-else-page`` (by index when both sides
              have the same number of lines, else the page aligned as one text)
-``ci``       interval method: ``boot-pages/<resamples>/<level>%/seed<seed>`` or ``none``
+``ci``       interval method: ``xboot-pages/<resamples>/<level>%/seed<seed>`` (expanded
+             percentile bootstrap, pages resampled; see :mod:`ocrbench.accuracy.stats`)
+             or ``none``
 ``tool``     ``ocrbench-<version>``
 ``rec``      the recogniser's hash (first 12 hex digits) or ``unknown``
 """
@@ -75,7 +77,7 @@ class Recipe:
 
 def ci_tag(n_boot: int, level: float, seed: int) -> str:
     """The ``ci`` field for a page bootstrap."""
-    return f"boot-pages/{n_boot}/{level * 100:g}%/seed{seed}"
+    return f"xboot-pages/{n_boot}/{level * 100:g}%/seed{seed}"
 
 
 def rec_tag(recogniser_hash: str | None) -> str:

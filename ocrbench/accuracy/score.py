@@ -33,7 +33,7 @@ from __future__ import annotations
 
 import math
 import gc
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Sequence
 
 import numpy as np
@@ -125,9 +125,13 @@ def score_pages(pages: Sequence[PageInput], *, profile: str | Profile = DEFAULT_
     ``profile``: normalisation profile name (see :mod:`ocrbench.accuracy.normalise`).
     ``classes``: compute the full alignment for S/D/I/hits, per-class figures and
     the ``top`` confusion pairs (otherwise distances only, several times cheaper).
-    ``amounts``: check ledger amounts (needs the alignment; default: same as
-    ``classes``). ``recogniser_hash`` goes into the recipes. Intervals: percentile
-    bootstrap over pages, ``n_boot`` resamples, ``level``, ``seed``.
+    ``amounts``: check ledger amounts (needs the alignment, so the class figures
+    come with it; default: same as ``classes``). ``recogniser_hash`` goes into
+    the recipes. Intervals: expanded percentile bootstrap over pages
+    (:mod:`ocrbench.accuracy.stats`), ``n_boot`` resamples, ``level``, ``seed``;
+    with fewer than 2 pages there is no interval (None). An interval that misses
+    its own estimate (possible with few, very unequal pages) is widened to
+    include it.
     """
     # Many short-lived lists (one per line) would wake the cyclic garbage
     # collector again and again over a large heap; nothing here makes cycles.
@@ -247,9 +251,25 @@ def _score(pages, *, profile, classes, amounts, recogniser_hash, top, n_boot, le
                        n_units=n_units, align=align)
     amounts_df = None
     if want_amounts:
-        amounts_df = pd.DataFrame(amount_rows, columns=["page_id", "line_no", "kind", "ref", "hyp", "right"])
-        amounts_df["line_no"] = amounts_df["line_no"].astype("Int64").where(amounts_df["line_no"] > 0)
+        amounts_df = _rows_frame(amount_rows, ["page_id", "line_no", "kind", "ref", "hyp", "right"],
+                                 ints=("line_no",), bools=("right",))
+        amounts_df["line_no"] = amounts_df["line_no"].where(amounts_df["line_no"] > 0)
     return Scores(lines=lines_df, pages=pages_df, summary=summary, confusions=confusions, amounts=amounts_df)
+
+
+def _rows_frame(rows: list[tuple], columns: list[str], *, ints: tuple[str, ...] = (),
+                bools: tuple[str, ...] = ()) -> pd.DataFrame:
+    """A DataFrame from row tuples, text columns kept as plain Python strings (object dtype: no conversion)."""
+    cols = list(zip(*rows)) if rows else [()] * len(columns)
+    data: dict[str, Any] = {}
+    for name, values in zip(columns, cols):
+        if name in ints:
+            data[name] = pd.array(np.asarray(values, dtype=np.int64), dtype="Int64")
+        elif name in bools:
+            data[name] = np.asarray(values, dtype=bool)
+        else:
+            data[name] = pd.Series(np.asarray(values, dtype=object), dtype=object)
+    return pd.DataFrame(data)
 
 
 def _code_points(text: str) -> np.ndarray:
@@ -315,7 +335,7 @@ def _align_units(ur, uh, char_edits, ref_chars, unit_page, p_chars, n_pages, scr
         ra = chr(a - 1) if a else ""
         hb = chr(b - 1) if b else ""
         rows.append((ra, hb, "sub" if ra and hb else ("del" if ra else "ins"), n))
-    confusions = pd.DataFrame(rows, columns=["ref", "hyp", "op", "count"])
+    confusions = _rows_frame(rows, ["ref", "hyp", "op", "count"], ints=("count",))
     return unit_sdi, page_cls, page_cls_ref, confusions
 
 
@@ -423,7 +443,7 @@ def _summary(pages_df: pd.DataFrame, *, prof: Profile, page_cls, page_cls_ref, p
         "profile": prof.name,
         "profile_summary": prof.summary,
         "classes": None, "confusions": None, "amounts": None,
-        "interval": {"method": "percentile bootstrap, pages resampled", "n_boot": n_boot,
+        "interval": {"method": "expanded percentile bootstrap, pages resampled", "n_boot": n_boot,
                      "level": level, "seed": seed},
         "recogniser_hash": recogniser_hash,
         "ocrbench_version": __version__,

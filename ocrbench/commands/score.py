@@ -200,7 +200,7 @@ def score_cmd(
     truth: Path = typer.Option(..., "--truth", help="Folder of ground-truth .txt files (UTF-8, one text line per line)."),
     hyp: Optional[Path] = typer.Option(None, "--hyp", help="Folder of recognised .txt files, paired by file name."),
     store: Optional[Path] = typer.Option(None, "--store", help="A run store written by 'ocrbench run' (instead of --hyp)."),
-    run: Optional[list[int]] = typer.Option(None, "--run", help="Store run id to score; repeat for several "
+    run: Optional[list[int]] = typer.Option(None, "--run", metavar="ID", help="Store run id to score; repeat for several "
                                                                 "(default: every run in the store)."),
     profile: str = typer.Option("nfc", "--profile", help="Normalisation: exact, nfc, loose or ledger."),
     out: Optional[Path] = typer.Option(None, "--out", help="Folder for lines/pages/confusions/amounts tables "
