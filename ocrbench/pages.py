@@ -66,6 +66,10 @@ MIN_CONTRAST = 40.0
 #: 1500-pixel page is under 1.5 pixels, and resampling would only blur.
 MIN_DESKEW_DEGREES = 0.05
 
+#: Ink lower than this many pixels is not taken for a text line (no recogniser reads it;
+#: on a page without letters a speck would otherwise set the scale).
+MIN_LINE_HEIGHT = 6
+
 #: Padding of a line crop around its ink box, as a share of the box height
 #: (the demo recognisers were trained with 5-35 % above/below, 5-50 % at the sides).
 CROP_PAD_VERTICAL = 0.18
@@ -721,7 +725,7 @@ def find_line_boxes(ink: np.ndarray) -> list[tuple[int, int, int, int]]:
     heights = np.array([ln["y1"] - ln["y0"] for ln in lines], dtype=np.float64)
     typ = _weighted_median(heights, np.array([ln["area"] for ln in lines], dtype=np.float64))
     lines = [ln for ln in lines
-             if (ln["y1"] - ln["y0"]) >= 0.35 * typ and ln["area"] >= 0.1 * typ * typ]
+             if (ln["y1"] - ln["y0"]) >= max(MIN_LINE_HEIGHT, 0.35 * typ) and ln["area"] >= 0.1 * typ * typ]
     if not lines:
         return []
 

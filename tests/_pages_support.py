@@ -100,3 +100,45 @@ def other_renderer_page(*, seed: int = 0, size: int = 22, pitch: float = 1.3, wi
     if rotation:
         page = page.rotate(rotation, resample=Image.BICUBIC, fillcolor=255)
     return np.asarray(page), boxes
+
+
+def matplotlib_page(*, seed: int = 0, families: tuple[str, ...] = ("STIXGeneral", "cmr10"),
+                    size_pt: float = 12.0, n_lines: int = 18, rotation: float = 0.0,
+                    dpi: int = 100) -> tuple[np.ndarray, list[Box]]:
+    """A page rendered by other software: matplotlib's Agg rasteriser with its bundled STIX and
+    Computer Modern faces (the generator uses DejaVu through Pillow/FreeType only), two columns
+    of fields per line at irregular spacing. Returns the grey page (8.5 x 11 in) and each line's
+    ink box, found by rendering that line alone at the same place (threshold 215)."""
+    from matplotlib.figure import Figure
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    rng = random.Random(seed)
+    lines: list[tuple[float, float, str, str]] = []
+    y = 0.93
+    for i in range(n_lines):
+        fam = families[i % len(families)]
+        left = " ".join(rng.choice(_WORDS) for _ in range(rng.randint(2, 6)))
+        right = f"{rng.randint(1, 9999):,}.{rng.randint(0, 99):02d}"
+        lines.append((y, 0.08 + 0.04 * rng.randint(0, 2), f"{left}    {right}", fam))
+        y -= rng.uniform(0.038, 0.055)
+
+    def render(which: list[int]) -> np.ndarray:
+        fig = Figure(figsize=(8.5, 11), dpi=dpi)
+        fig.patch.set_facecolor("white")
+        for k in which:
+            yy, xx, text, fam = lines[k]
+            fig.text(xx, yy, text, family=fam, size=size_pt, color="black", va="baseline")
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+        rgba = np.asarray(canvas.buffer_rgba())
+        return np.asarray(Image.fromarray(rgba[..., :3]).convert("L"))
+
+    page = render(list(range(len(lines))))
+    boxes: list[Box] = []
+    for k in range(len(lines)):
+        alone = render([k]) < 215
+        ys, xs = np.nonzero(alone)
+        boxes.append((int(xs.min()), int(ys.min()), int(xs.max()) + 1, int(ys.max()) + 1))
+    if rotation:
+        page = np.asarray(Image.fromarray(page).rotate(rotation, resample=Image.BICUBIC, fillcolor=255))
+    return page, boxes
