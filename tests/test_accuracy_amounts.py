@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import random
+from pathlib import Path
 
 import pytest
 from hypothesis import given, strategies as st
@@ -69,13 +71,24 @@ def test_forms_written_by_hand():
     assert [a.digits for a in find_amounts(loose)] == ["12 7 6½"]
 
 
-def test_demo_pages_amount_per_entry_line():
-    # Every entry and total line of a generated page carries exactly one amount.
-    for currency in ("decimal", "lsd", "lsd_marked"):
-        _, truth = synth.render_page(synth.PageSpec(seed=3, currency=currency, lines_per_page=6))
-        for line, kind in zip(truth.lines, truth.meta["kinds"]):
+DEMO = Path(__file__).resolve().parents[1] / "scans_demo"
+
+
+@pytest.mark.parametrize("profile", ["exact", "nfc", "loose", "ledger"])
+def test_demo_archive_one_amount_per_entry_line(profile):
+    # The demo archive's .json files record each line's kind: entry, total and
+    # brought-forward lines carry exactly one amount, headers and headings none
+    # (dates, folio numbers and "Jan 12 L. Tarnby"-style initials are no amounts).
+    files = sorted(DEMO.glob("*.json"))
+    assert files, "scans_demo/ holds the demo archive's ground truth"
+    checked = 0
+    for f in files:
+        doc = json.loads(f.read_text(encoding="utf-8"))
+        for line, kind in zip((ln["text"] for ln in doc["lines"]), doc["meta"]["kinds"]):
             want = 1 if kind in ("entry", "total", "brought") else 0
-            assert len(find_amounts(line)) == want, (currency, line)
+            assert len(find_amounts(apply(line, profile))) == want, (f.name, line)
+            checked += 1
+    assert checked > 500
 
 
 def test_lines_at_once_equals_line_by_line():

@@ -88,6 +88,8 @@ def test_whitespace_collapse_under_loose():
     ("£12 7s 6½d", "£12 7s 6½d"),            # already canonical
     ("£ 12 7s. 6½d.", "£12 7s 6½d"),         # space after £, stops after s and d
     ("12l. 7s. 6d.", "£12 7s 6d"),           # pounds as l. after the number
+    ("cash 12l.", "cash £12"),               # ... at the end of the line
+    ("Jan 12 L. Tarnby", "jan 12 l. tarnby"),  # a date and an initial: no amount
     ("₤5 0s 0d", "£5 0s 0d"),                # U+20A4 LIRA SIGN used for the pound
     ("3 1/2 cwt", "3 ½ cwt"),                # ASCII fraction standing alone
     ("6\u00bdd", "6½d"),                     # ½ survives NFKC's 1⁄2 expansion

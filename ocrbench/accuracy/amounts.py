@@ -8,9 +8,11 @@ Amount tokens are found in the *normalised reference* by these patterns, tried
 in this order (later patterns skip text already taken):
 
 1. **Marked pounds, shillings and pence**: ``£12 7s 6½d``, ``£12``, ``£ 3 -s 4d``,
-   ``12l. 7s. 6d.`` — a ``£`` (or ``₤``) before the pounds, or ``l.`` after them,
-   then optionally shillings ending in ``s`` and pence ending in ``d`` (either may
-   carry a full stop, pence may carry ``¼ ½ ¾``, ``1/2`` or ``1⁄2``).
+   ``12l. 7s. 6d.`` — a ``£`` (or ``₤``) before the pounds, or ``l.`` directly
+   after them (then shillings must follow or the line end, so that ``Jan 12 L.``,
+   a date and an initial, is no amount), then optionally shillings ending in
+   ``s`` and pence ending in ``d`` (either may carry a full stop, pence may carry
+   ``¼ ½ ¾``, ``1/2`` or ``1⁄2``).
 2. **Three trailing columns** at the end of a line: pounds, shillings, pence
    separated by spaces, ``-`` (or another dash) for a zero column, e.g.
    ``12 7 6``, ``- 15 4½``, ``1,204 - -`` (at least one column must hold a digit).
@@ -48,7 +50,8 @@ _SHILLINGS_PENCE = (rf"(?:{_SP}+(?:\d{{1,2}}|{_DASH}){_SP}?s\.?)?"
                     rf"(?:{_SP}+{_PENCE}{_SP}?d\.?)?"
                     r"(?!\w)")
 MARKED = re.compile(rf"[£\u20a4]{_SP}?{_POUNDS}" + _SHILLINGS_PENCE)
-MARKED_AFTER = re.compile(rf"\d(?<![\w.,]\d)[\d,]*{_SP}?l\." + _SHILLINGS_PENCE)
+MARKED_AFTER = re.compile(rf"\d(?<![\w.,]\d)[\d,]*l\.(?={_SP}+(?:\d{{1,2}}|{_DASH}){_SP}?s|{_SP}*$)"
+                          + _SHILLINGS_PENCE, re.MULTILINE)
 COLUMNS = re.compile(
     rf"[\d\-\u2010-\u2015\u2212](?<!\S.)(?:(?<=\d)[\d,]*)?"
     rf"{_SP}+(?:\d{{1,2}}|{_DASH}){_SP}+{_PENCE}(?={_SP}*$)",

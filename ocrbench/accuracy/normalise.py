@@ -46,7 +46,9 @@ line, so line breaks are never merged or moved):
     * ``₤`` (U+20A4 LIRA SIGN, often used for the pound) → ``£``;
       ``£`` followed by spaces and a digit loses the spaces (``£ 12`` → ``£12``);
     * pounds written after the number as ``l.`` (libra) become a leading ``£``:
-      ``12l.`` or ``12 l.`` → ``£12``;
+      ``12l. 7s. 6d.`` → ``£12 7s 6d`` — only with no space before ``l.`` and
+      only when shillings follow or the line ends there, so a date followed by
+      an initial (``Jan 12 L. Tarnby``) is left alone;
     * the abbreviation stop after shillings and pence is dropped: ``7s.`` →
       ``7s``, ``6½d.`` → ``6½d``.
 
@@ -161,7 +163,9 @@ def _fraction_slash_re() -> re.Pattern[str]:
 _ASCII_FRACTION = re.compile(r"(?<![\d/])([13])/([24])(?![\d/])")
 _ASCII_FRACTION_MAP = {("1", "4"): "¼", ("1", "2"): "½", ("3", "4"): "¾"}
 _POUND_SPACE = re.compile(r"£\s+(?=\d)")
-_POUNDS_AFTER = re.compile(r"(?<![\w.,])(\d[\d,]*)\s?l\.(?=\s|$)")
+# "12l." counts as pounds only when shillings follow ("12l. 7s.") or the line
+# ends: "Jan 12 L. Tarnby" (a date, then an initial) must stay as it is.
+_POUNDS_AFTER = re.compile(r"(?<![\w.,])(\d[\d,]*)l\.(?=\s+(?:\d{1,2}|-)\s?s\b|\s*$)")
 _SHILLING_PENCE_STOP = re.compile(r"(?<=[\d¼½¾])([sd])\.(?=\s|$)")
 
 
