@@ -26,7 +26,7 @@ from skimage import data as skdata
 from skimage.filters import threshold_otsu, threshold_sauvola
 from skimage.measure import label, regionprops
 
-from ocrbench import pages, synth
+from ocrbench import synth
 from ocrbench.pages import (CROP_PAD_HORIZONTAL, CROP_PAD_VERTICAL, PageRef, analyse_page, binarise,
                             connected_components, deskew, estimate_skew, load_page, otsu_threshold,
                             segment_lines)
