@@ -52,3 +52,7 @@ class PostprocessError(OcrbenchError):
 
 class ClusterError(OcrbenchError):
     """The Dask cluster cannot be started or reached, or its workers cannot run the recognisers."""
+
+
+class ReportError(OcrbenchError):
+    """A report cannot be written (output folder not writable) or its inputs do not fit together."""

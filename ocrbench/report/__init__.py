@@ -1,0 +1,91 @@
+"""Batch reports: one self-contained HTML page, CSV/Parquet tables and a JSON summary, from a run store.
+
+Modules: :mod:`.data` gathers every figure into one summary (built first);
+:mod:`.display` writes a figure for people (one function for HTML and
+console); :mod:`.plots` draws the figures as SVG; :mod:`.alignview` lays out
+line alignments; :mod:`.html` writes the page; :mod:`.plan` reads or
+computes the archive plan.
+
+:func:`write_report` is what ``ocrbench report`` and ``ocrbench demo`` call.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Mapping, Sequence
+
+from ocrbench.errors import ReportError
+from ocrbench.report.data import CAUTIONS, ReportData, build_report_data, resolve
+from ocrbench.report.display import fmt
+from ocrbench.report.plan import PlanResults, PlanSpec, load_plan_file
+
+__all__ = ["ReportFiles", "write_report", "build_report_data", "ReportData", "PlanSpec", "PlanResults",
+           "load_plan_file", "fmt", "resolve", "CAUTIONS", "ReportError"]
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    """What :func:`write_report` wrote."""
+
+    folder: Path
+    html: Path
+    summary: Path
+    tables: list[Path]
+    data: ReportData
+
+
+def _write_text(path: Path, text: str) -> None:
+    tmp = path.with_name(path.name + ".part")
+    try:
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, path)
+    except OSError as e:
+        raise ReportError(f"{path}: cannot write ({e.strerror or e})") from e
+
+
+def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | None = None,
+                 plan: PlanSpec | PlanResults | Path | str | None = None, profile: str = "nfc",
+                 run_ids: Sequence[int] | None = None, n_boot: int = 2000, seed: int = 0,
+                 scaling: Mapping | None = None, title: str | None = None,
+                 table_formats: Sequence[str] = ("csv", "parquet")) -> ReportFiles:
+    """Write ``report.html``, ``summary.json`` and ``tables/<name>.csv|parquet`` into ``out_dir``.
+
+    The summary is built first (:func:`build_report_data`); the HTML and the
+    tables are written from it. ``plan`` may be a :class:`PlanSpec`, plan
+    results, or a path to a plan file (see :mod:`ocrbench.report.plan`).
+    """
+    from ocrbench.report.html import render_html
+    from ocrbench.report.plots import render_figures
+
+    if isinstance(plan, (str, Path)):
+        plan = load_plan_file(plan)
+    data = build_report_data(store, truth=truth, plan=plan, profile=profile, run_ids=run_ids, n_boot=n_boot,
+                             seed=seed, scaling=scaling, title=title)
+    out = Path(out_dir)
+    tables_dir = out / "tables"
+    try:
+        tables_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise ReportError(f"{out}: cannot create the report folder ({e.strerror or e})") from e
+    summary_path = out / "summary.json"
+    _write_text(summary_path, data.to_json() + "\n")
+    svgs = render_figures(data.summary, page_scores=data.page_scores, line_times=data.line_times)
+    html_path = out / "report.html"
+    _write_text(html_path, render_html(data.summary, svgs))
+    written = []
+    for name, df in data.tables.items():
+        for f in table_formats:
+            p = tables_dir / f"{name}.{f}"
+            try:
+                if f == "csv":
+                    df.to_csv(p, index=False, encoding="utf-8")
+                elif f == "parquet":
+                    df.to_parquet(p, index=False)
+                else:
+                    raise ReportError(f"unknown table format {f!r} (csv or parquet)")
+            except OSError as e:
+                raise ReportError(f"{p}: cannot write ({e.strerror or e})") from e
+            written.append(p)
+    return ReportFiles(folder=out, html=html_path, summary=summary_path, tables=written, data=data)

@@ -1,0 +1,493 @@
+"""The numbers of a report, gathered once into a JSON-ready summary and a few tables.
+
+Why first the numbers, then the page: the HTML, the CSV/Parquet tables, the
+JSON summary and the demo's console lines are all written from the one
+summary built here, so a figure cannot differ between them.
+
+What is gathered, per run (by default the latest run of each recogniser in
+the store):
+
+* counts and throughput: pages done and failed, lines, characters, pages per
+  hour on the measuring machine (one stream: 3600 x pages / sum of page
+  times) with a 95 % bootstrap interval over pages;
+* the decode-time slope: least-squares time per line against characters per
+  line, with a bootstrap interval over pages (the autoregressive recogniser's
+  slope is what makes it slower on long lines);
+* with ground truth: CER, WER, per-class error rates (the digit error rate
+  among them) with bootstrap intervals, for the raw text and, where the
+  store holds it, the post-processed text; a paired comparison of every two
+  recognisers on their common pages; the worst pages with their lines;
+* without ground truth too: the ledger arithmetic check of every page, raw
+  and post-processed, and the misread rate of amounts it implies;
+* with a plan: each recogniser's archive wall-clock, cost and deadline/budget
+  fit, and the wall-clock against the number of workers.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from ocrbench import __version__
+from ocrbench.accuracy.align import CLASSES
+from ocrbench.accuracy.normalise import get_profile
+from ocrbench.accuracy.score import score_pages
+from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, paired_comparison
+from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
+from ocrbench.errors import OcrbenchError, StoreError, TextFileError
+from ocrbench.report.plan import PlanResults, PlanSpec, compute_plan, plan_from_results
+from ocrbench.store import RunStore
+
+__all__ = ["ReportData", "build_report_data", "CAUTIONS", "resolve", "FORMAT_VERSION"]
+
+FORMAT_VERSION = "ocrbench-report/1"
+
+CAUTIONS = (
+    "Every figure here is an estimate from a sample of pages: read the interval (95 %, bootstrap over pages, "
+    "unless stated), not only the middle value. Archive plans are P10-P90 ranges from a cost model fitted "
+    "on this store's timings; they hold for machines like the one measured.",
+    "This report contains excerpts of the pages' text and of the ground truth. Archives hold personal data: "
+    "handle this report, its tables and its JSON summary under the holder's data-protection rules, "
+    "like the scans themselves.",
+    "Throughput was measured on the machine named under 'Runs', with the settings shown; another machine, "
+    "other threads or a busy machine give other figures.",
+)
+
+#: Worst pages shown per recogniser, and lines shown per page.
+WORST_PAGES = 3
+WORST_LINES = 12
+
+_MAX_POINTS = 3000     # line points per recogniser drawn in the decode-time figure
+
+
+@dataclass
+class ReportData:
+    """The summary (JSON-ready), the tables written as CSV/Parquet, and what the figures are drawn from."""
+
+    summary: dict
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    page_scores: dict[str, pd.DataFrame] = field(default_factory=dict)   # run key -> Scores.pages (raw)
+    line_times: pd.DataFrame | None = None                              # run, kind, n_chars, t_line
+
+    def to_json(self) -> str:
+        return json.dumps(self.summary, ensure_ascii=False, indent=1, allow_nan=False)
+
+
+def resolve(summary: Mapping, path: str) -> Any:
+    """The value at a dotted JSON path (``recognisers.0.accuracy.cer``); KeyError when absent."""
+    cur: Any = summary
+    for part in path.split("."):
+        if isinstance(cur, list):
+            cur = cur[int(part)]
+        else:
+            cur = cur[part]
+    return cur
+
+
+def _clean(v: Any) -> Any:
+    if isinstance(v, Mapping):
+        return {str(k): _clean(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_clean(x) for x in v]
+    if isinstance(v, np.generic):
+        v = v.item()
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    if v is pd.NA:
+        return None
+    return v
+
+
+def _now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+
+
+# --------------------------------------------------------------------------- runs
+
+
+def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFrame:
+    if runs.empty:
+        raise StoreError("the store holds no runs: run 'ocrbench run' first")
+    if run_ids is not None:
+        sel = runs[runs["run_id"].isin([int(r) for r in run_ids])]
+        missing = sorted(set(int(r) for r in run_ids) - set(sel["run_id"].astype(int)))
+        if missing:
+            raise StoreError(f"the store holds no run {missing[0]}")
+        return sel.sort_values("run_id")
+    latest = runs.sort_values("run_id").groupby("recogniser", sort=False).tail(1)
+    return latest.sort_values("run_id")
+
+
+def _json(text: Any) -> dict:
+    try:
+        return json.loads(text) if isinstance(text, str) and text else {}
+    except json.JSONDecodeError:
+        return {}
+
+
+def _throughput(t_total: np.ndarray, n_boot: int, seed: int) -> dict:
+    t = t_total[np.isfinite(t_total)]
+    busy = float(t.sum())
+    if len(t) == 0 or busy <= 0:
+        return {"pages_per_hour": None, "pages_per_hour_low": None, "pages_per_hour_high": None,
+                "page_seconds_p50": None, "page_seconds_p90": None}
+    lo, hi = bootstrap_ratio_ci(np.full(len(t), 3600.0), t, n_boot=n_boot, seed=seed)
+    return {"pages_per_hour": 3600.0 * len(t) / busy, "pages_per_hour_low": lo, "pages_per_hour_high": hi,
+            "page_seconds_p50": float(np.percentile(t, 50)), "page_seconds_p90": float(np.percentile(t, 90))}
+
+
+def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
+    """Least-squares seconds per extra character of a line (t_line on n_chars), bootstrap over pages."""
+    d = lines.dropna(subset=["n_chars", "t_line"])
+    out = {"line_seconds_mean": None, "seconds_per_char": None, "seconds_per_char_low": None,
+           "seconds_per_char_high": None, "line_seconds_at_0": None}
+    if len(d) < 3 or d["n_chars"].nunique() < 2:
+        return out
+    x = d["n_chars"].to_numpy(float)
+    y = d["t_line"].to_numpy(float)
+    g = d.groupby("page_id", sort=False)
+    sums = pd.DataFrame({"n": g.size(), "x": g["n_chars"].sum(), "y": g["t_line"].sum(),
+                         "xx": (d["n_chars"] ** 2).groupby(d["page_id"], sort=False).sum(),
+                         "xy": (d["n_chars"] * d["t_line"]).groupby(d["page_id"], sort=False).sum()}).to_numpy(float)
+
+    def fit(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        n, sx, sy, sxx, sxy = (s[..., k] for k in range(5))
+        den = n * sxx - sx * sx
+        with np.errstate(invalid="ignore", divide="ignore"):
+            b = np.where(den > 0, (n * sxy - sx * sy) / den, np.nan)
+            a = np.where(n > 0, (sy - b * sx) / n, np.nan)
+        return b, a
+
+    b, a = fit(sums.sum(axis=0))
+    out.update(line_seconds_mean=float(y.mean()), seconds_per_char=float(b), line_seconds_at_0=float(a))
+    if len(sums) >= 2:
+        boot = bootstrap_sums(sums, n_boot=n_boot, seed=seed)
+        bb, _ = fit(boot)
+        bb = bb[np.isfinite(bb)]
+        if bb.size:
+            lo, hi = np.quantile(bb, [0.025, 0.975])
+            out.update(seconds_per_char_low=float(lo), seconds_per_char_high=float(hi))
+    return out
+
+
+def _balance(lines: pd.DataFrame, column: str) -> dict | None:
+    from ocrbench.postprocess import balance_lines_frame, estimate_misreads
+
+    if lines.empty or column not in lines or lines[column].isna().all():
+        return None
+    frame = balance_lines_frame(lines[["page_id", "line_no", column]].rename(columns={column: "text"}))
+    counts = frame["status"].value_counts()
+    est = estimate_misreads(list(frame["balance"]))
+    return {"pages": int(len(frame)), "balanced": int(counts.get("balanced", 0)),
+            "unbalanced": int(counts.get("unbalanced", 0)), "not_checkable": int(counts.get("not checkable", 0)),
+            "misread_rate": est.per_amount_rate, "misread_low": est.per_amount_low,
+            "misread_high": est.per_amount_high, "amounts": est.amounts, "model": est.model}
+
+
+# --------------------------------------------------------------------------- accuracy
+
+
+def _accuracy(scores) -> dict:
+    s = scores.summary
+    cls = s.get("classes") or {}
+    digit = cls.get("digit") or {}
+    return {
+        "pages_scored": s["pages"], "ref_chars": s["ref_chars"], "char_edits": s["char_edits"],
+        "cer": s["cer"], "cer_low": s["cer_low"], "cer_high": s["cer_high"],
+        "wer": s["wer"], "wer_low": s["wer_low"], "wer_high": s["wer_high"],
+        "cer_page_mean": s.get("cer_page_mean"),
+        "digit_error_rate": digit.get("rate"), "digit_low": digit.get("low"), "digit_high": digit.get("high"),
+        "subs": s.get("subs"), "dels": s.get("dels"), "ins": s.get("ins"),
+        "classes": {name: {k: c.get(k) for k in ("ref_chars", "errors", "rate", "low", "high", "inserted",
+                                                 "ins_rate", "recipe")}
+                    for name, c in cls.items()},
+        "confusions": (s.get("confusions") or [])[:10],
+        "amounts": s.get("amounts"),
+        "line_count_mismatch": s.get("line_count_mismatch", []),
+        "empty_reference": s.get("empty_reference", []),
+        "recipe": s["recipe"], "recipes": s.get("recipes", {}),
+    }
+
+
+def _read_truth(truth_dir: Path, page_ids: Sequence[str]) -> tuple[dict[str, list[str]], dict]:
+    pairing = pair_store_pages(truth_dir, page_ids)
+    truth: dict[str, list[str]] = {}
+    problems = []
+    for pid, path, _ in pairing.pairs:
+        try:
+            truth[pid] = read_text_lines(path)
+        except TextFileError as e:
+            problems.append({"path": str(path), "error": e.reason})
+    info = {"pages_paired": len(truth), "pages_without_truth": list(pairing.hyp_only),
+            "truth_without_page": list(pairing.truth_only), "unreadable_truth": problems}
+    return truth, info
+
+
+def _worst(run: dict, scores, n_pages: int, n_lines: int) -> list[dict]:
+    pages = scores.pages.dropna(subset=["cer"])
+    pages = pages[pages["char_edits"] > 0].sort_values(["cer", "page_id"], ascending=[False, True]).head(n_pages)
+    out = []
+    lines = scores.lines
+    for p in pages.itertuples(index=False):
+        ln = lines[(lines["page_id"] == p.page_id) & (lines["char_edits"] > 0)]
+        shown = ln.sort_values("char_edits", ascending=False, kind="stable").head(n_lines)
+        shown = shown.sort_values("line_no", kind="stable", na_position="first")
+        out.append({
+            "recogniser": run["name"], "run_id": run["run_id"], "page_id": p.page_id, "cer": float(p.cer),
+            "char_edits": int(p.char_edits), "ref_chars": int(p.ref_chars), "pairing": p.pairing,
+            "lines_with_edits": int(len(ln)), "lines_shown": int(len(shown)),
+            "lines": [{"line_no": None if pd.isna(r.line_no) else int(r.line_no), "ref": r.ref, "hyp": r.hyp,
+                       "char_edits": int(r.char_edits), "ref_chars": int(r.ref_chars)}
+                      for r in shown.itertuples(index=False)],
+        })
+    return out
+
+
+# --------------------------------------------------------------------------- the report's numbers
+
+
+def build_report_data(store: Path | str, *, truth: Path | str | None = None, plan: PlanSpec | PlanResults | None = None,
+                      profile: str = "nfc", run_ids: Sequence[int] | None = None, n_boot: int = 2000,
+                      seed: int = 0, worst_pages: int = WORST_PAGES, worst_lines: int = WORST_LINES,
+                      scaling: Mapping | None = None, title: str | None = None) -> ReportData:
+    """Gather every figure of a report from a run store (plus ground truth and a plan when given).
+
+    ``profile``: normalisation profile for scoring (see :mod:`ocrbench.accuracy.normalise`).
+    ``run_ids``: the runs to show (default: the latest run of each recogniser).
+    Raises StoreError, TextFileError (the truth folder) or PlanError for what stops the whole report;
+    a single unreadable ground-truth file is listed in the summary and its page left out.
+    """
+    store = Path(store)
+    prof = get_profile(profile)
+    with RunStore(store, read_only=True) as st:
+        frames = st.read_frames()
+        sel = _select_runs(frames["runs"], run_ids)
+        texts = {int(r): st.page_texts(int(r)) for r in sel["run_id"]}
+        post_texts = {int(r): st.page_texts(int(r), post=True) for r in sel["run_id"]}
+
+    pages_f, lines_f = frames["pages"], frames["lines"]
+    runs: list[dict] = []
+    line_times = []
+    page_rows = []
+    for i, r in enumerate(sel.itertuples(index=False)):
+        rid = int(r.run_id)
+        pg = pages_f[pages_f["run_id"] == rid]
+        done = pg[pg["status"] == "done"]
+        ln = lines_f[(lines_f["run_id"] == rid) & lines_f["page_id"].isin(done["page_id"])]
+        run = {
+            "name": r.recogniser, "kind": r.kind, "run_id": rid, "card_hash": r.card_hash,
+            "card_path": r.card_path, "input_dir": r.input_dir, "engine": r.engine,
+            "ocrbench_version": r.ocrbench_version, "started_at": r.started_at, "finished_at": r.finished_at,
+            "host": _json(r.host_json), "settings": _json(r.settings_json),
+            "pages_done": int(len(done)), "pages_failed": int((pg["status"] == "failed").sum()),
+            "lines": int(len(ln)), "chars": int(ln["n_chars"].fillna(0).sum()),
+            "has_post": bool(ln["text_post"].notna().any()) if len(ln) else False,
+            "failures": [{"page_id": p, "error": e} for p, e in
+                         pg.loc[pg["status"] == "failed", ["page_id", "error"]].itertuples(index=False)],
+        }
+        run.update(_throughput(done["t_total"].to_numpy(float), n_boot, seed))
+        run.update(_slope(ln, n_boot, seed))
+        run["throughput_recipe"] = (f"pages-per-hour=3600*pages/sum(page t_total);stream=one worker;"
+                                    f"threads={run['settings'].get('intra_threads', '?')};"
+                                    f"batch={run['settings'].get('batch_size', '?')};"
+                                    f"ci=boot-pages/{n_boot}/95%/seed{seed};host={run['host'].get('hostname', '?')}")
+        run["balance"] = {"raw": _balance(ln, "text"), "post": _balance(ln, "text_post") if run["has_post"] else None}
+        runs.append(run)
+        lt = ln[["page_id", "n_chars", "t_line", "steps"]].copy()
+        lt.insert(0, "kind", r.kind)
+        lt.insert(0, "recogniser", r.recogniser)
+        lt.insert(0, "run_id", rid)
+        line_times.append(lt)
+        pr = done[["page_id", "n_lines", "t_total", "width", "height", "skew_degrees"]].copy()
+        pr.insert(0, "recogniser", r.recogniser)
+        pr.insert(0, "run_id", rid)
+        page_rows.append(pr)
+
+    summary: dict[str, Any] = {
+        "format": FORMAT_VERSION, "title": title or f"Recogniser comparison: {store.name}",
+        "generated_at": _now(), "ocrbench_version": __version__, "store": str(store),
+        "truth": str(truth) if truth is not None else None, "profile": prof.name if truth is not None else None,
+        "profile_summary": prof.summary if truth is not None else None,
+        "recognisers": runs, "paired": [], "truth_pairing": None, "worst_pages": [], "plan": None,
+        "cautions": list(CAUTIONS),
+    }
+    data = ReportData(summary=summary)
+    pages_table = pd.concat(page_rows, ignore_index=True) if page_rows else pd.DataFrame()
+
+    # ---- accuracy against ground truth
+    if truth is not None:
+        truth_dir = Path(truth)
+        all_ids = sorted({pid for t in texts.values() for pid in t})
+        gt, info = _read_truth(truth_dir, all_ids)
+        summary["truth_pairing"] = info
+        class_rows, worst, score_pages_rows = [], [], []
+        for run in runs:
+            rid = run["run_id"]
+            for which, source in (("raw", texts[rid]), ("post", post_texts[rid] if run["has_post"] else None)):
+                if source is None:
+                    run["accuracy_post"] = None
+                    continue
+                items = [(pid, gt[pid], source[pid]) for pid in sorted(source) if pid in gt]
+                if not items:
+                    run["accuracy" if which == "raw" else "accuracy_post"] = None
+                    continue
+                sc = score_pages(items, profile=prof, classes=True, recogniser_hash=run["card_hash"],
+                                 n_boot=n_boot, seed=seed)
+                acc = _accuracy(sc)
+                run["accuracy" if which == "raw" else "accuracy_post"] = acc
+                for cname, c in acc["classes"].items():
+                    class_rows.append({"run_id": rid, "recogniser": run["name"], "text": which, "class": cname,
+                                       **{k: c[k] for k in ("ref_chars", "errors", "rate", "low", "high",
+                                                            "inserted", "ins_rate")}})
+                sp = sc.pages.copy()
+                sp.insert(0, "text", which)
+                sp.insert(0, "recogniser", run["name"])
+                sp.insert(0, "run_id", rid)
+                score_pages_rows.append(sp)
+                if which == "raw":
+                    data.page_scores[str(rid)] = sc.pages
+                    worst += _worst(run, sc, worst_pages, worst_lines)
+                else:
+                    data.page_scores[f"{rid}/post"] = sc.pages
+            run.setdefault("accuracy", None)
+            run.setdefault("accuracy_post", None)
+        summary["worst_pages"] = worst
+        # paired comparisons: every two runs with accuracy, raw text (and post-processed where both have it)
+        scored = [r for r in runs if r.get("accuracy")]
+        for a in range(len(scored)):
+            for b in range(a + 1, len(scored)):
+                ra, rb = scored[a], scored[b]
+                for which, key in (("raw", ""), ("post", "/post")):
+                    pa = data.page_scores.get(f"{ra['run_id']}{key}")
+                    pb = data.page_scores.get(f"{rb['run_id']}{key}")
+                    if pa is None or pb is None:
+                        continue
+                    try:
+                        cmp = paired_comparison(pa, pb, n_boot=n_boot, seed=seed, names=(ra["name"], rb["name"]))
+                    except ValueError as e:
+                        summary["paired"].append({"a": ra["name"], "b": rb["name"], "text": which,
+                                                  "error": str(e)})
+                        continue
+                    summary["paired"].append({"text": which, **{k: cmp.get(k) for k in (
+                        "a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value",
+                        "winner", "method", "level", "n_boot", "seed")}})
+        if class_rows:
+            data.tables["classes"] = pd.DataFrame(class_rows)
+        if score_pages_rows:
+            sp = pd.concat(score_pages_rows, ignore_index=True)
+            keep = [c for c in ("run_id", "recogniser", "text", "page_id", "pairing", "ref_lines", "hyp_lines",
+                                "ref_chars", "char_edits", "cer", "ref_words", "word_edits", "wer", "subs",
+                                "dels", "ins") if c in sp]
+            data.tables["page_scores"] = sp[keep]
+        if worst:
+            data.tables["worst_lines"] = pd.DataFrame([
+                {"recogniser": w["recogniser"], "page_id": w["page_id"], "page_cer": w["cer"], **ln}
+                for w in worst for ln in w["lines"]])
+    else:
+        for run in runs:
+            run["accuracy"] = run["accuracy_post"] = None
+
+    # ---- plan
+    if plan is not None:
+        if isinstance(plan, PlanResults):
+            summary["plan"] = plan_from_results(plan)
+        else:
+            accuracy = {}
+            for run in runs:
+                acc = run.get("accuracy_post") or run.get("accuracy")
+                if acc and acc.get("cer") is not None and acc.get("cer_low") is not None:
+                    accuracy[run["name"]] = (acc["cer"], acc["cer_low"], acc["cer_high"])
+            try:
+                summary["plan"] = compute_plan(frames, plan, runs, accuracy=accuracy, scaling=scaling)
+            except OcrbenchError:
+                raise
+            summary["plan"]["accuracy_source"] = ("post-processed text where stored, else raw"
+                                                  if accuracy else "no ground truth: correction not estimated")
+        for run in runs:
+            run["plan"] = summary["plan"]["rows"].get(run["name"])
+        if summary["plan"]["curve"]:
+            data.tables["plan_curve"] = pd.DataFrame(summary["plan"]["curve"])
+        data.tables["plan"] = pd.DataFrame([{"recogniser": k, **v} for k, v in summary["plan"]["rows"].items()])
+    else:
+        for run in runs:
+            run["plan"] = None
+
+    # ---- tables
+    data.tables["recognisers"] = pd.DataFrame([_flat_row(r) for r in runs])
+    if not pages_table.empty:
+        data.tables["pages"] = pages_table
+    if line_times:
+        data.line_times = pd.concat(line_times, ignore_index=True)
+        data.tables["line_times"] = data.line_times
+    if summary["paired"]:
+        data.tables["paired"] = pd.DataFrame(summary["paired"])
+    summary["figures"] = figure_index(summary)
+    data.summary = _clean(summary)
+    return data
+
+
+def _flat_row(run: dict) -> dict:
+    row = {k: run.get(k) for k in ("name", "kind", "run_id", "card_hash", "pages_done", "pages_failed", "lines",
+                                   "chars", "pages_per_hour", "pages_per_hour_low", "pages_per_hour_high",
+                                   "page_seconds_p50", "page_seconds_p90", "seconds_per_char",
+                                   "seconds_per_char_low", "seconds_per_char_high")}
+    for key in ("accuracy", "accuracy_post"):
+        acc = run.get(key) or {}
+        pre = "" if key == "accuracy" else "post_"
+        for k in ("cer", "cer_low", "cer_high", "wer", "wer_low", "wer_high", "digit_error_rate", "digit_low",
+                  "digit_high"):
+            row[pre + k] = acc.get(k)
+        row[pre + "recipe"] = acc.get("recipe")
+    plan = run.get("plan") or {}
+    for k in ("wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90", "cost", "cost_high", "meets_deadline",
+              "meets_budget"):
+        row["plan_" + k] = plan.get(k)
+    return row
+
+
+# --------------------------------------------------------------------------- figures
+
+
+def figure_index(summary: Mapping) -> list[dict]:
+    """The report's figures: id, title, whether it can be drawn (and why not), and its recipe string."""
+    runs = summary["recognisers"]
+    has_acc = any(r.get("accuracy") for r in runs)
+    profile = summary.get("profile") or "-"
+    plan = summary.get("plan")
+    ci = "boot-pages/95%"
+    figs = [
+        {"id": "accuracy-throughput", "title": "Accuracy against throughput",
+         "shown": has_acc and any(r.get("pages_per_hour") for r in runs),
+         "why_not": None if has_acc else "no ground truth was given, so accuracy was not measured",
+         "recipe": f"x=pages-per-hour(one worker, this machine, {ci});y=cer(codepoint,profile={profile},corpus,{ci});"
+                   "marker=raw filled, post-processed open"},
+        {"id": "class-errors", "title": "Error rate by character class",
+         "shown": has_acc, "why_not": None if has_acc else "no ground truth was given",
+         "recipe": f"y=class-error(subs+dels charged to the truth character's class)/truth chars of the class;"
+                   f"profile={profile};corpus;{ci};insertions not included;raw text"},
+        {"id": "page-cer", "title": "Distribution of CER per page",
+         "shown": has_acc, "why_not": None if has_acc else "no ground truth was given",
+         "recipe": f"y=share of pages with page CER <= x;page CER=(S+D+I)/N per page;profile={profile};"
+                   "pages with empty truth left out;raw text"},
+        {"id": "decode-time", "title": "Decode time per line against characters per line",
+         "shown": any(r.get("lines") for r in runs), "why_not": "no recognised lines in the store",
+         "recipe": "y=t_line (line's share of its batch's model+decode time);x=recognised characters in the line;"
+                   f"line=least squares;at most {_MAX_POINTS} points drawn per recogniser (seeded sample), fit on all"},
+        {"id": "plan-workers", "title": "Planned wall-clock against workers",
+         "shown": bool(plan and plan.get("curve")),
+         "why_not": ("no plan was given" if not plan else "the plan came as results; no curve to draw"),
+         "recipe": ("y=archive wall-clock P50 with P10-P90 band (Monte Carlo over cost-model refits, page "
+                    f"distribution and residuals);x={(plan or {}).get('curve_axis') or 'workers'};"
+                    f"pages={((plan or {}).get('spec') or {}).get('pages', '-')}")},
+    ]
+    for f in figs:
+        if f["shown"]:
+            f["why_not"] = None
+    return figs

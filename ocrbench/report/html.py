@@ -1,0 +1,425 @@
+"""The report as one self-contained HTML file: inline CSS, inline SVG figures, no scripts, no network.
+
+Every number on the page is written by :func:`figure`, which looks the value
+up in the JSON summary by its path and formats it with
+:func:`ocrbench.report.display.fmt`; the element carries that path as
+``data-key`` and the format as ``data-fmt``, so the page can be checked
+against ``summary.json`` mechanically. Every string that comes from pages,
+ground truth, cards, file names or the store is escaped with ``html.escape``.
+
+The design is our own and deliberately plain: black on white, one serif
+text face and one fixed-width face from the reader's own system, thin rules,
+no colour carrying meaning (figures use shapes, line styles and hatching; the
+alignments use letters and text decoration), and print rules that keep a
+figure or a table row on one page.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+from typing import Any, Mapping, Sequence
+
+from ocrbench.report.alignview import LEGEND, align_columns, columns_html
+from ocrbench.report.data import resolve
+from ocrbench.report.display import NA, fmt
+
+__all__ = ["render_html", "figure", "CSS"]
+
+CSS = """
+:root { color-scheme: light; }
+html { background: #fff; color: #111; }
+body { font-family: Georgia, "Times New Roman", "DejaVu Serif", serif; font-size: 15px; line-height: 1.45;
+       max-width: 60rem; margin: 1.5rem auto 3rem; padding: 0 1.2rem; }
+h1 { font-size: 1.55rem; font-weight: normal; border-bottom: 3px double #111; padding-bottom: .3rem; margin-bottom: .2rem; }
+h2 { font-size: 1.2rem; font-weight: bold; margin: 2.2rem 0 .5rem; border-bottom: 1px solid #111; }
+h3 { font-size: 1rem; margin: 1.4rem 0 .3rem; }
+p.meta { margin: 0 0 1rem; font-size: .88rem; }
+.caution { border: 1px solid #111; border-left-width: 6px; padding: .4rem .8rem; margin: 1rem 0; }
+.caution p { margin: .3rem 0; }
+table { border-collapse: collapse; margin: .6rem 0 1rem; font-size: .86rem; }
+caption { text-align: left; font-style: italic; padding-bottom: .25rem; }
+th, td { padding: .22rem .55rem; vertical-align: top; text-align: left; }
+thead th { border-top: 1.5px solid #111; border-bottom: 1px solid #111; font-weight: bold; }
+tbody tr:last-child td, tbody tr:last-child th { border-bottom: 1.5px solid #111; }
+tbody th { font-weight: normal; font-style: italic; }
+td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+.iv { font-size: .8rem; white-space: nowrap; }
+figure { margin: 1.2rem 0 1.6rem; break-inside: avoid; page-break-inside: avoid; }
+figure svg { max-width: 100%; height: auto; display: block; }
+figcaption { font-size: .85rem; margin-top: .3rem; }
+code, pre, .recipe { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: .78rem; }
+.recipe { display: block; overflow-wrap: anywhere; border-top: 1px dotted #111; margin-top: .25rem; padding-top: .2rem; }
+pre.align { font-size: .82rem; line-height: 1.35; overflow-x: auto; margin: .3rem 0 .8rem;
+            padding: .4rem .6rem; border: 1px solid #bbb; white-space: pre; }
+pre.align .lab { font-style: italic; }
+.e-sub { text-decoration: underline double; font-weight: bold; }
+.e-del { text-decoration: line-through; text-decoration-thickness: 2px; }
+.e-ins { outline: 1px dotted #111; outline-offset: -1px; font-weight: bold; }
+.gap { color: #555; }
+.e-sub-mark, .e-del-mark, .e-ins-mark { font-weight: bold; }
+dl.legend { display: grid; grid-template-columns: max-content 1fr; gap: .1rem .8rem; font-size: .85rem; }
+dl.legend dt { font-family: "DejaVu Sans Mono", monospace; font-weight: bold; }
+dl.legend dd { margin: 0; }
+.note { font-size: .85rem; font-style: italic; }
+ul.warn li { font-size: .85rem; }
+.verdict { font-weight: bold; }
+details { font-size: .8rem; margin: -.5rem 0 .8rem; }
+p.plain code { white-space: pre-wrap; }
+@media print {
+  body { max-width: none; margin: 0; font-size: 10.5pt; }
+  h2 { break-after: avoid; page-break-after: avoid; }
+  tr, pre.align { break-inside: avoid; page-break-inside: avoid; }
+}
+"""
+
+
+def figure(summary: Mapping, path: str, kind: str, *, cls: str | None = None) -> str:
+    """A number from the summary, formatted, in a span that names its JSON path and format."""
+    try:
+        value = resolve(summary, path)
+    except (KeyError, IndexError, TypeError):
+        value = None
+    c = f' class="{cls}"' if cls else ""
+    return (f'<span{c} data-key="{html.escape(path, quote=True)}" data-fmt="{kind}">'
+            f"{html.escape(fmt(value, kind))}</span>")
+
+
+def _interval(summary: Mapping, base: str, low: str, high: str, kind: str) -> str:
+    """``value`` followed by ``[low – high]`` (each a figure); n/a where the value is absent."""
+    try:
+        value = resolve(summary, base)
+    except (KeyError, IndexError, TypeError):
+        value = None
+    if value is None:
+        return figure(summary, base, kind)
+    return (f"{figure(summary, base, kind)} <span class=\"iv\">[{figure(summary, low, kind)} – "
+            f"{figure(summary, high, kind)}]</span>")
+
+
+def _e(text: Any) -> str:
+    return html.escape("" if text is None else str(text))
+
+
+def _has(summary: Mapping, path: str) -> bool:
+    try:
+        return resolve(summary, path) is not None
+    except (KeyError, IndexError, TypeError):
+        return False
+
+
+# --------------------------------------------------------------------------- sections
+
+
+def _side_by_side(s: Mapping) -> str:
+    runs = s["recognisers"]
+    has_acc = any(r.get("accuracy") for r in runs)
+    has_post = any(r.get("accuracy_post") for r in runs)
+    has_plan = any(r.get("plan") for r in runs)
+    money = bool(s.get("plan") and any((r.get("plan") or {}).get("cost") is not None for r in runs))
+    rows: list[tuple[str, list[str]]] = []
+
+    def row(label: str, cells: list[str]) -> None:
+        rows.append((label, cells))
+
+    row("kind", [_e(r["kind"]) for r in runs])
+    row("pages read (failed)", [f'{figure(s, f"recognisers.{i}.pages_done", "int")} '
+                                f'({figure(s, f"recognisers.{i}.pages_failed", "int")})' for i in range(len(runs))])
+    row("lines read", [figure(s, f"recognisers.{i}.lines", "int") for i in range(len(runs))])
+    if has_acc:
+        row("CER, raw text", [_interval(s, f"recognisers.{i}.accuracy.cer", f"recognisers.{i}.accuracy.cer_low",
+                                        f"recognisers.{i}.accuracy.cer_high", "pct") for i in range(len(runs))])
+        row("WER, raw text", [_interval(s, f"recognisers.{i}.accuracy.wer", f"recognisers.{i}.accuracy.wer_low",
+                                        f"recognisers.{i}.accuracy.wer_high", "pct") for i in range(len(runs))])
+        row("digit error rate, raw text",
+            [_interval(s, f"recognisers.{i}.accuracy.digit_error_rate", f"recognisers.{i}.accuracy.digit_low",
+                       f"recognisers.{i}.accuracy.digit_high", "pct") for i in range(len(runs))])
+    if has_post:
+        p = "accuracy_post"
+        row("CER, post-processed", [_interval(s, f"recognisers.{i}.{p}.cer", f"recognisers.{i}.{p}.cer_low",
+                                              f"recognisers.{i}.{p}.cer_high", "pct") for i in range(len(runs))])
+        row("WER, post-processed", [_interval(s, f"recognisers.{i}.{p}.wer", f"recognisers.{i}.{p}.wer_low",
+                                              f"recognisers.{i}.{p}.wer_high", "pct") for i in range(len(runs))])
+        row("digit error rate, post-processed",
+            [_interval(s, f"recognisers.{i}.{p}.digit_error_rate", f"recognisers.{i}.{p}.digit_low",
+                       f"recognisers.{i}.{p}.digit_high", "pct") for i in range(len(runs))])
+    row("pages per hour, this machine, one worker",
+        [_interval(s, f"recognisers.{i}.pages_per_hour", f"recognisers.{i}.pages_per_hour_low",
+                   f"recognisers.{i}.pages_per_hour_high", "int") for i in range(len(runs))])
+    row("time per page, median (P90)", [f'{figure(s, f"recognisers.{i}.page_seconds_p50", "dur")} '
+                                        f'({figure(s, f"recognisers.{i}.page_seconds_p90", "dur")})'
+                                        for i in range(len(runs))])
+    row("time per extra character in a line",
+        [_interval(s, f"recognisers.{i}.seconds_per_char", f"recognisers.{i}.seconds_per_char_low",
+                   f"recognisers.{i}.seconds_per_char_high", "ms") for i in range(len(runs))])
+    if has_plan:
+        row("archive wall-clock P50 [P10 – P90]",
+            [_interval(s, f"recognisers.{i}.plan.wall_seconds_p50", f"recognisers.{i}.plan.wall_seconds_p10",
+                       f"recognisers.{i}.plan.wall_seconds_p90", "dur") for i in range(len(runs))])
+        if money:
+            cur = _e(((s["plan"].get("spec") or {}).get("currency")) or "")
+            row(f"archive cost {cur} (at P90 / upper CER)".replace("  ", " "),
+                [f'{figure(s, f"recognisers.{i}.plan.cost", "money")} '
+                 f'<span class="iv">(up to {figure(s, f"recognisers.{i}.plan.cost_high", "money")})</span>'
+                 for i in range(len(runs))])
+        row("correction hours [interval]",
+            [_interval(s, f"recognisers.{i}.plan.correction_hours", f"recognisers.{i}.plan.correction_hours_low",
+                       f"recognisers.{i}.plan.correction_hours_high", "f1") for i in range(len(runs))])
+        row("meets the deadline", [figure(s, f"recognisers.{i}.plan.meets_deadline", "bool")
+                                   for i in range(len(runs))])
+        row("meets the budget", [figure(s, f"recognisers.{i}.plan.meets_budget", "bool")
+                                 for i in range(len(runs))])
+    head = "".join(f'<th scope="col" class="n">{_e(r["name"])}</th>' for r in runs)
+    body = "".join(f'<tr><th scope="row">{_e(label)}</th>{"".join(f"<td class=n>{c}</td>" for c in cells)}</tr>'
+                   for label, cells in rows)
+    note = ""
+    if has_acc:
+        note = (f'<p class="note">Accuracy: profile <code>{_e(s.get("profile"))}</code> '
+                f'({_e(s.get("profile_summary"))}); intervals are 95 % bootstrap intervals over pages. '
+                "The digit error rate counts substitutions and deletions of truth digits per truth digit.</p>")
+    return (f'<h2 id="side-by-side">Recognisers side by side</h2>'
+            f'<table class="sbs"><caption>Figures with their 95 % intervals in brackets.</caption>'
+            f'<thead><tr><th scope="col">measure</th>{head}</tr></thead><tbody>{body}</tbody></table>{note}')
+
+
+def _paired(s: Mapping) -> str:
+    if not s.get("paired"):
+        return ""
+    rows = []
+    for k, p in enumerate(s["paired"]):
+        if p.get("error"):
+            rows.append(f"<tr><td>{_e(p['a'])} vs {_e(p['b'])}</td><td>{_e(p['text'])}</td>"
+                        f"<td colspan=5>{_e(p['error'])}</td></tr>")
+            continue
+        winner = p.get("winner")
+        verdict = (f'<span class="verdict">{figure(s, f"paired.{k}.winner", "text")}</span> reads more accurately'
+                   if winner else "no difference shown at this sample size")
+        rows.append(f"<tr><td>{_e(p['a'])} − {_e(p['b'])}</td><td>{_e(p['text'])}</td>"
+                    f"<td class=n>{figure(s, f'paired.{k}.pages', 'int')}</td>"
+                    f"<td class=n>{_interval(s, f'paired.{k}.diff', f'paired.{k}.low', f'paired.{k}.high', 'pct')}</td>"
+                    f"<td class=n>{figure(s, f'paired.{k}.p_value', 'p')}</td><td>{verdict}</td></tr>")
+    return ('<h2 id="paired">Paired comparison</h2>'
+            "<p>The same pages, both recognisers: the difference of their CERs (first minus second; negative "
+            "means the first makes fewer errors), with a paired bootstrap interval over pages and a two-sided "
+            "p-value. A winner is named only when the interval excludes zero.</p>"
+            '<table><thead><tr><th>pair</th><th>text</th><th class="n">pages</th><th class="n">CER difference '
+            '[95 % interval]</th><th class="n">p</th><th>reading</th></tr></thead><tbody>'
+            + "".join(rows) + "</tbody></table>")
+
+
+def _plan(s: Mapping) -> str:
+    plan = s.get("plan")
+    if not plan:
+        return ""
+    spec = plan.get("spec") or {}
+    parts = ['<h2 id="plan">Plan for the archive</h2>']
+    if spec:
+        cur = spec.get("currency") or ""
+        items = [("pages in the archive", figure(s, "plan.spec.pages", "int")),
+                 ("deadline", _e(spec.get("deadline") or "none")),
+                 ("budget", (f'{_e(cur)} {figure(s, "plan.spec.budget", "money")}' if spec.get("budget") is not None
+                             else "none")),
+                 ("workers × machines", f'{figure(s, "plan.spec.workers", "int")} × '
+                                        f'{figure(s, "plan.spec.machines", "int")}'),
+                 ("price per core-hour", (f'{_e(cur)} {figure(s, "plan.spec.price_core_hour", "money")}'
+                                          if spec.get("price_core_hour") is not None else "not priced")),
+                 ("price per machine-hour", (f'{_e(cur)} {figure(s, "plan.spec.price_machine_hour", "money")}'
+                                             if spec.get("price_machine_hour") is not None else "not priced")),
+                 ("correction effort per character error",
+                  f'{figure(s, "plan.spec.seconds_per_error", "f1")} s'),
+                 ("price per hour of correction",
+                  (f'{_e(cur)} {figure(s, "plan.spec.correction_price_hour", "money")}'
+                   if spec.get("correction_price_hour") is not None else "not priced")),
+                 ("pages described by", (f'{_e(spec.get("lines_per_page"))} lines per page, '
+                                         f'{_e(spec.get("chars_per_line"))} characters per line'
+                                         if spec.get("lines_per_page") else "the store's measured pages"))]
+        parts.append('<table><caption>What was asked (the plan\'s assumptions)</caption><tbody>'
+                     + "".join(f'<tr><th scope="row">{_e(k)}</th><td>{v}</td></tr>' for k, v in items)
+                     + "</tbody></table>")
+    else:
+        parts.append(f'<p>Plan results read from <code>{_e(plan.get("source"))}</code>, shown as given.</p>')
+    rec = plan.get("recommendation") or {}
+    if rec.get("text"):
+        parts.append(f'<p class="verdict">{_e(rec["text"])}</p>')
+    for c in plan.get("crossover") or []:
+        if c.get("text"):
+            parts.append(f"<p>Crossover: {_e(c['text'])}.</p>")
+    if plan.get("assumptions"):
+        parts.append("<h3>Assumptions</h3><ul>" + "".join(f"<li>{_e(a)}</li>" for a in plan["assumptions"])
+                     + "</ul>")
+    if plan.get("accuracy_source"):
+        parts.append(f'<p class="note">Correction effort uses the CER of the {_e(plan["accuracy_source"])}.</p>')
+    if plan.get("warnings"):
+        parts.append('<h3>Warnings from the planner</h3><ul class="warn">'
+                     + "".join(f"<li>{_e(w)}</li>" for w in plan["warnings"]) + "</ul>")
+    return "".join(parts)
+
+
+def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
+    from ocrbench.report.plots import svg_inline
+
+    out = ['<h2 id="figures">Figures</h2>']
+    captions = {
+        "accuracy-throughput": "Each recogniser's CER against its pages per hour on this machine; bars are 95 % "
+                               "intervals. Filled marks: raw text; open marks: post-processed text.",
+        "class-errors": "Errors per truth character in each character class (digits matter most in ledgers); "
+                        "hatching tells the recognisers apart; bars are 95 % intervals.",
+        "page-cer": "How CER spreads over pages: the share of pages whose CER is at or below each value.",
+        "decode-time": "Each line's share of its batch's model and decode time against its length. An "
+                       "autoregressive recogniser takes one decoder step per character, so its line rises with "
+                       "length; a CTC recogniser reads a line in one pass.",
+        "plan-workers": "The archive's planned wall-clock as workers are added: P50 line, P10-P90 band, and the "
+                        "deadline.",
+    }
+    for k, f in enumerate(s["figures"]):
+        svg = svgs.get(f["id"])
+        body = (svg_inline(svg, f"f{k}", title=f["title"]) if svg else
+                f'<p class="note">Not drawn: {_e(f.get("why_not") or "nothing to draw")}.</p>')
+        out.append(f'<figure id="fig-{_e(f["id"])}"><h3>{_e(f["title"])}</h3>{body}'
+                   f'<figcaption>{_e(captions.get(f["id"], ""))}'
+                   f'<code class="recipe" data-key="figures.{k}.recipe" data-fmt="text">{_e(f["recipe"])}</code>'
+                   f"</figcaption></figure>")
+    return "".join(out)
+
+
+def _worst(s: Mapping) -> str:
+    worst = s.get("worst_pages") or []
+    if not worst:
+        if s.get("truth"):
+            return '<h2 id="worst">Worst pages</h2><p>No page has an error.</p>'
+        return ""
+    legend = "".join(f"<dt>{_e(mark)}</dt><dd><b>{_e(name)}</b>: {_e(what)}</dd>" for mark, name, what in LEGEND)
+    out = ['<h2 id="worst">Worst pages, line by line</h2>',
+           "<p>The pages with the highest CER for each recogniser, with the lines that hold errors (at most "
+           "the worst few per page). Text is shown after the scoring profile's normalisation, as it was "
+           "scored.</p>",
+           f'<dl class="legend">{legend}</dl>']
+    for k, w in enumerate(worst):
+        out.append(f"<h3>{_e(w['recogniser'])}: page <code>{_e(w['page_id'])}</code>, CER "
+                   f"{figure(s, f'worst_pages.{k}.cer', 'pct')} ({figure(s, f'worst_pages.{k}.char_edits', 'int')} "
+                   f"edits in {figure(s, f'worst_pages.{k}.ref_chars', 'int')} characters; "
+                   f"{figure(s, f'worst_pages.{k}.lines_shown', 'int')} of "
+                   f"{figure(s, f'worst_pages.{k}.lines_with_edits', 'int')} lines with errors shown)</h3>")
+        if w.get("pairing") == "page":
+            out.append('<p class="note">The reading has a different number of lines than the truth, so the '
+                       "page was aligned as one text.</p>")
+        for ln in w["lines"]:
+            label = f"line {ln['line_no']}" if ln.get("line_no") is not None else "whole page"
+            out.append(f'<p class="note">{_e(label)}: {_e(ln["char_edits"])} edits in {_e(ln["ref_chars"])} '
+                       f"characters</p>")
+            out.append(columns_html(align_columns(ln["ref"], ln["hyp"])))
+            # The same two texts unbroken (for copying and for screen readers), folded away by default.
+            out.append(f'<details><summary>plain text of {_e(label)}</summary><p class="plain">truth: '
+                       f'<code>{_e(ln["ref"])}</code><br>read: <code>{_e(ln["hyp"])}</code></p></details>')
+    return "".join(out)
+
+
+def _balance(s: Mapping) -> str:
+    runs = s["recognisers"]
+    if not any((r.get("balance") or {}).get("raw") for r in runs):
+        return ""
+    rows = []
+    for i, r in enumerate(runs):
+        for which in ("raw", "post"):
+            b = (r.get("balance") or {}).get(which)
+            if not b:
+                continue
+            p = f"recognisers.{i}.balance.{which}"
+            rows.append(f"<tr><td>{_e(r['name'])}</td><td>{_e(which)}</td>"
+                        f"<td class=n>{figure(s, p + '.pages', 'int')}</td>"
+                        f"<td class=n>{figure(s, p + '.balanced', 'int')}</td>"
+                        f"<td class=n>{figure(s, p + '.unbalanced', 'int')}</td>"
+                        f"<td class=n>{figure(s, p + '.not_checkable', 'int')}</td>"
+                        f"<td class=n>{_interval(s, p + '.misread_rate', p + '.misread_low', p + '.misread_high', 'pct')}"
+                        "</td></tr>")
+    model = next((r["balance"]["raw"]["model"] for r in runs if (r.get("balance") or {}).get("raw")), "")
+    return ('<h2 id="arithmetic">Ledger arithmetic (needs no ground truth)</h2>'
+            "<p>Each page's amounts are checked against its total. Pages that do not balance point at misread "
+            "amounts, on pages nobody has transcribed as well.</p>"
+            '<table><thead><tr><th>recogniser</th><th>text</th><th class="n">pages</th><th class="n">balanced</th>'
+            '<th class="n">unbalanced</th><th class="n">not checkable</th><th class="n">misread rate per amount '
+            "[95 % interval]</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
+            f'<p class="note">Model: {_e(model)}</p>')
+
+
+def _runs(s: Mapping) -> str:
+    out = ['<h2 id="runs">Runs: host and settings</h2>']
+    for i, r in enumerate(s["recognisers"]):
+        host = r.get("host") or {}
+        settings = r.get("settings") or {}
+        rows = [("run", _e(r["run_id"])), ("card", f'<code>{_e(r.get("card_path"))}</code>'),
+                ("card hash", f'<code>{_e(r.get("card_hash"))}</code>'),
+                ("input folder", f'<code>{_e(r.get("input_dir"))}</code>'),
+                ("engine", _e(r.get("engine"))), ("ocrbench", _e(r.get("ocrbench_version"))),
+                ("started / finished", f'{_e(r.get("started_at"))} / {_e(r.get("finished_at"))}')]
+        rows += [(f"host: {k}", _e(v)) for k, v in sorted(host.items())]
+        rows.append(("settings", f'<code>{_e(json.dumps(settings, sort_keys=True, ensure_ascii=False))}</code>'))
+        rows.append(("throughput recipe", f'<code class="recipe" data-key="recognisers.{i}.throughput_recipe" '
+                                          f'data-fmt="text">{_e(r.get("throughput_recipe"))}</code>'))
+        if r.get("failures"):
+            rows.append(("failed pages", "<br>".join(f'<code>{_e(f["page_id"])}</code>: {_e(f["error"])}'
+                                                     for f in r["failures"])))
+        out.append(f"<table><caption>{_e(r['name'])} ({_e(r['kind'])})</caption><tbody>"
+                   + "".join(f'<tr><th scope="row">{_e(k)}</th><td>{v}</td></tr>' for k, v in rows)
+                   + "</tbody></table>")
+    return "".join(out)
+
+
+def _recipes(s: Mapping) -> str:
+    items = []
+    for i, r in enumerate(s["recognisers"]):
+        for key in ("accuracy", "accuracy_post"):
+            acc = r.get(key)
+            if not acc:
+                continue
+            for name, recipe in sorted((acc.get("recipes") or {}).items()):
+                items.append(f"<tr><td>{_e(r['name'])}</td><td>{_e('raw' if key == 'accuracy' else 'post')}</td>"
+                             f"<td>{_e(name)}</td><td><code class=\"recipe\">{_e(recipe)}</code></td></tr>")
+    tp = s.get("truth_pairing") or {}
+    extra = ""
+    if tp:
+        extra = (f"<p>Ground truth: {figure(s, 'truth_pairing.pages_paired', 'int')} pages paired with a "
+                 f"transcription; {len(tp.get('pages_without_truth') or [])} pages had none; "
+                 f"{len(tp.get('truth_without_page') or [])} transcriptions had no page; "
+                 f"{len(tp.get('unreadable_truth') or [])} could not be read.</p>")
+        for u in tp.get("unreadable_truth") or []:
+            extra += f'<p class="note"><code>{_e(u["path"])}</code>: {_e(u["error"])}</p>'
+    if not items:
+        return ('<h2 id="recipes">Recipes</h2><p>No accuracy figures: no ground truth was given.</p>' + extra)
+    return ('<h2 id="recipes">Recipes of the accuracy figures</h2>'
+            "<p>What produced each accuracy figure; two figures compare only when their recipes agree "
+            "(apart from the recogniser).</p>" + extra +
+            "<table><thead><tr><th>recogniser</th><th>text</th><th>figure</th><th>recipe</th></tr></thead><tbody>"
+            + "".join(items) + "</tbody></table>")
+
+
+def _cautions(s: Mapping, *, short: bool) -> str:
+    if short:
+        return ('<div class="caution" role="note"><p><b>Read with care.</b> ' + _e(s["cautions"][0]) + "</p><p>"
+                + _e(s["cautions"][1]) + "</p></div>")
+    return ('<h2 id="cautions">Cautions</h2><ul>' + "".join(f"<li>{_e(c)}</li>" for c in s["cautions"]) + "</ul>")
+
+
+def render_html(summary: Mapping, svgs: Mapping[str, str | None]) -> str:
+    """The whole report page, from the summary and the figures' SVG text."""
+    s = summary
+    names = ", ".join(r["name"] for r in s["recognisers"])
+    sections = [("side-by-side", "side by side", _side_by_side(s)), ("paired", "paired comparison", _paired(s)),
+                ("plan", "plan", _plan(s)), ("figures", "figures", _figures(s, svgs)),
+                ("worst", "worst pages", _worst(s)), ("arithmetic", "ledger arithmetic", _balance(s)),
+                ("runs", "runs", _runs(s)), ("recipes", "recipes", _recipes(s)),
+                ("cautions", "cautions", _cautions(s, short=False))]
+    nav = " · ".join(f'<a href="#{a}">{_e(t)}</a>' for a, t, html_ in sections if html_)
+    body = [
+        f"<h1>{_e(s['title'])}</h1>",
+        f'<p class="meta">Recognisers: {_e(names)}. Store <code>{_e(s["store"])}</code>'
+        + (f'; ground truth <code>{_e(s["truth"])}</code>' if s.get("truth") else "; no ground truth")
+        + f'. Written {_e(s["generated_at"])} by ocrbench {_e(s["ocrbench_version"])}.</p>',
+        _cautions(s, short=True),
+        f'<nav><p class="meta">Contents: {nav}</p></nav>',
+        *(html_ for _, _, html_ in sections),
+    ]
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+            f"<title>{_e(s['title'])}</title><style>{CSS}</style></head><body>"
+            + "\n".join(part for part in body if part) + "</body></html>\n")
