@@ -150,9 +150,10 @@ def run(
             out.print(f"texts: {', '.join(str(text_out / k) for k in written)}")
     for r in summary.recognisers:
         for page_id, error in r.failures:
-            err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False)
+            err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False, soft_wrap=True)
     if failed:
-        err.print(f"ocrbench: {len(failed)} of {summary.pages_total} pages failed", markup=False, highlight=False)
+        err.print(f"ocrbench: {len(failed)} of {summary.pages_total} pages failed", markup=False, highlight=False,
+                  soft_wrap=True)
         raise typer.Exit(EXIT_SOME_FAILED)
     raise typer.Exit(EXIT_OK)
 
