@@ -24,6 +24,7 @@ are skipped) and rewrites the report; ``fresh=True`` starts new runs.
 
 from __future__ import annotations
 
+import os
 import random
 import re
 import shutil
@@ -34,7 +35,7 @@ from typing import Callable
 
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.report import ReportFiles, fmt, write_report
-from ocrbench.report.plan import PlanSpec
+from ocrbench.report.plan import PlanRequest
 
 __all__ = ["DemoArchive", "DemoResult", "run_demo", "repo_root", "find_demo_models", "firm_words",
            "demo_pipeline", "headline_lines", "DEMO_RECOGNISERS"]
@@ -61,11 +62,21 @@ class DemoArchive:
     seconds_per_error: float = 10.0
     correction_price_hour: float = 18.0
 
-    def plan_spec(self, *, workers: int | None = None, draws: int = 2000, seed: int = 0) -> PlanSpec:
-        return PlanSpec(pages=self.pages, deadline=self.deadline, budget=self.budget, currency=self.currency,
-                        workers=workers or self.workers, price_core_hour=self.price_core_hour,
-                        seconds_per_error=self.seconds_per_error,
-                        correction_price_hour=self.correction_price_hour, draws=draws, seed=seed)
+    def layout(self, workers: int | None = None, *, cores: int | None = None) -> tuple[int, int]:
+        """(workers per machine, machines) for ``workers`` on machines like this one: as many per machine as
+        it has cores (a divisor of ``workers``, so every machine runs the same number), the rest on more machines."""
+        w = workers or self.workers
+        c = max(1, cores or os.cpu_count() or 1)
+        per = max(d for d in range(1, min(w, c) + 1) if w % d == 0)
+        return per, w // per
+
+    def plan_request(self, *, workers: int | None = None, cores: int | None = None, draws: int = 2000,
+                     seed: int = 0) -> PlanRequest:
+        per, machines = self.layout(workers, cores=cores)
+        return PlanRequest(pages=self.pages, deadline=self.deadline, budget=self.budget, workers=per,
+                           machines=machines, threads=1, price_core_hour=self.price_core_hour,
+                           seconds_per_error=self.seconds_per_error, correction_price_hour=self.correction_price_hour,
+                           draws=draws, seed=seed)
 
 
 @dataclass
@@ -151,14 +162,15 @@ def _subset(scans: Path, n: int, dest: Path) -> Path:
     return dest
 
 
-def assumption_lines(archive: DemoArchive, *, workers: int, pages_measured: int) -> list[str]:
+def assumption_lines(archive: DemoArchive, *, workers: int, pages_measured: int, cores: int | None = None) -> list[str]:
     c = archive.currency
+    per, machines = archive.layout(workers, cores=cores)
     return [
-        f"archive: {fmt(archive.pages, 'int')} pages like the demo pages ({pages_measured} measured), "
+        f"archive: {fmt(archive.pages, 'int')} pages like the demo pages ({pages_measured} measured here), "
         f"deadline {archive.deadline}, budget {c} {fmt(archive.budget, 'money')}",
-        f"resources: {workers} workers of one thread each, like this machine "
-        f"(planned as independent one-worker machines unless scaling was measured), "
-        f"{c} {fmt(archive.price_core_hour, 'money')} per core-hour",
+        f"resources: {workers} workers of one thread each = {machines} machine(s) like this one "
+        f"({cores or os.cpu_count()} cores) with {per} worker(s) each; the speed-up of {per} worker(s) on one "
+        f"machine is measured here; {c} {fmt(archive.price_core_hour, 'money')} per core-hour",
         f"correction: {fmt(archive.seconds_per_error, 'f1')} s per character error, "
         f"{c} {fmt(archive.correction_price_hour, 'money')} per hour of correction",
         "post-processing: Unicode NFC, whitespace, the firm's word list for doubtful words, "
@@ -169,7 +181,7 @@ def assumption_lines(archive: DemoArchive, *, workers: int, pages_measured: int)
 def headline_lines(summary: dict) -> list[str]:
     """The headline figures, written from the report's summary with the report's formatting function."""
     out = []
-    cur = ((summary.get("plan") or {}).get("spec") or {}).get("currency") or ""
+    cur = (summary.get("plan") or {}).get("currency") or ""
 
     def iv(d: dict | None, k: str, lo: str, hi: str, kind: str) -> str:
         if not d or d.get(k) is None:
@@ -206,13 +218,52 @@ def headline_lines(summary: dict) -> list[str]:
     return out
 
 
+def measure_demo_scaling(store: Path, scans: Path, models: list[Path], per_machine: int, *, pages: int,
+                         work_dir: Path) -> list[str]:
+    """Measure pages per second at 1 and ``per_machine`` worker processes on ``pages`` of the demo pages,
+    for each recogniser not yet measured in ``store`` (card hash), into the store's scaling table.
+
+    Returns the names measured now. Uses :func:`ocrbench.scaling.measure_scaling` (each worker a real runner
+    process over the same pages, started together) and :func:`ocrbench.planio.save_scaling`.
+    """
+    import pandas as pd
+
+    from ocrbench import planio
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.scaling import measure_scaling
+
+    wanted = sorted({1, per_machine})
+    have = planio.load_scaling(store)
+    subset = work_dir / "pages"
+    subset.mkdir(parents=True, exist_ok=True)
+    for p in _page_files(scans)[:pages]:
+        if not (subset / p.name).exists():
+            shutil.copy2(p, subset / p.name)
+    rows, measured = [], []
+    for folder in models:
+        card = load_card(folder)
+        mine = have[(have["recogniser"] == card.name) & (have["card_hash"] == card.card_hash)] if len(have) else have
+        if set(wanted) <= {int(w) for w in mine["workers"]}:
+            continue
+        df = measure_scaling(subset, folder, workers=wanted, threads=1, work_dir=work_dir)
+        rows.append(df.drop(columns=["speedup"]))
+        measured.append(card.name)
+    if rows:
+        planio.save_scaling(store, pd.concat(rows, ignore_index=True))
+    return measured
+
+
 def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans_dir: Path | str | None = None,
              workers: int | None = None, max_pages: int | None = None, archive: DemoArchive = DemoArchive(),
-             fresh: bool = False, n_boot: int = 2000, draws: int = 2000, progress: Callable | None = None,
+             fresh: bool = False, n_boot: int = 2000, draws: int = 2000, scaling_pages: int = 4,
+             cores: int | None = None, progress: Callable | None = None,
              echo: Callable[[str], None] | None = None, clock: Callable[[], float] = time.perf_counter) -> DemoResult:
     """Run the demo into ``out_dir`` (store ``demo.sqlite``, report ``report/``); see the module docstring.
 
     ``max_pages`` takes only the first pages (for a quick look or a test).
+    ``scaling_pages``: pages of the throughput measurement at several workers
+    (when more than one worker per machine is planned). ``cores``: the
+    machine's cores (default: this machine's).
     ``echo`` receives progress lines (the assumptions first); ``progress``
     receives the runner's events. Raises InputError / CardError / StoreError
     for what stops the demo.
@@ -235,7 +286,9 @@ def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans
         scans = _subset(scans, max_pages, out / "pages")
     n_pages = len(_page_files(scans))
     workers = workers or archive.workers
-    assumptions = assumption_lines(archive, workers=workers, pages_measured=n_pages)
+    cores = cores or os.cpu_count() or 1
+    per_machine, _machines = archive.layout(workers, cores=cores)
+    assumptions = assumption_lines(archive, workers=workers, pages_measured=n_pages, cores=cores)
     say("ocrbench demo: the invented archive of an invented firm's cash books (assumptions)")
     for line in assumptions:
         say(f"  {line}")
@@ -252,9 +305,18 @@ def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans
         f"{fmt(summary_run.wall_seconds, 'dur')}" + (f" ({resumed} already in the store)" if resumed else "")
         + (f"; {len(failed)} failed: {', '.join(failed)}" if failed else "") + f"; store: {store}")
 
-    files = write_report(store, out / "report", truth=scans, plan=archive.plan_spec(workers=workers, draws=draws),
-                         profile="nfc", n_boot=n_boot, title="ocrbench demo: two recognisers on an invented "
-                                                             "firm's cash books")
+    if per_machine > 1:
+        t1 = clock()
+        measured = measure_demo_scaling(store, scans, models, per_machine, pages=min(scaling_pages, n_pages),
+                                        work_dir=out / "scaling")
+        if measured:
+            say(f"measured throughput at 1 and {per_machine} workers on {min(scaling_pages, n_pages)} pages for "
+                f"{', '.join(measured)} in {fmt(clock() - t1, 'dur')}")
+
+    files = write_report(store, out / "report", truth=scans,
+                         plan=archive.plan_request(workers=workers, cores=cores, draws=draws), profile="nfc",
+                         n_boot=n_boot, currency=archive.currency,
+                         title="ocrbench demo: two recognisers on an invented firm's cash books")
     wall = clock() - t0
     head = headline_lines(files.data.summary)
     return DemoResult(out_dir=out, store=store, report=files, wall_seconds=wall, pages=n_pages,

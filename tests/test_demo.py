@@ -31,7 +31,7 @@ def demo(inputs, tmp_path_factory):
     root, pages = inputs
     said: list[str] = []
     res = run_demo(out_dir=tmp_path_factory.mktemp("out"), models_dir=root / "models", scans_dir=pages,
-                   n_boot=200, draws=200, echo=said.append)
+                   n_boot=200, draws=200, cores=2, scaling_pages=2, echo=said.append)
     return res, said
 
 
@@ -48,6 +48,10 @@ def test_demo_writes_store_report_and_json(demo):
     assert s["plan"]["spec"]["pages"] == a.pages and s["plan"]["spec"]["deadline"] == a.deadline
     assert all(r["plan"]["wall_seconds_p10"] <= r["plan"]["wall_seconds_p50"] <= r["plan"]["wall_seconds_p90"]
                for r in s["recognisers"])
+    # 4 workers on 2-core machines: 2 machines with 2 workers each, the speed-up of 2 workers measured here
+    assert (s["plan"]["spec"]["workers"], s["plan"]["spec"]["machines"]) == (2, 2)
+    assert s["plan"]["scaling_measured"] == ["tiny-ctc", "tiny-seq"]
+    assert {c["workers"] for c in s["plan"]["curve"]} >= {1, 2, 4}
     assert (res.out_dir / "firm_words.txt").is_file()
     assert res.wall_seconds > 0
 
@@ -81,8 +85,11 @@ def test_demo_report_figures_match_its_summary(demo):
 def test_demo_reruns_resume_the_store(inputs, demo):
     root, pages = inputs
     res, _ = demo
-    again = run_demo(out_dir=res.out_dir, models_dir=root / "models", scans_dir=pages, n_boot=100, draws=100)
+    said: list[str] = []
+    again = run_demo(out_dir=res.out_dir, models_dir=root / "models", scans_dir=pages, n_boot=100, draws=100,
+                     cores=2, echo=said.append)
     assert again.pages_resumed == 3
+    assert not any(line.startswith("measured throughput") for line in said)   # kept in the store
 
 
 def test_demo_without_models_names_the_folder(tmp_path, inputs):
@@ -105,5 +112,5 @@ def test_demo_command_json(inputs, tmp_path):
     out = json.loads(r.stdout)
     assert Path(out["report"]).is_file() and out["headline"] and len(out["recognisers"]) == 2
     s = json.loads(Path(out["summary"]).read_text(encoding="utf-8"))
-    assert s["plan"]["spec"]["workers"] == 3
+    assert s["plan"]["spec"]["workers"] * s["plan"]["spec"]["machines"] == 3
     assert all(r["pages_done"] == 2 for r in s["recognisers"])

@@ -18,13 +18,13 @@ from typer.testing import CliRunner
 
 from _report_support import SCRIPT_LINE, collect, make_models, make_pages, make_store, parse_shown
 from ocrbench.cli import app
-from ocrbench.errors import InputError, StoreError
-from ocrbench.report import PlanResults, PlanSpec, load_plan_file, write_report
+from ocrbench.errors import InputError, PlanError, StoreError
+from ocrbench.report import PlanRequest, PlanResults, load_plan_file, write_report
 from ocrbench.report.alignview import align_columns, columns_text
 from ocrbench.report.data import resolve
 
-PLAN = PlanSpec(pages=5000, deadline="2d", budget=500.0, currency="GBP", workers=2, price_core_hour=0.1,
-                correction_price_hour=15.0, curve_max_workers=4, draws=200)
+PLAN = PlanRequest(pages=5000, deadline="2d", budget=500.0, workers=1, machines=2, price_core_hour=0.1,
+                   correction_price_hour=15.0, draws=200)
 
 
 @pytest.fixture(scope="module")
@@ -33,7 +33,7 @@ def built(tmp_path_factory):
     pages = make_pages(root / "pages")
     ctc, seq = make_models(root / "models")
     db = make_store(pages, [ctc, seq], root / "run.sqlite")
-    files = write_report(db, root / "out", truth=pages, plan=PLAN, n_boot=300)
+    files = write_report(db, root / "out", truth=pages, plan=PLAN, n_boot=300, currency="GBP", curve_max_workers=4)
     return {"root": root, "pages": pages, "db": db, "files": files, "models": (ctc, seq),
             "html": files.html.read_text(encoding="utf-8"),
             "summary": json.loads(files.summary.read_text(encoding="utf-8"))}
@@ -145,12 +145,21 @@ def test_tables_are_written_and_read_back(built):
 
 def test_plan_curve_matches_the_plan_at_the_planned_workers(built):
     plan = built["summary"]["plan"]
+    total = PLAN.workers * PLAN.machines
     for name, row in plan["rows"].items():
-        at = [c for c in plan["curve"] if c["recogniser"] == name and c["workers"] == PLAN.workers]
+        at = [c for c in plan["curve"] if c["recogniser"] == name and c["workers"] == total]
         assert at and at[0]["wall_seconds_p50"] == pytest.approx(row["wall_seconds_p50"])
         walls = [c["wall_seconds_p50"] for c in plan["curve"] if c["recogniser"] == name]
         assert walls == sorted(walls, reverse=True)      # more workers, never slower
-    assert any("independent one-worker machines" in a for a in plan["assumptions"])
+    # no throughput was measured at several workers: one worker per machine, machines independent
+    assert plan["scaling_measured"] == [] and "machines assumed independent" in plan["curve_axis"]
+    assert all(c["workers_per_machine"] == 1 for c in plan["curve"])
+
+
+def test_workers_on_one_machine_need_measured_scaling(built, tmp_path):
+    # The planner assumes no speed-up from more workers on one machine unless it was measured.
+    with pytest.raises(PlanError, match="workers"):
+        write_report(built["db"], tmp_path / "out", plan=PlanRequest(pages=100, workers=2), n_boot=50)
 
 
 # --------------------------------------------------------------------------- smaller cases
@@ -174,18 +183,25 @@ def test_one_recogniser_and_no_truth(built, tmp_path):
 
 
 def test_plan_files(tmp_path):
+    # the project's plan-file format (ocrbench.planio.PLAN_FILE_FORMAT)
     toml = tmp_path / "plan.toml"
-    toml.write_text('[plan]\npages = 1000\ndeadline = "3d"\nworkers = 2\nprice_core_hour = 0.1\n', encoding="utf-8")
-    spec = load_plan_file(toml)
-    assert isinstance(spec, PlanSpec) and spec.pages == 1000 and spec.workers == 2
+    toml.write_text('[archive]\npages = 1000\n[goals]\ndeadline = "3d"\n[resources]\nmachines = 2\n'
+                    'price_core_hour = 0.1\n', encoding="utf-8")
+    req = load_plan_file(toml)
+    assert isinstance(req, PlanRequest) and req.pages == 1000 and req.machines == 2 and req.deadline == "3d"
     bad = tmp_path / "bad.toml"
-    bad.write_text("pages = 10\nworker = 3\n", encoding="utf-8")
+    bad.write_text("worker = 3\n", encoding="utf-8")
     with pytest.raises(InputError, match="bad.toml.*unknown key.*worker"):
         load_plan_file(bad)
     res = tmp_path / "res.json"
-    res.write_text(json.dumps([{"recogniser": "x", "wall_seconds_p50": 10.0}]), encoding="utf-8")
+    res.write_text(json.dumps({"recognisers": [{"recogniser": "x", "wall_seconds_p50": 10.0}],
+                               "recommendation": {"text": "x it is"}}), encoding="utf-8")
     got = load_plan_file(res)
     assert isinstance(got, PlanResults) and got.rows[0]["recogniser"] == "x"
+    assert got.statements["recommendation"]["text"] == "x it is"
+    res.write_text(json.dumps({"pages": 3}), encoding="utf-8")
+    with pytest.raises(InputError, match="res.json.*recogniser"):
+        load_plan_file(res)
 
 
 def test_plan_results_are_shown_as_given(built, tmp_path):
@@ -229,7 +245,7 @@ def test_alignment_columns_rebuild_both_texts_and_count_the_distance():
 
 def test_report_command(built, tmp_path):
     plan = tmp_path / "plan.toml"
-    plan.write_text("pages = 2000\ndeadline = \"1d\"\ndraws = 100\ncurve_max_workers = 3\n", encoding="utf-8")
+    plan.write_text('[archive]\npages = 2000\n[goals]\ndeadline = "1d"\n[simulation]\ndraws = 100\n', encoding="utf-8")
     r = CliRunner().invoke(app, ["report", str(built["db"]), "--out", str(tmp_path / "out"), "--truth",
                                  str(built["pages"]), "--plan", str(plan), "--profile", "loose", "--json"])
     assert r.exit_code == 0, r.output

@@ -17,7 +17,7 @@ import pytest
 from PIL import Image
 
 from _report_support import collect, make_models, make_pages, make_store
-from ocrbench.report import PlanSpec, write_report
+from ocrbench.report import PlanRequest, write_report
 
 pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
@@ -44,9 +44,8 @@ def report(tmp_path_factory) -> Path:
     pages = make_pages(root / "pages")
     ctc, seq = make_models(root / "models")
     db = make_store(pages, [ctc, seq], root / "run.sqlite")
-    plan = PlanSpec(pages=5000, deadline="2d", budget=500.0, workers=2, price_core_hour=0.1, curve_max_workers=4,
-                    draws=200)
-    return write_report(db, root / "out", truth=pages, plan=plan, n_boot=200).html
+    plan = PlanRequest(pages=5000, deadline="2d", budget=500.0, machines=2, price_core_hour=0.1, draws=200)
+    return write_report(db, root / "out", truth=pages, plan=plan, n_boot=200, curve_max_workers=4).html
 
 
 def test_dom_holds_tables_figures_and_headings(report, tmp_path):

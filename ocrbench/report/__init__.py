@@ -14,14 +14,14 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Mapping, Sequence
+from typing import Sequence
 
 from ocrbench.errors import ReportError
 from ocrbench.report.data import CAUTIONS, ReportData, build_report_data, resolve
 from ocrbench.report.display import fmt
-from ocrbench.report.plan import PlanResults, PlanSpec, load_plan_file
+from ocrbench.report.plan import PlanRequest, PlanResults, load_plan_file
 
-__all__ = ["ReportFiles", "write_report", "build_report_data", "ReportData", "PlanSpec", "PlanResults",
+__all__ = ["ReportFiles", "write_report", "build_report_data", "ReportData", "PlanRequest", "PlanResults",
            "load_plan_file", "fmt", "resolve", "CAUTIONS", "ReportError"]
 
 
@@ -46,14 +46,14 @@ def _write_text(path: Path, text: str) -> None:
 
 
 def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | None = None,
-                 plan: PlanSpec | PlanResults | Path | str | None = None, profile: str = "nfc",
+                 plan: PlanRequest | PlanResults | Path | str | None = None, profile: str = "nfc",
                  run_ids: Sequence[int] | None = None, n_boot: int = 2000, seed: int = 0,
-                 scaling: Mapping | None = None, title: str | None = None,
+                 currency: str = "", curve_max_workers: int = 16, title: str | None = None,
                  table_formats: Sequence[str] = ("csv", "parquet")) -> ReportFiles:
     """Write ``report.html``, ``summary.json`` and ``tables/<name>.csv|parquet`` into ``out_dir``.
 
     The summary is built first (:func:`build_report_data`); the HTML and the
-    tables are written from it. ``plan`` may be a :class:`PlanSpec`, plan
+    tables are written from it. ``plan`` may be a :class:`PlanRequest`, plan
     results, or a path to a plan file (see :mod:`ocrbench.report.plan`).
     """
     from ocrbench.report.html import render_html
@@ -62,7 +62,7 @@ def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | 
     if isinstance(plan, (str, Path)):
         plan = load_plan_file(plan)
     data = build_report_data(store, truth=truth, plan=plan, profile=profile, run_ids=run_ids, n_boot=n_boot,
-                             seed=seed, scaling=scaling, title=title)
+                             seed=seed, currency=currency, curve_max_workers=curve_max_workers, title=title)
     out = Path(out_dir)
     tables_dir = out / "tables"
     try:

@@ -42,7 +42,7 @@ from ocrbench.accuracy.score import score_pages
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, paired_comparison
 from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
 from ocrbench.errors import OcrbenchError, StoreError, TextFileError
-from ocrbench.report.plan import PlanResults, PlanSpec, compute_plan, plan_from_results
+from ocrbench.report.plan import PlanRequest, PlanResults, compute_plan, plan_from_results
 from ocrbench.store import RunStore
 
 __all__ = ["ReportData", "build_report_data", "CAUTIONS", "resolve", "FORMAT_VERSION"]
@@ -61,8 +61,8 @@ CAUTIONS = (
 )
 
 #: Worst pages shown per recogniser, and lines shown per page.
-WORST_PAGES = 3
-WORST_LINES = 12
+WORST_PAGES = 2
+WORST_LINES = 6
 
 _MAX_POINTS = 3000     # line points per recogniser drawn in the decode-time figure
 
@@ -253,14 +253,17 @@ def _worst(run: dict, scores, n_pages: int, n_lines: int) -> list[dict]:
 # --------------------------------------------------------------------------- the report's numbers
 
 
-def build_report_data(store: Path | str, *, truth: Path | str | None = None, plan: PlanSpec | PlanResults | None = None,
-                      profile: str = "nfc", run_ids: Sequence[int] | None = None, n_boot: int = 2000,
-                      seed: int = 0, worst_pages: int = WORST_PAGES, worst_lines: int = WORST_LINES,
-                      scaling: Mapping | None = None, title: str | None = None) -> ReportData:
+def build_report_data(store: Path | str, *, truth: Path | str | None = None,
+                      plan: PlanRequest | PlanResults | None = None, profile: str = "nfc",
+                      run_ids: Sequence[int] | None = None, n_boot: int = 2000, seed: int = 0,
+                      worst_pages: int = WORST_PAGES, worst_lines: int = WORST_LINES, currency: str = "",
+                      curve_max_workers: int = 16, title: str | None = None) -> ReportData:
     """Gather every figure of a report from a run store (plus ground truth and a plan when given).
 
     ``profile``: normalisation profile for scoring (see :mod:`ocrbench.accuracy.normalise`).
     ``run_ids``: the runs to show (default: the latest run of each recogniser).
+    ``plan``: a plan request (computed with the planner, calibrated on this store unless it names
+    other stores) or plan results (shown as given); ``currency`` labels its money.
     Raises StoreError, TextFileError (the truth folder) or PlanError for what stops the whole report;
     a single unreadable ground-truth file is listed in the summary and its page left out.
     """
@@ -399,17 +402,20 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None, pla
         if isinstance(plan, PlanResults):
             summary["plan"] = plan_from_results(plan)
         else:
-            accuracy = {}
+            accuracy, gt_pages = {}, {}
             for run in runs:
-                acc = run.get("accuracy_post") or run.get("accuracy")
+                post = run.get("accuracy_post")
+                acc = post or run.get("accuracy")
                 if acc and acc.get("cer") is not None and acc.get("cer_low") is not None:
                     accuracy[run["name"]] = (acc["cer"], acc["cer_low"], acc["cer_high"])
-            try:
-                summary["plan"] = compute_plan(frames, plan, runs, accuracy=accuracy, scaling=scaling)
-            except OcrbenchError:
-                raise
-            summary["plan"]["accuracy_source"] = ("post-processed text where stored, else raw"
-                                                  if accuracy else "no ground truth: correction not estimated")
+                    key = f"{run['run_id']}/post" if post else str(run["run_id"])
+                    if key in data.page_scores:
+                        gt_pages[run["name"]] = data.page_scores[key]
+            summary["plan"] = compute_plan(store, frames, plan, runs, accuracy=accuracy, page_scores=gt_pages,
+                                           curve_max_workers=curve_max_workers)
+            summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
+                                                  if accuracy else None)
+        summary["plan"]["currency"] = currency
         for run in runs:
             run["plan"] = summary["plan"]["rows"].get(run["name"])
         if summary["plan"]["curve"]:

@@ -157,11 +157,13 @@ def _side_by_side(s: Mapping) -> str:
             [_interval(s, f"recognisers.{i}.plan.wall_seconds_p50", f"recognisers.{i}.plan.wall_seconds_p10",
                        f"recognisers.{i}.plan.wall_seconds_p90", "dur") for i in range(len(runs))])
         if money:
-            cur = _e(((s["plan"].get("spec") or {}).get("currency")) or "")
-            row(f"archive cost {cur} (at P90 / upper CER)".replace("  ", " "),
+            cur = _e(s["plan"].get("currency") or "")
+            row(f"archive cost {cur}, recognition and correction (up to)".replace("  ", " "),
                 [f'{figure(s, f"recognisers.{i}.plan.cost", "money")} '
                  f'<span class="iv">(up to {figure(s, f"recognisers.{i}.plan.cost_high", "money")})</span>'
                  for i in range(len(runs))])
+        row("ground-truth pages for the wanted CER margin",
+            [figure(s, f"recognisers.{i}.plan.gt_sample_pages", "int") for i in range(len(runs))])
         row("correction hours [interval]",
             [_interval(s, f"recognisers.{i}.plan.correction_hours", f"recognisers.{i}.plan.correction_hours_low",
                        f"recognisers.{i}.plan.correction_hours_high", "f1") for i in range(len(runs))])
@@ -212,27 +214,39 @@ def _plan(s: Mapping) -> str:
     if not plan:
         return ""
     spec = plan.get("spec") or {}
+    cur = _e(plan.get("currency") or "")
     parts = ['<h2 id="plan">Plan for the archive</h2>']
+
+    def money(key: str) -> str:
+        return (f'{cur} {figure(s, f"plan.spec.{key}", "money")}'.strip() if spec.get(key) is not None
+                else "not priced")
+
     if spec:
-        cur = spec.get("currency") or ""
+        if spec.get("lines_per_page"):
+            pages_by = (f'{_e(spec.get("lines_per_page"))} lines per page, {_e(spec.get("chars_per_line"))} '
+                        "characters per line")
+        elif spec.get("sample"):
+            pages_by = f'a sample of <code>{_e(spec.get("sample"))}</code>'
+        elif spec.get("archive_store"):
+            pages_by = f'the pages of <code>{_e(spec.get("archive_store"))}</code>'
+        else:
+            pages_by = "this store's pages"
         items = [("pages in the archive", figure(s, "plan.spec.pages", "int")),
+                 ("pages described by", pages_by),
                  ("deadline", _e(spec.get("deadline") or "none")),
-                 ("budget", (f'{_e(cur)} {figure(s, "plan.spec.budget", "money")}' if spec.get("budget") is not None
-                             else "none")),
-                 ("workers × machines", f'{figure(s, "plan.spec.workers", "int")} × '
-                                        f'{figure(s, "plan.spec.machines", "int")}'),
-                 ("price per core-hour", (f'{_e(cur)} {figure(s, "plan.spec.price_core_hour", "money")}'
-                                          if spec.get("price_core_hour") is not None else "not priced")),
-                 ("price per machine-hour", (f'{_e(cur)} {figure(s, "plan.spec.price_machine_hour", "money")}'
-                                             if spec.get("price_machine_hour") is not None else "not priced")),
-                 ("correction effort per character error",
-                  f'{figure(s, "plan.spec.seconds_per_error", "f1")} s'),
-                 ("price per hour of correction",
-                  (f'{_e(cur)} {figure(s, "plan.spec.correction_price_hour", "money")}'
-                   if spec.get("correction_price_hour") is not None else "not priced")),
-                 ("pages described by", (f'{_e(spec.get("lines_per_page"))} lines per page, '
-                                         f'{_e(spec.get("chars_per_line"))} characters per line'
-                                         if spec.get("lines_per_page") else "the store's measured pages"))]
+                 ("budget", (f'{cur} {figure(s, "plan.spec.budget", "money")}'.strip()
+                             if spec.get("budget") is not None else "none")),
+                 ("workers per machine × machines", f'{figure(s, "plan.spec.workers", "int")} × '
+                                                    f'{figure(s, "plan.spec.machines", "int")}'),
+                 ("threads per worker", _e(spec.get("threads") or "as calibrated")),
+                 ("price per core-hour", money("price_core_hour")),
+                 ("price per machine-hour", money("price_machine_hour")),
+                 ("correction effort per character error", f'{figure(s, "plan.spec.seconds_per_error", "f1")} s'),
+                 ("price per hour of correction", money("correction_price_hour")),
+                 ("wanted CER margin of a ground-truth sample", f'± {figure(s, "plan.spec.cer_margin", "pct")}'),
+                 ("calibration", ", ".join(f"<code>{_e(c)}</code>" for c in spec.get("calibration") or [])),
+                 ("throughput measured at several workers for",
+                  _e(", ".join(plan.get("scaling_measured") or []) or "none (one worker per machine is planned)"))]
         parts.append('<table><caption>What was asked (the plan\'s assumptions)</caption><tbody>'
                      + "".join(f'<tr><th scope="row">{_e(k)}</th><td>{v}</td></tr>' for k, v in items)
                      + "</tbody></table>")

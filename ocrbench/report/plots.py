@@ -103,6 +103,13 @@ def _style(i: int) -> dict:
             "linestyle": LINESTYLES[i % len(LINESTYLES)], "hatch": HATCHES[i % len(HATCHES)]}
 
 
+def _legend(ax) -> None:
+    """The legend under the plot (outside the axes), so it never covers a point or a line."""
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        ax.figure.legend(handles, labels, loc="outside lower center", ncol=2, fontsize=8, handlelength=3.2)
+
+
 def _err(value, low, high) -> list[list[float]]:
     lo = value - low if low is not None else 0.0
     hi = high - value if high is not None else 0.0
@@ -118,7 +125,7 @@ def accuracy_throughput(summary: Mapping) -> str | None:
         return None
     plt = _plt()
     with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 3.8))
+        fig, ax = plt.subplots(figsize=(6.4, 4.2), layout="constrained")
         xs = []
         for i, r in enumerate(summary["recognisers"]):
             if r not in runs:
@@ -145,7 +152,7 @@ def accuracy_throughput(summary: Mapping) -> str | None:
         ax.set_ylabel("CER, % (95 % interval)")
         ax.set_ylim(bottom=0)
         ax.set_xlim(left=0 if ax.get_xscale() == "linear" else None)
-        ax.legend(loc="best", fontsize=8)
+        _legend(ax)
         ax.set_title("Lower is more accurate; further right is faster", fontsize=9, loc="left")
         return _to_svg(fig)
 
@@ -161,7 +168,7 @@ def class_errors(summary: Mapping) -> str | None:
         return None
     plt = _plt()
     with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 3.6))
+        fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
         width = 0.8 / len(runs)
         x = np.arange(len(classes))
         for k, r in enumerate(runs):
@@ -183,7 +190,7 @@ def class_errors(summary: Mapping) -> str | None:
         ax.set_ylabel("errors per truth character of the class, %")
         ax.set_ylim(bottom=0)
         ax.grid(axis="x", visible=False)
-        ax.legend(fontsize=8)
+        _legend(ax)
         return _to_svg(fig)
 
 
@@ -193,7 +200,7 @@ def page_cer(summary: Mapping, page_scores: Mapping[str, pd.DataFrame]) -> str |
         return None
     plt = _plt()
     with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 3.4))
+        fig, ax = plt.subplots(figsize=(6.4, 3.8), layout="constrained")
         drawn = False
         for r in runs:
             i = summary["recognisers"].index(r)
@@ -213,7 +220,7 @@ def page_cer(summary: Mapping, page_scores: Mapping[str, pd.DataFrame]) -> str |
         ax.set_ylabel("share of pages at or below")
         ax.set_ylim(0, 1.02)
         ax.set_xlim(left=0)
-        ax.legend(loc="lower right", fontsize=8)
+        _legend(ax)
         return _to_svg(fig)
 
 
@@ -223,7 +230,7 @@ def decode_time(summary: Mapping, line_times: pd.DataFrame | None, *, seed: int 
     plt = _plt()
     rng = np.random.default_rng(seed)
     with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 3.8))
+        fig, ax = plt.subplots(figsize=(6.4, 4.2), layout="constrained")
         drawn = False
         for i, r in enumerate(summary["recognisers"]):
             d = line_times[line_times["run_id"] == r["run_id"]].dropna(subset=["n_chars", "t_line"])
@@ -250,7 +257,7 @@ def decode_time(summary: Mapping, line_times: pd.DataFrame | None, *, seed: int 
         ax.set_ylabel("model + decode time per line, ms")
         ax.set_xlim(left=0)
         ax.set_ylim(bottom=0)
-        ax.legend(loc="upper left", fontsize=8)
+        _legend(ax)
         return _to_svg(fig)
 
 
@@ -261,7 +268,7 @@ def plan_workers(summary: Mapping) -> str | None:
         return None
     plt = _plt()
     with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 3.8))
+        fig, ax = plt.subplots(figsize=(6.4, 4.2), layout="constrained")
         names = [r["name"] for r in summary["recognisers"]]
         for name, d in curve.groupby("recogniser", sort=False):
             i = names.index(name) if name in names else 0
@@ -282,7 +289,7 @@ def plan_workers(summary: Mapping) -> str | None:
         ax.set_yscale("log")
         ax.set_xlabel(_label(f"workers ({plan.get('curve_axis') or 'as planned'})"))
         ax.set_ylabel(_label(f"wall-clock for {spec.get('pages', 0):,} pages, hours"))
-        ax.legend(loc="upper right", fontsize=8)
+        _legend(ax)
         return _to_svg(fig)
 
 
