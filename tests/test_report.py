@@ -23,6 +23,8 @@ from ocrbench.report import PlanRequest, PlanResults, load_plan_file, write_repo
 from ocrbench.report.alignview import align_columns, columns_text
 from ocrbench.report.data import resolve
 
+pytestmark = pytest.mark.slow      # the module's store and report take a few seconds to build
+
 PLAN = PlanRequest(pages=5000, deadline="2d", budget=500.0, workers=1, machines=2, price_core_hour=0.1,
                    correction_price_hour=15.0, draws=200)
 
@@ -238,6 +240,24 @@ def test_alignment_columns_rebuild_both_texts_and_count_the_distance():
     ops = [c.op for c in align_columns("kitten", "sitting") if c.op != "="]
     assert sorted(ops) == ["I", "S", "S"]
     assert columns_text(align_columns("kitten", "sitting")).splitlines()[2].split() == ["edit", "S", "S", "I"]
+
+
+def test_names_in_figures_are_escaped_in_the_svg():
+    # Figure text comes from cards and stores too; in SVG it must be escaped XML (and never read as mathtext).
+    import pandas as pd
+
+    from ocrbench.report.plots import decode_time, svg_inline
+
+    name = "a<b>&c $x$"
+    summary = {"recognisers": [{"name": name, "kind": "seq", "run_id": 1, "seconds_per_char": 0.001,
+                                "line_seconds_at_0": 0.01}]}
+    lt = pd.DataFrame({"run_id": [1, 1, 1], "page_id": ["p", "p", "q"], "n_chars": [5, 10, 20],
+                       "t_line": [0.015, 0.02, 0.03]})
+    svg = svg_inline(decode_time(summary, lt), "t", title=name)
+    root = ET.fromstring(svg)                  # well-formed: Python's XML parser
+    texts = "".join(root.itertext())
+    assert name in texts and "<b>" not in svg and "a&lt;b&gt;&amp;c $x$" in svg
+    assert root.get("aria-label") == name
 
 
 # --------------------------------------------------------------------------- the command

@@ -39,7 +39,8 @@ class _Bar:
 def demo(
     out: Path = typer.Option(Path("ocrbench-out/demo"), "--out", help="Folder for the store, the report and the "
                                                                        "firm's word list (rerun to resume)."),
-    workers: int = typer.Option(4, "--workers", min=1, help="Workers planned for the invented archive."),
+    workers: int = typer.Option(4, "--workers", min=1, help="Workers planned for the invented archive (as many per machine as this "
+                                                      "one has cores, the rest on more machines like it)."),
     models: Optional[Path] = typer.Option(None, "--models", help="Folder holding ledger-ctc/ and ledger-seq/ "
                                                                  "(default: models/ of the source tree)."),
     scans: Optional[Path] = typer.Option(None, "--scans", help="Folder of demo pages with ground truth "

@@ -1,8 +1,9 @@
 """``ocrbench report STORE --out DIR``: a self-contained HTML report, CSV/Parquet tables and a JSON summary.
 
 With ``--truth DIR`` the recognisers are scored against the ground truth
-(``<page stem>.txt`` files); with ``--plan FILE`` (TOML plan description or
-JSON plan results) the archive plan is shown too. ``--profile`` names the
+(``<page stem>.txt`` files); with ``--plan FILE`` (a TOML plan file in the
+format ``ocrbench plan`` reads, or JSON plan results) the archive plan is
+shown too. ``--profile`` names the
 normalisation profile used for scoring.
 """
 
@@ -24,8 +25,9 @@ def report(
     store: Path = typer.Argument(..., help="A run store written by 'ocrbench run'."),
     out: Path = typer.Option(..., "--out", help="Folder for report.html, summary.json and tables/."),
     truth: Optional[Path] = typer.Option(None, "--truth", help="Folder of ground-truth .txt files (by page stem)."),
-    plan: Optional[Path] = typer.Option(None, "--plan", help="Plan description (.toml/.json with 'pages') or plan "
-                                                               "results (.json list) to show the archive plan."),
+    plan: Optional[Path] = typer.Option(None, "--plan", help="A plan file (TOML, as 'ocrbench plan' reads; this "
+                                                               "store calibrates when it names none) or plan "
+                                                               "results (JSON from 'ocrbench plan --json')."),
     profile: str = typer.Option("nfc", "--profile", help="Normalisation profile for scoring: exact, nfc, loose, "
                                                          "ledger."),
     run: Optional[list[int]] = typer.Option(None, "--run", help="Show these run ids (repeat); default: the latest "

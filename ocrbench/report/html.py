@@ -42,7 +42,7 @@ caption { text-align: left; font-style: italic; padding-bottom: .25rem; }
 th, td { padding: .22rem .55rem; vertical-align: top; text-align: left; }
 thead th { border-top: 1.5px solid #111; border-bottom: 1px solid #111; font-weight: bold; }
 tbody tr:last-child td, tbody tr:last-child th { border-bottom: 1.5px solid #111; }
-tbody th { font-weight: normal; font-style: italic; }
+tbody th { font-weight: normal; font-style: italic; white-space: nowrap; }
 td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 .iv { font-size: .8rem; white-space: nowrap; }
 figure { margin: 1.2rem 0 1.6rem; break-inside: avoid; page-break-inside: avoid; }
