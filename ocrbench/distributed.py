@@ -13,7 +13,7 @@ What differs is only where pages are read and how many at a time:
   store, in one transaction, as soon as its task completes. SQLite has one
   writer at a time anyway, and a single writer keeps "one transaction per
   page, a killed run loses at most the pages in flight" true.
-* Only a bounded number of tasks is in flight (by default twice the cluster's
+* Only a bounded number of tasks is in flight (by default four times the cluster's
   threads), so the client holds a few pages' results at a time however large
   the archive is.
 
@@ -61,7 +61,7 @@ class DaskOptions:
     for this run; ``scheduler`` (``tcp://HOST:PORT``) uses an existing cluster
     instead. ``pages_per_task`` groups pages into one task (1: each page is a
     task). ``max_in_flight`` bounds the tasks submitted and not yet written
-    (default: twice the cluster's threads).
+    (default: four times the cluster's threads, so a worker never waits for the client).
     """
 
     workers: int | None = None
@@ -144,7 +144,7 @@ def _raise_portable(err: tuple) -> None:
 
 
 def _preflight(cards: Sequence[Card], options: RunOptions) -> tuple:
-    """On one worker: open every recogniser (caught early: a model onnxruntime cannot load) and describe the host."""
+    """On a worker: open every recogniser (caught early: a model onnxruntime cannot load) and describe the host."""
     try:
         return ("ok", [host_info(worker_recogniser(c, options)) for c in cards])
     except Exception as e:  # noqa: BLE001 - sent back and raised in the client as a typed error
@@ -239,9 +239,9 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                     postprocess: PostProcess | None = None, fresh: bool = False) -> RunSummary:
     """Like :func:`ocrbench.runner.run_pages`, with pages read on a Dask cluster and written here as they finish.
 
-    Cards are validated here and every recogniser is opened once on a worker
-    before any page is submitted, so a bad card or model stops the run before
-    any page runs. Raises CardError / StoreError / InputError / ClusterError for
+    Cards are validated here and every worker opens every recogniser before
+    any page is submitted, so a bad card or model stops the run before any
+    page runs and the page timings hold no model loading. Raises CardError / StoreError / InputError / ClusterError for
     problems that stop everything; a problem of one page is a failed page.
     ``postprocess`` must be picklable (a module-level function or object).
     """
@@ -256,10 +256,12 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
     try:
         with connect(dask) as cl:
             client = cl.client
-            pre = client.submit(_preflight, card_list, options, pure=False).result()
-            if pre[0] == "error":
-                _raise_portable(pre)
-            hosts = pre[1]
+            # Every worker there now opens every recogniser (workers that join later do so on their first page).
+            pre = client.run(_preflight, card_list, options)
+            for res in pre.values():
+                if res[0] == "error":
+                    _raise_portable(res)
+            hosts = next(iter(pre.values()))[1]
             import onnxruntime as ort
 
             engine = f"{cl.description} / onnxruntime {ort.__version__}"
@@ -270,7 +272,7 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                                   "processes": dask.processes if dask.scheduler is None else None}}
                 states.append(open_run(st, card, None, settings=settings, input_dir=input_dir, fresh=fresh,
                                        engine=engine, host=lambda host=host, extra=extra: {**host, **extra}))
-            window = dask.max_in_flight or max(2, 2 * cl.threads)
+            window = dask.max_in_flight or max(4, 4 * cl.threads)
             return _write_as_completed(client, refs, states, card_list, st, options, dask.pages_per_task, window,
                                        clock, progress, postprocess, input_dir)
     finally:
@@ -327,6 +329,9 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
                 res = fut.result()
             except KilledWorker as e:
                 res = ("ok", [(r.id, [_lost(r, e) for _ in idx]) for r, idx in zip(chunk_refs, chunk_todo)])
+            except Exception as e:  # noqa: BLE001 - the cluster failed, not a page: stop with a clear error
+                raise ClusterError(f"a Dask task reading {chunk_refs[0].display()} failed: "
+                                   f"{type(e).__name__}: {e}") from e
             finally:
                 fut.release()
             del fut

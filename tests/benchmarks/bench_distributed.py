@@ -1,0 +1,141 @@
+"""Scale-out benchmark: the Dask engine with 2 workers vs 1 worker on the same pages, side by side.
+
+Issue 9: on a 2-core machine, 2 workers should read CTC pages >= 1.6x as fast as 1 worker.
+Each side runs on a LocalCluster of worker processes (1 thread each, onnxruntime 1 intra-op
+thread) started before the clock starts. The timed call is ``run_distributed`` on that
+cluster: every worker opening the recogniser (a fraction of a second), then the pages: load,
+segment, recognise, and the client writing each page to a fresh SQLite store. The sides alternate
+``--repeats`` times and the best time of each is kept (the least disturbed by other work).
+The serial runner (``ocrbench.runner.run_pages``) on the same pages is timed too, for information.
+
+The machine's state is printed first (usable cores, load average): on a shared machine the
+ratio says what the spare cores allowed, not what the engine can do. To emulate a 2-core
+machine on a bigger one, pin the whole benchmark: ``taskset -c 0,1 python ...``.
+
+Prints ``RATIO <name> <value> <target>`` lines for tests/benchmarks/run_all.py.
+
+Run: .venv/bin/python tests/benchmarks/bench_distributed.py [--pages 24] [--repeats 2] [--seq]
+     [--models DIR] [--quick]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from ocrbench import synth  # noqa: E402
+
+clock = time.perf_counter
+
+
+def find_models(given: Path | None) -> Path:
+    """The demo models: --models, else $OCRBENCH_TEST_MODELS, else models/."""
+    for cand in (given, os.environ.get("OCRBENCH_TEST_MODELS"), ROOT / "models"):
+        if cand and (Path(cand) / "ledger-ctc" / "card.toml").exists():
+            return Path(cand)
+    raise SystemExit("bench_distributed: no demo models (models/ledger-ctc/card.toml); build them with "
+                     "'python models/build.py export' or pass --models DIR")
+
+
+def machine() -> str:
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    load = " ".join(f"{x:.2f}" for x in os.getloadavg()) if hasattr(os, "getloadavg") else "?"
+    return f"{cores} usable cores (of {os.cpu_count()}), load average {load}"
+
+
+def make_pages(folder: Path, n: int, seed: int = 90) -> Path:
+    synth.write_archive(folder, synth.ArchiveSpec(n_pages=n, lines_per_page=(18, 26), seed=seed))
+    for p in folder.glob("*"):
+        if p.suffix in (".txt", ".json"):
+            p.unlink()
+    return folder
+
+
+def time_dask(pages: Path, card, workers: int, tmp: Path, tag: str) -> float:
+    from distributed import Client, LocalCluster
+
+    from ocrbench.distributed import DaskOptions, run_distributed
+    from ocrbench.runner import RunOptions
+
+    options = RunOptions()
+    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+                      silence_logs=50) as cluster, Client(cluster) as client:
+        t0 = clock()
+        s = run_distributed(pages, [card], store=tmp / f"{tag}.sqlite", options=options,
+                            dask=DaskOptions(scheduler=cluster.scheduler_address))
+        t = clock() - t0
+    assert not s.failed_pages and s.recognisers[0].pages_done == s.pages_total
+    return t
+
+
+def time_serial(pages: Path, card, tmp: Path, tag: str) -> float:
+    from ocrbench.recognisers.base import open_recogniser  # noqa: F401 - imported before timing
+    from ocrbench.runner import run_pages
+
+    t0 = clock()
+    run_pages(pages, [card], store=tmp / f"{tag}.sqlite")
+    return clock() - t0
+
+
+def bench(card, pages: Path, n: int, repeats: int, tmp: Path, label: str) -> dict:
+    best = {"w1": float("inf"), "w2": float("inf"), "serial": float("inf")}
+    for r in range(repeats):
+        for side in ("w1", "w2", "serial"):
+            tag = f"{label}-{side}-{r}"
+            t = (time_serial(pages, card, tmp, tag) if side == "serial"
+                 else time_dask(pages, card, 1 if side == "w1" else 2, tmp, tag))
+            best[side] = min(best[side], t)
+            print(f"  {label} {side:6s} repeat {r + 1}: {t:7.2f} s  ({3600 * n / t:,.0f} pages/hour)", flush=True)
+    return best
+
+
+def main(argv=None) -> dict:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--pages", type=int, default=24)
+    ap.add_argument("--repeats", type=int, default=2)
+    ap.add_argument("--models", type=Path, default=None)
+    ap.add_argument("--seq", action="store_true", help="also measure the seq recogniser (information only)")
+    ap.add_argument("--quick", action="store_true", help="8 pages, 1 repeat")
+    a = ap.parse_args(argv)
+    if a.quick:
+        a.pages, a.repeats = 8, 1
+    from ocrbench.recognisers.card import load_card
+
+    models = find_models(a.models)
+    import distributed
+    import onnxruntime as ort
+
+    print(f"bench_distributed: {machine()}; dask {distributed.__version__}, onnxruntime {ort.__version__}; "
+          f"models {models}", flush=True)
+    results = {}
+    tmp = Path(tempfile.mkdtemp(prefix="ocrbench-bench-dask-"))
+    try:
+        pages = make_pages(tmp / "pages", a.pages)
+        kinds = ["ctc"] + (["seq"] if a.seq else [])
+        for kind in kinds:
+            card = load_card(models / f"ledger-{kind}")
+            print(f"{kind}: {a.pages} pages, best of {a.repeats}", flush=True)
+            best = bench(card, pages, a.pages, a.repeats, tmp, kind)
+            results[kind] = best
+            print(f"  {kind}: 1 worker {best['w1']:.2f} s, 2 workers {best['w2']:.2f} s, "
+                  f"serial runner {best['serial']:.2f} s", flush=True)
+        print(f"(after: {machine()})")
+        for kind, best in results.items():
+            target = ">=1.6" if kind == "ctc" else "info"
+            print(f"RATIO dask_2_vs_1_workers_{kind} {best['w1'] / best['w2']:.3f} {target}")
+            print(f"RATIO dask_2_workers_vs_serial_runner_{kind} {best['serial'] / best['w2']:.3f} info")
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return results
+
+
+if __name__ == "__main__":
+    main()
