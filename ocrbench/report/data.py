@@ -36,12 +36,11 @@ import numpy as np
 import pandas as pd
 
 from ocrbench import __version__
-from ocrbench.accuracy.align import CLASSES
 from ocrbench.accuracy.normalise import get_profile
 from ocrbench.accuracy.score import score_pages
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, paired_comparison
 from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
-from ocrbench.errors import OcrbenchError, StoreError, TextFileError
+from ocrbench.errors import StoreError, TextFileError
 from ocrbench.report.plan import PlanRequest, PlanResults, compute_plan, plan_from_results
 from ocrbench.store import RunStore
 

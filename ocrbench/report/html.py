@@ -18,11 +18,11 @@ from __future__ import annotations
 
 import html
 import json
-from typing import Any, Mapping, Sequence
+from typing import Any, Mapping
 
 from ocrbench.report.alignview import LEGEND, align_columns, columns_html
 from ocrbench.report.data import resolve
-from ocrbench.report.display import NA, fmt
+from ocrbench.report.display import fmt
 
 __all__ = ["render_html", "figure", "CSS"]
 
