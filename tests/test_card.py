@@ -9,11 +9,11 @@ from pathlib import Path
 import pytest
 
 import _tiny_models as tm
+from _runner_support import DEMO_CTC, DEMO_SEQ, need_demo
 from ocrbench.errors import CardError
 from ocrbench.recognisers.card import load_card
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO = {"ctc": ROOT / "models" / "ledger-ctc", "seq": ROOT / "models" / "ledger-seq"}
+DEMO = {"ctc": DEMO_CTC, "seq": DEMO_SEQ}
 
 
 @pytest.fixture()
@@ -70,9 +70,7 @@ def test_loads_seq_card(seq_dir):
 
 @pytest.mark.parametrize("kind", ["ctc", "seq"])
 def test_demo_cards_load(kind):
-    if not (DEMO[kind] / "card.toml").exists():
-        pytest.skip(f"demo model {DEMO[kind].name} not built yet (python models/build.py export)")
-    card = load_card(DEMO[kind])
+    card = load_card(need_demo(DEMO[kind]))
     assert card.kind == kind and len(card.card_hash) == 64
 
 
