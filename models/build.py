@@ -125,25 +125,37 @@ def build_modules():
         return torch.cat([torch.sin(ang), torch.cos(ang)], dim=-1)
 
     class Encoder(nn.Module):
-        """Conv stack, one BiLSTM layer, sinusoidal positions; emits the cross-attention keys/values."""
+        """The CRNN's convolutions and two BiLSTM layers, then a projection to the
+        decoder width with sinusoidal positions; emits the cross-attention keys/values.
+        Its convolutions and LSTM are initialised from the trained CTC model
+        (CTC pre-training of the encoder), then trained jointly with the decoder."""
 
         def __init__(self):
             super().__init__()
-            self.conv, c = conv_stack((16, 32, 64, 96, 128, 160))
-            self.rnn = nn.LSTM(c, D_MODEL // 2, num_layers=1, bidirectional=True, batch_first=True)
+            self.conv, c = conv_stack()
+            self.rnn = nn.LSTM(c, 128, num_layers=2, bidirectional=True, batch_first=True)
+            self.proj = nn.Linear(256, D_MODEL)
             self.norm = nn.LayerNorm(D_MODEL)
             self.k = nn.ModuleList([nn.Linear(D_MODEL, D_MODEL) for _ in range(N_LAYERS)])
             self.v = nn.ModuleList([nn.Linear(D_MODEL, D_MODEL) for _ in range(N_LAYERS)])
 
-        def memory(self, image):
+        def features(self, image):
             f = self.conv(image).squeeze(2).transpose(1, 2)
             f, _ = self.rnn(f)
+            return f                                   # (B,T,256)
+
+        def memory_from(self, f):
             T = f.shape[1]
             pos = sinusoid(torch.arange(T, dtype=torch.float32), D_MODEL)
-            return self.norm(f + pos)
+            return self.norm(self.proj(f) + pos)
+
+        def memory(self, image):
+            return self.memory_from(self.features(image))
 
         def forward(self, image):
-            m = self.memory(image)
+            return self.kv(self.memory(image))
+
+        def kv(self, m):
             B, S, _ = m.shape
             ks = [self.k[l](m).view(B, S, N_HEADS, D_MODEL // N_HEADS).transpose(1, 2) for l in range(N_LAYERS)]
             vs = [self.v[l](m).view(B, S, N_HEADS, D_MODEL // N_HEADS).transpose(1, 2) for l in range(N_LAYERS)]
@@ -211,16 +223,25 @@ def build_modules():
             return self.out(self.ln(x)), torch.stack(ks), torch.stack(vs)
 
     class Seq2Seq(nn.Module):
+        """Encoder-decoder. During training an auxiliary CTC head on the encoder memory
+        (joint CTC-attention training) speeds up learning where to attend; the head is
+        not exported and plays no part in decoding."""
+
         def __init__(self, vocab: int):
             super().__init__()
             self.encoder = Encoder()
             self.decoder = Decoder(vocab)
+            self.ctc_head = nn.Linear(256, len(CTC_CLASSES))
 
-        def forward(self, image, mem_mask, tokens_in):
-            ck, cv = self.encoder(image)
+        def forward(self, image, mem_mask, tokens_in, with_ctc: bool = False):
+            f = self.encoder.features(image)
+            m = self.encoder.memory_from(f)
+            ck, cv = self.encoder.kv(m)
             B = image.shape[0]
             empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS)
             logits, _, _ = self.decoder.run(tokens_in, torch.zeros((), dtype=torch.int64), empty, empty, ck, cv, mem_mask)
+            if with_ctc:
+                return logits, self.ctc_head(f)
             return logits
 
     class StepWrapper(nn.Module):
@@ -293,12 +314,31 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     WORK.mkdir(parents=True, exist_ok=True)
     ckpt = WORK / f"{kind}.pt"
     model = CRNN(len(CTC_CLASSES)) if kind == "ctc" else Seq2Seq(len(SEQ_VOCAB))
-    opt = torch.optim.AdamW(model.parameters(), lr=lr, weight_decay=1e-4)
+    if kind == "seq" and not ckpt.exists() and (WORK / "ctc.pt").exists():
+        # CTC pre-training of the encoder: start from the trained CRNN's convolutions,
+        # LSTM and classifier (the latter as the auxiliary CTC head).
+        src = torch.load(WORK / "ctc.pt", weights_only=False)["model"]
+        mapped = {}
+        for k, v in src.items():
+            if k.startswith("conv.") or k.startswith("rnn."):
+                mapped["encoder." + k] = v
+            elif k.startswith("fc."):
+                mapped["ctc_head." + k[3:]] = v
+        missing, unexpected = model.load_state_dict(mapped, strict=False)
+        assert not unexpected, unexpected
+        print(f"seq: encoder initialised from the CTC model ({len(mapped)} tensors)", flush=True)
+    enc_params = [p for n, p in model.named_parameters() if n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head")]
+    other = [p for n, p in model.named_parameters() if not (n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head"))]
+    groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": enc_params, "lr_scale": 0.3}] if enc_params else [])
+    opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
     step, elapsed0 = 0, 0.0
     if ckpt.exists():
         st = torch.load(ckpt, weights_only=False)
-        model.load_state_dict(st["model"])
-        opt.load_state_dict(st["opt"])
+        missing, _ = model.load_state_dict(st["model"], strict=False)
+        if missing:  # a head added since the checkpoint: fresh optimiser moments
+            print(f"resumed with new parameters {missing}", flush=True)
+        else:
+            opt.load_state_dict(st["opt"])
         step, elapsed0 = st["step"], st["elapsed"]
         print(f"resumed {kind} at step {step}, {elapsed0 / 60:.1f} min", flush=True)
     budget = minutes * 60
@@ -318,7 +358,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         frac = min(1.0, elapsed / budget)
         cur_lr = lr * min(1.0, (step + 1) / warm) * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * frac)))
         for g in opt.param_groups:
-            g["lr"] = cur_lr
+            g["lr"] = cur_lr * g.get("lr_scale", 1.0)
         if not queue:
             # draw a pool of lines, sort by width, cut into batches: little padding
             rng = random.Random(seed * 1_000_003 + step)
@@ -349,8 +389,13 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
                 tin[i, : len(s) + 1] = [BOS] + s
                 tout[i, : len(s) + 1] = s + [EOS]
             mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1]))
-            logits = model(x, mm, torch.from_numpy(tin))
+            logits, aux = model(x, mm, torch.from_numpy(tin), with_ctc=True)
             loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).reshape(-1))
+            ctargets = encode_ctc(texts)
+            in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
+            tgt_len = torch.tensor([len(t) for t in ctargets])
+            flat = torch.tensor([c for t in ctargets for c in t], dtype=torch.long)
+            loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), flat, in_len, tgt_len)
         opt.zero_grad()
         loss.backward()
         nn.utils.clip_grad_norm_(model.parameters(), 5.0)

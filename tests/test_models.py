@@ -1,0 +1,217 @@
+"""Checks on the shipped demo recognisers (models/ledger-ctc, models/ledger-seq).
+
+External references used here:
+* ``onnx.checker`` and ``onnx.reference.ReferenceEvaluator`` — the ONNX project's
+  model validator and its reference implementation of the operator specification;
+* ``hashlib.sha256`` (FIPS 180-4) for the published file hashes;
+* Pillow's built-in font (``ImageFont.load_default``), a face never used in
+  training, for text the generator never made.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+MODELS = ROOT / "models"
+CTC = MODELS / "ledger-ctc"
+SEQ = MODELS / "ledger-seq"
+
+onnx = pytest.importorskip("onnx")
+ort = pytest.importorskip("onnxruntime")
+
+
+def _build_module():
+    sys.path.insert(0, str(MODELS))
+    try:
+        import build  # type: ignore
+    finally:
+        sys.path.pop(0)
+    return build
+
+
+def _collapse(s: str) -> str:
+    return " ".join(s.split())
+
+
+def _cer(refs, hyps) -> float:
+    from rapidfuzz.distance import Levenshtein
+    return sum(Levenshtein.distance(r, h) for r, h in zip(refs, hyps)) / max(1, sum(len(r) for r in refs))
+
+
+ONNX_FILES = [CTC / "model.onnx", SEQ / "encoder.onnx", SEQ / "decoder_step.onnx", SEQ / "decoder_full.onnx"]
+
+
+@pytest.mark.parametrize("path", ONNX_FILES, ids=lambda p: f"{p.parent.name}/{p.name}")
+def test_onnx_checker_passes_and_size_limit(path):
+    # onnx.checker: the ONNX project's structural validator.
+    onnx.checker.check_model(onnx.load(str(path)))
+    assert path.stat().st_size < 10 * 1024 * 1024  # issue budget: each file under 10 MB
+
+
+def test_models_folder_under_30_mb():
+    total = sum(p.stat().st_size for p in MODELS.rglob("*") if p.is_file() and "_work" not in p.parts)
+    assert total < 30 * 1024 * 1024
+
+
+def test_sha256_match_models_readme():
+    # Published hashes in models/README.md, lines of the form "`<sha256>`  <relative path>".
+    text = (MODELS / "README.md").read_text(encoding="utf-8")
+    listed = dict((m.group(2), m.group(1)) for m in re.finditer(r"`([0-9a-f]{64})`\s+`?([\w./-]+)`?", text))
+    for p in ONNX_FILES + [CTC / "alphabet.txt", SEQ / "vocab.txt"]:
+        rel = p.relative_to(MODELS).as_posix()
+        assert rel in listed, f"{rel} has no sha256 line in models/README.md"
+        assert hashlib.sha256(p.read_bytes()).hexdigest() == listed[rel], f"sha256 of {rel} differs from models/README.md"
+
+
+def _one_line_batch():
+    from ocrbench import synth
+    from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line
+    import random
+    img, text = synth.line_sample(random.Random(424242))
+    spec = InputSpec(height=32, width_multiple=4)
+    batch, widths = make_batch([resize_line(np.asarray(img), spec)], spec)
+    return batch, widths
+
+
+def test_ctc_onnxruntime_equals_reference_evaluator():
+    # onnx.reference.ReferenceEvaluator: reference implementation of the operator specification.
+    from onnx.reference import ReferenceEvaluator
+    batch, _ = _one_line_batch()
+    sess = ort.InferenceSession(str(CTC / "model.onnx"), providers=["CPUExecutionProvider"])
+    got = sess.run(None, {"image": batch})[0]
+    ref = ReferenceEvaluator(str(CTC / "model.onnx")).run(None, {"image": batch})[0]
+    np.testing.assert_allclose(got, ref, rtol=1e-3, atol=1e-3)
+
+
+def test_seq_graphs_onnxruntime_equal_reference_evaluator():
+    from onnx.reference import ReferenceEvaluator
+    batch, widths = _one_line_batch()
+    enc = ort.InferenceSession(str(SEQ / "encoder.onnx"), providers=["CPUExecutionProvider"])
+    ck, cv = enc.run(None, {"image": batch})
+    rk, rv = ReferenceEvaluator(str(SEQ / "encoder.onnx")).run(None, {"image": batch})
+    np.testing.assert_allclose(ck, rk, rtol=1e-3, atol=1e-3)
+    np.testing.assert_allclose(cv, rv, rtol=1e-3, atol=1e-3)
+    L, B, H, S, D = ck.shape
+    mask = np.zeros((B, S), np.float32)
+    rng = np.random.default_rng(0)
+    feeds = {"tokens": np.array([[5]], np.int64), "step": np.array(2, np.int64),
+             "past_k": rng.normal(size=(L, B, H, 2, D)).astype(np.float32),
+             "past_v": rng.normal(size=(L, B, H, 2, D)).astype(np.float32),
+             "cross_k": ck, "cross_v": cv, "memory_mask": mask}
+    step = ort.InferenceSession(str(SEQ / "decoder_step.onnx"), providers=["CPUExecutionProvider"])
+    got = step.run(None, feeds)
+    ref = ReferenceEvaluator(str(SEQ / "decoder_step.onnx")).run(None, feeds)
+    for g, r in zip(got, ref):
+        np.testing.assert_allclose(g, r, rtol=1e-3, atol=1e-3)
+    feeds_full = {"tokens": np.array([[1, 5, 9]], np.int64), "cross_k": ck, "cross_v": cv, "memory_mask": mask}
+    full = ort.InferenceSession(str(SEQ / "decoder_full.onnx"), providers=["CPUExecutionProvider"])
+    np.testing.assert_allclose(full.run(None, feeds_full)[0],
+                               ReferenceEvaluator(str(SEQ / "decoder_full.onnx")).run(None, feeds_full)[0],
+                               rtol=1e-3, atol=1e-3)
+
+
+@pytest.mark.parametrize("folder", [CTC, SEQ], ids=lambda p: p.name)
+def test_card_loads_and_alphabet_matches_output(folder):
+    from ocrbench.recognisers.card import load_card
+    card = load_card(folder)
+    assert card.name == folder.name  # the card's name equals its folder name
+    batch, _ = _one_line_batch()
+    if card.kind == "ctc":
+        out = ort.InferenceSession(str(folder / "model.onnx"), providers=["CPUExecutionProvider"]).run(None, {"image": batch})[0]
+        n = len((folder / "alphabet.txt").read_text(encoding="utf-8").splitlines())
+        assert out.shape[-1] == n
+    else:
+        from ocrbench.recognisers.card import load_card as _lc  # noqa: F401
+        ck, cv = ort.InferenceSession(str(folder / "encoder.onnx"), providers=["CPUExecutionProvider"]).run(None, {"image": batch})
+        L, B, H, S, D = ck.shape
+        lp = ort.InferenceSession(str(folder / "decoder_full.onnx"), providers=["CPUExecutionProvider"]).run(
+            None, {"tokens": np.array([[1]], np.int64), "cross_k": ck, "cross_v": cv,
+                   "memory_mask": np.zeros((B, S), np.float32)})[0]
+        n = len((folder / "vocab.txt").read_text(encoding="utf-8").splitlines())
+        assert lp.shape[-1] == n
+
+
+@pytest.fixture(scope="module")
+def heldout():
+    build = _build_module()
+    return build.heldout_lines(300)
+
+
+@pytest.mark.parametrize("folder,target", [(CTC, 0.01), (SEQ, 0.03)], ids=["ctc", "seq"])
+def test_heldout_line_cer_targets(folder, target, heldout):
+    """Accuracy (not timing): greedy decoding of 300 held-out lines (unseen seeds,
+    half in faces held out of training), whitespace runs collapsed."""
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.recognisers import open_recogniser, EngineOptions
+    rec = open_recogniser(load_card(folder), options=EngineOptions(batch_size=16))
+    crops = [c for c, _ in heldout]  # already at the card height; resizing is then the identity
+    results, _ = rec.recognise(crops)
+    refs = [_collapse(t) for _, t in heldout]
+    hyps = [_collapse(r.text) for r in results]
+    c = _cer(refs, hyps)
+    print(f"{folder.name}: held-out CER {c:.4f}")
+    assert c <= target
+
+
+SENTENCES = [
+    "The quick brown fox jumps over the lazy dog.",
+    "Received of the warden the sum of 14 pounds.",
+    "Invoice 3071 settled on 12 March, with thanks.",
+    "Pack my box with five dozen liquor jugs!",
+    "Total carried to the next page: 2,406.75",
+    "Sphinx of black quartz, judge my vow.",
+    "Minutes of the meeting held on 4 May 1921.",
+    "Stock in hand at the end of the quarter 88",
+]
+
+
+@pytest.mark.parametrize("folder", [CTC, SEQ], ids=lambda p: p.name)
+def test_text_from_another_renderer_under_10_percent(folder):
+    """Lines drawn with Pillow's built-in font (never used in training), text written
+    here by hand, not by the generator. Issue target: CER <= 10%."""
+    from PIL import Image, ImageDraw, ImageFont
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.recognisers import open_recogniser, EngineOptions
+    crops = []
+    for i, s in enumerate(SENTENCES):
+        fnt = ImageFont.load_default(size=22 + 2 * (i % 3))
+        l, t, r, b = fnt.getbbox(s)
+        img = Image.new("L", (r - l + 16, b - t + 10), 255)
+        ImageDraw.Draw(img).text((8 - l, 5 - t), s, font=fnt, fill=15)
+        crops.append(np.asarray(img))
+    rec = open_recogniser(load_card(folder), options=EngineOptions(batch_size=8))
+    results, _ = rec.recognise(crops)
+    c = _cer([_collapse(s) for s in SENTENCES], [_collapse(r.text) for r in results])
+    print(f"{folder.name}: other-renderer CER {c:.4f}", [r.text for r in results])
+    assert c <= 0.10
+
+
+def test_build_script_data_generator_runs_without_torch():
+    """The build script must import and generate data with torch absent."""
+    code = (
+        "import sys; sys.modules['torch'] = None\n"
+        f"sys.path.insert(0, {str(MODELS)!r})\n"
+        "import random, build\n"
+        "b, w, t = build.make_batch_lines(random.Random(1), 4)\n"
+        "assert b.shape[0] == 4 and b.shape[2] == 32 and len(t) == 4\n"
+        "print('ok', b.shape)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.startswith("ok")
+
+
+@pytest.mark.parametrize("folder", [CTC, SEQ], ids=lambda p: p.name)
+def test_build_figures_recorded(folder):
+    fig = json.loads((folder / "figures.json").read_text())
+    assert fig["parameters"] > 100_000
+    assert fig["heldout_lines"] >= 200
