@@ -166,6 +166,9 @@ def _recognise_chunk(refs: Sequence[PageRef], todo: Sequence[Sequence[int]], car
 
 # --------------------------------------------------------------------------- client side
 
+#: Entries of diagnostic history kept by the client and a LocalCluster's scheduler (see connect).
+HISTORY_ENTRIES = 100
+
 
 @dataclass
 class _Cluster:
@@ -179,34 +182,42 @@ class _Cluster:
 @contextmanager
 def connect(dask: DaskOptions) -> Iterator[_Cluster]:
     """A Dask client: on a LocalCluster started here (closed on exit), or on the cluster at ``dask.scheduler``."""
+    import dask.config as dask_config
     from distributed import Client, LocalCluster
 
+    # The client, and the scheduler of a LocalCluster, live in the writer's process. Their diagnostic
+    # histories (recent messages, which hold every submitted task; transitions; events) keep 1,000
+    # entries each by default: some 15 MB grown over the first ~1,500 pages before they level off.
+    # A short history keeps the writer flat from the first page.
+    keep = min(int(dask_config.get("distributed.admin.low-level-log-length") or 1000), HISTORY_ENTRIES)
     cluster = None
-    try:
-        if dask.scheduler is not None:
-            try:
-                client = Client(dask.scheduler, timeout=dask.connect_timeout)
-            except (OSError, TimeoutError) as e:
-                raise ClusterError(f"cannot reach the Dask scheduler at {dask.scheduler}: {e}") from e
-            try:
-                client.wait_for_workers(1, timeout=dask.connect_timeout)
-            except (OSError, TimeoutError) as e:
-                client.close()
-                raise ClusterError(f"the Dask scheduler at {dask.scheduler} has no workers "
-                                   f"(waited {dask.connect_timeout:.0f} s)") from e
-        else:
-            n = dask.workers or 1
-            try:   # the scheduler's HTTP server always starts: a free port on this machine only
-                cluster = LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker,
-                                       processes=dask.processes, dashboard_address="127.0.0.1:0",
-                                       silence_logs=logging.CRITICAL)
-            except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
-                raise ClusterError(f"cannot start a local Dask cluster of {n} workers: {type(e).__name__}: {e}") from e
-            client = Client(cluster)
-    except ClusterError:
-        if cluster is not None:
-            cluster.close()
-        raise
+    with dask_config.set({"distributed.admin.low-level-log-length": keep}):
+        try:
+            if dask.scheduler is not None:
+                try:
+                    client = Client(dask.scheduler, timeout=dask.connect_timeout)
+                except (OSError, TimeoutError) as e:
+                    raise ClusterError(f"cannot reach the Dask scheduler at {dask.scheduler}: {e}") from e
+                try:
+                    client.wait_for_workers(1, timeout=dask.connect_timeout)
+                except (OSError, TimeoutError) as e:
+                    client.close()
+                    raise ClusterError(f"the Dask scheduler at {dask.scheduler} has no workers "
+                                       f"(waited {dask.connect_timeout:.0f} s)") from e
+            else:
+                n = dask.workers or 1
+                try:   # the scheduler's HTTP server always starts: a free port on this machine only
+                    cluster = LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker,
+                                           processes=dask.processes, dashboard_address="127.0.0.1:0",
+                                           silence_logs=logging.CRITICAL)
+                except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
+                    raise ClusterError(f"cannot start a local Dask cluster of {n} workers: "
+                                       f"{type(e).__name__}: {e}") from e
+                client = Client(cluster)
+        except ClusterError:
+            if cluster is not None:
+                cluster.close()
+            raise
     try:
         nthreads = client.nthreads()
         import distributed
@@ -306,7 +317,7 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
 
     run_token = uuid.uuid4().hex[:12]
     work = _chunks(refs, states, per_task, skipped)
-    in_flight: dict[str, tuple[object, list[PageRef], list[list[int]]]] = {}
+    in_flight: dict[tuple[str, int], tuple[object, list[PageRef], list[list[int]]]] = {}
     counter = itertools.count()
     ac = as_completed()
 
@@ -315,7 +326,7 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
             chunk = next(work)
         except StopIteration:
             return
-        key = f"ocrbench-pages-{run_token}-{next(counter)}"
+        key = (f"ocrbench-pages-{run_token}", next(counter))   # one name: Dask caches per-name data
         fut = client.submit(_recognise_chunk, chunk[0], chunk[1], cards, options, postprocess, key=key, pure=False)
         in_flight[key] = (fut, *chunk)
         ac.add(fut)

@@ -109,16 +109,16 @@ def test_tasks_in_flight_stay_bounded(pages, cards, cluster, tmp_path):
 
     def count(ev):
         n = client.run_on_scheduler(
-            lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if str(k).startswith("ocrbench-pages")))
+            lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if "ocrbench-pages" in str(k)))
         seen.append(n)
 
     run_distributed(pages, cards, store=tmp_path / "w.sqlite", progress=count,
                     dask=DaskOptions(scheduler=c.scheduler_address, max_in_flight=2))
     assert len(seen) == N_PAGES + 1
     # Never more than the window of 2 tasks held by the scheduler (the written one is released first).
-    assert max(seen) <= 2
+    assert 1 <= max(seen) <= 2
     assert client.run_on_scheduler(
-        lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if str(k).startswith("ocrbench-pages"))) == 0
+        lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if "ocrbench-pages" in str(k))) == 0
 
 
 class Stop(Exception):
@@ -159,7 +159,7 @@ def test_a_run_resumes_whichever_engine_ran_it(pages, cards, serial, cluster, tm
     assert texts(db2) == serial["texts"]
     # Nothing of the stopped run is left on the cluster.
     assert client.run_on_scheduler(
-        lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if str(k).startswith("ocrbench-pages"))) == 0
+        lambda dask_scheduler: sum(1 for k in dask_scheduler.tasks if "ocrbench-pages" in str(k))) == 0
 
 
 @pytest.mark.slow
