@@ -196,6 +196,11 @@ def headline_lines(summary: dict) -> list[str]:
                    f"{iv(acc, 'digit_error_rate', 'digit_low', 'digit_high', 'pct')}")
         out.append(f"  pages/hour on this machine, one worker: "
                    f"{iv(r, 'pages_per_hour', 'pages_per_hour_low', 'pages_per_hour_high', 'int')}")
+        bal = r.get("balance") or {}
+        if bal.get("raw"):
+            b, bp = bal["raw"], bal.get("post")
+            out.append(f"  ledger arithmetic: {fmt(b['balanced'], 'int')} of {fmt(b['pages'], 'int')} pages balance "
+                       "as read" + (f", {fmt(bp['balanced'], 'int')} after post-processing" if bp else ""))
         if plan:
             out.append(f"  archive wall-clock P50 {fmt(plan.get('wall_seconds_p50'), 'dur')} "
                        f"(P10 {fmt(plan.get('wall_seconds_p10'), 'dur')} – P90 {fmt(plan.get('wall_seconds_p90'), 'dur')}); "
