@@ -196,6 +196,10 @@ def main(argv: list[str] | None = None) -> int:
     a = ap.parse_args(argv)
     res = run(a.pages, a.chars, a.repeats)
     print(json.dumps(res, indent=1) if a.json else report(res))
+    if not a.json:                    # one line per figure for tests/benchmarks/run_all.py
+        for shape in ("ledger", "one_line"):
+            print(f"RATIO score_pages_vs_bare_loop_{shape} {res[shape]['ratio_off_vs_pages']:.3f} <={res['target']:g}")
+            print(f"RATIO score_pages_classes_on_vs_bare_loop_{shape} {res[shape]['ratio_on_vs_pages']:.3f} info")
     return 0
 
 

@@ -53,6 +53,8 @@ def main(n_pages: int = 8, repeats: int = 3, clock=time.perf_counter) -> None:
     print(f"  ratio analyse/skimage {med['analyse'] / med['skimage']:.2f}")
     px = np.prod(shape)
     print(f"  analyse at 1100x1500 scaled: {med['analyse'] * 1100 * 1500 / px:.0f} ms")
+    print(f"RATIO page_analyse_vs_load {med['analyse'] / med['load']:.3f} info")      # for run_all.py
+    print(f"RATIO page_analyse_vs_skimage {med['analyse'] / med['skimage']:.3f} info")
 
 
 if __name__ == "__main__":

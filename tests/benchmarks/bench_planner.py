@@ -177,6 +177,9 @@ def main(argv=None) -> int:
     for w in full.attrs.get("warnings", []):
         print("warning:", w)
     print(f"(planning took {t_plan:.1f} s; work folder {work})")
+    for o in out:                     # one line per figure for tests/benchmarks/run_all.py
+        print(f"RATIO planner_p50_abs_error_{o['kind']} {abs(o['rel_error']):.3f} <={TARGET:g}")
+        print(f"RATIO planner_measured_inside_p10_p90_{o['kind']} {int(o['inside_p10_p90'])} >=1")
     return 0
 
 

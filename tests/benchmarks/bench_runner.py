@@ -371,7 +371,26 @@ def main(argv=None) -> dict:
         slope(cards, a.threads, a.repeats)
     if a.json_out:
         a.json_out.write_text(json.dumps(RESULTS, indent=1))
+    ratio_lines(RESULTS)
     return RESULTS
+
+
+def ratio_lines(res: dict) -> None:
+    """The figures as ``RATIO <name> <value> <target>`` lines, for tests/benchmarks/run_all.py."""
+    for k, target in (("ctc", ">=2"), ("seq", ">=1.5")):
+        if f"overhead_{k}" in res:
+            say(f"RATIO runner_vs_bare_session_run_model_time_{k} {res[f'overhead_{k}']['ratio_model']:.3f} <=1.05")
+        if f"vs_plain_{k}" in res:
+            v = res[f"vs_plain_{k}"]
+            say(f"RATIO pages_per_hour_vs_plain_script_{k} {v['ratio_same_threads']:.3f} {target}")
+            say(f"RATIO pages_per_hour_vs_plain_script_with_prefetch_{k} {v['ratio_prefetch']:.3f} info")
+    for key, name in (("ctc_batch", "ctc_lines_per_s_batch16_vs_batch1"), ("seq_cache", "seq_cached_vs_uncached"),
+                      ("seq_batch", "seq_batched_greedy_vs_per_line"), ("seq_drop_mask", "seq_drop_vs_mask")):
+        if key in res:
+            say(f"RATIO {name} {res[key]['ratio']:.3f} info")
+    if "slope" in res and res["slope"]["fit_ms_per_char"]["ctc"] > 0:
+        f = res["slope"]["fit_ms_per_char"]
+        say(f"RATIO seq_vs_ctc_ms_per_character_slope {f['seq'] / f['ctc']:.3f} info")
 
 
 def test_runner_benchmarks():

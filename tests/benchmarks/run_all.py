@@ -40,7 +40,7 @@ QUICK_ARGS = {
     "bench_runner": ["--pages", "2", "--repeats", "2"],
     "bench_accuracy": ["--pages", "300", "--repeats", "2"],
     "bench_planner": ["--calib-pages", "6", "--held-pages", "20"],
-    "bench_pages": ["4", "2"],
+    "bench_pages": ["4"],
 }
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
