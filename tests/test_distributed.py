@@ -192,3 +192,12 @@ def test_unreachable_scheduler_is_a_clear_error(pages, cards, tmp_path):
                         dask=DaskOptions(scheduler="tcp://127.0.0.1:9", connect_timeout=2))
     with RunStore(tmp_path / "u.sqlite") as st:
         assert st.run_ids() == []                       # nothing started
+
+
+def test_run_command_cluster_options_need_a_cluster(pages, cards, tmp_path):
+    base = ["run", str(pages), "-r", str(cards[0].path), "--store", str(tmp_path / "o.sqlite")]
+    for extra in (["--pages-per-task", "2"], ["--no-processes"], ["--threads-per-worker", "2"],
+                  ["--workers", "2", "--scheduler", "tcp://127.0.0.1:9"]):
+        res = CliRunner().invoke(app, base + extra)
+        assert res.exit_code == 2 and res.stderr.startswith("ocrbench: ") and len(res.stderr.splitlines()) == 1
+    assert not (tmp_path / "o.sqlite").exists()                  # refused before anything was opened

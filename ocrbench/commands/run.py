@@ -94,6 +94,11 @@ def run(
 
     if decoding not in DECODINGS:
         raise fail(f"--decoding must be one of {', '.join(DECODINGS)}, not {decoding!r}", EXIT_USAGE)
+    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1):
+        raise fail("--threads-per-worker, --no-processes and --pages-per-task need --workers or --scheduler",
+                   EXIT_USAGE)
+    if workers is not None and scheduler is not None:
+        raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
     err = Console(stderr=True)
     try:
         engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
