@@ -255,6 +255,8 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
     page runs and the page timings hold no model loading. Raises CardError / StoreError / InputError / ClusterError for
     problems that stop everything; a problem of one page is a failed page.
     ``postprocess`` must be picklable (a module-level function or object).
+    ``clock`` times the run and its progress events; the stage timings of each
+    page come from the monotonic clock of the worker that read it.
     """
     options = as_run_options(options)
     dask = dask or DaskOptions(workers=1)
