@@ -258,40 +258,72 @@ def test_full_disk_is_a_clear_error_and_the_store_survives(engine, cards, refere
     assert texts(db) == reference
 
 
-def make_read_only(paths: list[Path], undo: list) -> None:
-    """Make files and folders read-only for this process. Root ignores permission bits, so as root the
-    immutable attribute is set (chattr(1) +i: no one, root included, may write, create or delete)."""
-    for p in paths:
-        if os.geteuid() != 0:
+class ReadOnly:
+    """Makes files and folders read-only for the command under test, by the first way that works here:
+
+    * not root: permission bits (chmod);
+    * root: the immutable attribute (chattr(1) +i), which binds root too;
+    * root where chattr is refused (a container without CAP_LINUX_IMMUTABLE): permission bits, with
+      the command run as the unprivileged user nobody (uid 65534), for whom they apply.
+    """
+
+    def __init__(self, tmp: Path):
+        self.tmp, self.done, self.as_nobody = tmp, [], False
+        self.root = os.geteuid() == 0
+
+    def protect(self, paths: list[Path]) -> None:
+        for p in paths:
+            if self.root and not self.as_nobody:
+                r = subprocess.run(["chattr", "+i", str(p)], capture_output=True, text=True) \
+                    if shutil.which("chattr") else None
+                if r is not None and r.returncode == 0:
+                    self.done.append(("attr", p))
+                    continue
+                self.use_nobody()
             p.chmod(0o555 if p.is_dir() else 0o444)
-            undo.append(p)
-            continue
-        if shutil.which("chattr") is None:
-            pytest.skip("running as root without chattr: cannot make a path read-only for root")
-        r = subprocess.run(["chattr", "+i", str(p)], capture_output=True, text=True)
-        if r.returncode != 0:
-            pytest.skip(f"running as root and chattr +i is refused here: {r.stderr.strip()}")
-        undo.append(p)
+            self.done.append(("mode", p))
 
+    def use_nobody(self) -> None:
+        for q in [self.tmp, *self.tmp.parents]:          # nobody must reach the pages, card and store
+            if q == Path(q.anchor):
+                break
+            mode = q.stat().st_mode & 0o7777
+            if mode & 0o005 != 0o005:
+                self.done.insert(0, ("restore", q, mode))   # put back last
+                q.chmod(mode | 0o005)
+        try:
+            probe = subprocess.run([sys.executable, "-c", "import ocrbench"], capture_output=True, user=65534,
+                                   group=65534, extra_groups=[]).returncode
+        except OSError:
+            probe = -1
+        if probe != 0:
+            pytest.skip("running as root, chattr +i refused and nobody cannot run this Python: "
+                        "no way to make a path read-only for the command here")
+        self.as_nobody = True
 
-def lift_read_only(paths: list[Path]) -> None:
-    while paths:
-        p = paths.pop()
-        if os.geteuid() == 0:
-            subprocess.run(["chattr", "-i", str(p)], check=True)
-        else:
-            p.chmod(0o755 if p.is_dir() else 0o644)
+    def run_kwargs(self) -> dict:
+        return {"user": 65534, "group": 65534, "extra_groups": []} if self.as_nobody else {}
+
+    def lift(self) -> None:
+        while self.done:
+            how, p, *mode = self.done.pop()
+            if how == "attr":
+                subprocess.run(["chattr", "-i", str(p)], check=True)
+            elif how == "restore":
+                p.chmod(mode[0])
+            else:
+                p.chmod(0o755 if p.is_dir() else 0o644)
 
 
 @pytest.fixture()
-def undo_read_only():
-    undo: list[Path] = []
-    yield undo
-    lift_read_only(undo)
+def read_only(tmp_path):
+    ro = ReadOnly(tmp_path)
+    yield ro
+    ro.lift()
 
 
 @pytest.mark.parametrize("case", ["existing store", "no store yet"])
-def test_read_only_store_is_a_clear_error_and_untouched(case, tmp_path, undo_read_only):
+def test_read_only_store_is_a_clear_error_and_untouched(case, tmp_path, read_only):
     pages = small_pages(tmp_path / "pages", 3, seed=31)
     card = tm.write_ctc(tmp_path / "ctc")
     folder = tmp_path / "store"
@@ -302,15 +334,16 @@ def test_read_only_store_is_a_clear_error_and_untouched(case, tmp_path, undo_rea
         run_pages(pages, [card], store=db)
         (tmp_path / "later.png").rename(pages / "page_003.png")    # one more page to write
         before = sha256(db)
-        make_read_only([db], undo_read_only)
-    make_read_only([folder], undo_read_only)
-    res = subprocess.run(run_cmd(pages, [card], db), capture_output=True, text=True, timeout=120)
+        read_only.protect([db])
+    read_only.protect([folder])
+    res = subprocess.run(run_cmd(pages, [card], db), capture_output=True, text=True, timeout=120,
+                         **read_only.run_kwargs())
     assert res.returncode == 2, res.stderr
     msg = [ln for ln in res.stderr.splitlines() if ln.startswith("ocrbench:")]
     assert len(msg) == 1 and str(db) in msg[0] and "read-only" in msg[0], res.stderr
     if case == "existing store":
         assert sha256(db) == before and sorted(p.name for p in folder.iterdir()) == ["s.sqlite"]
-        lift_read_only(undo_read_only)              # (a WAL store needs its folder writable even to be read)
+        read_only.lift()                            # (a WAL store needs its folder writable even to be read)
         done = assert_whole_pages(db)
         assert done == {1: {"page_001.png", "page_002.png"}}
     else:
