@@ -17,7 +17,7 @@ name       what                                 example
 ``f1``     one decimal, thousands separated     ``1234.56`` → ``1,234.6``
 ``f2``     two decimals                         ``0.1234`` → ``0.12``
 ``f3``     three decimals                       ``0.01234`` → ``0.012``
-``ms``     seconds written as milliseconds      ``0.0123`` → ``12.3 ms``
+``ms``     seconds written as milliseconds      ``0.0123`` → ``12.30 ms``
 ``dur``    seconds as a duration                ``9000`` → ``2.5 h``
 ``money``  an amount of money, 2 decimals       ``1234.5`` → ``1,234.50``
 ``p``      a p-value, 4 decimals                ``0.0321`` → ``0.0321``
@@ -56,7 +56,7 @@ FORMATS: dict[str, Any] = {
     "f1": lambda v: f"{v:,.1f}",
     "f2": lambda v: f"{v:,.2f}",
     "f3": lambda v: f"{v:,.3f}",
-    "ms": lambda v: f"{1000 * v:,.1f} ms",
+    "ms": lambda v: f"{1000 * v:,.2f} ms",
     "dur": _duration,
     "money": lambda v: f"{v:,.2f}",
     "p": lambda v: f"{v:.4f}",
