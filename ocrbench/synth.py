@@ -639,7 +639,15 @@ def pad_like_segmenter(img: Image.Image, rng: random.Random) -> Image.Image:
 def line_sample(rng: random.Random, fonts: Sequence[str] = TRAIN_FONTS,
                 size_range: tuple[int, int] = (16, 34)) -> tuple[Image.Image, str]:
     """One training line: a grey crop such as the segmenter produces, and its text."""
-    fields, _kind = line_text(rng)
+    img, text, _kind = line_sample_with_kind(rng, fonts, size_range)
+    return img, text
+
+
+def line_sample_with_kind(rng: random.Random, fonts: Sequence[str] = TRAIN_FONTS,
+                          size_range: tuple[int, int] = (16, 34)) -> tuple[Image.Image, str, str]:
+    """As :func:`line_sample`, also returning the kind of content
+    ("ledger", "prose", "numbers" or "chars": random characters)."""
+    fields, kind = line_text(rng)
     fields = [f for f in fields if f]
     fnt = font(rng.choice(list(fonts)), rng.randint(*size_range))
     ink = rng.randint(0, 40) if rng.random() < 0.7 else rng.randint(60, 140)
@@ -648,7 +656,7 @@ def line_sample(rng: random.Random, fonts: Sequence[str] = TRAIN_FONTS,
     img = pad_like_segmenter(img, rng)
     img = degrade_line(img, rng)
     text = " ".join(" ".join(fields).split())
-    return img, text
+    return img, text, kind
 
 
 def line_samples(seed: int, n: int, fonts: Sequence[str] = TRAIN_FONTS) -> Iterator[tuple[Image.Image, str]]:

@@ -143,7 +143,7 @@ def test_card_loads_and_alphabet_matches_output(folder):
 @pytest.fixture(scope="module")
 def heldout():
     build = _build_module()
-    return build.heldout_lines(300)
+    return build.heldout_lines(300, kinds=build.TEXT_KINDS)
 
 
 @pytest.mark.parametrize("folder,target", [(CTC, 0.01), (SEQ, 0.03)], ids=["ctc", "seq"])
