@@ -394,7 +394,18 @@ class StageFit:
 
 @dataclass
 class WidthFit:
-    """Resized line width against characters: ``width_px = intercept + px_per_char * n_chars``."""
+    """Resized line width and characters per line, each predicted from the other.
+
+    ``width_px = intercept + px_per_char * n_chars`` (widths of lines whose
+    characters are given, for an archive described by numbers), and the
+    regression the other way, ``n_chars = chars_intercept + chars_per_px *
+    width_px`` (characters of lines whose widths are measured, for a segmented
+    sample). Each direction has its own least-squares fit and residuals: the
+    inverse of a weak width-on-characters line would spread characters
+    wildly, whereas the regression of characters on width falls back towards
+    the calibration's own characters per line when width says little (as in
+    ledgers, whose fields span the page whatever their length).
+    """
 
     intercept: float
     px_per_char: float
@@ -403,6 +414,9 @@ class WidthFit:
     n: int
     chars_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))
     widths_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    chars_intercept: float = 0.0
+    chars_per_px: float = 0.0
+    chars_resid: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
     def resampled(self, rng: np.random.Generator) -> "WidthFit":
         """A bootstrap refit on the calibration lines drawn with replacement."""
@@ -421,25 +435,28 @@ class WidthFit:
         return w
 
     def chars(self, widths: np.ndarray, rng: np.random.Generator | None = None) -> np.ndarray:
-        w = np.asarray(widths, dtype=float)
-        if rng is not None and len(self.resid):
-            w = w - rng.choice(self.resid, size=w.shape)
-        return np.maximum(1, np.round((w - self.intercept) / self.px_per_char)).astype(np.int64)
+        c = self.chars_intercept + self.chars_per_px * np.asarray(widths, dtype=float)
+        if rng is not None and len(self.chars_resid):
+            c = c + rng.choice(self.chars_resid, size=c.shape)
+        return np.maximum(1, np.round(c)).astype(np.int64)
 
 
 def fit_width(n_chars: np.ndarray, width_px: np.ndarray) -> WidthFit:
-    """Fit :class:`WidthFit` by least squares (intercept and slope kept non-negative by NNLS)."""
+    """Fit :class:`WidthFit`: width on characters by NNLS (both terms non-negative), characters on width by OLS."""
     c = np.asarray(n_chars, dtype=float)
     w = np.asarray(width_px, dtype=float)
     ok = np.isfinite(c) & np.isfinite(w) & (c > 0)
     c, w = c[ok], w[ok]
-    if len(c) < 3 or np.ptp(c) == 0:
+    if len(c) < 3 or np.ptp(c) == 0 or np.ptp(w) == 0:
         raise PlanError("the calibration lines do not vary in length: cannot relate width to characters")
     coef, _ = nnls(np.column_stack([np.ones_like(c), c]), w)
     if coef[1] <= 0:
         raise PlanError("line width does not grow with characters in the calibration lines")
     resid = w - (coef[0] + coef[1] * c)
-    return WidthFit(float(coef[0]), float(coef[1]), resid, _r2(w, resid), int(len(c)), c, w)
+    back = np.linalg.lstsq(np.column_stack([np.ones_like(w), w]), c, rcond=None)[0]
+    c_resid = c - (back[0] + back[1] * w)
+    return WidthFit(float(coef[0]), float(coef[1]), resid, _r2(w, resid), int(len(c)), c, w,
+                    float(back[0]), float(back[1]), c_resid)
 
 
 def _r2(y: np.ndarray, resid: np.ndarray) -> float:
@@ -1086,6 +1103,13 @@ def _extrapolation(model: CostModel, pools: Sequence[PagePool], archive: Archive
     ]
     if model.kind == "seq":
         checks.append(("decoder steps per line", np.array([p.max_steps for p in pools])))
+    measured_both = archive.sample_pages is not None and "n_chars" in archive.sample_lines \
+        and "width_px" in archive.sample_lines
+    if model.width is not None and model.width.r2 < 0.5 and not measured_both:
+        what = ("line widths follow mostly the calibration lines' own" if archive.sample_pages is None
+                else "characters per line follow mostly the calibration lines' own")
+        msgs.append(f"{model.recogniser}: line width and characters per line are weakly related in the calibration "
+                    f"(R^2 {max(model.width.r2, 0):.2f}); in this plan {what}")
     for name, vals in checks:
         if not len(vals):
             continue

@@ -37,14 +37,14 @@ sys.path.insert(0, str(ROOT))
 TARGET = 0.10
 
 
-def prerequisites(models: Path) -> list[str]:
+def prerequisites(models: Path, names) -> list[str]:
     missing = []
     for mod in ("ocrbench.runner", "ocrbench.store", "ocrbench.pages", "ocrbench.recognisers.card"):
         try:
             __import__(mod)
         except ImportError as e:
             missing.append(f"module {mod} ({e})")
-    for name in ("ledger-ctc", "ledger-seq"):
+    for name in names:
         if not (models / name / "card.toml").is_file():
             missing.append(f"demo model {models / name} (build it: python models/build.py export)")
     return missing
@@ -86,9 +86,11 @@ def main(argv=None) -> int:
     ap.add_argument("--threads", type=int, default=1)
     ap.add_argument("--draws", type=int, default=2000)
     ap.add_argument("--json", action="store_true", help="print the figures as JSON")
+    ap.add_argument("--recognisers", nargs="+", default=["ledger-ctc", "ledger-seq"],
+                    help="model folders under --models to validate (default: both demo recognisers)")
     a = ap.parse_args(argv)
 
-    missing = prerequisites(a.models)
+    missing = prerequisites(a.models, a.recognisers)
     if missing:
         print("bench_planner: cannot run yet; missing:\n  - " + "\n  - ".join(missing), file=sys.stderr)
         return 2
@@ -105,7 +107,7 @@ def main(argv=None) -> int:
         shutil.rmtree(work)
     work.mkdir(parents=True, exist_ok=True)
     log = lambda m: print(m, file=sys.stderr, flush=True)  # noqa: E731
-    cards = [load_card(a.models / "ledger-ctc"), load_card(a.models / "ledger-seq")]
+    cards = [load_card(a.models / n) for n in a.recognisers]
     opts = RunOptions(engine=EngineOptions(intra_threads=a.threads))
 
     log(f"generating {a.calib_pages} calibration and {a.held_pages} held-out pages in {work}")
