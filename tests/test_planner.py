@@ -459,6 +459,24 @@ def test_pages_overlapped_by_loading_ahead():
     assert plan.iloc[0]["wall_seconds_p50"] - STARTUP == pytest.approx(measured, rel=0.03)
 
 
+def test_characters_from_width_regress_to_the_calibration_mean():
+    """Ledger lines span the page: width says little about characters. Estimates must not spread wildly."""
+    rng = np.random.default_rng(4)
+    c = rng.integers(15, 56, size=300).astype(float)
+    w = 1000 + 0.5 * c + rng.normal(0, 120, size=300)          # almost unrelated, as in ledgers
+    fit = P.fit_width(c, w)
+    est = fit.chars(w, np.random.default_rng(5))
+    # least squares of characters on width (numpy.polyfit as the reference) and the calibration's spread
+    slope, icpt = np.polyfit(w, c, 1)
+    assert fit.chars_per_px == pytest.approx(slope) and fit.chars_intercept == pytest.approx(icpt)
+    assert abs(est.mean() - c.mean()) < 2.0 and est.std() < 1.5 * c.std()
+    # a strong relation (about 9 px per character) is followed closely
+    w2 = 6 + 9 * c + rng.normal(0, 5, size=300)
+    fit2 = P.fit_width(c, w2)
+    assert fit2.px_per_char == pytest.approx(9.0, rel=0.02) and fit2.r2 > 0.99
+    assert np.abs(fit2.chars(w2) - c).mean() < 1.0
+
+
 def test_bad_inputs_raise_plan_errors():
     frames = calibrate(noise=0.0, n=1, kinds=("ctc",))
     with pytest.raises(PlanError, match="at least 2 pages"):
