@@ -449,9 +449,7 @@ def fit_width(n_chars: np.ndarray, width_px: np.ndarray) -> WidthFit:
     c, w = c[ok], w[ok]
     if len(c) < 3 or np.ptp(c) == 0 or np.ptp(w) == 0:
         raise PlanError("the calibration lines do not vary in length: cannot relate width to characters")
-    coef, _ = nnls(np.column_stack([np.ones_like(c), c]), w)
-    if coef[1] <= 0:
-        raise PlanError("line width does not grow with characters in the calibration lines")
+    coef, _ = nnls(np.column_stack([np.ones_like(c), c]), w)   # slope 0 allowed: width may not follow length
     resid = w - (coef[0] + coef[1] * c)
     back = np.linalg.lstsq(np.column_stack([np.ones_like(w), w]), c, rcond=None)[0]
     c_resid = c - (back[0] + back[1] * w)
