@@ -12,7 +12,7 @@ and whether it was met. Nothing here fails on a missed target: speed targets are
 measured and reported, not asserted (tests/benchmarks is not part of the default test
 run). The exit status is 1 only when a benchmark crashed or printed no ratio.
 
-Run:  .venv/bin/python tests/benchmarks/run_all.py [--quick] [--only NAME ...] [--timeout S]
+Run:  .venv/bin/python tests/benchmarks/run_all.py [--quick] [--only NAME ...] [--timeout S] [--models DIR]
 
 ``--quick`` passes each benchmark the smaller sizes listed in QUICK_ARGS below (for a
 smoke run; the ratios of a full run are the ones to record).
@@ -42,6 +42,9 @@ QUICK_ARGS = {
     "bench_planner": ["--calib-pages", "6", "--held-pages", "20"],
     "bench_pages": ["4"],
 }
+
+#: Benchmarks that take ``--models DIR`` (a folder with ledger-ctc/ and ledger-seq/).
+TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner"}
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
 TARGET_RE = re.compile(r"^(>=|<=|>|<)\s*([0-9.]+)\s*x?$")
@@ -124,6 +127,8 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="smaller sizes (smoke run)")
     ap.add_argument("--only", nargs="+", default=None, help="run only these benchmarks (e.g. bench_memory)")
     ap.add_argument("--timeout", type=float, default=None, help="seconds allowed per benchmark")
+    ap.add_argument("--models", type=Path, default=None,
+                    help="demo models folder for the benchmarks that run recognisers (default: their own, models/)")
     a = ap.parse_args(argv)
     benches = sorted(HERE.glob("bench_*.py"))
     if a.only:
@@ -134,6 +139,8 @@ def main(argv=None) -> int:
     t_all = time.perf_counter()
     for b in benches:
         args = QUICK_ARGS.get(b.stem, []) if a.quick else []
+        if a.models is not None and b.stem in TAKES_MODELS:
+            args = [*args, "--models", str(a.models.resolve())]
         print(f"== {b.name} {' '.join(args)}", flush=True)
         rc, text, secs = run_one(b, args, a.timeout)
         found = parse_ratios(b.stem, text)
