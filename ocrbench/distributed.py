@@ -7,8 +7,9 @@ What differs is only where pages are read and how many at a time:
 
 * Workers (processes of a :class:`distributed.LocalCluster` on this machine, or
   an existing cluster reached at ``tcp://HOST:PORT``) read pages. Each worker
-  process opens each recogniser once, on its first page, and keeps it in a
-  module-level cache keyed by the card hash and the engine options.
+  process opens each recogniser once (before the first page is submitted, or
+  on its first page when it joins later) and keeps it in a module-level cache
+  keyed by the card hash and the engine options.
 * The client process is the single writer: it records each page in the SQLite
   store, in one transaction, as soon as its task completes. SQLite has one
   writer at a time anyway, and a single writer keeps "one transaction per
