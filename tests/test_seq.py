@@ -185,6 +185,20 @@ def test_demo_cached_uncached_and_beam_one(tmp_path):
 
 
 @pytest.mark.slow
+def test_demo_batched_equals_one_line_at_a_time(tmp_path):
+    # A line must read the same whatever lines share its batch: with each line encoded alone the padding of
+    # wider neighbours cannot reach its memory (masked frames get zero attention weight).
+    card = load_card(need_demo(DEMO_SEQ))
+    from ocrbench.pages import analyse_page, list_pages, load_page
+
+    ref = list_pages(demo_pages(tmp_path, n=1))[0]
+    crops = [lb.crop for lb in analyse_page(load_page(ref).gray).lines]
+    one = [r.text for r in recognise(card, crops, batch_size=1)]
+    assert [r.text for r in recognise(card, crops, batch_size=16)] == one
+    assert len(one) > 10
+
+
+@pytest.mark.slow
 def test_reference_evaluator_agrees_with_onnxruntime_demo():
     # onnx.reference.ReferenceEvaluator: the reference implementation of the ONNX operator specification.
     card = load_card(need_demo(DEMO_SEQ))

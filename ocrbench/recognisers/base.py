@@ -31,8 +31,10 @@ class EngineOptions:
 
     ``batch_mode`` (seq greedy only): ``"drop"`` removes a line from the decoder
     batch as soon as it emits its end token; ``"mask"`` keeps it in and ignores
-    its outputs. ``ctc_prune``: in CTC beam search, classes whose posterior is
-    below this are not tried at a frame (0 tries every class).
+    its outputs. ``encoder_per_line`` (seq): encode each line alone so its memory
+    does not depend on the padding of its batch (see ``SeqRecogniser.encode``).
+    ``ctc_prune``: in CTC beam search, classes whose posterior is below this are
+    not tried at a frame (0 tries every class).
     """
 
     intra_threads: int = 1
@@ -45,6 +47,7 @@ class EngineOptions:
     use_cache: bool = True
     max_tokens: int | None = None
     batch_mode: str = "drop"
+    encoder_per_line: bool = True
     max_pad_ratio: float = 1.3
     ctc_prune: float = 1e-3
 

@@ -94,21 +94,45 @@ class SeqRecogniser(Recogniser):
     # ------------------------------------------------------------------ pieces
 
     def encode(self, tensor: np.ndarray, widths: np.ndarray) -> tuple[list[np.ndarray], np.ndarray | None]:
-        """Run the encoder; return the memory tensors and the (B, frames) memory mask."""
-        e = self.s.encoder
-        memory = self.encoder.run(list(e.outputs), {e.input: tensor})
-        return memory, self._mask(memory, widths, tensor.shape[-1])
+        """Run the encoder; return the memory tensors and the (B, frames) memory mask.
 
-    def _mask(self, memory, widths, padded_width) -> np.ndarray | None:
+        With ``encoder_per_line`` (the default) each line is encoded alone at its own padded width, exactly
+        as a batch of one, and the memories are stacked with masked zero frames: a bidirectional encoder's
+        output then does not depend on which wider lines share the batch, so a line reads the same whatever
+        page or batch it comes in. Otherwise the padded batch is encoded at once.
+        """
+        e = self.s.encoder
+        fa, ba = e.frames_axis, e.batch_axis
+        if not self.options.encoder_per_line or tensor.shape[0] == 1:
+            memory = self.encoder.run(list(e.outputs), {e.input: tensor})
+            S = memory[0].shape[fa]
+            return memory, self._mask(valid_frames(widths, tensor.shape[-1], S, self.s.frames_per_pixel), S)
+        m = self.spec.width_multiple
+        parts, valid = [], []
+        for i, w in enumerate(widths):
+            W_i = -(-int(w) // m) * m
+            out = self.encoder.run(list(e.outputs), {e.input: np.ascontiguousarray(tensor[i:i + 1, :, :, :W_i])})
+            parts.append(out)
+            valid.append(int(valid_frames([w], W_i, out[0].shape[fa], self.s.frames_per_pixel)[0]))
+        S = max(p[0].shape[fa] for p in parts)
+        memory = []
+        for j in range(len(e.outputs)):
+            pieces = []
+            for p in parts:
+                pad = [(0, 0)] * p[j].ndim
+                pad[fa] = (0, S - p[j].shape[fa])
+                pieces.append(np.pad(p[j], pad) if pad[fa][1] else p[j])
+            memory.append(np.concatenate(pieces, axis=ba))
+        return memory, self._mask(np.asarray(valid), S)
+
+    def _mask(self, valid: np.ndarray, S: int) -> np.ndarray | None:
+        """The (B, S) memory mask in the card's values: real frames ``< valid``, the rest padding."""
         if self.mask_dtype is None:
             return None
-        S = memory[0].shape[self.s.encoder.frames_axis]
-        valid = valid_frames(widths, padded_width, S, self.s.frames_per_pixel)
-        real = np.arange(S)[None, :] < valid[:, None]
-        m = np.where(real, self.s.mask_valid, self.s.mask_padded)
+        real = np.arange(S)[None, :] < np.asarray(valid)[:, None]
         if self.mask_dtype == np.bool_:
             return real if self.s.mask_valid else ~real
-        return m.astype(self.mask_dtype)
+        return np.where(real, self.s.mask_valid, self.s.mask_padded).astype(self.mask_dtype)
 
     def _init_cache(self, rows: int) -> list[np.ndarray]:
         ds = self.s.decoder_step
