@@ -732,6 +732,56 @@ def write_cards():
         (OUT / SEQ_NAME / "card.toml").write_text(SEQ_CARD.format(name=SEQ_NAME))
 
 
+README_START = "<!-- build-figures:start (written by models/build.py readme) -->"
+README_END = "<!-- build-figures:end -->"
+
+
+def write_readme_block():
+    """Rewrite the measured figures and sha256 block of models/README.md."""
+    lines = [README_START, "", "### Measured at build time", ""]
+    lines.append("| figure | " + " | ".join(n for n in (CTC_NAME, SEQ_NAME)) + " |")
+    lines.append("|---|---|---|")
+    figs = {n: json.loads((OUT / n / "figures.json").read_text()) for n in (CTC_NAME, SEQ_NAME)
+            if (OUT / n / "figures.json").exists()}
+
+    def row(label, fn):
+        cells = []
+        for n in (CTC_NAME, SEQ_NAME):
+            try:
+                cells.append(fn(figs[n]))
+            except (KeyError, TypeError):
+                cells.append("–")
+        lines.append(f"| {label} | " + " | ".join(cells) + " |")
+
+    row("parameters", lambda f: f"{f['parameters']:,}")
+    row("ONNX bytes (all graphs)", lambda f: f"{f['onnx_bytes']:,}")
+    row("held-out text lines: CER, greedy, whitespace collapsed",
+        lambda f: f"{100 * f['heldout_cer_ws_collapsed']:.2f}% ({f['heldout_lines']} lines)")
+    row("same, raw (no whitespace collapsing)", lambda f: f"{100 * f['heldout_cer_raw']:.2f}%")
+    row("held-out lines incl. random-character strings", lambda f: f"{100 * f['heldout_cer_ws_collapsed_with_random_chars']:.2f}%")
+    row("onnxruntime vs torch, max abs diff",
+        lambda f: (f"{f['parity_max_abs_diff']:.1e}" if not isinstance(f['parity_max_abs_diff'], dict)
+                   else ", ".join(f"{k} {v:.1e}" for k, v in f['parity_max_abs_diff'].items())))
+    row("training steps (32 lines each)", lambda f: f"{f['train_steps']:,}")
+    row("training wall-clock minutes (2 shared cores)", lambda f: f"{f['train_minutes']:.0f}")
+    lines += ["", "### sha256 of the shipped files", ""]
+    for n in (CTC_NAME, SEQ_NAME):
+        for p in sorted((OUT / n).glob("*")):
+            if p.suffix in (".onnx", ".txt"):
+                lines.append(f"- `{sha256(p)}`  `{n}/{p.name}`")
+    lines += ["", README_END]
+    readme = OUT / "README.md"
+    text = readme.read_text(encoding="utf-8")
+    block = "\n".join(lines)
+    if README_START in text:
+        a = text.index(README_START)
+        b = text.index(README_END) + len(README_END)
+        text = text[:a] + block + text[b:]
+    else:
+        text = text.rstrip("\n") + "\n\n" + block + "\n"
+    readme.write_text(text, encoding="utf-8")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = ap.add_subparsers(dest="cmd", required=True)
@@ -745,12 +795,16 @@ def main(argv=None):
     e = sub.add_parser("export")
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
+    sub.add_parser("readme", help="rewrite the figures and sha256 block of models/README.md")
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (1.5e-3 if a.kind == "ctc" else 7e-4)
         train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr)
+    elif a.cmd == "readme":
+        write_readme_block()
     else:
         export(a.opset, a.only)
+        write_readme_block()
 
 
 if __name__ == "__main__":
