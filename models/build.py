@@ -688,6 +688,7 @@ invert = true
 scale = 0.00392156862745098
 mean = 0.0
 std = 1.0
+split_gap = 1.0         # lines are cut at blank gaps wider than one line height (table columns)
 
 [seq]
 vocab = "vocab.txt"

@@ -16,7 +16,7 @@ import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
 from ocrbench.recognisers.card import Card
-from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line, width_batches
+from ocrbench.recognisers.preprocess import split_at_gaps, InputSpec, make_batch, resize_line, width_batches
 
 Clock = Callable[[], float]
 
@@ -219,7 +219,49 @@ class Recogniser:
 
     def recognise(self, crops: Sequence[np.ndarray], *,
                   clock: Clock = time.perf_counter) -> tuple[list[LineResult], list[BatchTiming]]:
-        """Recognise line crops (uint8 grey, ink dark). Results come back in the crops' order."""
+        """Recognise line crops (uint8 grey, ink dark). Results come back in the crops' order.
+
+        With the card's ``split_gap`` set, each line is cut at wide blank gaps, the
+        pieces are recognised as lines of their own and joined with one space.
+        """
+        if self.spec.split_gap > 0:
+            return self._recognise_split(crops, clock=clock)
+        return self._recognise_whole(crops, clock=clock)
+
+    def _recognise_split(self, crops, *, clock):
+        pieces, owner = [], []
+        for i, c in enumerate(crops):
+            g = np.asarray(c)
+            for a, b in split_at_gaps(g, self.spec.split_gap) if g.ndim == 2 and g.size else [(0, g.shape[-1] if g.ndim else 0)]:
+                pieces.append(g[:, a:b] if g.ndim == 2 else g)
+                owner.append(i)
+        part_results, timings = self._recognise_whole(pieces, clock=clock)
+        merged: list[LineResult | None] = [None] * len(crops)
+        groups: dict[int, list[LineResult]] = {}
+        for i, r in zip(owner, part_results):
+            groups.setdefault(i, []).append(r)
+        for i, rs in groups.items():
+            if len(rs) == 1:
+                merged[i] = rs[0]
+                continue
+            kept = [r for r in rs if r.text.strip()] or rs[:1]
+            text = " ".join(r.text.strip() for r in kept)
+            chars: list[float] = []
+            for k, r in enumerate(kept):
+                if k:
+                    chars.append(1.0)
+                chars.extend(r.char_confidences[: len(r.text)])
+            steps = sum(r.steps for r in rs)
+            # geometric mean over every decision of every piece
+            logc = sum(r.steps * float(np.log(max(r.confidence, 1e-12))) for r in rs)
+            merged[i] = LineResult(text=text, confidence=float(np.exp(logc / max(1, steps))),
+                                   char_confidences=chars, steps=steps,
+                                   width_px=sum(r.width_px for r in rs), batch_no=rs[0].batch_no,
+                                   tokens=sum(r.tokens for r in rs), truncated=any(r.truncated for r in rs),
+                                   t_line=sum(r.t_line for r in rs))
+        return merged, timings  # type: ignore[return-value]
+
+    def _recognise_whole(self, crops, *, clock):
         results: list[LineResult | None] = [None] * len(crops)
         timings = []
         for pb in self.prepare(crops, clock=clock):

@@ -399,6 +399,7 @@ def load_card(path: Path | str) -> Card:
             scale=itab.get("scale", float, d.scale, check=lambda v: None if math.isfinite(v) and v != 0 else "must be a non-zero number"),
             mean=itab.get("mean", float, d.mean),
             std=itab.get("std", float, d.std, check=lambda v: None if v > 0 else "must be greater than 0"),
+            split_gap=itab.get("split_gap", float, d.split_gap, check=lambda v: None if v >= 0 else "must be 0 (off) or more"),
         )
         if spec.min_width > spec.max_width:
             raise itab.err("min_width", f"{spec.min_width} is larger than max_width {spec.max_width}")
