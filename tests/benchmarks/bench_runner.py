@@ -142,6 +142,17 @@ class PlainScript:
             self.dec = mk(card.seq.decoder_full.model)
 
     def line(self, crop: np.ndarray) -> str:
+        """One line; with the card's split_gap, each piece between wide gaps alone, joined with a space."""
+        if self.card.input.split_gap > 0:
+            from ocrbench.recognisers.preprocess import split_at_gaps
+
+            spans = split_at_gaps(crop, self.card.input.split_gap)
+            if len(spans) > 1:
+                texts = [self.piece(crop[:, a:b]) for a, b in spans]
+                return " ".join(t.strip() for t in texts if t.strip()) or texts[0].strip()
+        return self.piece(crop)
+
+    def piece(self, crop: np.ndarray) -> str:
         spec = self.card.input
         x, w = plain_tensor(crop, spec)
         if self.card.kind == "ctc":
@@ -343,6 +354,9 @@ def slope(cards: dict, threads: int, repeats: int, counts=(10, 20, 40, 60, 80), 
         fit[kind] = (k, b)
         say(f"  {kind:4s} fit: {k:.3f} ms per character + {b:.2f} ms per line")
     say(f"  the autoregressive slope is {fit['seq'][0] / fit['ctc'][0]:.1f}x the CTC slope per character")
+    c2, c1, c0 = np.polyfit(x, np.array([r[2] for r in rows]), 2)
+    say(f"  seq quadratic fit: {c2 * 1000:.2f} us/char^2 + {c1:.3f} ms/char + {c0:.2f} ms (each step attends to "
+        f"every earlier position, so the cost per character grows along the line)")
     RESULTS["slope"] = {"rows": rows, "fit_ms_per_char": {k: v[0] for k, v in fit.items()},
                         "fit_ms_per_line": {k: v[1] for k, v in fit.items()}}
 
@@ -370,7 +384,7 @@ def main(argv=None) -> dict:
         say(f"{len(crops)} lines on {a.pages} pages")
         say("\n1. runner overhead on the same batches")
         for k in ("ctc", "seq"):
-            overhead(cards[k], crops, a.threads, a.repeats)
+            overhead(cards[k], crops, a.threads, a.repeats + 2)
         say("\n2. ocrbench vs the plain script (each page, each line, batch 1, greedy, seq uncached)")
         for k in ("ctc", "seq"):
             vs_plain_script(cards[k], pages, a.threads, max(1, a.repeats - 1), tmp)
