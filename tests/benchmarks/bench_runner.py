@@ -356,7 +356,7 @@ def slope(cards: dict, threads: int, repeats: int, counts=(10, 20, 40, 60, 80), 
     say(f"  the autoregressive slope is {fit['seq'][0] / fit['ctc'][0]:.1f}x the CTC slope per character")
     c2, c1, c0 = np.polyfit(x, np.array([r[2] for r in rows]), 2)
     say(f"  seq quadratic fit: {c2 * 1000:.2f} us/char^2 + {c1:.3f} ms/char + {c0:.2f} ms (each step attends to "
-        f"every earlier position, so the cost per character grows along the line)")
+        f"every memory frame and every earlier position, and both grow with the line)")
     RESULTS["slope"] = {"rows": rows, "fit_ms_per_char": {k: v[0] for k, v in fit.items()},
                         "fit_ms_per_line": {k: v[1] for k, v in fit.items()}}
 
