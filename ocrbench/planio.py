@@ -141,17 +141,17 @@ def load_scaling(path: Path | str) -> pd.DataFrame:
         raise StoreError(f"{path}: reading the scaling table: {e}") from e
 
 
-def _card_geometry(card_path: str | None) -> tuple[int | None, int | None]:
-    """(line height, width multiple) from the run's card when it is still readable."""
+def _card_geometry(card_path: str | None) -> tuple[int | None, int | None, float]:
+    """(line height, width multiple, split gap) from the run's card when it is still readable."""
     if not card_path:
-        return None, None
+        return None, None, 0.0
     try:
         from ocrbench.recognisers.card import load_card
 
         spec = load_card(card_path).input
-        return int(spec.height), int(spec.width_multiple)
+        return int(spec.height), int(spec.width_multiple), float(getattr(spec, "split_gap", 0.0) or 0.0)
     except (OcrbenchError, OSError, ValueError, AttributeError):
-        return None, None
+        return None, None, 0.0
 
 
 @dataclass
@@ -185,7 +185,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
     models, scaling = [], {}
     for n in names:
         last = runs[runs["recogniser"] == n].iloc[-1]
-        height, multiple = _card_geometry(last.get("card_path"))
+        height, multiple, split_gap = _card_geometry(last.get("card_path"))
         mine = scaling_rows[scaling_rows["recogniser"] == n] if len(scaling_rows) else scaling_rows
         session = None
         if len(mine):
@@ -198,7 +198,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
             scaling[n] = P.ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
             m = P.fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,
-                                 session=session, n_boot=n_boot, seed=seed)
+                                 split_gap=split_gap, session=session, n_boot=n_boot, seed=seed)
         except PlanError as e:
             raise PlanError(f"{path}: {e}") from e
         models.append(m)
@@ -213,14 +213,20 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
 
 
 def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pages: int = 20, seed: int = 0,
+                    split_gaps: Sequence[float] = (),
                     progress: Callable[[int, int], None] | None = None) -> tuple[P.Archive, list[tuple[str, str]]]:
     """Segment (no recognition) up to ``sample_pages`` pages of ``folder`` into an archive description.
 
     Pages are picked evenly at random (by ``seed``); a page that cannot be
     loaded or segmented is skipped and listed in the returned failures.
     ``n_pages`` is the archive's size (default: the pages of the folder).
+    ``split_gaps``: for each card that cuts lines at wide blank gaps, the
+    pieces' widths are measured too (column ``pieces_<gap>``), as the card would cut them.
     """
     from ocrbench.pages import analyse_page, list_pages, load_page
+    from ocrbench.recognisers.preprocess import split_at_gaps
+
+    gaps = sorted({float(g) for g in split_gaps if g and g > 0})
 
     refs = list_pages(folder)
     if not refs:
@@ -238,13 +244,17 @@ def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pa
             continue
         h, w = page.gray.shape[:2]
         prow.append({"page_id": ref.id, "width": w, "height": h})
-        lrows += [{"page_id": ref.id, "crop_w": int(lb.crop.shape[1]), "crop_h": int(lb.crop.shape[0])}
-                  for lb in layout.lines]
+        for lb in layout.lines:
+            r = {"page_id": ref.id, "crop_w": int(lb.crop.shape[1]), "crop_h": int(lb.crop.shape[0])}
+            for g in gaps:
+                r[f"pieces_{g:g}"] = [int(b - a) for a, b in split_at_gaps(np.asarray(lb.crop), g)]
+            lrows.append(r)
         if progress:
             progress(k + 1, len(pick))
     if not prow:
         raise InputError(folder, f"none of the {len(pick)} sampled pages could be segmented")
-    archive = P.Archive.from_layouts(pd.DataFrame(prow), pd.DataFrame(lrows, columns=["page_id", "crop_w", "crop_h"]),
+    cols = ["page_id", "crop_w", "crop_h"] + [f"pieces_{g:g}" for g in gaps]
+    archive = P.Archive.from_layouts(pd.DataFrame(prow), pd.DataFrame(lrows, columns=cols),
                                      n_pages=n_pages or len(refs), source=f"sample of {folder}")
     return archive, failed
 
@@ -425,7 +435,7 @@ def run_request(req: PlanRequest, *, progress: Callable[[str], None] | None = No
     if req.sample is not None:
         say(f"segmenting a sample of {req.sample}")
         archive, failures = describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
-                                            seed=req.seed)
+                                            seed=req.seed, split_gaps=[m.split_gap for m in models])
     elif req.archive_store is not None:
         archive = P.Archive.from_store_frames(read_store_frames(req.archive_store), n_pages=req.pages)
     else:

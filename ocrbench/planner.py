@@ -86,13 +86,14 @@ PAGE_FEATURES = ("page_const", "pixels", "page_lines")
 STAGE_CANDIDATES: dict[str, dict[str, tuple[tuple[str, ...], ...]]] = {
     "ctc": {
         "t_preprocess": (("const", "sum_width"), ("const", "n_lines", "sum_width")),
-        "t_encode": (("const", "area"), ("const", "n_lines", "area")),
+        "t_encode": (("const", "area"), ("const", "n_lines", "area"), ("const", "n_lines", "sum_width")),
         "t_steps": (("const", "area"), ("const", "n_lines", "area")),
         "t_collapse": (("const", "area"), ("const", "n_lines", "area"), ("const", "n_lines", "sum_width")),
     },
     "seq": {
         "t_preprocess": (("const", "sum_width"), ("const", "n_lines", "sum_width")),
-        "t_encode": (("const", "area"), ("const", "n_lines", "area")),
+        # batch encoded at once (area) or line by line at each line's own width (sum_width)
+        "t_encode": (("const", "area"), ("const", "n_lines", "area"), ("const", "n_lines", "sum_width")),
         "t_steps": (
             ("steps_max", "n_lines", "tokens_sum", "tokens_sq_half"),
             ("steps_max", "lines_x_steps", "lines_x_steps_sq_half"),
@@ -553,6 +554,8 @@ class CostModel:
     quality: dict = field(default_factory=dict)   # batch-total and page-overhead fit quality
     notes: list[str] = field(default_factory=list)
     overlap: float = 0.0               # share of min(batch time, page overhead) hidden by loading ahead
+    split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
+    pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
 
     def page_times(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
         """Wall time of pages given their feature rows (layout :data:`COEF_NAMES`)."""
@@ -608,12 +611,14 @@ class CostModel:
         c = np.atleast_1d(np.asarray(chars, dtype=float))
         B = float(self.batch_size)
         self.require_width()
-        w = self.width.intercept + self.width.px_per_char * c
-        tok = np.minimum(c, self.max_tokens - 1.0) if self.kind == "seq" else np.zeros_like(c)
+        k = self.pieces_per_line if self.split_gap > 0 else 1.0     # a split line is k pieces, each batched
+        w = (self.width.intercept + self.width.px_per_char * c) / k
+        tok = np.maximum(c - (k - 1.0), 0.0) / k
+        tok = np.minimum(tok, self.max_tokens - 1.0) if self.kind == "seq" else np.zeros_like(c)
         steps = tok + 1.0 if self.kind == "seq" else np.zeros_like(c)
         X = batch_feature_matrix(np.full_like(c, B), w, B * w, steps, B * tok, B * tok * tok,
                                  width_multiple=self.width_multiple)
-        return (X @ self.coef[:_NB]) / B
+        return k * (X @ self.coef[:_NB]) / B
 
 
 def _host_of(runs: pd.DataFrame) -> dict:
@@ -699,7 +704,7 @@ def _timeline(runs: pd.DataFrame, pages: pd.DataFrame, run_ids: Sequence[int]) -
 
 def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
                    run_ids: Sequence[int] | None = None, profile: str | None = None,
-                   line_height: int | None = None, width_multiple: int | None = None,
+                   line_height: int | None = None, width_multiple: int | None = None, split_gap: float = 0.0,
                    session: Mapping | None = None, n_boot: int = 200, seed: int = 0) -> CostModel:
     """Fit one recogniser's cost model on a store's tables (``runs``, ``pages``, ``batches``, ``lines``).
 
@@ -860,7 +865,8 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         page=page_fit, page_target=page_target, gap_per_page=gap_mean, startup_s=startup, coef=coef,
         boot=boot, batch_resid=batch_resid, page_resid=page_resid, width=width, ranges=ranges,
         n_pages=len(pages), n_lines=len(ln), n_batches=len(batches), quality=quality, notes=notes,
-        overlap=overlap)
+        overlap=overlap, split_gap=float(split_gap or 0.0),
+        pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(lpp.sum()))) if split_gap else 1.0)
 
 
 def fit_cost_models(frames: Mapping[str, pd.DataFrame], *, profile: str | None = None,
@@ -975,9 +981,19 @@ def _resized_width(crop_w, crop_h, height: int) -> np.ndarray:
     return np.clip(np.round(w * height / h), DEFAULT_MIN_WIDTH, DEFAULT_MAX_WIDTH)
 
 
+def _resized(w, h, height: int) -> np.ndarray:
+    return np.clip(np.round(np.asarray(w, dtype=float) * height / max(float(h), 1.0)), DEFAULT_MIN_WIDTH,
+                   DEFAULT_MAX_WIDTH)
+
+
 def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k: int,
-                width_fit: WidthFit) -> list[tuple[np.ndarray, np.ndarray, float]]:
-    """``k`` pages of (widths, chars, pixels) drawn from the archive description."""
+                width_fit: WidthFit) -> list[tuple[np.ndarray, np.ndarray, float, list | None]]:
+    """``k`` pages of (line widths, line characters, pixels, pieces) drawn from the archive description.
+
+    ``pieces``: per line, the resized widths of the pieces the card cuts it into
+    (a segmented sample measured with the card's ``split_gap``), else None.
+    For a card that splits lines, line width is the sum of its pieces.
+    """
     out = []
     if width_fit is None and (archive.sample_pages is None or "n_chars" not in archive.sample_lines):
         model.require_width()
@@ -992,18 +1008,23 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
             n = int(rng.integers(a, b + 1))
             chars = rng.integers(c0, c1 + 1, size=n)
             w = np.clip(np.round(width_fit.width(chars, rng)), DEFAULT_MIN_WIDTH, DEFAULT_MAX_WIDTH)
-            out.append((w, chars, float(px)))
+            out.append((w, chars, float(px), None))
         return out
     sl = archive.sample_lines
     groups = {pid: g for pid, g in sl.groupby("page_id", sort=False)}
     pick = rng.integers(0, len(archive.sample_pages), size=k)
+    pcol = f"pieces_{model.split_gap:g}"
     for i in pick:
         row = archive.sample_pages.iloc[int(i)]
         g = groups.get(row["page_id"])
         if g is None or g.empty:
-            out.append((np.zeros(0), np.zeros(0, dtype=np.int64), float(row["pixels"])))
+            out.append((np.zeros(0), np.zeros(0, dtype=np.int64), float(row["pixels"]), None))
             continue
-        if "width_px" in g and g["width_px"].notna().all():
+        pieces = None
+        if model.split_gap > 0 and pcol in g and "crop_h" in g:
+            pieces = [_resized(pw, h, model.line_height) for pw, h in zip(g[pcol], g["crop_h"])]
+            w = np.array([p.sum() for p in pieces], dtype=float)
+        elif "width_px" in g and g["width_px"].notna().all():
             w = g["width_px"].to_numpy(dtype=float)
         else:
             w = _resized_width(g["crop_w"], g["crop_h"], model.line_height)
@@ -1011,8 +1032,34 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
             chars = g["n_chars"].to_numpy(dtype=np.int64)
         else:
             chars = width_fit.chars(w, rng)
-        out.append((w, chars, float(row["pixels"])))
+        out.append((w, chars, float(row["pixels"]), pieces))
     return out
+
+
+def _units(model: CostModel, w: np.ndarray, chars: np.ndarray, pieces: list | None,
+           rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """What the recogniser batches: whole lines, or the pieces a splitting card cuts them into.
+
+    Returns (widths, tokens). A line of ``c`` characters in ``k`` pieces has
+    ``c - (k - 1)`` tokens (the joining spaces are not decoded), shared in
+    proportion to the pieces' widths. Without measured pieces a line is cut
+    into the calibration's mean number of pieces, of equal width.
+    """
+    if model.split_gap <= 0 or len(w) == 0:
+        return w, chars
+    if pieces is None:
+        r = model.pieces_per_line
+        ks = np.floor(r) + (rng.random(len(w)) < (r - np.floor(r)))
+        pieces = [np.full(int(max(1, k)), wi / max(1, k)) for wi, k in zip(w, ks)]
+    uw, ut = [], []
+    for p, c in zip(pieces, chars):
+        p = np.maximum(np.asarray(p, dtype=float), DEFAULT_MIN_WIDTH)
+        tok = max(0, int(c) - (len(p) - 1))
+        share = np.floor(tok * p / p.sum())
+        share[: int(tok - share.sum())] += 1          # hand out the remainder
+        uw.append(np.round(p))
+        ut.append(share)
+    return np.concatenate(uw), np.concatenate(ut).astype(np.int64)
 
 
 def _page_batch_features(widths: np.ndarray, tokens: np.ndarray | None, model: CostModel) -> tuple[np.ndarray, int, float, float]:
@@ -1043,11 +1090,12 @@ def simulate_pool(model: CostModel, archive: Archive, *, rng: np.random.Generato
     k = pages or (len(archive.sample_pages) if archive.sample_pages is not None else 200)
     rows, nb, nl, nc, all_w, pix = [], [], [], [], [], []
     pmax = smax = 0.0
-    for w, chars, px in _page_lines(model, archive, rng, k, wf):
+    for w, chars, px, pieces in _page_lines(model, archive, rng, k, wf):
         v = np.zeros(len(COEF_NAMES))
         if len(w):
-            tokens = np.minimum(chars, model.max_tokens - 1) if model.kind == "seq" else None
-            v[:_NB], n_b, p, st = _page_batch_features(w, tokens, model)
+            uw, ut = _units(model, w, chars, pieces, rng)
+            tokens = np.minimum(ut, model.max_tokens - 1) if model.kind == "seq" else None
+            v[:_NB], n_b, p, st = _page_batch_features(uw, tokens, model)
             nb.append(n_b)
             pmax, smax = max(pmax, p), max(smax, st)
             all_w.append(w)
