@@ -477,6 +477,31 @@ def test_characters_from_width_regress_to_the_calibration_mean():
     assert np.abs(fit2.chars(w2) - c).mean() < 1.0
 
 
+def test_lines_cut_into_pieces_are_batched_as_pieces():
+    """A card with split_gap cuts a ledger line at wide gaps; the runner batches the pieces.
+
+    Hand-worked: a line of 30 characters in pieces 100, 200 and 100 px wide has 30 - 2 = 28 tokens
+    (the two joining spaces are not decoded), shared 7, 14, 7 in proportion to width.
+    """
+    m = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5, split_gap=1.0)
+    rng = np.random.default_rng(0)
+    w, t = P._units(m, np.array([400.0]), np.array([30]), [np.array([100.0, 200.0, 100.0])], rng)
+    assert list(w) == [100, 200, 100] and list(t) == [7, 14, 7]
+    # without measured pieces: the calibration's pieces per line (here 1: the fake machine never splits)
+    assert m.pieces_per_line == pytest.approx(1.0)
+    w, t = P._units(m, np.array([400.0, 300.0]), np.array([30, 20]), None, rng)
+    assert list(w) == [400, 300] and list(t) == [30, 20]
+    # per-line time of a split line is k pieces' time: k = 2 pieces of half width and (c - 1) / 2 tokens
+    m2 = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
+    object.__setattr__(m2, "split_gap", 1.0)
+    m2.pieces_per_line = 2.0
+    whole = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
+    B = whole.batch_size
+    wd = whole.width.intercept + whole.width.px_per_char * 41
+    X = P.batch_feature_matrix([B], [wd / 2], [B * wd / 2], [21.0], [B * 20.0], [B * 400.0])
+    assert m2.line_time(41.0)[0] == pytest.approx(2 * (X @ whole.coef[:len(P.BATCH_FEATURES)])[0] / B)
+
+
 def test_bad_inputs_raise_plan_errors():
     frames = calibrate(noise=0.0, n=1, kinds=("ctc",))
     with pytest.raises(PlanError, match="at least 2 pages"):
