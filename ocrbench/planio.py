@@ -189,11 +189,16 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         mine = scaling_rows[scaling_rows["recogniser"] == n] if len(scaling_rows) else scaling_rows
         session = None
         if len(mine):
-            one = mine[mine["workers"] == 1]
+            one = mine[(mine["workers"] == 1) & (mine["card_hash"] == last.get("card_hash"))]
             if len(one):
-                rid = one["run_id"].iloc[-1] if "run_id" in one else None
-                session = {"startup_seconds": float(one["startup_seconds"].iloc[-1]),
-                           "gap_seconds_per_page": float(one["gap_seconds_per_page"].iloc[-1]),
+                # every timed session of this card: their mean start-up and time between pages
+                rid = one["run_id"].iloc[-1] if len(one) == 1 and "run_id" in one else None
+                busy = one["busy_seconds"] / one["pages"]
+                session = {"speed_cv": float(busy.std(ddof=1) / busy.mean()) if len(one) >= 2 else 0.0,
+                           "sessions": int(len(one)),
+                           "startup_seconds": float(one["startup_seconds"].mean()),
+                           "gap_seconds_per_page": float((one["gap_seconds_per_page"] * one["pages"]).sum()
+                                                         / one["pages"].sum()),
                            "run_id": None if rid is None or pd.isna(rid) else int(rid)}
             scaling[n] = P.ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:

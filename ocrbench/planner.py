@@ -554,6 +554,7 @@ class CostModel:
     quality: dict = field(default_factory=dict)   # batch-total and page-overhead fit quality
     notes: list[str] = field(default_factory=list)
     overlap: float = 0.0               # share of min(batch time, page overhead) hidden by loading ahead
+    speed_cv: float = 0.0              # session-to-session spread of the machine's speed (repeated timed sessions)
     split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
 
@@ -783,6 +784,10 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
     my_gaps = np.array([gaps.get(k, np.nan) for k in pkeys], dtype=float)
     gap_mean = float(np.nanmean(my_gaps)) if np.isfinite(my_gaps).any() else 0.0
     overlap = 0.0
+    speed_cv = float((session or {}).get("speed_cv") or 0.0)
+    if session and int(session.get("sessions") or 1) >= 2:
+        notes.append(f"the machine's speed varied by {100 * speed_cv:.1f}% (coefficient of variation) between "
+                     f"{int(session['sessions'])} timed sessions of the same pages; the interval includes it")
     if session:
         # measured directly around a run (ocrbench.scaling): more precise than store timestamps
         gap_mean = float(session.get("gap_seconds_per_page", gap_mean) or 0.0)
@@ -857,6 +862,7 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         "resid_p10": float(np.percentile(batch_resid, 10)), "resid_p90": float(np.percentile(batch_resid, 90)),
         "relative_resid_median": float(np.median(np.abs(batch_resid) / np.maximum(np.abs(y_tot), 1e-12))),
         "page_r2": page_fit.r2, "page_resid_sd": page_fit.resid_sd,
+        "calibration_seconds": float(pages["t_total"].sum()) if "t_total" in pages else None,
     }
     return CostModel(
         recogniser=recogniser, kind=kind, profile=profile or str(host.get("hostname") or "this machine"),
@@ -865,7 +871,7 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         page=page_fit, page_target=page_target, gap_per_page=gap_mean, startup_s=startup, coef=coef,
         boot=boot, batch_resid=batch_resid, page_resid=page_resid, width=width, ranges=ranges,
         n_pages=len(pages), n_lines=len(ln), n_batches=len(batches), quality=quality, notes=notes,
-        overlap=overlap, split_gap=float(split_gap or 0.0),
+        overlap=overlap, speed_cv=speed_cv, split_gap=float(split_gap or 0.0),
         pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(lpp.sum()))) if split_gap else 1.0)
 
 
@@ -1167,6 +1173,10 @@ def _extrapolation(model: CostModel, pools: Sequence[PagePool], archive: Archive
                          "share_beyond": share})
             msgs.append(f"{model.recogniser}: {name} up to {top:,.0f} exceed the largest measured ({hi:,.0f}) "
                         f"by {100 * (top / hi - 1):.0f}%; the cost model is extrapolated there")
+    busy = float(model.quality.get("calibration_seconds") or 0.0)
+    if 0 < busy < 30:
+        msgs.append(f"{model.recogniser}: the calibration covers only {busy:.1f} s of recognition; a moment's "
+                    "slowness of the machine weighs on the whole fit (time the pages more than once, or more pages)")
     if archive.n_pages > model.n_pages:
         ratio = archive.n_pages / model.n_pages
         rows.append({"quantity": "pages", "measured_max": float(model.n_pages), "planned_max": float(archive.n_pages),
@@ -1185,7 +1195,9 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
     Each draw uses one bootstrap refit of the cost model, one simulated pool of
     pages (itself drawn with a bootstrap refit of width-per-character, and for a
     sample a resample of its pages), a sum over the archive's pages drawn from
-    the pool, and the fit residuals summed over the batches and pages.
+    the pool, the fit residuals summed over the batches and pages, and (when
+    the calibration timed the same pages several times) a factor for the
+    machine's session-to-session speed.
     """
     rng = np.random.default_rng(seed)
     n_pools = max(1, min(pools, draws))
@@ -1214,6 +1226,8 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
             l = N * L.mean() + math.sqrt(N) * L.std() * z[2]
             nb = int(round(N * pool.n_batches.mean()))
         s += _sum_of_draws(model.batch_resid, nb, rng) + _sum_of_draws(model.page_resid, N, rng)
+        if model.speed_cv > 0:   # the machine runs a little faster or slower than when it was calibrated
+            s *= max(0.2, 1.0 + model.speed_cv * rng.standard_normal())
         serial[i], chars[i], lines[i] = max(s, 0.0), c, l
     msgs, rows = _extrapolation(model, pool_list, archive)
     return SerialEstimate(model=model, archive=archive, serial_s=serial, chars=chars, lines=lines,

@@ -419,6 +419,16 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
     m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=5,
                          session={"gap_seconds_per_page": GAP, "startup_seconds": STARTUP})
     assert m.gap_per_page == GAP and m.startup_s == STARTUP and not m.notes
+    # repeated sessions that ran at different speeds widen the interval by that spread
+    archive = P.Archive.from_numbers(2000, "20-30", "40-50", page_size=(1100, 1430))
+    band = {}
+    for cv in (0.0, 0.10):
+        m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=20, session={
+            "gap_seconds_per_page": GAP, "startup_seconds": STARTUP, "speed_cv": cv, "sessions": 3})
+        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=1000)).iloc[0]
+        band[cv] = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
+    # P10-P90 of a normal factor with sd 0.10 spans 2 x 1.2816 x 0.10 = 0.256 (normal quantiles)
+    assert band[0.0] < 0.05 and 0.2 < band[0.10] < 0.32
 
     frames = calibrate(noise=0.0, kinds=("ctc",))
     frames["pages"]["finished_at"] = frames["pages"]["finished_at"].str.replace(r"\.\d+", "", regex=True)

@@ -77,6 +77,21 @@ def held_out_pages(out: Path, n: int) -> Path:
     return out
 
 
+def cpu_share(fn):
+    """Run ``fn()``; return (its result, this process's CPU seconds per wall second, the 1-minute load after).
+
+    A share well below the same phase's share elsewhere means other jobs took the cores: the
+    calibration and the held-out run then did not see the same machine.
+    """
+    import resource
+
+    r0, t0 = resource.getrusage(resource.RUSAGE_SELF), time.perf_counter()
+    out = fn()
+    r1, t1 = resource.getrusage(resource.RUSAGE_SELF), time.perf_counter()
+    cpu = (r1.ru_utime - r0.ru_utime) + (r1.ru_stime - r0.ru_stime)
+    return out, cpu / max(t1 - t0, 1e-9), os.getloadavg()[0]
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--calib-pages", type=int, default=10)
@@ -84,6 +99,9 @@ def main(argv=None) -> int:
     ap.add_argument("--models", type=Path, default=Path(os.environ.get("OCRBENCH_TEST_MODELS", ROOT / "models")))
     ap.add_argument("--work", type=Path, default=None, help="keep the pages and stores here (default: a temp dir)")
     ap.add_argument("--threads", type=int, default=1)
+    ap.add_argument("--repeats", type=int, default=3,
+                    help="time the calibration pages this many times (a 10-page session lasts only seconds, "
+                         "so a moment's slowness of the machine would otherwise weigh on the whole fit)")
     ap.add_argument("--draws", type=int, default=2000)
     ap.add_argument("--json", action="store_true", help="print the figures as JSON")
     ap.add_argument("--recognisers", nargs="+", default=["ledger-ctc", "ledger-seq"],
@@ -114,34 +132,50 @@ def main(argv=None) -> int:
     calib = calibration_pages(work / "calib", a.calib_pages)
     held = held_out_pages(work / "held", a.held_pages)
 
-    cal_store = work / "calibration.sqlite"
-    rows = []
-    for card in cards:
-        log(f"calibrating {card.name} on {a.calib_pages} pages")
-        rows.append(measure_session(calib, card, store=cal_store, options=opts))
     import pandas as pd
 
-    planio.save_scaling(cal_store, pd.DataFrame(rows))
-
-    log("predicting the held-out set from its segmentation (no recognition)")
-    t0 = time.perf_counter()
-    full = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], sample=held,
-                                                 sample_pages=a.held_pages, draws=a.draws, seed=0)).table
-    t_plan = time.perf_counter() - t0
-    part = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], sample=held, sample_pages=15,
-                                                 pages=a.held_pages, draws=a.draws, seed=1)).table
+    # Each recogniser in turn: calibrate, predict, then run the held-out set, so the machine has
+    # as little time as possible to change speed between calibration and measurement.
+    cal_store = work / "calibration.sqlite"
+    machine: dict[str, tuple[float, float]] = {}
     base = __import__("ocrbench.synth", fromlist=["ArchiveSpec"]).ArchiveSpec()
     lo, hi = 2 * base.lines_per_page[0] + 3, 2 * base.lines_per_page[1] + 3   # + header, headings, total rows
-    numbers = planio.run_request(planio.PlanRequest(
-        calibration=[str(cal_store)], pages=a.held_pages, lines_per_page=f"{lo}-{hi}",
-        chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}", draws=a.draws, seed=2)).table
-
-    measured = {}
+    fulls, parts, numbers_l, measured, t_plan = [], [], [], {}, 0.0
     for card in cards:
+        log(f"calibrating {card.name} on {a.calib_pages} pages ({a.repeats} timed sessions)")
+        for _ in range(a.repeats):
+            row, share, load = cpu_share(lambda: measure_session(calib, card, store=cal_store, options=opts))
+            planio.save_scaling(cal_store, pd.DataFrame([row]))
+        machine[f"calibrate {card.name}"] = (share, load)
+        only = [card.name]
+        log(f"predicting {card.name} on the held-out set from its segmentation (no recognition)")
+        t0 = time.perf_counter()
+        fulls.append(planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
+                                                           sample=held, sample_pages=a.held_pages,
+                                                           draws=a.draws, seed=0)).table)
+        t_plan += time.perf_counter() - t0
+        parts.append(planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
+                                                           sample=held, sample_pages=15, pages=a.held_pages,
+                                                           draws=a.draws, seed=1)).table)
+        numbers_l.append(planio.run_request(planio.PlanRequest(
+            calibration=[str(cal_store)], recognisers=only, pages=a.held_pages, lines_per_page=f"{lo}-{hi}",
+            chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}", draws=a.draws, seed=2)).table)
         log(f"running {card.name} on the {a.held_pages} held-out pages")
         t0 = time.perf_counter()
-        run_pages(held, [card], store=work / "held.sqlite", options=opts, fresh=True)
+        _, share, load = cpu_share(lambda: run_pages(held, [card], store=work / "held.sqlite", options=opts,
+                                                     fresh=True))
         measured[card.name] = time.perf_counter() - t0
+        machine[f"held-out {card.name}"] = (share, load)
+    full = pd.concat(fulls, ignore_index=True)
+    part = pd.concat(parts, ignore_index=True)
+    numbers = pd.concat(numbers_l, ignore_index=True)
+    # the crossover and the fits of both, from the whole calibration store
+    both = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], pages=a.held_pages,
+                                                 lines_per_page=f"{lo}-{hi}",
+                                                 chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}",
+                                                 draws=200)).table
+    full.attrs = {"crossover": both.attrs.get("crossover", []), "fits": both.attrs["fits"],
+                  "warnings": [w for f in fulls for w in f.attrs.get("warnings", [])]}
 
     out = []
     for _, r in full.iterrows():
@@ -159,10 +193,12 @@ def main(argv=None) -> int:
                     "fit_r2_batch": r["fit_r2_batch"], "fit_r2_page": r["fit_r2_page"]})
     if a.json:
         print(json.dumps({"results": out, "crossover": full.attrs.get("crossover"),
-                          "warnings": full.attrs.get("warnings"), "plan_seconds": t_plan}, indent=1))
+                          "warnings": full.attrs.get("warnings"), "plan_seconds": t_plan,
+                          "machine": {k: {"cpu_share": v[0], "load_1min": v[1]} for k, v in machine.items()}},
+                         indent=1))
         return 0
-    print(f"\nPlanner validation: calibrated on {a.calib_pages} pages, predicting {a.held_pages} held-out pages "
-          f"with twice the lines per page (one worker, {a.threads} thread(s))")
+    print(f"\nPlanner validation: calibrated on {a.calib_pages} pages (timed {a.repeats}x), predicting "
+          f"{a.held_pages} held-out pages with twice the lines per page (one worker, {a.threads} thread(s))")
     print(f"{'recogniser':<12}{'kind':<5}{'P10 s':>9}{'P50 s':>9}{'P90 s':>9}{'measured':>10}{'error':>8}"
           f"{'in P10-P90':>12}{'<=10%':>7}{'15-page':>9}{'numbers':>9}")
     for o in out:
@@ -172,6 +208,12 @@ def main(argv=None) -> int:
               f"{100 * o['sample15_rel_error']:>8.1f}%{100 * o['numbers_rel_error']:>8.1f}%")
     print("(error = (P50 - measured) / measured; 15-page = predicted from a 15-page sample; numbers = from "
           "page/line/character counts only)")
+    print("machine (this process's CPU seconds per wall second; 1-minute load after): " + "; ".join(
+        f"{k} {v[0]:.2f} / {v[1]:.1f}" for k, v in machine.items()))
+    shares = [v[0] for v in machine.values()]
+    if max(shares) > 1.3 * min(shares):
+        print("note: the CPU share differs between phases: other jobs were taking the cores part of the time, so "
+              "calibration and held-out run did not see the same machine; rerun on a quiet machine")
     for c in full.attrs.get("crossover", []):
         print("crossover:", c["text"])
     fits = full.attrs["fits"]
