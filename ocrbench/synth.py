@@ -9,7 +9,7 @@ from syllables. The same generator serves three purposes:
 * archives of chosen density for planner calibration (``lines_per_page`` and
   ``chars_per_line`` of :class:`PageSpec`).
 
-Ground truth follows the common transcription practice of a single space
+Ground truth follows the common keying practice of a single space
 between fields, however wide the gap on the page.
 
 Conventions of the written files:

@@ -45,7 +45,7 @@ def built(tmp_path_factory):
 
 
 def test_script_in_ground_truth_is_escaped(built):
-    # A transcription may hold markup; it must be shown as text, never run (HTML escaping: the HTML standard's
+    # A ground-truth line may hold markup; it must be shown as text, never run (HTML escaping: the HTML standard's
     # rules for text content; common practice, e.g. the OWASP XSS prevention rules, from memory).
     text = built["html"]
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text

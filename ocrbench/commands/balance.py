@@ -4,7 +4,7 @@ Works on recognised or transcribed text, one ``.txt`` per page. Each page is
 reported balanced, unbalanced (with the difference: stated total minus brought
 forward plus entries) or not checkable (with the reason). Over the judged pages
 it estimates how often amounts are misread, with intervals, needing no
-transcription.
+ground truth.
 """
 
 from __future__ import annotations

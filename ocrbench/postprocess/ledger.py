@@ -1,6 +1,6 @@
 """Ledger grammar: dates, amounts and column totals of cash-book pages.
 
-Why: the arithmetic of a ledger page is a check that needs no transcription.
+Why: the arithmetic of a ledger page is a check that needs no ground truth.
 The entries of a page plus the amount brought forward must equal the total (or
 the amount carried forward); a page whose recognised text does not add up holds
 at least one misread amount. Over many pages this gives an estimate of how often
@@ -580,7 +580,7 @@ def _bisect(fn, lo: float, hi: float, iters: int = 200) -> float:
 
 @dataclass(frozen=True)
 class MisreadEstimate:
-    """How often amounts are misread, estimated from page arithmetic alone (no transcription).
+    """How often amounts are misread, estimated from page arithmetic alone (no ground truth).
 
     ``failed_share``: pages that fail the check (unbalanced, or an amount that
     cannot be read) among the pages that could be judged, with a Wilson interval.
@@ -621,7 +621,7 @@ def estimate_misreads(balances: Iterable[PageBalance], *, level: float = 0.95,
 
     ``count_unreadable``: a page not checkable only because an amount could not be
     read counts as failed (the amount was there but was misread). Turn it off
-    for transcriptions whose dated lines may lawfully carry no amount.
+    for hand-keyed texts whose dated lines may lawfully carry no amount.
     """
     balanced_k: list[int] = []
     failed_k: list[int] = []

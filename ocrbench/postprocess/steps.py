@@ -180,8 +180,8 @@ class WhitespaceStep(_PerLine):
     """Whitespace: any Unicode space (tab, no-break, thin ...) becomes one ASCII space, runs collapse
     to one, the ends are trimmed, zero-width characters are dropped.
 
-    Why: transcriptions put one space between fields however wide the gap on
-    the page (common transcription practice), so recognisers that emit a space per gap
+    Why: hand-keyed ground truth puts one space between fields however wide the gap on
+    the page (common practice in keying ground truth), so recognisers that emit a space per gap
     width would otherwise be charged for layout, not reading.
     """
 
@@ -226,7 +226,7 @@ class VariantsStep(_PerLine):
     (ﬁ -> fi, ﬂ -> fl, ﬀ ﬃ ﬄ ﬅ ﬆ), ``r_rotunda`` (ꝛ -> r), and ``ae_oe``
     (æ -> ae, œ -> oe), off by default because æ and œ are letters of their own
     in several languages. ``extra`` adds an archive's own mappings.
-    Use it when the transcription guidelines modernise spelling; leave it out
+    Use it when the keying guidelines modernise spelling; leave it out
     when they keep the variants.
     """
 

@@ -393,8 +393,8 @@ def _recipes(s: Mapping) -> str:
     extra = ""
     if tp:
         extra = (f"<p>Ground truth: {figure(s, 'truth_pairing.pages_paired', 'int')} pages paired with a "
-                 f"transcription; {len(tp.get('pages_without_truth') or [])} pages had none; "
-                 f"{len(tp.get('truth_without_page') or [])} transcriptions had no page; "
+                 f"ground-truth file; {len(tp.get('pages_without_truth') or [])} pages had none; "
+                 f"{len(tp.get('truth_without_page') or [])} ground-truth files had no page; "
                  f"{len(tp.get('unreadable_truth') or [])} could not be read.</p>")
         for u in tp.get("unreadable_truth") or []:
             extra += f'<p class="note"><code>{_e(u["path"])}</code>: {_e(u["error"])}</p>'
