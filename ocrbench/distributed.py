@@ -48,7 +48,7 @@ from ocrbench.errors import ClusterError, OcrbenchError
 from ocrbench.pages import PageRef, list_pages
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser, open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.runner import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, _RunState, _summary,
+from ocrbench.runner import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, _RunState, _RunWriter,
                              as_run_options, file_sha256, host_info, input_folder, load_cards, open_run,
                              recognise_page)
 from ocrbench.store import PageRecord, RunStore
@@ -300,23 +300,12 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
     from distributed import as_completed
     from distributed.scheduler import KilledWorker
 
-    start = clock()
-    total = len(refs)
-    skipped = {r.id for r in refs if all(r.id in s.done for s in states)}
-    n_done = n_failed = n_lines = n_processed = 0
-    n_skipped = len(skipped)
-
-    def emit(kind, page_id=None, failed=False, skipped=False):
-        if progress is not None:
-            progress(ProgressEvent(kind=kind, pages_total=total, pages_done=n_done, pages_skipped=n_skipped,
-                                   pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
-                                   skipped=skipped, elapsed=clock() - start))
-
-    emit("start")
+    w = _RunWriter(refs, states, st, clock, progress, input_dir)
+    skipped = w.skipped_ids
+    w.emit("start")
     for r in refs:
         if r.id in skipped:
-            n_done += 1
-            emit("page", r.id, skipped=True)
+            w.skip(r.id)
 
     run_token = uuid.uuid4().hex[:12]
     work = _chunks(refs, states, per_task, skipped)
@@ -352,31 +341,14 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
             if res[0] == "error":
                 _raise_portable(res)
             for (page_id, outcomes), idx in zip(res[1], chunk_todo):
-                n_processed += 1
-                page_failed = False
-                for i, o in zip(idx, outcomes):
-                    s = states[i]
-                    st.write_page(s.run_id, o.page, o.lines, o.batches)
-                    s.new += 1
-                    if o.failed:
-                        page_failed = True
-                    else:
-                        s.done.add(page_id)
-                        n_lines += len(o.lines)
-                n_done += 1
-                n_failed += page_failed
-                emit("page", page_id, failed=page_failed)
+                w.write(page_id, [(states[i], o) for i, o in zip(idx, outcomes)])
             del res
             submit_next()
     finally:
         if in_flight:                             # stopped early: leave nothing running on the cluster
             client.cancel([f for f, _, _ in in_flight.values()])
             in_flight.clear()
-    wall = clock() - start
-    for s in states:
-        st.finish_run(s.run_id)
-    return RunSummary(input_dir=input_dir, pages_total=total, pages_processed=n_processed, pages_skipped=n_skipped,
-                      wall_seconds=wall, recognisers=[_summary(st, s) for s in states])
+    return w.finish()
 
 
 def _lost(ref: PageRef, e: BaseException) -> PageOutcome:

@@ -272,21 +272,60 @@ def _ort_version() -> str:
     return ort.__version__
 
 
+class _RunWriter:
+    """The single writer of a run, shared by the serial and the Dask engines: it writes
+    each page's outcomes (one transaction per recogniser), counts pages and lines,
+    reports progress events and closes the runs with their summary."""
+
+    def __init__(self, refs: list[PageRef], states: list[_RunState], st: RunStore, clock: Clock, progress,
+                 input_dir: str):
+        self.states, self.st, self.clock, self.progress, self.input_dir = states, st, clock, progress, input_dir
+        self.start = clock()
+        self.total = len(refs)
+        self.skipped_ids = {r.id for r in refs if all(r.id in s.done for s in states)}
+        self.done = self.failed = self.lines = self.processed = 0
+
+    def emit(self, kind, page_id=None, failed=False, skipped=False) -> None:
+        if self.progress is not None:
+            self.progress(ProgressEvent(kind=kind, pages_total=self.total, pages_done=self.done,
+                                        pages_skipped=len(self.skipped_ids), pages_failed=self.failed,
+                                        lines_done=self.lines, page_id=page_id, failed=failed, skipped=skipped,
+                                        elapsed=self.clock() - self.start))
+
+    def skip(self, page_id: str) -> None:
+        """A page every recogniser already finished in an earlier session."""
+        self.done += 1
+        self.emit("page", page_id, skipped=True)
+
+    def write(self, page_id: str, pairs) -> None:
+        """Record one page: ``pairs`` of (recogniser state, its PageOutcome)."""
+        self.processed += 1
+        page_failed = False
+        for s, o in pairs:
+            self.st.write_page(s.run_id, o.page, o.lines, o.batches)
+            s.new += 1
+            if o.failed:
+                page_failed = True
+            else:
+                s.done.add(page_id)
+                self.lines += len(o.lines)
+        self.done += 1
+        self.failed += page_failed
+        self.emit("page", page_id, failed=page_failed)
+
+    def finish(self) -> RunSummary:
+        wall = self.clock() - self.start
+        for s in self.states:
+            self.st.finish_run(s.run_id)
+        return RunSummary(input_dir=self.input_dir, pages_total=self.total, pages_processed=self.processed,
+                          pages_skipped=len(self.skipped_ids), wall_seconds=wall,
+                          recognisers=[_summary(self.st, s) for s in self.states])
+
+
 def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: RunOptions, clock: Clock,
          progress, postprocess, input_dir: str) -> RunSummary:
-    start = clock()
-    total = len(refs)
-    skipped_ids = {r.id for r in refs if all(r.id in s.done for s in states)}
-    n_done = n_failed = n_lines = n_processed = 0
-    n_skipped = len(skipped_ids)
-
-    def emit(kind, page_id=None, failed=False, skipped=False):
-        if progress is not None:
-            progress(ProgressEvent(kind=kind, pages_total=total, pages_done=n_done, pages_skipped=n_skipped,
-                                   pages_failed=n_failed, lines_done=n_lines, page_id=page_id, failed=failed,
-                                   skipped=skipped, elapsed=clock() - start))
-
-    work = [r for r in refs if r.id not in skipped_ids]
+    w = _RunWriter(refs, states, st, clock, progress, input_dir)
+    work = [r for r in refs if r.id not in w.skipped_ids]
     pool = (ThreadPoolExecutor(max_workers=1, thread_name_prefix="ocrbench-prefetch")
             if options.use_prefetch() and len(work) > 1 else None)
     ahead: dict[int, Future] = {}
@@ -300,37 +339,20 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
             ahead[i + 1] = pool.submit(load_and_segment, work[i + 1], options=options, clock=clock)
         return fut.result()
 
-    emit("start")
+    w.emit("start")
     try:
         for ref in refs:
             page_id = ref.id
-            if page_id in skipped_ids:
-                n_done += 1
-                emit("page", page_id, skipped=True)
+            if page_id in w.skipped_ids:
+                w.skip(page_id)
                 continue
             todo = [s for s in states if page_id not in s.done]
-            outcomes = read_page(loaded(n_processed), [s.rec for s in todo], clock=clock, postprocess=postprocess)
-            n_processed += 1
-            page_failed = False
-            for s, o in zip(todo, outcomes):
-                st.write_page(s.run_id, o.page, o.lines, o.batches)
-                s.new += 1
-                if o.failed:
-                    page_failed = True
-                else:
-                    s.done.add(page_id)
-                    n_lines += len(o.lines)
-            n_done += 1
-            n_failed += page_failed
-            emit("page", page_id, failed=page_failed)
+            outcomes = read_page(loaded(w.processed), [s.rec for s in todo], clock=clock, postprocess=postprocess)
+            w.write(page_id, zip(todo, outcomes))
     finally:
         if pool is not None:
             pool.shutdown(wait=True, cancel_futures=True)
-    wall = clock() - start
-    for s in states:
-        st.finish_run(s.run_id)
-    return RunSummary(input_dir=input_dir, pages_total=total, pages_processed=n_processed, pages_skipped=n_skipped,
-                      wall_seconds=wall, recognisers=[_summary(st, s) for s in states])
+    return w.finish()
 
 
 @dataclass

@@ -17,22 +17,8 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
 from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.commands.run import _Progress
 from ocrbench.errors import OcrbenchError
-
-
-class _Bar:
-    """Runner progress events to a rich bar: pages recognised and the time left."""
-
-    def __init__(self, bar: Progress, task):
-        self.bar, self.task = bar, task
-
-    def __call__(self, ev) -> None:
-        if ev.kind == "start":
-            note = f" ({ev.pages_skipped} already done)" if ev.pages_skipped else ""
-            self.bar.update(self.task, description=f"recognising{note}", total=ev.pages_total - ev.pages_skipped,
-                            completed=0)
-        elif not ev.skipped:
-            self.bar.update(self.task, advance=1)
 
 
 @app.command("demo")
@@ -61,7 +47,7 @@ def demo(
                       TimeRemainingColumn(), console=err, transient=True) as bar:
             task = bar.add_task("loading recognisers", total=None)
             result = run_demo(out_dir=out, models_dir=models, scans_dir=scans, workers=workers, max_pages=pages,
-                              archive=DemoArchive(), fresh=fresh, progress=_Bar(bar, task), echo=echo)
+                              archive=DemoArchive(), fresh=fresh, progress=_Progress(bar, task), echo=echo)
     except KeyboardInterrupt:
         raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
     except OcrbenchError as e:
