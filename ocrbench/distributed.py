@@ -294,6 +294,10 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
             st.close()
 
 
+#: Times a chunk is resubmitted after a cluster-level error before the run stops with ClusterError.
+CLUSTER_RETRIES = 2
+
+
 def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunOptions, per_task: int, window: int,
                         clock: Clock, progress, postprocess, input_dir: str) -> RunSummary:
     """Submit at most ``window`` tasks at a time and write each page as its task completes."""
@@ -313,26 +317,35 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
     counter = itertools.count()
     ac = as_completed()
 
+    def submit(chunk, tries: int = 0) -> None:
+        key = (f"ocrbench-pages-{run_token}", next(counter))   # one name: Dask caches per-name data
+        fut = client.submit(_recognise_chunk, chunk[0], chunk[1], cards, options, postprocess, key=key, pure=False)
+        in_flight[key] = (fut, chunk[0], chunk[1], tries)
+        ac.add(fut)
+
     def submit_next() -> None:
         try:
             chunk = next(work)
         except StopIteration:
             return
-        key = (f"ocrbench-pages-{run_token}", next(counter))   # one name: Dask caches per-name data
-        fut = client.submit(_recognise_chunk, chunk[0], chunk[1], cards, options, postprocess, key=key, pure=False)
-        in_flight[key] = (fut, *chunk)
-        ac.add(fut)
+        submit(chunk)
 
     for _ in range(window):
         submit_next()
     try:
         for fut in ac:
-            _, chunk_refs, chunk_todo = in_flight.pop(fut.key)
+            _, chunk_refs, chunk_todo, tries = in_flight.pop(fut.key)
             try:
                 res = fut.result()
             except KilledWorker as e:
                 res = ("ok", [(r.id, [_lost(r, e) for _ in idx]) for r, idx in zip(chunk_refs, chunk_todo)])
-            except Exception as e:  # noqa: BLE001 - the cluster failed, not a page: stop with a clear error
+            except Exception as e:  # noqa: BLE001 - the cluster failed, not a page
+                if tries < CLUSTER_RETRIES:
+                    # A worker dying mid-task can surface as a transient error of Dask's own
+                    # (e.g. an asyncio object bound to another loop); pages are idempotent, so
+                    # the chunk is simply submitted again.
+                    submit((chunk_refs, chunk_todo), tries + 1)
+                    continue
                 raise ClusterError(f"a Dask task reading {chunk_refs[0].display()} failed: "
                                    f"{type(e).__name__}: {e}") from e
             finally:
@@ -346,7 +359,7 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
             submit_next()
     finally:
         if in_flight:                             # stopped early: leave nothing running on the cluster
-            client.cancel([f for f, _, _ in in_flight.values()])
+            client.cancel([v[0] for v in in_flight.values()])
             in_flight.clear()
     return w.finish()
 
