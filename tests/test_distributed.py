@@ -201,3 +201,23 @@ def test_run_command_cluster_options_need_a_cluster(pages, cards, tmp_path):
         res = CliRunner().invoke(app, base + extra)
         assert res.exit_code == 2 and res.stderr.startswith("ocrbench: ") and len(res.stderr.splitlines()) == 1
     assert not (tmp_path / "o.sqlite").exists()                  # refused before anything was opened
+
+
+def test_workers_keep_page_buffers_on_the_heap(pages, cards, cluster, tmp_path):
+    """Dask starts workers with MALLOC_TRIM_THRESHOLD_=65536 (its distributed.yaml, pre-spawn-environ), which
+    makes every page-sized numpy temporary an mmap/munmap: segmentation ran ~2x slower. On an existing cluster
+    that sets it, each worker retunes its allocator; a cluster ocrbench starts does not set it at all."""
+    import os
+    import sys
+
+    from ocrbench.distributed import connect, retune_allocator
+
+    _, client = cluster
+    run_distributed(pages, cards[:1], store=tmp_path / "a.sqlite", dask=DaskOptions(scheduler=client.scheduler.address))
+    on_workers = client.run(lambda: (os.environ.get("MALLOC_TRIM_THRESHOLD_"), retune_allocator()))
+    for env, retuned in on_workers.values():
+        assert env is not None and int(env) < 16 * 1024 * 1024            # Dask's default reached the worker
+        assert retuned is sys.platform.startswith("linux")                # and was undone there (glibc only)
+    with connect(DaskOptions(workers=1)) as cl:
+        envs = cl.client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
+    assert set(envs.values()) == {os.environ.get("MALLOC_TRIM_THRESHOLD_")}   # nothing added by ocrbench
