@@ -326,7 +326,7 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
             import onnxruntime as ort
 
             engine = f"{cl.description} / onnxruntime {ort.__version__}"
-            settings = options.settings(postprocess)
+            settings = options.settings()
             states = []
             for card, host in zip(card_list, hosts):
                 extra = {"dask": {"scheduler": cl.scheduler, "workers": cl.workers, "threads": cl.threads,
@@ -408,7 +408,7 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
         if in_flight:                             # stopped early: leave nothing running on the cluster
             client.cancel([v[0] for v in in_flight.values()])
             in_flight.clear()
-    return w.finish()
+    return w.finish(postprocess)
 
 
 def _lost(ref: PageRef, e: BaseException) -> PageOutcome:

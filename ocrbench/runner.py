@@ -40,7 +40,9 @@ class RunOptions:
     """Options of a run: the engine options plus page handling.
 
     All but ``warm_up`` and ``prefetch`` are recorded as the run's settings
-    (they decide what a run is). ``prefetch`` loads and segments the next page
+    (they decide what a run is). Post-processing is not a setting: it never
+    changes what the recogniser read, and its recipe is kept per run beside
+    the post-processed text (see :func:`apply_postprocess`). ``prefetch`` loads and segments the next page
     in a second thread while the current one is recognised; ``None`` turns it
     on when the machine has a core to spare beyond the model's intra-op
     threads. With prefetch the clock is read from two threads, so tests that
@@ -58,10 +60,9 @@ class RunOptions:
             return self.prefetch
         return (os.cpu_count() or 1) > self.engine.intra_threads
 
-    def settings(self, postprocess: PostProcess | None) -> dict:
+    def settings(self) -> dict:
         d = self.engine.to_dict()
-        d.update(deskew=self.deskew, max_pixels=self.max_pixels,
-                 postprocess=None if postprocess is None else _callable_name(postprocess))
+        d.update(deskew=self.deskew, max_pixels=self.max_pixels)
         return d
 
 
@@ -102,6 +103,14 @@ class RecogniserSummary:
     pages_per_hour: float | None     # one stream: 3600 * pages / sum of page times
     lines_per_second: float | None
     failures: list[tuple[str, str]] = field(default_factory=list)
+    post_recipe: str | None = None   # the post-processing behind lines.text_post (None: no post-processed text)
+    post_lines: int = 0              # lines of done pages that have post-processed text
+    post_failures: list[tuple[str, str]] = field(default_factory=list)   # pages post-processing refused
+
+    @property
+    def post_incomplete(self) -> bool:
+        """Some lines of done pages lack post-processed text (pages added by a run without post-processing)."""
+        return self.post_recipe is not None and self.post_lines < self.lines
 
 
 @dataclass
@@ -128,6 +137,67 @@ class RunSummary:
 
 def _callable_name(fn) -> str:
     return f"{getattr(fn, '__module__', '?')}.{getattr(fn, '__qualname__', type(fn).__name__)}"
+
+
+def post_recipe(postprocess: PostProcess) -> str:
+    """How a post-processing is named in the store: a pipeline's recipe, else the callable's dotted name."""
+    recipe = getattr(postprocess, "recipe", None)
+    return recipe if isinstance(recipe, str) else _callable_name(postprocess)
+
+
+def post_texts(postprocess: PostProcess, texts: list[str], confidences: list[float | None],
+               char_confidences: list[list[float] | None]) -> list[str]:
+    """One page through a post-processing; a pipeline also gets per-character confidences (its word gate)."""
+    from ocrbench.postprocess.steps import Pipeline
+
+    if isinstance(postprocess, Pipeline):
+        out = list(postprocess(texts, confidences, char_confidences))
+    else:
+        out = list(postprocess(texts, confidences))
+    if len(out) != len(texts):
+        raise OcrbenchError(f"post-processing returned {len(out)} lines for {len(texts)}")
+    return out
+
+
+@dataclass
+class PostApplied:
+    """What :func:`apply_postprocess` did to one run."""
+
+    run_id: int
+    recipe: str
+    pages: int
+    lines: int
+    changed_lines: int
+    failures: list[tuple[str, str]] = field(default_factory=list)   # (page id, reason): text_post left empty
+
+
+def apply_postprocess(st: RunStore, run_id: int, postprocess: PostProcess) -> PostApplied:
+    """Fill a run's ``lines.text_post`` anew from its raw text, every done page, in one transaction.
+
+    The raw ``text`` column is never written. A page the post-processing
+    refuses keeps no post-processed text and is listed with the reason; the
+    other pages go on. The recipe is recorded with the run, so the column never
+    holds the output of two recipes.
+    """
+    recipe = post_recipe(postprocess)
+    res = PostApplied(run_id=run_id, recipe=recipe, pages=0, lines=0, changed_lines=0)
+
+    def pages():
+        for page_id in st.done_page_ids(run_id):
+            rows = st.page_lines(run_id, page_id)
+            texts = [r[1] for r in rows]
+            try:
+                out = post_texts(postprocess, texts, [r[2] for r in rows], [r[3] for r in rows])
+            except Exception as e:  # noqa: BLE001 - one page's problem; the run's other pages go on
+                res.failures.append((page_id, _reason(e)))
+                continue
+            res.pages += 1
+            res.lines += len(rows)
+            res.changed_lines += sum(a != b for a, b in zip(texts, out))
+            yield page_id, [(r[0], t) for r, t in zip(rows, out)]
+
+    st.rewrite_post(run_id, pages(), recipe)
+    return res
 
 
 def file_sha256(path: Path) -> str | None:
@@ -212,7 +282,7 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     own_store = not isinstance(store, RunStore)
     st = RunStore(store) if own_store else store
     try:
-        settings = options.settings(postprocess)
+        settings = options.settings()
         states: list[_RunState] = []
         for card in cards:
             rec = open_recogniser(card, options=options.engine, warm_up=options.warm_up)
@@ -313,13 +383,24 @@ class _RunWriter:
         self.failed += page_failed
         self.emit("page", page_id, failed=page_failed)
 
-    def finish(self) -> RunSummary:
-        wall = self.clock() - self.start
+    def finish(self, postprocess: PostProcess | None = None) -> RunSummary:
+        """Close the runs. With post-processing, a resumed run whose earlier pages hold another recipe's
+        output (or none) gets its post-processed text refilled, so one recipe stands behind the column."""
+        post_failures: dict[int, list[tuple[str, str]]] = {}
         for s in self.states:
+            if postprocess is not None:
+                recipe = post_recipe(postprocess)
+                stored = self.st.post_recipe(s.run_id)
+                with_post, n = self.st.post_coverage(s.run_id)
+                if s.resumed and (stored != recipe or with_post < n):
+                    post_failures[s.run_id] = apply_postprocess(self.st, s.run_id, postprocess).failures
+                elif stored != recipe:
+                    self.st.set_post_recipe(s.run_id, recipe)
             self.st.finish_run(s.run_id)
+        wall = self.clock() - self.start
         return RunSummary(input_dir=self.input_dir, pages_total=self.total, pages_processed=self.processed,
                           pages_skipped=len(self.skipped_ids), wall_seconds=wall,
-                          recognisers=[_summary(self.st, s) for s in self.states])
+                          recognisers=[_summary(self.st, s, post_failures.get(s.run_id, [])) for s in self.states])
 
 
 def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: RunOptions, clock: Clock,
@@ -352,7 +433,7 @@ def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: Ru
     finally:
         if pool is not None:
             pool.shutdown(wait=True, cancel_futures=True)
-    return w.finish()
+    return w.finish(postprocess)
 
 
 @dataclass
@@ -425,9 +506,8 @@ def read_page(loaded: LoadedPage, recognisers: Sequence[Recogniser], *, clock: C
             t4 = clock()
             post = None
             if postprocess is not None:
-                post = list(postprocess([r.text for r in results], [r.confidence for r in results]))
-                if len(post) != len(results):
-                    raise OcrbenchError(f"post-processing returned {len(post)} lines for {len(results)}")
+                post = post_texts(postprocess, [r.text for r in results], [r.confidence for r in results],
+                                  [list(r.char_confidences) for r in results])
             t5 = clock()
         except StoreError:
             raise
@@ -469,8 +549,9 @@ def _reason(e: BaseException) -> str:
     return f"{type(e).__name__}: {e}"
 
 
-def _summary(st: RunStore, s: _RunState) -> RecogniserSummary:
+def _summary(st: RunStore, s: _RunState, post_failures: list[tuple[str, str]] | None = None) -> RecogniserSummary:
     tot = st.run_totals(s.run_id)
+    recipe = st.post_recipe(s.run_id)
     times = tot["t_total"]
     busy = sum(times)
     return RecogniserSummary(
@@ -480,4 +561,6 @@ def _summary(st: RunStore, s: _RunState) -> RecogniserSummary:
         page_seconds_p90=_percentile(times, 90), page_seconds_p99=_percentile(times, 99),
         pages_per_hour=3600.0 * len(times) / busy if busy > 0 else None,
         lines_per_second=tot["lines"] / busy if busy > 0 else None,
-        failures=st.failed_pages(s.run_id))
+        failures=st.failed_pages(s.run_id), post_recipe=recipe,
+        post_lines=st.post_coverage(s.run_id)[0] if recipe is not None else 0,
+        post_failures=list(post_failures or []))

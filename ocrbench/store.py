@@ -101,6 +101,21 @@ CREATE TABLE IF NOT EXISTS batches(
     t_collapse REAL,
     PRIMARY KEY (run_id, page_id, batch_no)
 );
+CREATE TABLE IF NOT EXISTS postprocessing(
+    run_id INTEGER PRIMARY KEY,
+    recipe TEXT NOT NULL,
+    applied_at TEXT
+);
+"""
+
+#: Added after schema version 1 was first written; created in older version-1 stores when they are opened
+#: for writing (additive: older ocrbench ignores it, and readers treat a missing table as "no recipe").
+_ADDITIVE_DDL = """
+CREATE TABLE IF NOT EXISTS postprocessing(
+    run_id INTEGER PRIMARY KEY,
+    recipe TEXT NOT NULL,
+    applied_at TEXT
+)
 """
 
 
@@ -256,6 +271,8 @@ class RunStore:
             if str(version) != str(SCHEMA_VERSION):
                 raise StoreError(f"{self.path}: store schema version {version} is not the version this "
                                  f"ocrbench writes ({SCHEMA_VERSION}); use a new store file")
+            if not self.read_only and "postprocessing" not in have:
+                self.con.execute(_ADDITIVE_DDL)
             return
         if have:
             raise StoreError(f"{self.path}: this SQLite file is not an ocrbench run store "
@@ -436,6 +453,74 @@ class RunStore:
                                     "WHERE l.run_id=? AND p.status='done' ORDER BY l.page_id, l.line_no", (run_id,)):
             out[pid].append(text or "")
         return out
+
+    # ------------------------------------------------------------------ post-processed text
+
+    def post_recipe(self, run_id: int) -> str | None:
+        """The recipe of the post-processing whose output is in the run's ``lines.text_post`` (None: none)."""
+        try:
+            row = self.con.execute("SELECT recipe FROM postprocessing WHERE run_id=?", (run_id,)).fetchone()
+        except sqlite3.OperationalError as e:
+            if "no such table" in str(e):          # a version-1 store written before the table, opened read-only
+                return None
+            raise _explain(self.path, e, "reading the run store") from e
+        return None if row is None else str(row[0])
+
+    def set_post_recipe(self, run_id: int, recipe: str | None) -> None:
+        """Record (or, with None, forget) the recipe behind the run's ``text_post`` column."""
+        def do(con):
+            if recipe is None:
+                con.execute("DELETE FROM postprocessing WHERE run_id=?", (run_id,))
+            else:
+                con.execute("INSERT OR REPLACE INTO postprocessing(run_id, recipe, applied_at) VALUES (?, ?, ?)",
+                            (run_id, recipe, now_iso()))
+        self._write("recording the post-processing recipe", do)
+
+    def post_coverage(self, run_id: int) -> tuple[int, int]:
+        """(lines with post-processed text, all lines) over the run's done pages."""
+        row = self._read("SELECT COUNT(l.text_post), COUNT(*) FROM lines l JOIN pages p "
+                         "ON p.run_id=l.run_id AND p.page_id=l.page_id WHERE l.run_id=? AND p.status='done'",
+                         (run_id,))[0]
+        return int(row[0]), int(row[1])
+
+    def done_page_ids(self, run_id: int) -> list[str]:
+        return [r[0] for r in self._read("SELECT page_id FROM pages WHERE run_id=? AND status='done' "
+                                         "ORDER BY page_id", (run_id,))]
+
+    def page_lines(self, run_id: int, page_id: str) -> list[tuple[int, str, float | None, list[float] | None]]:
+        """(line_no, raw text, line confidence, per-character confidences) of one page, in line order."""
+        out = []
+        for no, text, conf, cj in self._read("SELECT line_no, text, confidence, char_conf_json FROM lines "
+                                             "WHERE run_id=? AND page_id=? ORDER BY line_no", (run_id, page_id)):
+            try:
+                chars = json.loads(cj) if cj else None
+            except json.JSONDecodeError:
+                chars = None
+            out.append((int(no), text or "", None if conf is None else float(conf), chars))
+        return out
+
+    def rewrite_post(self, run_id: int, pages: Iterable[tuple[str, Sequence[tuple[int, str | None]]]],
+                     recipe: str | None) -> int:
+        """Replace the run's post-processed text in one transaction; the raw ``text`` is never touched.
+
+        ``pages`` yields (page_id, [(line_no, text_post), ...]) and is consumed
+        inside the transaction (so the column never mixes two recipes); every
+        other line's ``text_post`` is cleared. Returns the lines written.
+        """
+        def do(con):
+            con.execute("UPDATE lines SET text_post=NULL WHERE run_id=?", (run_id,))
+            n = 0
+            for page_id, rows in pages:
+                con.executemany("UPDATE lines SET text_post=? WHERE run_id=? AND page_id=? AND line_no=?",
+                                [(t, run_id, page_id, no) for no, t in rows])
+                n += len(rows)
+            if recipe is None:
+                con.execute("DELETE FROM postprocessing WHERE run_id=?", (run_id,))
+            else:
+                con.execute("INSERT OR REPLACE INTO postprocessing(run_id, recipe, applied_at) VALUES (?, ?, ?)",
+                            (run_id, recipe, now_iso()))
+            return n
+        return int(self._write("writing post-processed text", do))
 
     def read_frames(self, run_ids: Sequence[int] | None = None) -> dict[str, "pd.DataFrame"]:  # noqa: F821
         """The four tables as pandas DataFrames (keys runs, pages, lines, batches), optionally for some runs."""

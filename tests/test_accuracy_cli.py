@@ -113,6 +113,8 @@ def _store_with_two_runs(path, pages):
                                               status="done", n_lines=len(lines)), lines)
             st.write_page(rid, PageRecord(page_id="page_404.png", path="/pages/page_404.png", content_hash=None,
                                           status="failed", error="truncated PNG"))
+            if name == "seq-demo":
+                st.set_post_recipe(rid, "test: the truth itself")
             st.finish_run(rid)
             ids.append(rid)
     return ids
@@ -132,6 +134,11 @@ def test_store_with_several_runs(archive, tmp_path):
     [cmp] = doc["comparisons"]
     assert cmp["winner"] == doc["systems"][0]["system"] and cmp["high"] < 0
 
-    one = json.loads(_score("--truth", truth, "--store", store, "--run", seq, "--post", "--json",
-                            "--boot", 200).stdout)
-    assert one["cer"] == 0 and one["run_id"] == seq     # post-processed text equals the truth here
+    both = json.loads(_score("--truth", truth, "--store", store, "--run", seq, "--post", "--json",
+                             "--boot", 200).stdout)
+    raw, post = both["systems"]                         # --post: raw and post-processed side by side
+    assert raw["run_id"] == post["run_id"] == seq and post["system"].endswith("post-processed")
+    assert post["cer"] == 0 and raw["cer"] > 0          # post-processed text equals the truth here
+    assert both["comparisons"][0]["winner"] == post["system"]
+    r = _score("--truth", truth, "--store", store, "--run", ctc, "--post")
+    assert r.exit_code == 2 and "no post-processed text" in r.output

@@ -1,7 +1,12 @@
-"""``ocrbench postprocess SRC OUT``: apply a post-processing pipeline to a folder of text pages.
+"""``ocrbench postprocess SRC [OUT]``: apply a post-processing pipeline to text pages or to a run store.
 
-The source files are never overwritten: results go to another folder, one
-``.txt`` per page with the same name. The pipeline comes from ``--steps`` or
+For a folder of text pages (or one ``.txt``), the source files are never
+overwritten: results go to OUT, one ``.txt`` per page with the same name.
+For a run store (the SQLite file of ``ocrbench run``), the post-processed
+text of each run (``--run`` to choose) is filled anew from the raw text, which
+is never written; the recipe is recorded with the run, and ``ocrbench score
+--post`` scores the result. With OUT, each run's post-processed pages are also
+written to ``OUT/<recogniser>/<page stem>.txt``. The pipeline comes from ``--steps`` or
 from a TOML file's ``[postprocess]`` table; ``--word-list`` (or the table's
 ``word_list``) gives the lexicon for hyphen joining and word correction.
 Plain text files carry no confidences, so every word counts as below the
@@ -13,7 +18,7 @@ from __future__ import annotations
 import json
 import tomllib
 from pathlib import Path
-from typing import Any
+from typing import Any, Optional
 
 import typer
 from rich.console import Console
@@ -49,8 +54,11 @@ def load_pipeline(*, steps: str | None, config: Path | None, word_list: Path | N
 
 @app.command("postprocess")
 def postprocess(
-    source: Path = typer.Argument(..., help="Folder of .txt pages (or one .txt file) to post-process."),
-    out_dir: Path = typer.Argument(..., help="Folder for the results (created; must differ from the source)."),
+    source: Path = typer.Argument(..., help="Folder of .txt pages, one .txt file, or a run store (.sqlite)."),
+    out_dir: Optional[Path] = typer.Argument(None, help="Folder for the results (created; must differ from the "
+                                                        "source). Optional for a run store."),
+    run: list[int] = typer.Option([], "--run", help="Run store only: the run to post-process (repeat; "
+                                                    "default: every run)."),
     steps: str = typer.Option(None, "--steps", help="Comma-separated step names, e.g. unicode,whitespace,lexicon. "
                               "Default: unicode,whitespace (+ hyphen_join,lexicon with a word list)."),
     config: Path = typer.Option(None, "--config", help="TOML file with a [postprocess] table (steps, options, word_list)."),
@@ -67,6 +75,15 @@ def postprocess(
         raise typer.Exit(EXIT_OK)
     try:
         pipeline = load_pipeline(steps=steps, config=config, word_list=word_list)
+    except OcrbenchError as e:
+        raise fail(str(e), EXIT_USAGE)
+    if is_run_store(source):
+        _postprocess_store(source, out_dir, run, pipeline, as_json)
+    if run:
+        raise fail("--run needs a run store as the source", EXIT_USAGE)
+    if out_dir is None:
+        raise fail(f"{source}: give an output folder for the post-processed text pages", EXIT_USAGE)
+    try:
         files = list_text_files(source)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
@@ -107,4 +124,71 @@ def postprocess(
         out.print(f"{len(pages)} pages written to {out_dir}; {changed} of {total} lines changed", markup=False)
         for f in failed:
             err.print(f"ocrbench: {f['error']}", markup=False, highlight=False)
+    raise typer.Exit(EXIT_SOME_FAILED if failed else EXIT_OK)
+
+
+SQLITE_MAGIC = b"SQLite format 3\x00"     # the first 16 bytes of every SQLite 3 database file
+
+
+def is_run_store(path: Path) -> bool:
+    """True for an SQLite file (a run store, or something to refuse with a clear error when opened)."""
+    try:
+        with open(path, "rb") as f:
+            return path.is_file() and f.read(16) == SQLITE_MAGIC
+    except OSError:
+        return False
+
+
+def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipeline: Pipeline,
+                       as_json: bool) -> None:
+    """Refill the post-processed text of a store's runs; exits (0, or 1 when a page was refused)."""
+    from ocrbench.commands.run import write_texts
+    from ocrbench.runner import apply_postprocess
+    from ocrbench.store import RunStore
+
+    err = Console(stderr=True)
+    results = []
+    written: dict[str, str] = {}
+    try:
+        with RunStore(source) as st:
+            have = st.run_ids()
+            missing = [r for r in runs if r not in have]
+            if missing:
+                raise fail(f"{source}: no run {', '.join(map(str, missing))} in this store "
+                           f"(runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
+            todo = runs or have
+            names = {rid: st.run_info(rid).recogniser for rid in todo}
+            clash = {n for n in names.values() if list(names.values()).count(n) > 1}
+            with Progress(TextColumn("post-processing runs"), BarColumn(), MofNCompleteColumn(), console=err,
+                          transient=True, disable=len(todo) < 2) as progress:
+                task = progress.add_task("postprocess", total=len(todo))
+                for rid in todo:
+                    info = st.run_info(rid)
+                    res = apply_postprocess(st, rid, pipeline)
+                    results.append({"run_id": rid, "recogniser": info.recogniser, "pages": res.pages,
+                                    "lines": res.lines, "changed_lines": res.changed_lines,
+                                    "failed": [{"page_id": p, "error": e} for p, e in res.failures]})
+                    if out_dir is not None:
+                        folder = info.recogniser if info.recogniser not in clash else f"{info.recogniser}-run{rid}"
+                        write_texts(out_dir, folder, st.page_texts(rid, post=True))
+                        written[folder] = str(out_dir / folder)
+                    progress.advance(task)
+    except OcrbenchError as e:
+        raise fail(str(e), EXIT_USAGE)
+    failed = [(r, f) for r in results for f in r["failed"]]
+    if as_json:
+        typer.echo(json.dumps({"recipe": pipeline.recipe, "store": str(source), "runs": results,
+                               "text_out": written or None}, ensure_ascii=False))
+    else:
+        out = Console()
+        out.print(f"recipe: {pipeline.recipe}", markup=False, highlight=False, soft_wrap=True)
+        for r in results:
+            out.print(f"run {r['run_id']} ({r['recogniser']}): {r['pages']} pages, {r['changed_lines']} of "
+                      f"{r['lines']} lines changed; post-processed text stored beside the raw text",
+                      markup=False, highlight=False)
+        for folder in written.values():
+            out.print(f"texts: {folder}", markup=False, highlight=False)
+        for r, f in failed:
+            err.print(f"ocrbench: run {r['run_id']}: {f['page_id']}: post-processing refused this page "
+                      f"({f['error']})", markup=False, highlight=False, soft_wrap=True)
     raise typer.Exit(EXIT_SOME_FAILED if failed else EXIT_OK)

@@ -4,6 +4,12 @@ Every recogniser reads the same line crops of the same pages, so their
 timings and texts compare fairly. Rerunning the same command resumes where it
 stopped; ``--fresh`` starts new runs. ``--text-out DIR`` also writes
 ``DIR/<recogniser>/<page stem>.txt``.
+
+``--postprocess`` (or any of ``--post-steps``, ``--post-config``,
+``--word-list``) post-processes each page as it is read and stores the result
+beside the raw text (``lines.text_post``), which is never overwritten; the
+recipe is recorded with the run. ``ocrbench postprocess STORE`` re-applies
+another recipe later.
 """
 
 from __future__ import annotations
@@ -86,9 +92,22 @@ def run(
                                             help="Read pages on an existing Dask cluster (tcp://HOST:PORT)."),
     pages_per_task: int = typer.Option(1, "--pages-per-task", min=1,
                                        help="With --workers/--scheduler: pages sent to a worker at a time."),
+    postprocess_on: bool = typer.Option(False, "--postprocess",
+                                        help="Post-process each page's text and store it beside the raw text "
+                                             "(steps: unicode,whitespace; with --word-list also "
+                                             "hyphen_join,lexicon). Implied by the three options below."),
+    post_steps: Optional[str] = typer.Option(None, "--post-steps",
+                                             help="Comma-separated post-processing steps (ocrbench postprocess "
+                                                  "--list-steps)."),
+    post_config: Optional[Path] = typer.Option(None, "--post-config",
+                                               help="TOML file with a [postprocess] table (steps, options, "
+                                                    "word_list)."),
+    word_list: Optional[Path] = typer.Option(None, "--word-list",
+                                             help="Word list for post-processing: one entry per line, # comments."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
+    from ocrbench.commands.postprocess import load_pipeline
     from ocrbench.runner import RunOptions, run_pages
     from ocrbench.store import RunStore
 
@@ -100,7 +119,18 @@ def run(
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
     err = Console(stderr=True)
+    pipeline = None
+    if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
+        try:
+            pipeline = load_pipeline(steps=post_steps, config=post_config, word_list=word_list)
+        except OcrbenchError as e:
+            raise fail(str(e), EXIT_USAGE)
     try:
+        if not store.parent.exists():
+            try:
+                store.parent.mkdir(parents=True)
+            except OSError as e:
+                raise fail(f"{store}: cannot create the store's folder: {e.strerror or e}", EXIT_USAGE)
         engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
                                graph_optimisation=graph_optimisation, providers=tuple(provider),
                                batch_size=batch_size, decoding=decoding,
@@ -112,14 +142,15 @@ def run(
                 task = bar.add_task("loading recognisers", total=None, lps="-")
                 if workers is None and scheduler is None:
                     summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                        progress=_Progress(bar, task), fresh=fresh)
+                                        progress=_Progress(bar, task), fresh=fresh, postprocess=pipeline)
                 else:
                     from ocrbench.distributed import DaskOptions, run_distributed
 
                     dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
                                        scheduler=scheduler, pages_per_task=pages_per_task)
                     summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                              dask=dask, progress=_Progress(bar, task), fresh=fresh)
+                                              dask=dask, progress=_Progress(bar, task), fresh=fresh,
+                                              postprocess=pipeline)
             written = {}
             if text_out is not None:
                 for r in summary.recognisers:
@@ -152,7 +183,19 @@ def run(
         out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
                   f"{summary.wall_seconds:.1f} s; store: {store}")
         if text_out is not None:
-            out.print(f"texts: {', '.join(str(text_out / k) for k in written)}")
+            out.print(f"texts{' (post-processed)' if pipeline is not None else ''}: "
+                      f"{', '.join(str(text_out / k) for k in written)}")
+        if pipeline is not None:
+            out.print(f"post-processed text stored beside the raw text; recipe: {pipeline.recipe}", markup=False,
+                      highlight=False, soft_wrap=True)
+    for r in summary.recognisers:
+        for page_id, error in r.post_failures:
+            err.print(f"ocrbench: {r.name}: {page_id}: post-processing refused this page ({error}); its raw text "
+                      "is kept", markup=False, highlight=False, soft_wrap=True)
+        if r.post_incomplete:
+            err.print(f"ocrbench: {r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed "
+                      f"text (pages added without post-processing); refill with: ocrbench postprocess {store} "
+                      f"--run {r.run_id}", markup=False, highlight=False, soft_wrap=True)
     for r in summary.recognisers:
         for page_id, error in r.failures:
             err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False, soft_wrap=True)

@@ -11,7 +11,9 @@ folder, or a store with one run or one ``--run``) the corpus figures are
 top-level fields (``cer``, ``cer_low``, ``cer_high``, ``wer``, …, ``classes``,
 ``recipe``) next to ``unpaired`` and ``unreadable``. For several runs the object
 holds ``systems`` (one such object each) and ``comparisons`` (paired CER
-comparisons of every two runs on their common pages).
+comparisons of every two runs on their common pages). ``--post`` scores each
+run's raw and post-processed text side by side (two systems per run), so the
+comparisons include post-processing's paired effect.
 """
 
 from __future__ import annotations
@@ -91,11 +93,22 @@ def _store_systems(store_path: Path, truth: Path, runs: list[int] | None, post: 
         systems = []
         for rid in ids:
             info = store.run_info(rid)
-            texts = store.page_texts(rid, post=post)
-            pairing = pair_store_pages(truth, texts.keys())
-            label = f"{info.recogniser} (run {rid})" + (" post-processed" if post else "")
-            systems.append(_System(label, rid, info.card_hash, pairing, texts.__getitem__,
-                                   store.failed_pages(rid)))
+            if post and store.post_recipe(rid) is None:
+                raise fail(f"{store_path}: run {rid} ({info.recogniser}) has no post-processed text; make it with "
+                           f"'ocrbench postprocess {store_path} --run {rid}' or 'ocrbench run ... --postprocess'",
+                           EXIT_USAGE)
+            for as_post in ((False, True) if post else (False,)):
+                texts = store.page_texts(rid, post=as_post)
+                pairing = pair_store_pages(truth, texts.keys())
+                label = f"{info.recogniser} (run {rid})" + (" post-processed" if as_post else "")
+                systems.append(_System(label, rid, info.card_hash, pairing, texts.__getitem__,
+                                       store.failed_pages(rid)))
+            if post:
+                with_post, n = store.post_coverage(rid)
+                if with_post < n:
+                    Console(stderr=True).print(
+                        f"ocrbench: run {rid}: {n - with_post} of {n} lines have no post-processed text and are "
+                        "scored raw", markup=False, highlight=False, soft_wrap=True)
         return systems
     finally:
         store.close()
@@ -205,7 +218,8 @@ def score_cmd(
     profile: str = typer.Option("nfc", "--profile", help="Normalisation: exact, nfc, loose or ledger."),
     out: Optional[Path] = typer.Option(None, "--out", help="Folder for lines/pages/confusions/amounts tables "
                                                            "(CSV and Parquet) and summary.json."),
-    post: bool = typer.Option(False, "--post", help="Store only: score the post-processed text where present."),
+    post: bool = typer.Option(False, "--post", help="Store only: score each run's raw and post-processed text "
+                                                    "side by side (with their paired comparison)."),
     top: int = typer.Option(10, "--top", min=0, help="How many confusion pairs to show and report."),
     no_classes: bool = typer.Option(False, "--no-classes", help="Distances only: skip the alignment, so no "
                                                                 "classes, confusions or amounts (faster)."),
