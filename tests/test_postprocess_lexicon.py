@@ -141,3 +141,13 @@ def test_word_list_file(tmp_path):
 def test_unknown_words():
     lex = Lexicon.from_words(["Tarnby", "hemp"])
     assert unknown_words("Jan 9 L. Tarnby hemp 12.50", lex) == (3, 1)     # Jan unknown; "L." too short
+
+
+def test_an_initial_run_into_a_name_is_never_deleted():
+    # Seen on the demo archive: "F.Wexham" (recogniser lost the space after the initial) was within two
+    # edits of the listed "Wexham" and lost its initial. Only the part after an inner full stop is checked.
+    lex = Lexicon.from_words(["Wexham", "Pencott"])
+    assert correct_line("13 Dec F.Wexham freight", lex, line_confidence=0.1)[0] == "13 Dec F.Wexham freight"
+    text, _, fixes = correct_line("May 18 G.Pencot soap", lex, line_confidence=0.1)
+    assert text == "May 18 G.Pencott soap" and [(f.old, f.new) for f in fixes] == [("Pencot", "Pencott")]
+    assert unknown_words("F.Wexham G.Pencott", lex) == (2, 0)

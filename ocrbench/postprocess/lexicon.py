@@ -22,6 +22,10 @@ Rules, in order (each a reason a token is left alone):
    distance) must be within ``max_distance`` edits and within ``max_share`` of
    the token's length, and must be the only word at that distance (a tie is
    ambiguous, so nothing changes).
+6. In a token with a full stop inside (``F.Wexham``: an initial run into the
+   name, ``Co.Ltd``), only the part after the last inner full stop is a word
+   to check; what precedes it is never changed. Matched whole, the initial
+   would count as two edits and could be deleted to reach a listed name.
 """
 
 from __future__ import annotations
@@ -158,9 +162,14 @@ class Token:
 
 
 def tokens(text: str) -> list[Token]:
+    """Whitespace-separated tokens; a token's core starts after its last inner full stop (rule 6)."""
     out = []
     for m in re.finditer(r"\S+", text):
-        a, b = core_span(m.group(0))
+        tok = m.group(0)
+        a, b = core_span(tok)
+        stop = tok.rfind(".", a, b)
+        if stop >= 0:
+            a = stop + 1
         out.append(Token(m.start(), m.end(), m.start() + a, m.start() + b))
     return out
 
