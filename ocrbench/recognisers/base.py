@@ -279,6 +279,23 @@ class Recogniser:
         raise NotImplementedError
 
 
+#: Warm-up lines are this many line heights wide (about the widest ledger line seen on the demo pages).
+WARM_UP_WIDTH_HEIGHTS = 48
+
+
+def warm_up_lines(spec: InputSpec, batch_size: int) -> list[np.ndarray]:
+    """Blank lines for a warm-up batch as large as real ones (``batch_size`` lines, capped at 32, wide).
+
+    onnxruntime plans and allocates memory for a shape when it first sees it; a
+    warm-up on one small line left that cost to the first real batches (measured:
+    the first demo page's model time per pixel 25-30 % above the others'), and so
+    to every short calibration. Warming up on a full-size batch moves it out of
+    the timings.
+    """
+    w = max(spec.min_width, min(spec.max_width, WARM_UP_WIDTH_HEIGHTS * spec.height))
+    return [np.full((spec.height, w), 255, np.uint8)] * max(1, min(32, batch_size))
+
+
 def share_time(total: float, weights: Sequence[float]) -> list[float]:
     """Split ``total`` in proportion to ``weights`` (equal shares when all weights are 0)."""
     s = float(sum(weights))

@@ -29,7 +29,7 @@ from typing import Sequence
 import numpy as np
 
 from ocrbench.recognisers.base import (BatchTiming, Clock, EngineOptions, LineResult, PreparedBatch, Recogniser,
-                                       make_session, share_time, valid_frames)
+                                       make_session, share_time, valid_frames, warm_up_lines)
 from ocrbench.recognisers.card import Card
 
 NEG_INF = float("-inf")
@@ -231,3 +231,4 @@ class CtcRecogniser(Recogniser):
         w = max(self.spec.min_width, 32 * self.spec.width_multiple)
         blank = np.full((self.spec.height, w), 255, np.uint8)
         self.recognise([blank, blank[:, : w // 2]])
+        self.recognise(warm_up_lines(self.spec, self.options.batch_size))

@@ -32,7 +32,7 @@ import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
 from ocrbench.recognisers.base import (BatchTiming, Clock, EngineOptions, LineResult, PreparedBatch, Recogniser,
-                                       make_session, onnx_dtype, share_time, valid_frames)
+                                       make_session, onnx_dtype, share_time, valid_frames, warm_up_lines)
 from ocrbench.recognisers.card import Card
 
 
@@ -360,7 +360,7 @@ class SeqRecogniser(Recogniser):
     def warm_up(self) -> None:
         w = max(self.spec.min_width, 32 * self.spec.width_multiple)
         blank = np.full((self.spec.height, w), 255, np.uint8)
-        for pb in self.prepare([blank, blank[:, : w // 2]]):
+        for pb in self.prepare([blank, blank[:, : w // 2]] + warm_up_lines(self.spec, self.options.batch_size)):
             _, timing = self.run_batch(pb, max_tokens=3)
         # a vocabulary axis left free in the graph is checked here, on real output
         memory, mask = self.encode(self.prepare([blank])[0].tensor, np.array([w]))
