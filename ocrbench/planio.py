@@ -73,6 +73,7 @@ workers = 1
 [simulation]
 draws = 2000
 seed = 0
+speed_drift = 0.08                         # machine speed spread between calibration and run (0: dedicated machine)
 """
 
 
@@ -344,6 +345,7 @@ class PlanRequest:
     profiles: dict[str, dict] = field(default_factory=dict)
     draws: int = 2000
     seed: int = 0
+    speed_drift: float = P.SPEED_DRIFT
 
 
 def _page_size(v) -> tuple[int, int] | None:
@@ -403,7 +405,8 @@ def load_plan_file(path: Path | str) -> PlanRequest:
         correction_price_hour=c.get("price_hour"), truth=rel(c.get("truth")),
         cer_margin=float(c.get("cer_margin", P.DEFAULT_CER_MARGIN)),
         accuracy=dict(doc.get("accuracy", {})), profiles=dict(doc.get("profiles", {})),
-        draws=int(s.get("draws", 2000)), seed=int(s.get("seed", 0)))
+        draws=int(s.get("draws", 2000)), seed=int(s.get("seed", 0)),
+        speed_drift=float(s.get("speed_drift", P.SPEED_DRIFT)))
     return req
 
 
@@ -489,7 +492,8 @@ def run_request(req: PlanRequest, *, progress: Callable[[str], None] | None = No
                           correction=P.Correction(seconds_per_error=req.seconds_per_error,
                                                   price_hour=req.correction_price_hour),
                           accuracy=accuracy, sample_sizes=sample_sizes, scaling=scaling,
-                          resources_by_profile=by_profile, draws=req.draws, seed=req.seed)
+                          resources_by_profile=by_profile, draws=req.draws, seed=req.seed,
+                          speed_drift=req.speed_drift)
     say("simulating the archive")
     table = P.make_plan(models, inputs)
     table.attrs["sample_sizes"] = sample_sizes

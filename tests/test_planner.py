@@ -288,7 +288,8 @@ def test_cost_arithmetic_hand_worked():
         archive=archive, resources=P.Resources(workers=2, price_core_hour=0.12),
         goals=P.Goals(deadline_s=60.0, budget=2000.0),
         correction=P.Correction(seconds_per_error=10.0, price_hour=20.0),
-        accuracy={"demo-ctc": P.AccuracyInput(0.02, 0.015, 0.03)}, scaling={"demo-ctc": sc}, draws=50)
+        accuracy={"demo-ctc": P.AccuracyInput(0.02, 0.015, 0.03)}, scaling={"demo-ctc": sc}, draws=50,
+        speed_drift=0.0)                                   # exact figures: no machine drift in the draws
     plan = P.make_plan([m], inputs)
     r = plan.iloc[0]
     # store timestamps carry microseconds, so the per-page gap is known to ~1 us: rel 1e-5
@@ -425,7 +426,7 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
     for cv in (0.0, 0.10):
         m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=20, session={
             "gap_seconds_per_page": GAP, "startup_seconds": STARTUP, "speed_cv": cv, "sessions": 3})
-        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=1000)).iloc[0]
+        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=1000, speed_drift=0.0)).iloc[0]
         band[cv] = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
     # P10-P90 of a normal factor with sd 0.10 spans 2 x 1.2816 x 0.10 = 0.256 (normal quantiles)
     assert band[0.0] < 0.05 and 0.2 < band[0.10] < 0.32
@@ -440,9 +441,10 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
 def test_pages_overlapped_by_loading_ahead():
     """A runner that loads the next page while recognising this one hides part of the shorter of the two.
 
-    Fake session: each page's wall time is batch + overhead - 0.6 * min(batch, overhead). The
-    session's span (all the planner is told besides the store) must give back 0.6, and the
-    held-out prediction must follow the same rule.
+    Fake session: each page's wall time is batch + overhead - 0.6 * min(batch, overhead), except the
+    first page's, whose loading nothing can hide (the runner's prefetch starts with it). The session's
+    span (all the planner is told besides the store) must give back 0.6, and the held-out prediction
+    must follow the same rule.
     """
     phi = 0.6
 
@@ -452,8 +454,9 @@ def test_pages_overlapped_by_loading_ahead():
         bsum = b.groupby("page_id")["bt"].sum()
         pg = pd.DataFrame(t["pages"]).set_index("page_id")
         o = pg["t_total"] - bsum.reindex(pg.index).fillna(0)
-        return float((pg["t_total"] - phi * np.minimum(bsum.reindex(pg.index).fillna(0), o)).sum()), float(
-            pg["t_total"].sum())
+        hidden = phi * np.minimum(bsum.reindex(pg.index).fillna(0), o)
+        hidden.iloc[0] = 0.0                                # the first page: nothing loads ahead of it
+        return float((pg["t_total"] - hidden).sum()), float(pg["t_total"].sum())
 
     calib = run_fake("ctc", fake_pages(10, seed=21), FakeClock(), run_id=1, recogniser="r")
     span, busy = span_of(calib)
@@ -522,3 +525,20 @@ def test_bad_inputs_raise_plan_errors():
         P.Archive(n_pages=0, source="x", lines_per_page=(1, 2), chars_per_line=(1, 2))
     with pytest.raises(PlanError):
         P.AccuracyInput(0.1, 0.2, 0.3)
+
+
+def test_default_speed_drift_widens_the_band_as_a_normal_factor():
+    """Without a measured session spread, the default drift (coefficient of variation 0.08) still widens the
+    band: P10-P90 of a normal factor with sd 0.08 spans 2 x 1.2816 x 0.08 = 0.205 of the median (normal
+    quantiles); a larger measured spread wins over the default."""
+    frames = calibrate(noise=0.0, kinds=("ctc",))
+    archive = P.Archive.from_numbers(5000, "24", "40", page_size=(1100, 1430))
+    band = {}
+    for cv in (0.0, 0.15):
+        m = P.fit_cost_model(frames, "demo-ctc", n_boot=20, session={"speed_cv": cv, "sessions": 3,
+                                                                     "gap_seconds_per_page": 0.0})
+        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=2000)).iloc[0]
+        band[cv] = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
+    assert 0.17 < band[0.0] < 0.24 and 0.33 < band[0.15] < 0.45      # 2 x 1.2816 x 0.15 = 0.384
+    with pytest.raises(PlanError):
+        P.PlanInputs(archive=archive, speed_drift=1.5)

@@ -126,6 +126,10 @@ def plan(
                                                help="Wanted half-width of the CER interval (default 0.005)."),
     draws: Optional[int] = typer.Option(None, "--draws", min=50, help="Monte Carlo draws (default 2000)."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Random seed of the simulation."),
+    speed_drift: Optional[float] = typer.Option(None, "--speed-drift", min=0.0, max=0.99,
+                                                help="How much the machine's speed may differ between calibration "
+                                                     "and run, as a coefficient of variation (default 0.08, "
+                                                     "measured on a shared virtual machine; 0 for a dedicated one)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Plan an archive: wall-clock P10/P50/P90, core-hours, money, correction hours, deadline and budget fit."""
@@ -145,7 +149,7 @@ def plan(
             "machines": machines, "deadline": deadline, "budget": budget, "price_core_hour": price_core_hour,
             "price_machine_hour": price_machine_hour, "seconds_per_error": seconds_per_error,
             "correction_price_hour": correction_price_hour, "truth": truth, "cer_margin": cer_margin,
-            "draws": draws, "seed": seed})
+            "draws": draws, "seed": seed, "speed_drift": speed_drift})
         with err.status("planning") as status:
             result = planio.run_request(req, progress=lambda m: status.update(m))
     except OcrbenchError as e:

@@ -200,7 +200,8 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
     goals = P.Goals(deadline_s=P.parse_duration(req.deadline) if req.deadline else None, budget=req.budget)
     correction = P.Correction(seconds_per_error=req.seconds_per_error, price_hour=req.correction_price_hour)
     inputs = P.PlanInputs(archive=archive, resources=res, goals=goals, correction=correction, accuracy=acc,
-                          sample_sizes=sizes, scaling=scaling, draws=req.draws, seed=req.seed)
+                          sample_sizes=sizes, scaling=scaling, draws=req.draws, seed=req.seed,
+                          speed_drift=req.speed_drift)
     table = P.make_plan(models, inputs)
     rows = {str(rec["recogniser"]): {k: _clean(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
 
@@ -208,7 +209,7 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
     curve = []
     axis = set()
     for i, m in enumerate(models):
-        est = P.estimate_serial(m, archive, draws=req.draws, seed=req.seed + i)
+        est = P.estimate_serial(m, archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift)
         sc = scaling.get(f"{m.profile}/{m.recogniser}") or scaling.get(m.recogniser)
         cores = int(m.host.get("cores") or 1) // int(req.threads or m.threads or 1)
         for total, per, machines in _curve_points(cores, sc is not None, curve_max_workers):

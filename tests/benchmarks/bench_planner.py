@@ -15,8 +15,13 @@ Procedure (issue 6, "Validation"):
 Extra lines (for information): the same prediction from a 15-page sample of
 the held-out set, and from numbers only (pages, lines per page, characters).
 
-Run:  .venv/bin/python tests/benchmarks/bench_planner.py [--calib-pages 10] [--held-pages 60]
+Run:  .venv/bin/python tests/benchmarks/bench_planner.py [--rounds 3] [--calib-pages 10] [--held-pages 60]
       [--models DIR] [--work DIR] [--json]
+
+``--rounds``: the whole validation is repeated (default 3) and summarised by the median |P50 error| and
+the share of rounds whose measured time fell inside P10-P90. On a shared machine one round's error mixes
+the planner's error with the machine's own drift between calibration and run (measured here: the same
+pages' time varied by 5-10 % between runs minutes apart), so a single round says little.
 Until the runner and the demo models exist it says what is missing and exits with 2.
 """
 
@@ -93,6 +98,37 @@ def cpu_share(fn):
 
 
 def main(argv=None) -> int:
+    """``--rounds`` whole validations one after another (calibrate, predict, run; a fresh calibration each),
+    then the summary: the median |P50 error| and how many rounds held the measured time inside P10-P90."""
+    ap = argparse.ArgumentParser(add_help=False)
+    ap.add_argument("--rounds", type=int, default=3)
+    a, rest = ap.parse_known_args(argv)
+    results = []
+    for r in range(a.rounds):
+        print(f"\n=== round {r + 1} of {a.rounds} ===", flush=True)
+        code, out = validate(rest)
+        if code:
+            return code
+        results.append(out)
+    if "--json" in rest:
+        return 0
+    import statistics
+
+    print(f"\nSummary over {a.rounds} rounds (each: a fresh calibration, a prediction, a run of the held-out pages)")
+    for kind in dict.fromkeys(o["kind"] for out in results for o in out):
+        errs = [o["rel_error"] for out in results for o in out if o["kind"] == kind]
+        inside = [o["inside_p10_p90"] for out in results for o in out if o["kind"] == kind]
+        med = statistics.median(abs(e) for e in errs)
+        print(f"  {kind}: P50 errors {', '.join(f'{100 * e:+.1f}%' for e in errs)}; median |error| {100 * med:.1f}%; "
+              f"measured inside P10-P90 in {sum(inside)} of {len(inside)}")
+        print(f"RATIO planner_p50_abs_error_median_{kind} {med:.3f} <={TARGET:g}")
+        # an 80 % band (P10-P90) should hold the measured time in about 4 rounds of 5
+        print(f"RATIO planner_measured_inside_p10_p90_share_{kind} {sum(inside) / len(inside):.3f} >=0.8")
+    return 0
+
+
+def validate(argv=None) -> tuple[int, list]:
+    """One validation round; returns (exit code, one result row per recogniser)."""
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--calib-pages", type=int, default=10)
     ap.add_argument("--held-pages", type=int, default=60)
@@ -111,7 +147,7 @@ def main(argv=None) -> int:
     missing = prerequisites(a.models, a.recognisers)
     if missing:
         print("bench_planner: cannot run yet; missing:\n  - " + "\n  - ".join(missing), file=sys.stderr)
-        return 2
+        return 2, []
 
     from ocrbench import planio
     from ocrbench import planner as P
@@ -196,7 +232,7 @@ def main(argv=None) -> int:
                           "warnings": full.attrs.get("warnings"), "plan_seconds": t_plan,
                           "machine": {k: {"cpu_share": v[0], "load_1min": v[1]} for k, v in machine.items()}},
                          indent=1))
-        return 0
+        return 0, out
     print(f"\nPlanner validation: calibrated on {a.calib_pages} pages (timed {a.repeats}x), predicting "
           f"{a.held_pages} held-out pages with twice the lines per page (one worker, {a.threads} thread(s))")
     print(f"{'recogniser':<12}{'kind':<5}{'P10 s':>9}{'P50 s':>9}{'P90 s':>9}{'measured':>10}{'error':>8}"
@@ -221,10 +257,7 @@ def main(argv=None) -> int:
     for w in full.attrs.get("warnings", []):
         print("warning:", w)
     print(f"(planning took {t_plan:.1f} s; work folder {work})")
-    for o in out:                     # one line per figure for tests/benchmarks/run_all.py
-        print(f"RATIO planner_p50_abs_error_{o['kind']} {abs(o['rel_error']):.3f} <={TARGET:g}")
-        print(f"RATIO planner_measured_inside_p10_p90_{o['kind']} {int(o['inside_p10_p90'])} >=1")
-    return 0
+    return 0, out
 
 
 if __name__ == "__main__":

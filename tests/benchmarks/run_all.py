@@ -39,7 +39,7 @@ QUICK_ARGS = {
     "bench_memory": ["--quick"],
     "bench_runner": ["--pages", "2", "--repeats", "2"],
     "bench_accuracy": ["--pages", "300", "--repeats", "2"],
-    "bench_planner": ["--calib-pages", "6", "--held-pages", "20"],
+    "bench_planner": ["--rounds", "1", "--calib-pages", "6", "--held-pages", "20"],
     "bench_pages": ["4"],
     "bench_postprocess": ["--pages", "6", "--boot", "500"],
 }
