@@ -121,6 +121,13 @@ def test_small_difference_on_few_pages_names_no_winner():
     assert r["low"] < 0 < r["high"] and r["winner"] is None and r["p_value"] > 0.05
 
 
+def test_two_pages_that_both_improved_show_no_winner():
+    # Seen on a two-page run: every resample of two improved pages lies below zero, so the percentile
+    # interval excluded zero while the p-value (t with 1 degree of freedom) was 0.3. A winner needs both.
+    r = paired_comparison(_frame([20, 25], [1000, 1200]), _frame([2, 3], [1000, 1200]), names=("raw", "post"))
+    assert r["low"] > 0 and r["p_value"] > 0.05 and r["winner"] is None
+
+
 def test_p_value_agrees_with_the_interval():
     # The p-value is the smallest 1 - level whose interval touches zero, so
     # "interval excludes 0 at 95%" and "p < 0.05" must agree (up to resampling grain).

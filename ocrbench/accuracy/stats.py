@@ -235,8 +235,9 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
     (two-sided, the smallest 1 − level at which that interval would touch zero:
     g = share of resampled differences on the far side of zero, +1 corrected so
     never 0; z = Φ⁻¹(1 − g); p = 2·(1 − T_{n−1}(z / √(n/(n−1))))), ``winner``
-    (the name with the lower rate, only when the interval excludes zero, else
-    ``None``), the two rates and the page counts. Fewer than 2 common pages give
+    (the name with the lower rate, only when the interval excludes zero and the
+    p-value is below 1 − level, else ``None``; on very few pages the two can
+    disagree), the two rates and the page counts. Fewer than 2 common pages give
     no interval and no winner.
     """
     if metric not in _METRIC_COLUMNS:
@@ -281,7 +282,10 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
         z = NormalDist().inv_cdf(1 - g) / math.sqrt(n / (n - 1))
         p = min(1.0, 2 * (1 - t_cdf(z, n - 1)))
     winner = None
-    if low is not None and high is not None:
+    # On very few pages the bootstrap cannot spread beyond the observed pages (two pages that both
+    # improved give an interval on one side of zero), while the p-value's t correction for n - 1
+    # degrees of freedom still says "not shown": a winner needs both.
+    if low is not None and high is not None and p < 1 - level:
         if high < 0:
             winner = names[0]
         elif low > 0:
