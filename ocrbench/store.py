@@ -466,6 +466,18 @@ class RunStore:
             raise _explain(self.path, e, "reading the run store") from e
         return None if row is None else str(row[0])
 
+    def post_recipes(self) -> "pd.DataFrame":  # noqa: F821
+        """The ``postprocessing`` table (run_id, recipe, applied_at); empty in a store written before it."""
+        import pandas as pd
+
+        try:
+            rows = self.con.execute("SELECT run_id, recipe, applied_at FROM postprocessing ORDER BY run_id").fetchall()
+        except sqlite3.OperationalError as e:
+            if "no such table" not in str(e):
+                raise _explain(self.path, e, "reading the run store") from e
+            rows = []
+        return pd.DataFrame(rows, columns=["run_id", "recipe", "applied_at"])
+
     def set_post_recipe(self, run_id: int, recipe: str | None) -> None:
         """Record (or, with None, forget) the recipe behind the run's ``text_post`` column."""
         def do(con):
@@ -544,7 +556,8 @@ class RunStore:
 
 
 def export(store_path: Path | str, out_dir: Path | str, fmt: str = "parquet") -> list[Path]:
-    """Write runs, pages, lines and batches of a store to ``out_dir`` as Parquet or CSV files."""
+    """Write runs, pages, lines, batches and postprocessing (each run's recipe behind ``lines.text_post``)
+    of a store to ``out_dir`` as Parquet or CSV files."""
     if fmt not in ("parquet", "csv"):
         raise StoreError(f"export format must be 'parquet' or 'csv', not {fmt!r}")
     out = Path(out_dir)
@@ -554,6 +567,7 @@ def export(store_path: Path | str, out_dir: Path | str, fmt: str = "parquet") ->
         raise StoreError(f"{out}: cannot create the export folder ({e.strerror})") from e
     with RunStore(store_path, read_only=True) as st:
         frames = st.read_frames()
+        frames["postprocessing"] = st.post_recipes()
     written = []
     for name, df in frames.items():
         p = out / f"{name}.{fmt}"

@@ -275,7 +275,8 @@ def test_export_command(pages, cards, tmp_path):
     res = CliRunner().invoke(app, ["export", str(db), "--out", str(tmp_path / "x"), "--format", "csv", "--json"])
     assert res.exit_code == 0, res.output
     files = json.loads(res.stdout)["files"]
-    assert [Path(f).name for f in files] == ["runs.csv", "pages.csv", "lines.csv", "batches.csv"]
+    assert [Path(f).name for f in files] == ["runs.csv", "pages.csv", "lines.csv", "batches.csv",
+                                             "postprocessing.csv"]
     res = CliRunner().invoke(app, ["export", str(tmp_path / "missing.sqlite"), "--out", str(tmp_path / "y")])
     assert res.exit_code == 2 and "not found" in res.stderr
 

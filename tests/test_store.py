@@ -114,9 +114,13 @@ def test_export_round_trip(tmp_path, fmt):
     with RunStore(tmp_path / "s.sqlite") as st:
         run = new_run(st)
         page(st, run, "a.png", ["Cash £12 4s 6½d", "Folio 3"], post=["Cash £12 4s 6½d", "Folio 3"])
+        st.set_post_recipe(run, "pp1|whitespace")
         frames = st.read_frames()
+        frames["postprocessing"] = st.post_recipes()
+    assert frames["postprocessing"]["recipe"].tolist() == ["pp1|whitespace"]
     files = export(tmp_path / "s.sqlite", tmp_path / "out", fmt)
-    assert [p.name for p in files] == [f"{t}.{fmt}" for t in ("runs", "pages", "lines", "batches")]
+    assert [p.name for p in files] == [f"{t}.{fmt}" for t in ("runs", "pages", "lines", "batches",
+                                                              "postprocessing")]
     for p in files:
         back = pd.read_csv(p, encoding="utf-8") if fmt == "csv" else pd.read_parquet(p)
         want = frames[p.stem]
