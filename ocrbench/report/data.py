@@ -273,6 +273,7 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
         sel = _select_runs(frames["runs"], run_ids)
         texts = {int(r): st.page_texts(int(r)) for r in sel["run_id"]}
         post_texts = {int(r): st.page_texts(int(r), post=True) for r in sel["run_id"]}
+        recipes = {int(r): st.post_recipe(int(r)) for r in sel["run_id"]}
 
     pages_f, lines_f = frames["pages"], frames["lines"]
     runs: list[dict] = []
@@ -291,6 +292,7 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
             "pages_done": int(len(done)), "pages_failed": int((pg["status"] == "failed").sum()),
             "lines": int(len(ln)), "chars": int(ln["n_chars"].fillna(0).sum()),
             "has_post": bool(ln["text_post"].notna().any()) if len(ln) else False,
+            "post_recipe": recipes.get(rid),
             "failures": [{"page_id": p, "error": e} for p, e in
                          pg.loc[pg["status"] == "failed", ["page_id", "error"]].itertuples(index=False)],
         }

@@ -135,6 +135,7 @@ def _side_by_side(s: Mapping) -> str:
             [_interval(s, f"recognisers.{i}.accuracy.digit_error_rate", f"recognisers.{i}.accuracy.digit_low",
                        f"recognisers.{i}.accuracy.digit_high", "pct") for i in range(len(runs))])
     if has_post:
+        row("post-processing recipe", [f"<code>{_e(r.get('post_recipe') or 'none')}</code>" for r in runs])
         p = "accuracy_post"
         row("CER, post-processed", [_interval(s, f"recognisers.{i}.{p}.cer", f"recognisers.{i}.{p}.cer_low",
                                               f"recognisers.{i}.{p}.cer_high", "pct") for i in range(len(runs))])
