@@ -348,6 +348,15 @@ class PlanRequest:
     speed_drift: float = P.SPEED_DRIFT
 
 
+def page_size_or_calibrated(size: tuple[int, int] | None, ref: P.CostModel) -> tuple[int, int]:
+    """``size``, else a page of the calibration's middle pixel count at the 1 : 1.3 shape of a ledger leaf."""
+    if size is not None:
+        return size
+    lo, hi = ref.ranges["page pixels"]
+    side = math.sqrt((lo + hi) / 2 / 1.3)
+    return int(side), int(1.3 * side)
+
+
 def _page_size(v) -> tuple[int, int] | None:
     if v is None:
         return None
@@ -449,12 +458,8 @@ def run_request(req: PlanRequest, *, progress: Callable[[str], None] | None = No
     else:
         if req.pages is None or req.chars_per_line is None:
             raise PlanError("--pages and --chars-per-line are needed with --lines-per-page")
-        size = req.page_size
-        if size is None:
-            lo, hi = ref.ranges["page pixels"]
-            side = math.sqrt((lo + hi) / 2 / 1.3)
-            size = (int(side), int(1.3 * side))
-        archive = P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line, page_size=size)
+        archive = P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line,
+                                         page_size=page_size_or_calibrated(req.page_size, ref))
 
     accuracy: dict[str, P.AccuracyInput] = {}
     sample_sizes: dict[str, dict] = {}

@@ -558,24 +558,25 @@ class CostModel:
     split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
 
-    def page_times(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
-        """Wall time of pages given their feature rows (layout :data:`COEF_NAMES`)."""
+    def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per page: batch time, page overhead, and the part of them loading ahead hides."""
         c = self.coef if coef is None else coef
         b = X[:, :_NB] @ c[:_NB]
         o = X[:, _NB:_NB + _NP] @ c[_NB:_NB + _NP]
-        t = b + o + X[:, -1] * c[-1]
-        if self.overlap:
-            t = t - self.overlap * np.minimum(b, np.maximum(o, 0.0))
-        return t
+        hidden = self.overlap * np.minimum(b, np.maximum(o, 0.0)) if self.overlap else np.zeros_like(b)
+        return b, o, hidden
+
+    def page_times(self, X: np.ndarray, coef: np.ndarray | None = None) -> np.ndarray:
+        """Wall time of pages given their feature rows (layout :data:`COEF_NAMES`)."""
+        b, o, hidden = self._parts(X, coef)
+        c = self.coef if coef is None else coef
+        return b + o + X[:, -1] * c[-1] - hidden
 
     def first_page_extra(self, X: np.ndarray, coef: np.ndarray | None = None) -> float:
         """What :meth:`page_times` hides for a page that cannot hide it: a run's first page (mean page)."""
         if not self.overlap or len(X) == 0:
             return 0.0
-        c = self.coef if coef is None else coef
-        b = X[:, :_NB] @ c[:_NB]
-        o = X[:, _NB:_NB + _NP] @ c[_NB:_NB + _NP]
-        return float(self.overlap * np.minimum(b, np.maximum(o, 0.0)).mean())
+        return float(self._parts(X, coef)[2].mean())
 
     # ---- reporting
     def fit_table(self) -> pd.DataFrame:

@@ -101,11 +101,6 @@ CREATE TABLE IF NOT EXISTS batches(
     t_collapse REAL,
     PRIMARY KEY (run_id, page_id, batch_no)
 );
-CREATE TABLE IF NOT EXISTS postprocessing(
-    run_id INTEGER PRIMARY KEY,
-    recipe TEXT NOT NULL,
-    applied_at TEXT
-);
 """
 
 #: Added after schema version 1 was first written; created in older version-1 stores when they are opened
@@ -117,6 +112,7 @@ CREATE TABLE IF NOT EXISTS postprocessing(
     applied_at TEXT
 )
 """
+_DDL += _ADDITIVE_DDL
 
 
 def now_iso() -> str:
@@ -456,37 +452,38 @@ class RunStore:
 
     # ------------------------------------------------------------------ post-processed text
 
+    def _read_recipes(self, where: str = "", params: Sequence = ()) -> list[tuple]:
+        """Rows of ``postprocessing``; none in a version-1 store written before the table, opened read-only."""
+        try:
+            return self.con.execute(f"SELECT run_id, recipe, applied_at FROM postprocessing{where} ORDER BY run_id",
+                                    params).fetchall()
+        except sqlite3.OperationalError as e:
+            if "no such table" in str(e):
+                return []
+            raise _explain(self.path, e, "reading the run store") from e
+
     def post_recipe(self, run_id: int) -> str | None:
         """The recipe of the post-processing whose output is in the run's ``lines.text_post`` (None: none)."""
-        try:
-            row = self.con.execute("SELECT recipe FROM postprocessing WHERE run_id=?", (run_id,)).fetchone()
-        except sqlite3.OperationalError as e:
-            if "no such table" in str(e):          # a version-1 store written before the table, opened read-only
-                return None
-            raise _explain(self.path, e, "reading the run store") from e
-        return None if row is None else str(row[0])
+        rows = self._read_recipes(" WHERE run_id=?", (run_id,))
+        return str(rows[0][1]) if rows else None
 
     def post_recipes(self) -> "pd.DataFrame":  # noqa: F821
         """The ``postprocessing`` table (run_id, recipe, applied_at); empty in a store written before it."""
         import pandas as pd
 
-        try:
-            rows = self.con.execute("SELECT run_id, recipe, applied_at FROM postprocessing ORDER BY run_id").fetchall()
-        except sqlite3.OperationalError as e:
-            if "no such table" not in str(e):
-                raise _explain(self.path, e, "reading the run store") from e
-            rows = []
-        return pd.DataFrame(rows, columns=["run_id", "recipe", "applied_at"])
+        return pd.DataFrame(self._read_recipes(), columns=["run_id", "recipe", "applied_at"])
+
+    @staticmethod
+    def _put_recipe(con, run_id: int, recipe: str | None) -> None:
+        if recipe is None:
+            con.execute("DELETE FROM postprocessing WHERE run_id=?", (run_id,))
+        else:
+            con.execute("INSERT OR REPLACE INTO postprocessing(run_id, recipe, applied_at) VALUES (?, ?, ?)",
+                        (run_id, recipe, now_iso()))
 
     def set_post_recipe(self, run_id: int, recipe: str | None) -> None:
         """Record (or, with None, forget) the recipe behind the run's ``text_post`` column."""
-        def do(con):
-            if recipe is None:
-                con.execute("DELETE FROM postprocessing WHERE run_id=?", (run_id,))
-            else:
-                con.execute("INSERT OR REPLACE INTO postprocessing(run_id, recipe, applied_at) VALUES (?, ?, ?)",
-                            (run_id, recipe, now_iso()))
-        self._write("recording the post-processing recipe", do)
+        self._write("recording the post-processing recipe", lambda con: self._put_recipe(con, run_id, recipe))
 
     def post_coverage(self, run_id: int) -> tuple[int, int]:
         """(lines with post-processed text, all lines) over the run's done pages."""
@@ -526,11 +523,7 @@ class RunStore:
                 con.executemany("UPDATE lines SET text_post=? WHERE run_id=? AND page_id=? AND line_no=?",
                                 [(t, run_id, page_id, no) for no, t in rows])
                 n += len(rows)
-            if recipe is None:
-                con.execute("DELETE FROM postprocessing WHERE run_id=?", (run_id,))
-            else:
-                con.execute("INSERT OR REPLACE INTO postprocessing(run_id, recipe, applied_at) VALUES (?, ?, ?)",
-                            (run_id, recipe, now_iso()))
+            self._put_recipe(con, run_id, recipe)
             return n
         return int(self._write("writing post-processed text", do))
 

@@ -157,13 +157,14 @@ def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipe
                 raise fail(f"{source}: no run {', '.join(map(str, missing))} in this store "
                            f"(runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
             todo = runs or have
-            names = {rid: st.run_info(rid).recogniser for rid in todo}
-            clash = {n for n in names.values() if list(names.values()).count(n) > 1}
+            infos = {rid: st.run_info(rid) for rid in todo}
+            names = [i.recogniser for i in infos.values()]
+            clash = {n for n in names if names.count(n) > 1}
             with Progress(TextColumn("post-processing runs"), BarColumn(), MofNCompleteColumn(), console=err,
                           transient=True, disable=len(todo) < 2) as progress:
                 task = progress.add_task("postprocess", total=len(todo))
                 for rid in todo:
-                    info = st.run_info(rid)
+                    info = infos[rid]
                     res = apply_postprocess(st, rid, pipeline)
                     results.append({"run_id": rid, "recogniser": info.recogniser, "pages": res.pages,
                                     "lines": res.lines, "changed_lines": res.changed_lines,

@@ -28,7 +28,7 @@ from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
 from ocrbench.errors import OcrbenchError, TextFileError
 
 
-def _head_catch(queue, truth_edits: dict[tuple[str, int], int], head_keys: set[tuple[str, int]]) -> dict | None:
+def _head_catch(truth_edits: dict[tuple[str, int], int], head_keys: set[tuple[str, int]]) -> dict | None:
     """How many of the lines with errors (among lines with ground truth) are in the head of the queue."""
     keys = [k for k in truth_edits]
     err = [k for k in keys if truth_edits[k] > 0]
@@ -94,10 +94,10 @@ def review(
                 if use_post:
                     ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
                 q = review_queue(ln[["page_id", "line_no", "text", "confidence"]], lexicon=lexicon, rate=rate)
-                head = q.take(max_minutes=minutes) if minutes is not None else q.take(max_lines=lines)
+                select = {"max_minutes": minutes} if minutes is not None else {"max_lines": lines}
+                head = q.take(**select)
                 res = {"run_id": rid, "recogniser": info.recogniser, "text": "post-processed" if use_post else "raw",
-                       "lines": int(len(q.table)), "head": q.minutes(**({"max_minutes": minutes} if minutes is not None
-                                                                        else {"max_lines": lines})),
+                       "lines": int(len(q.table)), "head": q.minutes(**select),
                        "all": q.minutes(),
                        "queue": [{"page_id": r.page_id, "line_no": int(r.line_no), "doubt": round(float(r.doubt), 4),
                                   "confidence": None if r.confidence != r.confidence else float(r.confidence),
@@ -137,8 +137,7 @@ def review(
                     if texts:
                         cal = calibration(texts, confs, truths, page_ids=groups, normalise=norm)
                         res["calibration"] = cal.to_dict()
-                        res["head_catch"] = _head_catch(q, edits, {(r.page_id, int(r.line_no))
-                                                                   for r in head.itertuples()})
+                        res["head_catch"] = _head_catch(edits, {(r.page_id, int(r.line_no)) for r in head.itertuples()})
                     else:
                         res["calibration"] = None
                         problems.append(f"{truth}: no page of run {rid} has usable ground truth")

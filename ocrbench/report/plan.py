@@ -125,12 +125,8 @@ def _archive(req: PlanRequest, frames: Mapping[str, pd.DataFrame], runs: Sequenc
     if req.lines_per_page is not None:
         if req.chars_per_line is None:
             raise PlanError("give chars_per_line with lines_per_page")
-        size = req.page_size
-        if size is None:
-            lo, hi = ref.ranges["page pixels"]
-            side = math.sqrt((lo + hi) / 2 / 1.3)
-            size = (int(side), int(1.3 * side))
-        return P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line, page_size=size), None
+        return P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line,
+                                      page_size=planio.page_size_or_calibrated(req.page_size, ref)), None
 
     def key(r: Mapping) -> tuple:
         a = accuracy.get(r["name"])
