@@ -33,19 +33,11 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
+from _bench_support import find_models, images_only  # noqa: E402
 from ocrbench import synth  # noqa: E402
 
 clock = time.perf_counter
 STARTUP: dict[str, float] = {}      # run tag -> seconds from the call to every worker holding the recogniser
-
-
-def find_models(given: Path | None) -> Path:
-    """The demo models: --models, else $OCRBENCH_TEST_MODELS, else models/."""
-    for cand in (given, os.environ.get("OCRBENCH_TEST_MODELS"), ROOT / "models"):
-        if cand and (Path(cand) / "ledger-ctc" / "card.toml").exists():
-            return Path(cand)
-    raise SystemExit("bench_distributed: no demo models (models/ledger-ctc/card.toml); build them with "
-                     "'python models/build.py export' or pass --models DIR")
 
 
 def machine() -> str:
@@ -56,10 +48,7 @@ def machine() -> str:
 
 def make_pages(folder: Path, n: int, seed: int = 90) -> Path:
     synth.write_archive(folder, synth.ArchiveSpec(n_pages=n, lines_per_page=(18, 26), seed=seed))
-    for p in folder.glob("*"):
-        if p.suffix in (".txt", ".json"):
-            p.unlink()
-    return folder
+    return images_only(folder)
 
 
 def page_seconds(db: Path) -> float:
@@ -136,7 +125,7 @@ def main(argv=None) -> dict:
         a.pages, a.repeats = 8, 1
     from ocrbench.recognisers.card import load_card
 
-    models = find_models(a.models)
+    models = find_models(a.models, "bench_distributed")
     import distributed
     import onnxruntime as ort
 

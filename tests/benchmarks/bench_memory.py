@@ -29,13 +29,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-
-def find_models(given: Path | None) -> Path:
-    for cand in (given, os.environ.get("OCRBENCH_TEST_MODELS"), ROOT / "models"):
-        if cand and (Path(cand) / "ledger-ctc" / "card.toml").exists():
-            return Path(cand)
-    raise SystemExit("bench_memory: no demo models (models/ledger-ctc/card.toml); build them with "
-                     "'python models/build.py export' or pass --models DIR")
+from _bench_support import find_models, images_only  # noqa: E402
 
 
 def make_pages(base: Path, folder: Path, n: int) -> Path:
@@ -53,10 +47,7 @@ def base_pages(folder: Path, distinct: int = 10) -> Path:
     for i in range(distinct):
         spec = synth.PageSpec(seed=500 + i, lines_per_page=2, width=600, chars_per_line=30, folio=i + 1)
         synth.write_page(folder, f"base_{i:02d}", spec, "png")
-    for p in folder.glob("*"):
-        if p.suffix in (".txt", ".json"):
-            p.unlink()
-    return folder
+    return images_only(folder)
 
 
 def child(pages: Path, store: Path, card: Path, engine: str, workers: int) -> None:
@@ -101,7 +92,7 @@ def main(argv=None) -> dict:
     a = ap.parse_args(argv)
     if a.quick:
         a.small, a.large = 50, 500
-    card = find_models(a.models) / "ledger-ctc"
+    card = find_models(a.models, "bench_memory") / "ledger-ctc"
     print(f"bench_memory: writer peak RSS, {a.small} vs {a.large} pages, {a.workers} Dask workers, {card}",
           flush=True)
     tmp = Path(tempfile.mkdtemp(prefix="ocrbench-bench-mem-"))

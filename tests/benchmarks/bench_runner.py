@@ -42,6 +42,7 @@ from PIL import Image
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
+from _bench_support import images_only  # noqa: E402
 from ocrbench import synth  # noqa: E402
 from ocrbench.pages import analyse_page, list_pages, load_page  # noqa: E402
 from ocrbench.recognisers.base import EngineOptions, open_recogniser  # noqa: E402
@@ -83,9 +84,7 @@ def demo_pages(folder: Path, n: int) -> Path:
             (folder / p.name).symlink_to(p)
     else:
         synth.write_archive(folder, synth.ArchiveSpec(n_pages=n, seed=3))
-        for p in folder.glob("*"):
-            if p.suffix in (".txt", ".json"):
-                p.unlink()
+        images_only(folder)
     return folder
 
 
