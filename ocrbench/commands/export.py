@@ -19,7 +19,7 @@ def export_cmd(
     fmt: str = typer.Option("parquet", "--format", help="parquet or csv."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
-    """Write the runs, pages, lines and batches tables of a run store to files."""
+    """Write the runs, pages, lines, batches and postprocessing tables of a run store to files."""
     from ocrbench.store import export
 
     if fmt not in ("parquet", "csv"):

@@ -68,7 +68,8 @@ def postprocess(
     list_steps: bool = typer.Option(False, "--list-steps", help="Describe the available steps and exit."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
-    """Normalise and correct recognised text pages into another folder (the originals stay as they are)."""
+    """Normalise and correct recognised text: a folder of pages into another folder, or a run store's
+    post-processed text refilled from its raw text (the originals are never overwritten)."""
     if list_steps:
         for name, doc in describe_steps().items():
             typer.echo(f"{name:14s} {doc}")
