@@ -35,7 +35,7 @@ from typing import Callable
 
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.report import ReportFiles, fmt, write_report
-from ocrbench.report.plan import PlanRequest
+from ocrbench.planning.service import PlanRequest
 
 __all__ = ["DemoArchive", "DemoResult", "run_demo", "repo_root", "find_demo_models", "firm_words",
            "demo_pipeline", "headline_lines", "DEMO_RECOGNISERS"]
@@ -228,14 +228,14 @@ def measure_demo_scaling(store: Path, scans: Path, models: list[Path], per_machi
     """Measure pages per second at 1 and ``per_machine`` worker processes on ``pages`` of the demo pages,
     for each recogniser not yet measured in ``store`` (card hash), into the store's scaling table.
 
-    Returns the names measured now. Uses :func:`ocrbench.scaling.measure_scaling` (each worker a real runner
-    process over the same pages, started together) and :func:`ocrbench.planio.save_scaling`.
+    Returns the names measured now. Uses :func:`ocrbench.run.measure.measure_scaling` (each worker a real runner
+    process over the same pages, started together) and :func:`ocrbench.planning.inputs.save_scaling`.
     """
     import pandas as pd
 
-    from ocrbench import planio
+    from ocrbench.planning import inputs as planio
     from ocrbench.recognisers.card import load_card
-    from ocrbench.scaling import measure_scaling
+    from ocrbench.run.measure import measure_scaling
 
     wanted = sorted({1, per_machine})
     have = planio.load_scaling(store)
@@ -273,7 +273,7 @@ def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans
     receives the runner's events. Raises InputError / CardError / StoreError
     for what stops the demo.
     """
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     t0 = clock()

@@ -34,7 +34,12 @@ class TextFileError(InputError):
     """A ground-truth or hypothesis text file cannot be read (encoding, missing)."""
 
 
-class CardError(InputError):
+class ConfigError(InputError):
+    """A configuration table (card, plan file, post-processing recipe) has an unknown key,
+    a value of the wrong type or out of range. The message names the key's dotted path."""
+
+
+class CardError(ConfigError):
     """A recogniser card or one of its model files is invalid."""
 
 

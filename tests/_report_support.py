@@ -39,7 +39,7 @@ def make_models(root: Path) -> tuple[Path, Path]:
 
 def make_store(pages: Path, models: list[Path], db: Path) -> Path:
     """Run the runner for real: every page with every model into ``db``."""
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     with RunStore(db) as st:

@@ -11,7 +11,7 @@ from hypothesis import given, strategies as st
 from rapidfuzz.distance import Levenshtein
 
 from ocrbench import synth
-from ocrbench.accuracy.amounts import (canonical, check_amounts, find_amounts, find_amounts_in_lines, hyp_span)
+from ocrbench.ledger.amounts import (canonical, check_amounts, find_amounts, find_amounts_in_lines, hyp_span)
 from ocrbench.accuracy.normalise import apply
 
 

@@ -11,7 +11,7 @@ from typer.testing import CliRunner
 
 from _accuracy_reference import wagner_fischer
 from ocrbench import synth
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.store import LineRecord, PageRecord, RunStore
 
 runner = CliRunner()

@@ -6,7 +6,7 @@ import codecs
 
 import pytest
 
-from ocrbench.accuracy.textio import pair_folders, pair_store_pages, read_text_lines, truth_candidates
+from ocrbench.io.text import pair_folders, pair_store_pages, read_text_lines, truth_candidates
 from ocrbench.errors import TextFileError
 
 LINES = ["Marrowby & Kettle Cash Book Folio 1", "", "15 Jan 1887 A. Kestford rope £12 7s 6½d"]

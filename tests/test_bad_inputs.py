@@ -30,7 +30,7 @@ from typer.testing import CliRunner
 
 import _tiny_models as tm
 from ocrbench import synth
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 
 BAD_PAGES = {                          # file -> words its one-line reason must contain (lower case)
     "empty.png": "empty",

@@ -13,7 +13,8 @@ from onnx.reference import ReferenceEvaluator
 
 import _tiny_models as tm
 from _runner_support import DEMO_CTC, demo_pages, direct_line_tensor, greedy_collapse, need_demo, read_symbols
-from ocrbench.recognisers.base import EngineOptions, open_recogniser
+from ocrbench.recognisers.base import EngineOptions
+from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import load_card
 from ocrbench.recognisers.ctc import forced_alignment, greedy_path, log_softmax, path_confidences, prefix_beam_search
 
@@ -212,7 +213,7 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
     # The runner's text must equal a plain script: bare onnxruntime, one line at a time, best-path decoding.
     folder = need_demo(DEMO_CTC)
     from ocrbench.pages import analyse_page, list_pages, load_page
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     pages = demo_pages(tmp_path)

@@ -10,7 +10,7 @@ import pytest
 from typer.testing import CliRunner
 
 from _report_support import collect, make_models, make_pages
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.demo import DemoArchive, firm_words, run_demo
 from ocrbench.errors import InputError
 from ocrbench.report import fmt, resolve

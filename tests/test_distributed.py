@@ -1,7 +1,7 @@
 """The Dask engine: same pages and texts as the serial runner, recognisers opened once per worker,
 a bounded number of tasks in flight, resume across engines, and the run command's cluster options.
 
-Reference for every text check: the serial runner (ocrbench.runner.run_pages), which
+Reference for every text check: the serial runner (ocrbench.run.engine.run_pages), which
 tests/test_runner.py checks against bare onnxruntime; scale-out must not change what is read.
 """
 
@@ -15,10 +15,10 @@ import pytest
 from typer.testing import CliRunner
 
 from _scaleout_support import assert_whole_pages, small_pages, tiny_cards
-from ocrbench.cli import app
-from ocrbench.distributed import DaskOptions, recogniser_loads, run_distributed
+from ocrbench.cli.app import app
+from ocrbench.run.distributed import DaskOptions, recogniser_loads, run_distributed
 from ocrbench.errors import ClusterError, OcrbenchError
-from ocrbench.runner import RunOptions, run_pages
+from ocrbench.run.engine import RunOptions, run_pages
 from ocrbench.store import RunStore
 
 N_PAGES = 6
@@ -210,7 +210,7 @@ def test_workers_keep_page_buffers_on_the_heap(pages, cards, cluster, tmp_path):
     import os
     import sys
 
-    from ocrbench.distributed import connect, retune_allocator
+    from ocrbench.run.distributed import connect, retune_allocator
 
     _, client = cluster
     run_distributed(pages, cards[:1], store=tmp_path / "a.sqlite", dask=DaskOptions(scheduler=client.scheduler.address))

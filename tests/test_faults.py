@@ -30,8 +30,8 @@ from onnx import helper
 
 import _tiny_models as tm
 from _scaleout_support import assert_whole_pages, small_pages, tiny_cards
-from ocrbench.distributed import DaskOptions, run_distributed
-from ocrbench.runner import RunOptions, run_pages
+from ocrbench.run.distributed import DaskOptions, run_distributed
+from ocrbench.run.engine import RunOptions, run_pages
 from ocrbench.store import RunStore
 
 N_PAGES = 12
@@ -198,7 +198,7 @@ def missing_alphabet(folder: Path) -> str:
 def test_bad_model_or_card_stops_before_any_page(engine, damage, pages, tmp_path):
     from typer.testing import CliRunner
 
-    from ocrbench.cli import app
+    from ocrbench.cli.app import app
 
     good = tm.write_seq(tmp_path / "seq")
     bad = tm.write_ctc(tmp_path / "ctc")

@@ -12,7 +12,7 @@ from statistics import NormalDist
 import pytest
 
 from ocrbench import synth
-from ocrbench.postprocess import ledger as L
+from ocrbench.ledger import balance as L
 from ocrbench.postprocess.effect import simulate_misreads
 
 

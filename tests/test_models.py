@@ -151,7 +151,8 @@ def test_heldout_line_cer_targets(folder, target, heldout):
     """Accuracy (not timing): greedy decoding of 300 held-out lines (unseen seeds,
     half in faces held out of training), whitespace runs collapsed."""
     from ocrbench.recognisers.card import load_card
-    from ocrbench.recognisers.base import open_recogniser, EngineOptions
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.registry import open_recogniser
     rec = open_recogniser(load_card(folder), options=EngineOptions(batch_size=16))
     crops = [c for c, _ in heldout]  # already at the card height; resizing is then the identity
     results, _ = rec.recognise(crops)
@@ -182,7 +183,8 @@ def test_text_from_another_renderer_under_10_percent(folder, decoding):
     search of width 4 9.9% — so the seq model is held to the target with beam search."""
     from PIL import Image, ImageDraw, ImageFont
     from ocrbench.recognisers.card import load_card
-    from ocrbench.recognisers.base import open_recogniser, EngineOptions
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.registry import open_recogniser
     crops = []
     for i, s in enumerate(SENTENCES):
         fnt = ImageFont.load_default(size=22 + 2 * (i % 3))

@@ -29,7 +29,7 @@ import tifffile
 from PIL import Image
 from typer.testing import CliRunner
 
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.errors import ImageTooLargeError, InputError, PageError
 from ocrbench.pages import PageRef, analyse_page, list_pages, load_page
 

@@ -1,4 +1,4 @@
-"""End-to-end checks of ``ocrbench plan`` and ``ocrbench.scaling`` with the real runner and store.
+"""End-to-end checks of ``ocrbench plan`` and ``ocrbench.run.measure`` with the real runner and store.
 
 The recognisers are the tiny ONNX models of tests/_tiny_models.py (real
 models run by onnxruntime, small enough for milliseconds), the pages come from
@@ -20,8 +20,9 @@ from typer.testing import CliRunner
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from ocrbench import planio, synth  # noqa: E402
-from ocrbench.cli import app  # noqa: E402
+from ocrbench import synth  # noqa: E402
+from ocrbench.planning import inputs as planio  # noqa: E402
+from ocrbench.cli.app import app  # noqa: E402
 
 pytest.importorskip("onnxruntime")
 from _tiny_models import write_ctc, write_seq  # noqa: E402
@@ -32,7 +33,7 @@ cli = CliRunner()
 @pytest.fixture(scope="module")
 def calibrated(tmp_path_factory):
     """Four small pages run by both tiny recognisers as timed sessions into one calibration store."""
-    from ocrbench.scaling import measure_session
+    from ocrbench.run.measure import measure_session
 
     d = tmp_path_factory.mktemp("plan")
     for i in range(4):
@@ -55,7 +56,7 @@ def test_timed_session_accounts_for_every_second(calibrated):
 
 def test_fake_clock_session_on_the_real_runner(tmp_path):
     """With a clock that moves 1 ms per reading, the session's figures are counts of readings."""
-    from ocrbench.scaling import measure_session
+    from ocrbench.run.measure import measure_session
 
     class TickClock:
         def __init__(self):
@@ -67,7 +68,7 @@ def test_fake_clock_session_on_the_real_runner(tmp_path):
 
     for i in range(2):
         synth.write_page(tmp_path / "pages", f"p{i}", synth.PageSpec(seed=i, lines_per_page=3, width=400), "png")
-    from ocrbench.runner import RunOptions
+    from ocrbench.run.engine import RunOptions
 
     r = measure_session(tmp_path / "pages", write_ctc(tmp_path / "ctc"), store=tmp_path / "s.sqlite",
                         clock=TickClock(), options=RunOptions(prefetch=False))   # one thread reads the clock
@@ -108,7 +109,7 @@ def test_plan_json_from_a_run_store(calibrated):
 
 
 def test_plan_with_ground_truth_gives_cer_and_sample_size(calibrated):
-    pytest.importorskip("ocrbench.accuracy.textio")
+    pytest.importorskip("ocrbench.io.text")
     d, _ = calibrated
     res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
                            "--pages", "1000", "--truth", str(d / "pages"), "--draws", "100", "--json"])
@@ -185,8 +186,8 @@ def test_sample_folder_is_segmented_not_recognised(tmp_path):
 
 @pytest.mark.slow
 def test_scaling_two_workers_on_the_real_runner(calibrated):
-    from ocrbench.planner import ScalingFit
-    from ocrbench.scaling import measure_scaling
+    from ocrbench.planning.model import ScalingFit
+    from ocrbench.run.measure import measure_scaling
 
     d, _ = calibrated
     df = measure_scaling(d / "pages", d / "ctc", workers=(1, 2))

@@ -1,4 +1,4 @@
-"""Tests of the archive planner (ocrbench.planner).
+"""Tests of the archive planner (ocrbench.planning.model).
 
 External references used here, each named beside its check:
 * G. Amdahl (1967), "Validity of the single processor approach to achieving
@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ocrbench import planner as P
+from ocrbench.planning import model as P
 from ocrbench.errors import PlanError
 from ocrbench.recognisers.preprocess import width_batches
 
@@ -402,7 +402,7 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
     """Recognisers taking turns page by page share each page's loading: no gap is attributed, and a note says so.
 
     Timestamps to the second (as a store may hold) cannot time a gap of milliseconds: likewise.
-    A session measured around the run (ocrbench.scaling) supplies both instead.
+    A session measured around the run (ocrbench.run.measure) supplies both instead.
     """
     clock = FakeClock()
     pages = fake_pages(6, seed=2)

@@ -9,7 +9,7 @@ import pytest
 from typer.testing import CliRunner
 
 from ocrbench import synth
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 
 runner = CliRunner()
 

@@ -8,7 +8,7 @@ import editdistance
 import pytest
 
 from ocrbench import synth
-from ocrbench.postprocess import ledger
+from ocrbench.ledger import balance as ledger
 from ocrbench.postprocess.effect import (alter_amount_digit, amount_misread_detection, cer_before_after,
                                          misread_amount_lines, simulate_misreads)
 from ocrbench.postprocess.lexicon import Lexicon

@@ -17,8 +17,8 @@ import pytest
 from typer.testing import CliRunner
 
 from _runner_support import DEMO_CTC, SCANS, demo_pages, need_demo
-from ocrbench.cli import app
-from ocrbench.commands.postprocess import load_pipeline
+from ocrbench.cli.app import app
+from ocrbench.postprocess.config import load_pipeline
 
 runner = CliRunner()
 
@@ -174,8 +174,8 @@ def test_pages_added_without_post_processing_are_flagged_and_refilled(setup, tmp
 
 @pytest.mark.slow
 def test_dask_engine_post_processes_as_the_serial_runner(setup, tmp_path):
-    from ocrbench.distributed import DaskOptions, run_distributed
-    from ocrbench.runner import run_pages
+    from ocrbench.run.distributed import DaskOptions, run_distributed
+    from ocrbench.run.engine import run_pages
 
     pipeline = load_pipeline(steps=None, config=setup["config"], word_list=setup["words"])
     a = run_pages(setup["pages"], [DEMO_CTC], store=tmp_path / "a.sqlite", postprocess=pipeline)

@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from ocrbench.errors import PostprocessError
-from ocrbench.postprocess import ledger
+from ocrbench.ledger import balance as ledger
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.postprocess.steps import (STEPS, LineText, build_pipeline, default_pipeline, describe_steps,
                                         pipeline_from_config)

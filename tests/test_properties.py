@@ -21,7 +21,7 @@ from hypothesis import HealthCheck, assume, given, settings, strategies as st
 
 import _tiny_models as tm
 from ocrbench.accuracy.score import score_pages
-from ocrbench.accuracy.textio import decode_text, read_text_lines
+from ocrbench.io.text import decode_text, read_text_lines
 from ocrbench.errors import CardError, TextFileError
 from ocrbench.recognisers.card import KINDS, load_card
 

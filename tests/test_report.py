@@ -17,7 +17,7 @@ import pytest
 from typer.testing import CliRunner
 
 from _report_support import SCRIPT_LINE, collect, make_models, make_pages, make_store, parse_shown
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.errors import InputError, PlanError, StoreError
 from ocrbench.report import PlanRequest, PlanResults, load_plan_file, write_report
 from ocrbench.report.alignview import align_columns, columns_text
@@ -185,7 +185,7 @@ def test_one_recogniser_and_no_truth(built, tmp_path):
 
 
 def test_plan_files(tmp_path):
-    # the project's plan-file format (ocrbench.planio.PLAN_FILE_FORMAT)
+    # the project's plan-file format (ocrbench.planning.inputs.PLAN_FILE_FORMAT)
     toml = tmp_path / "plan.toml"
     toml.write_text('[archive]\npages = 1000\n[goals]\ndeadline = "3d"\n[resources]\nmachines = 2\n'
                     'price_core_hour = 0.1\n', encoding="utf-8")

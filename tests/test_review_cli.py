@@ -14,7 +14,7 @@ import json
 import editdistance
 from typer.testing import CliRunner
 
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.store import LineRecord, PageRecord, RunStore
 
 runner = CliRunner()

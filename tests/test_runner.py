@@ -16,10 +16,10 @@ from typer.testing import CliRunner
 
 import _tiny_models as tm
 from ocrbench import synth
-from ocrbench.cli import app
+from ocrbench.cli.app import app
 from ocrbench.recognisers.base import EngineOptions
 from ocrbench.recognisers.card import load_card
-from ocrbench.runner import RunOptions, run_pages
+from ocrbench.run.engine import RunOptions, run_pages
 from ocrbench.store import RunStore
 
 N_PAGES = 4
@@ -145,7 +145,7 @@ def test_interrupted_run_resumes_with_every_page_once(pages, cards, tmp_path):
 KILLED = r"""
 import sys, time
 sys.path.insert(0, sys.argv[4])
-from ocrbench.runner import run_pages
+from ocrbench.run.engine import run_pages
 def slow(ev):
     if ev.kind == "page":
         print("page", ev.page_id, flush=True)
@@ -283,7 +283,7 @@ def test_export_command(pages, cards, tmp_path):
 
 def test_text_out_names_follow_the_ground_truth_pairing():
     # CONTRACTS.md: page_001.png <-> page_001.txt; a TIFF frame book.tif#3 <-> book_3.txt
-    from ocrbench.commands.run import text_stem
+    from ocrbench.io.textdir import text_stem
 
     assert text_stem("page_001.png") == "page_001"
     assert text_stem("book.tif#3") == "book_3"

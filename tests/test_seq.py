@@ -14,7 +14,8 @@ from onnx.reference import ReferenceEvaluator
 
 import _tiny_models as tm
 from _runner_support import DEMO_SEQ, demo_pages, direct_line_tensor, need_demo, read_symbols
-from ocrbench.recognisers.base import EngineOptions, open_recogniser
+from ocrbench.recognisers.base import EngineOptions
+from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import load_card
 
 
@@ -227,7 +228,7 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
     # decoding is compared with uncached decoding in test_demo_cached_uncached_and_beam_one.
     folder = need_demo(DEMO_SEQ)
     from ocrbench.pages import analyse_page, list_pages, load_page
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     pages = demo_pages(tmp_path, n=1)

@@ -41,7 +41,7 @@ import pandas as pd
 from rapidfuzz.distance import Levenshtein
 
 from ocrbench import __version__
-from ocrbench.accuracy import amounts as _amounts
+from ocrbench.ledger import amounts as _amounts
 from ocrbench.accuracy.align import CLASSES, class_codes_of
 from ocrbench.accuracy.normalise import DEFAULT_PROFILE, Profile, get_profile
 from ocrbench.accuracy.recipe import Recipe, ci_tag, rec_tag

@@ -16,7 +16,7 @@ from typing import Any
 
 import pandas as pd
 
-from ocrbench.postprocess.ledger import (BALANCED, NOT_CHECKABLE, UNBALANCED, MisreadEstimate, PageBalance,
+from ocrbench.ledger.balance import (BALANCED, NOT_CHECKABLE, UNBALANCED, MisreadEstimate, PageBalance,
                                          check_page, estimate_misreads)
 from ocrbench.postprocess.lexicon import Lexicon, read_word_list
 from ocrbench.postprocess.review import ReviewQueue, calibration, review_queue

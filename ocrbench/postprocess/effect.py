@@ -20,7 +20,7 @@ from typing import Any, Sequence
 
 import pandas as pd
 
-from ocrbench.postprocess import ledger as _ledger
+from ocrbench.ledger import balance as _ledger
 
 
 # --------------------------------------------------------------------------- simulated misreads

@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 from rapidfuzz.distance import Levenshtein
 
-from ocrbench.postprocess import ledger as _ledger
+from ocrbench.ledger import balance as _ledger
 from ocrbench.postprocess.lexicon import Lexicon, unknown_words
 
 

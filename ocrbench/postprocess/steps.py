@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
 from ocrbench.errors import PostprocessError
-from ocrbench.postprocess import ledger as _ledger
+from ocrbench.ledger import balance as _ledger
 from ocrbench.postprocess.lexicon import Lexicon, LexiconOptions, correct_line, core_span, is_word
 
 RECIPE_VERSION = "pp1"

@@ -304,19 +304,3 @@ def share_time(total: float, weights: Sequence[float]) -> list[float]:
     return [total * w / s for w in weights]
 
 
-def open_recogniser(card: Card, *, options: EngineOptions | None = None, warm_up: bool = True) -> Recogniser:
-    """Open the sessions a card needs and (by default) warm them up."""
-    options = options or EngineOptions()
-    if card.kind == "ctc":
-        from ocrbench.recognisers.ctc import CtcRecogniser
-
-        rec: Recogniser = CtcRecogniser(card, options)
-    elif card.kind == "seq":
-        from ocrbench.recognisers.seq import SeqRecogniser
-
-        rec = SeqRecogniser(card, options)
-    else:  # load_card rejects other kinds already
-        raise CardError(card.path, f"unknown kind {card.kind!r}")
-    if warm_up:
-        rec.warm_up()
-    return rec

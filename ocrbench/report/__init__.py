@@ -19,7 +19,7 @@ from typing import Sequence
 from ocrbench.errors import ReportError
 from ocrbench.report.data import CAUTIONS, ReportData, build_report_data, resolve
 from ocrbench.report.display import fmt
-from ocrbench.report.plan import PlanRequest, PlanResults, load_plan_file
+from ocrbench.planning.service import PlanRequest, PlanResults, load_plan_file
 
 __all__ = ["ReportFiles", "write_report", "build_report_data", "ReportData", "PlanRequest", "PlanResults",
            "load_plan_file", "fmt", "resolve", "CAUTIONS", "ReportError"]
@@ -54,7 +54,7 @@ def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | 
 
     The summary is built first (:func:`build_report_data`); the HTML and the
     tables are written from it. ``plan`` may be a :class:`PlanRequest`, plan
-    results, or a path to a plan file (see :mod:`ocrbench.report.plan`).
+    results, or a path to a plan file (see :mod:`ocrbench.planning.service`).
     """
     from ocrbench.report.html import render_html
     from ocrbench.report.plots import render_figures

@@ -39,9 +39,9 @@ from ocrbench import __version__
 from ocrbench.accuracy.normalise import get_profile
 from ocrbench.accuracy.score import score_pages
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, paired_comparison
-from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
+from ocrbench.io.text import pair_store_pages, read_text_lines
 from ocrbench.errors import StoreError, TextFileError
-from ocrbench.report.plan import PlanRequest, PlanResults, compute_plan, plan_from_results
+from ocrbench.planning.service import PlanRequest, PlanResults, compute_plan, plan_from_results
 from ocrbench.store import RunStore
 
 __all__ = ["ReportData", "build_report_data", "CAUTIONS", "resolve", "FORMAT_VERSION"]

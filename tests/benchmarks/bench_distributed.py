@@ -6,7 +6,7 @@ thread) started before the clock starts. The timed call is ``run_distributed`` o
 cluster: every worker opening the recogniser (a fraction of a second), then the pages: load,
 segment, recognise, and the client writing each page to a fresh SQLite store. The sides alternate
 ``--repeats`` times and the best time of each is kept (the least disturbed by other work).
-The serial runner (``ocrbench.runner.run_pages``) on the same pages is timed too, for information.
+The serial runner (``ocrbench.run.engine.run_pages``) on the same pages is timed too, for information.
 
 The machine's state is printed first (usable cores, load average): on a shared machine the
 ratio says what the spare cores allowed, not what the engine can do. The pages' own times
@@ -65,8 +65,8 @@ def page_seconds(db: Path) -> float:
 def time_dask(pages: Path, card, workers: int, tmp: Path, tag: str) -> float:
     from distributed import Client, LocalCluster
 
-    from ocrbench.distributed import DaskOptions, run_distributed
-    from ocrbench.runner import RunOptions
+    from ocrbench.run.distributed import DaskOptions, run_distributed
+    from ocrbench.run.engine import RunOptions
 
     options = RunOptions()
     started: list[float] = []
@@ -87,8 +87,8 @@ def time_dask(pages: Path, card, workers: int, tmp: Path, tag: str) -> float:
 
 
 def time_serial(pages: Path, card, tmp: Path, tag: str) -> float:
-    from ocrbench.recognisers.base import open_recogniser  # noqa: F401 - imported before timing
-    from ocrbench.runner import run_pages
+    from ocrbench.recognisers.registry import open_recogniser  # noqa: F401 - imported before timing
+    from ocrbench.run.engine import run_pages
 
     t0 = clock()
     run_pages(pages, [card], store=tmp / f"{tag}.sqlite")

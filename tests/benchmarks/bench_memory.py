@@ -52,11 +52,11 @@ def base_pages(folder: Path, distinct: int = 10) -> Path:
 
 def child(pages: Path, store: Path, card: Path, engine: str, workers: int) -> None:
     """Run once and print this process's peak RSS (kilobytes on Linux)."""
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
 
     t0 = time.perf_counter()
     if engine == "dask":
-        from ocrbench.distributed import DaskOptions, run_distributed
+        from ocrbench.run.distributed import DaskOptions, run_distributed
 
         s = run_distributed(pages, [card], store=store, dask=DaskOptions(workers=workers))
     else:

@@ -2,7 +2,7 @@
 
 Procedure (issue 6, "Validation"):
 1. Calibrate on ~10 demo pages: each demo recogniser runs them with the real
-   runner, timed as a session (``ocrbench.scaling.measure_session``), into a
+   runner, timed as a session (``ocrbench.run.measure.measure_session``), into a
    calibration store.
 2. Describe a held-out set of 60 generated pages with twice the lines per page
    (``ocrbench.synth``, another seed) by segmentation only, no recognition.
@@ -44,7 +44,7 @@ TARGET = 0.10
 
 def prerequisites(models: Path, names) -> list[str]:
     missing = []
-    for mod in ("ocrbench.runner", "ocrbench.store", "ocrbench.pages", "ocrbench.recognisers.card"):
+    for mod in ("ocrbench.run.engine", "ocrbench.store", "ocrbench.pages", "ocrbench.recognisers.card"):
         try:
             __import__(mod)
         except ImportError as e:
@@ -149,12 +149,12 @@ def validate(argv=None) -> tuple[int, list]:
         print("bench_planner: cannot run yet; missing:\n  - " + "\n  - ".join(missing), file=sys.stderr)
         return 2, []
 
-    from ocrbench import planio
-    from ocrbench import planner as P
+    from ocrbench.planning import inputs as planio
+    from ocrbench.planning import model as P
     from ocrbench.recognisers.base import EngineOptions
     from ocrbench.recognisers.card import load_card
-    from ocrbench.runner import RunOptions, run_pages
-    from ocrbench.scaling import measure_session
+    from ocrbench.run.engine import RunOptions, run_pages
+    from ocrbench.run.measure import measure_session
 
     work = a.work or Path(tempfile.mkdtemp(prefix="ocrbench-bench-planner-"))
     if a.work and work.exists():

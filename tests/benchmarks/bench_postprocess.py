@@ -55,10 +55,10 @@ def main(argv=None) -> dict:
     ap.add_argument("--boot", type=int, default=2000)
     a = ap.parse_args(argv)
 
-    from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
+    from ocrbench.io.text import pair_store_pages, read_text_lines
     from ocrbench.demo import demo_pipeline, firm_words
     from ocrbench.postprocess.effect import amount_misread_detection, cer_before_after, simulate_misreads
-    from ocrbench.runner import run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     results: dict = {}

@@ -45,9 +45,10 @@ sys.path.insert(0, str(ROOT))
 from _bench_support import images_only  # noqa: E402
 from ocrbench import synth  # noqa: E402
 from ocrbench.pages import analyse_page, list_pages, load_page  # noqa: E402
-from ocrbench.recognisers.base import EngineOptions, open_recogniser  # noqa: E402
+from ocrbench.recognisers.base import EngineOptions  # noqa: E402
+from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import load_card  # noqa: E402
-from ocrbench.runner import run_pages  # noqa: E402
+from ocrbench.run.engine import run_pages  # noqa: E402
 from ocrbench.store import RunStore  # noqa: E402
 
 clock = time.perf_counter
@@ -278,7 +279,7 @@ def overhead(card, crops, threads: int, repeats: int) -> None:
 def vs_plain_script(card, pages: Path, threads: int, repeats: int, tmp: Path) -> None:
     """End to end on the same pages; ocrbench with and without prefetch (a second thread that loads and
     segments the next page: the plain script has none, so 'no prefetch' is the strictly same-threads figure)."""
-    from ocrbench.runner import RunOptions
+    from ocrbench.run.engine import RunOptions
 
     plain = PlainScript(card, threads)
     engine = EngineOptions(batch_size=16, intra_threads=threads)

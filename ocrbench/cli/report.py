@@ -16,11 +16,10 @@ from typing import Optional
 import typer
 from rich.console import Console
 
-from ocrbench.cli import EXIT_OK, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError
 
 
-@app.command("report")
 def report(
     store: Path = typer.Argument(..., help="A run store written by 'ocrbench run'."),
     out: Path = typer.Option(..., "--out", help="Folder for report.html, summary.json and tables/."),

@@ -8,11 +8,11 @@ cannot: the start-up (opening and warming the sessions) and the time between
 pages that no page's own timing covers (hashing the file, writing the store).
 
 How: each worker is a separate process running the real runner
-(:func:`ocrbench.runner.run_pages`) over the whole page set into its own store
+(:func:`ocrbench.run.engine.run_pages`) over the whole page set into its own store
 (weak scaling: every worker has the same work, so none idles while others
 finish). Workers start together at a barrier after their sessions are open;
 throughput is the sum of the workers' own pages per second. Rows go to the
-``scaling`` table of the calibration store (:func:`ocrbench.planio.save_scaling`).
+``scaling`` table of the calibration store (:func:`ocrbench.planning.inputs.save_scaling`).
 """
 
 from __future__ import annotations
@@ -61,7 +61,7 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
     """
     from ocrbench.recognisers.base import EngineOptions
     from ocrbench.recognisers.card import Card, load_card
-    from ocrbench.runner import RunOptions, run_pages
+    from ocrbench.run.engine import RunOptions, run_pages
     from ocrbench.store import RunStore
 
     card = card if isinstance(card, Card) else load_card(card)

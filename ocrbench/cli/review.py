@@ -24,7 +24,7 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError, TextFileError
 
 
@@ -43,7 +43,6 @@ def _head_catch(truth_edits: dict[tuple[str, int], int], head_keys: set[tuple[st
             "share_if_random": len(in_head) / len(keys)}
 
 
-@app.command("review")
 def review(
     store: Path = typer.Argument(..., help="A run store written by 'ocrbench run'."),
     run: list[int] = typer.Option([], "--run", help="Run to rank (repeat; default: every run)."),
@@ -64,7 +63,7 @@ def review(
 ) -> None:
     """Rank recognised lines by doubt, time the review, and measure how well confidence predicts errors."""
     from ocrbench.accuracy.normalise import PROFILES, get_profile
-    from ocrbench.accuracy.textio import pair_store_pages, read_text_lines
+    from ocrbench.io.text import pair_store_pages, read_text_lines
     from ocrbench.postprocess.lexicon import read_word_list
     from ocrbench.postprocess.review import ReviewRate, calibration, line_edits, review_queue
     from ocrbench.store import RunStore

@@ -29,7 +29,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError, TextFileError
 
 
@@ -83,7 +83,7 @@ def _store_systems(store_path: Path, truth: Path, runs: list[int] | None, post: 
         from ocrbench.store import RunStore
     except ImportError:
         raise fail("--store: store support needs ocrbench.store, which this installation lacks", EXIT_USAGE)
-    from ocrbench.accuracy.textio import pair_store_pages
+    from ocrbench.io.text import pair_store_pages
 
     store = RunStore(store_path, read_only=True)
     try:
@@ -208,7 +208,6 @@ def _print_problems(s: _System) -> None:
         typer.echo(f"ocrbench: {s.name}: page {pid} failed in the run: {e}", err=True)
 
 
-@app.command("score")
 def score_cmd(
     truth: Path = typer.Option(..., "--truth", help="Folder of ground-truth .txt files (UTF-8, one text line per line)."),
     hyp: Optional[Path] = typer.Option(None, "--hyp", help="Folder of recognised .txt files, paired by file name."),
@@ -231,7 +230,7 @@ def score_cmd(
     from ocrbench.accuracy.normalise import PROFILES
     from ocrbench.accuracy.score import score_pages
     from ocrbench.accuracy.stats import paired_comparison
-    from ocrbench.accuracy.textio import pair_folders, read_text_lines
+    from ocrbench.io.text import pair_folders, read_text_lines
 
     if (hyp is None) == (store is None):
         raise fail("give exactly one of --hyp DIR or --store FILE", EXIT_USAGE)

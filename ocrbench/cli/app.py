@@ -2,8 +2,9 @@
 
 Exit codes: 0 all good, 1 some inputs failed (they are listed), 2 usage error
 or an error that stops the whole command (bad card, unusable store).
-Each command lives in ``ocrbench/commands/<name>.py`` and registers itself on
-``app``.
+Each command lives in ``ocrbench/cli/<name>.py`` and defines one function; this
+module registers them explicitly (``COMMANDS`` below), so nothing under ``cli/``
+imports this module's siblings at import time and the registration order is visible.
 """
 
 from __future__ import annotations
@@ -15,7 +16,7 @@ import typer
 from ocrbench import __version__
 from ocrbench.errors import OcrbenchError
 
-EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE = 0, 1, 2
+from ocrbench.cli.common import EXIT_OK, EXIT_USAGE
 
 app = typer.Typer(
     name="ocrbench",
@@ -39,16 +40,29 @@ def _root(version: bool = typer.Option(False, "--version", callback=_version, is
     """ocrbench: choose between autoregressive and CTC OCR for a whole archive, then run it."""
 
 
-def fail(message: str, code: int = EXIT_USAGE) -> "typer.Exit":
-    """Print one clear line to stderr and return the Exit to raise."""
-    typer.echo(f"ocrbench: {message}", err=True)
-    return typer.Exit(code)
 
 
-# Register the commands (each module adds itself to ``app``).
-from ocrbench.commands import register_all  # noqa: E402
 
-register_all()
+# Explicit registration: (command name, module, function). Each module under cli/
+# only parses, calls the library and prints; none of them imports this one.
+from ocrbench.cli import (balance, demo, export, pages, plan, postprocess,  # noqa: E402
+                          report, review, run, score)
+
+COMMANDS = [
+    ("pages", pages.pages_command),
+    ("run", run.run),
+    ("score", score.score_cmd),
+    ("review", review.review),
+    ("balance", balance.balance),
+    ("plan", plan.plan),
+    ("report", report.report),
+    ("measure-scaling", plan.measure_scaling_cmd),
+    ("postprocess", postprocess.postprocess),
+    ("export", export.export_cmd),
+    ("demo", demo.demo),
+]
+for _name, _fn in COMMANDS:
+    app.command(_name)(_fn)
 
 
 def main() -> None:

@@ -1,7 +1,7 @@
 """Run the runner on a Dask cluster: many pages at once, one writer, memory that stays flat.
 
 Scale-out wraps the runner and does not change it. Every page is read by
-:func:`ocrbench.runner.recognise_page`, the same function the serial runner
+:func:`ocrbench.run.engine.recognise_page`, the same function the serial runner
 calls, so a page's text and timings mean the same whichever engine made them.
 What differs is only where pages are read and how many at a time:
 
@@ -46,9 +46,10 @@ from typing import Callable, Iterator, Sequence
 
 from ocrbench.errors import ClusterError, OcrbenchError
 from ocrbench.pages import PageRef, list_pages
-from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser, open_recogniser
+from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
+from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.runner import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, _RunState, _RunWriter,
+from ocrbench.run.engine import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, RunState, RunWriter,
                              as_run_options, file_sha256, host_info, input_folder, load_cards, open_run,
                              recognise_page)
 from ocrbench.store import PageRecord, RunStore
@@ -281,7 +282,7 @@ def connect(dask: DaskOptions) -> Iterator[_Cluster]:
             cluster.close()
 
 
-def _chunks(refs: Sequence[PageRef], states: Sequence[_RunState], size: int,
+def _chunks(refs: Sequence[PageRef], states: Sequence[RunState], size: int,
             skipped: set[str]) -> Iterator[tuple[list[PageRef], list[list[int]]]]:
     """Pages still to read, ``size`` at a time, each with the recognisers (by index) that still need it."""
     todo = ((r, [i for i, s in enumerate(states) if r.id not in s.done]) for r in refs if r.id not in skipped)
@@ -296,7 +297,7 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                     options: RunOptions | EngineOptions | None = None, dask: DaskOptions | None = None,
                     clock: Clock = time.perf_counter, progress: Callable[[ProgressEvent], None] | None = None,
                     postprocess: PostProcess | None = None, fresh: bool = False) -> RunSummary:
-    """Like :func:`ocrbench.runner.run_pages`, with pages read on a Dask cluster and written here as they finish.
+    """Like :func:`ocrbench.run.engine.run_pages`, with pages read on a Dask cluster and written here as they finish.
 
     Cards are validated here and every worker opens every recogniser before
     any page is submitted, so a bad card or model stops the run before any
@@ -351,7 +352,7 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
     from distributed import as_completed
     from distributed.scheduler import KilledWorker
 
-    w = _RunWriter(refs, states, st, clock, progress, input_dir)
+    w = RunWriter(refs, states, st, clock, progress, input_dir)
     skipped = w.skipped_ids
     w.emit("start")
     for r in refs:

@@ -24,35 +24,16 @@ import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
-from ocrbench.commands._postprocess_io import list_text_files, read_lines, write_lines
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.io.textdir import list_text_files, read_lines, write_lines
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.postprocess.lexicon import Lexicon, read_word_list
+from ocrbench.postprocess.config import load_pipeline
 from ocrbench.postprocess.steps import LineText, Pipeline, describe_steps, pipeline_from_config
 
 
-def load_pipeline(*, steps: str | None, config: Path | None, word_list: Path | None) -> Pipeline:
-    """The pipeline the options describe (``--steps`` wins over the config's list). Raises OcrbenchError."""
-    table: dict[str, Any] = {}
-    if config is not None:
-        try:
-            doc = tomllib.loads(config.read_text(encoding="utf-8"))
-        except OSError as e:
-            raise InputError(config, f"cannot read: {e.strerror or e}") from e
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as e:
-            raise InputError(config, f"not valid TOML: {e}") from e
-        table = dict(doc.get("postprocess", doc))
-        if word_list is None and "word_list" in table:
-            word_list = (config.parent / str(table["word_list"])).resolve()
-    lexicon: Lexicon | None = read_word_list(word_list) if word_list is not None else None
-    if steps is not None:
-        table["steps"] = [s.strip() for s in steps.split(",") if s.strip()]
-    if "steps" not in table:
-        table["steps"] = ["unicode", "whitespace"] + (["hyphen_join", "lexicon"] if lexicon else [])
-    return pipeline_from_config(table, lexicon=lexicon)
 
 
-@app.command("postprocess")
 def postprocess(
     source: Path = typer.Argument(..., help="Folder of .txt pages, one .txt file, or a run store (.sqlite)."),
     out_dir: Optional[Path] = typer.Argument(None, help="Folder for the results (created; must differ from the "
@@ -143,8 +124,8 @@ def is_run_store(path: Path) -> bool:
 def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipeline: Pipeline,
                        as_json: bool) -> None:
     """Refill the post-processed text of a store's runs; exits (0, or 1 when a page was refused)."""
-    from ocrbench.commands.run import write_texts
-    from ocrbench.runner import apply_postprocess
+    from ocrbench.io.textdir import write_texts
+    from ocrbench.run.engine import apply_postprocess
     from ocrbench.store import RunStore
 
     err = Console(stderr=True)

@@ -17,15 +17,14 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
-from ocrbench.commands._postprocess_io import list_text_files, read_lines
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.io.textdir import list_text_files, read_lines
 from ocrbench.errors import OcrbenchError
-from ocrbench.postprocess import ledger
+from ocrbench.ledger import balance as ledger
 
 _STYLE = {ledger.BALANCED: "green", ledger.UNBALANCED: "red", ledger.NOT_CHECKABLE: "yellow"}
 
 
-@app.command("balance")
 def balance(
     target: Path = typer.Argument(..., help="A folder of .txt pages (one line of text per ledger line), or one .txt file."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),

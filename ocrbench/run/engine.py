@@ -28,7 +28,8 @@ import numpy as np
 
 from ocrbench.errors import InputError, OcrbenchError, StoreError
 from ocrbench.pages import DEFAULT_MAX_PIXELS, Layout, PageRef, analyse_page, list_pages, load_page
-from ocrbench.recognisers.base import Clock, EngineOptions, LineResult, Recogniser, open_recogniser
+from ocrbench.recognisers.base import Clock, EngineOptions, LineResult, Recogniser
+from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
 from ocrbench.store import BatchRecord, LineRecord, PageRecord, RunStore
 
@@ -253,7 +254,7 @@ def _line_records(layout_lines, results: list[LineResult], post: list[str] | Non
 
 
 @dataclass
-class _RunState:
+class RunState:
     card: Card
     rec: Recogniser
     run_id: int
@@ -283,7 +284,7 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     st = RunStore(store) if own_store else store
     try:
         settings = options.settings()
-        states: list[_RunState] = []
+        states: list[RunState] = []
         for card in cards:
             rec = open_recogniser(card, options=options.engine, warm_up=options.warm_up)
             states.append(open_run(st, card, rec, settings=settings, input_dir=input_dir, fresh=fresh,
@@ -319,7 +320,7 @@ def input_folder(target: Path) -> str:
 
 
 def open_run(st: RunStore, card: Card, rec: Recogniser | None, *, settings: dict, input_dir: str, fresh: bool,
-             engine: str, host: Callable[[], dict]) -> _RunState:
+             engine: str, host: Callable[[], dict]) -> RunState:
     """Resume the run with this card, settings and input folder, or start one; ``host()`` is asked only then.
 
     Whichever engine ran it before, a resumed run records ``engine`` as the one that ran it last.
@@ -333,7 +334,7 @@ def open_run(st: RunStore, card: Card, rec: Recogniser | None, *, settings: dict
     else:
         st.set_engine(run_id, engine)
     done = {pid for pid, (status, _) in st.page_status(run_id).items() if status == "done"}
-    return _RunState(card, rec, run_id, resumed, done)  # type: ignore[arg-type]
+    return RunState(card, rec, run_id, resumed, done)  # type: ignore[arg-type]
 
 
 def _ort_version() -> str:
@@ -342,12 +343,12 @@ def _ort_version() -> str:
     return ort.__version__
 
 
-class _RunWriter:
+class RunWriter:
     """The single writer of a run, shared by the serial and the Dask engines: it writes
     each page's outcomes (one transaction per recogniser), counts pages and lines,
     reports progress events and closes the runs with their summary."""
 
-    def __init__(self, refs: list[PageRef], states: list[_RunState], st: RunStore, clock: Clock, progress,
+    def __init__(self, refs: list[PageRef], states: list[RunState], st: RunStore, clock: Clock, progress,
                  input_dir: str):
         self.states, self.st, self.clock, self.progress, self.input_dir = states, st, clock, progress, input_dir
         self.start = clock()
@@ -403,9 +404,9 @@ class _RunWriter:
                           recognisers=[_summary(self.st, s, post_failures.get(s.run_id, [])) for s in self.states])
 
 
-def _run(refs: list[PageRef], states: list[_RunState], st: RunStore, options: RunOptions, clock: Clock,
+def _run(refs: list[PageRef], states: list[RunState], st: RunStore, options: RunOptions, clock: Clock,
          progress, postprocess, input_dir: str) -> RunSummary:
-    w = _RunWriter(refs, states, st, clock, progress, input_dir)
+    w = RunWriter(refs, states, st, clock, progress, input_dir)
     work = [r for r in refs if r.id not in w.skipped_ids]
     pool = (ThreadPoolExecutor(max_workers=1, thread_name_prefix="ocrbench-prefetch")
             if options.use_prefetch() and len(work) > 1 else None)
@@ -549,7 +550,7 @@ def _reason(e: BaseException) -> str:
     return f"{type(e).__name__}: {e}"
 
 
-def _summary(st: RunStore, s: _RunState, post_failures: list[tuple[str, str]] | None = None) -> RecogniserSummary:
+def _summary(st: RunStore, s: RunState, post_failures: list[tuple[str, str]] | None = None) -> RecogniserSummary:
     tot = st.run_totals(s.run_id)
     recipe = st.post_recipe(s.run_id)
     times = tot["t_total"]

@@ -16,12 +16,11 @@ import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
-from ocrbench.commands.run import _Progress
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.cli.progress import RunProgress
 from ocrbench.errors import OcrbenchError
 
 
-@app.command("demo")
 def demo(
     out: Path = typer.Option(Path("ocrbench-out/demo"), "--out", help="Folder for the store, the report and the "
                                                                        "firm's word list (rerun to resume)."),
@@ -47,7 +46,7 @@ def demo(
                       TimeRemainingColumn(), console=err, transient=True) as bar:
             task = bar.add_task("loading recognisers", total=None)
             result = run_demo(out_dir=out, models_dir=models, scans_dir=scans, workers=workers, max_pages=pages,
-                              archive=DemoArchive(), fresh=fresh, progress=_Progress(bar, task), echo=echo)
+                              archive=DemoArchive(), fresh=fresh, progress=RunProgress(bar, task), echo=echo)
     except KeyboardInterrupt:
         raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
     except OcrbenchError as e:

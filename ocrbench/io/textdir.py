@@ -49,3 +49,28 @@ def write_lines(path: Path, lines: list[str]) -> None:
         tmp.replace(path)
     except OSError as e:
         raise TextFileError(path, f"cannot write: {e.strerror or e}") from e
+
+
+def text_stem(page_id: str) -> str:
+    """File stem of a page's text: ``page_001.png`` -> ``page_001``, ``book.tif#3`` -> ``book_3``."""
+    name, _, frame = page_id.partition("#")
+    stem = Path(name).stem
+    return f"{stem}_{frame}" if frame else stem
+
+
+def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]]) -> int:
+    """Write each page's lines to ``out_dir/recogniser/<stem>.txt`` (UTF-8, one line per text line)."""
+    folder = out_dir / recogniser
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise TextFileError(folder, f"cannot create the folder ({e.strerror or e})") from e
+    for page_id, lines in texts.items():
+        path = folder / f"{text_stem(page_id)}.txt"
+        tmp = path.with_name(path.name + ".part")
+        try:
+            tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
+            tmp.replace(path)
+        except OSError as e:
+            raise TextFileError(path, f"cannot write ({e.strerror or e})") from e
+    return len(texts)

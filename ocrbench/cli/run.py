@@ -23,41 +23,19 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.cli.progress import RunProgress
+from ocrbench.io.textdir import write_texts
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError, TextFileError
 from ocrbench.recognisers.base import DECODINGS, EngineOptions
 
 
-def text_stem(page_id: str) -> str:
-    """File stem of a page's text: ``page_001.png`` -> ``page_001``, ``book.tif#3`` -> ``book_3``."""
-    name, _, frame = page_id.partition("#")
-    stem = Path(name).stem
-    return f"{stem}_{frame}" if frame else stem
-
-
-def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]]) -> int:
-    """Write each page's lines to ``out_dir/recogniser/<stem>.txt`` (UTF-8, one line per text line)."""
-    folder = out_dir / recogniser
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise TextFileError(folder, f"cannot create the folder ({e.strerror or e})") from e
-    for page_id, lines in texts.items():
-        path = folder / f"{text_stem(page_id)}.txt"
-        tmp = path.with_name(path.name + ".part")
-        try:
-            tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
-            tmp.replace(path)
-        except OSError as e:
-            raise TextFileError(path, f"cannot write ({e.strerror or e})") from e
-    return len(texts)
 
 
 def _fmt(v, spec: str) -> str:
     return "-" if v is None else format(v, spec)
 
 
-@app.command("run")
 def run(
     target: Path = typer.Argument(..., help="A folder of page images (PNG, JPEG, TIFF), or one image."),
     recogniser: list[Path] = typer.Option(..., "--recogniser", "-r",
@@ -107,8 +85,8 @@ def run(
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
-    from ocrbench.commands.postprocess import load_pipeline
-    from ocrbench.runner import RunOptions, run_pages
+    from ocrbench.postprocess.config import load_pipeline
+    from ocrbench.run.engine import RunOptions, run_pages
     from ocrbench.store import RunStore
 
     if decoding not in DECODINGS:
@@ -142,14 +120,14 @@ def run(
                 task = bar.add_task("loading recognisers", total=None, lps="-")
                 if workers is None and scheduler is None:
                     summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                        progress=_Progress(bar, task), fresh=fresh, postprocess=pipeline)
+                                        progress=RunProgress(bar, task), fresh=fresh, postprocess=pipeline)
                 else:
-                    from ocrbench.distributed import DaskOptions, run_distributed
+                    from ocrbench.run.distributed import DaskOptions, run_distributed
 
                     dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
                                        scheduler=scheduler, pages_per_task=pages_per_task)
                     summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                              dask=dask, progress=_Progress(bar, task), fresh=fresh,
+                                              dask=dask, progress=RunProgress(bar, task), fresh=fresh,
                                               postprocess=pipeline)
             written = {}
             if text_out is not None:
@@ -206,17 +184,3 @@ def run(
     raise typer.Exit(EXIT_OK)
 
 
-class _Progress:
-    """Feeds runner progress events to a rich progress bar: pages worked on, lines/s, time left."""
-
-    def __init__(self, bar: Progress, task):
-        self.bar, self.task = bar, task
-
-    def __call__(self, ev) -> None:
-        if ev.kind == "start":
-            note = f" ({ev.pages_skipped} already done)" if ev.pages_skipped else ""
-            self.bar.update(self.task, description=f"recognising{note}", total=ev.pages_total - ev.pages_skipped,
-                            completed=0)
-        elif not ev.skipped:
-            lps = f"{ev.lines_done / ev.elapsed:.1f}" if ev.elapsed > 0 else "-"
-            self.bar.update(self.task, advance=1, lps=lps)

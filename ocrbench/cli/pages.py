@@ -15,7 +15,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.pages import DEFAULT_MAX_PIXELS, PageRef, analyse_page, list_pages, load_page
 
@@ -39,7 +39,6 @@ def check_page(ref: PageRef, *, max_pixels: int, deskew: bool) -> dict:
     return row
 
 
-@app.command("pages")
 def pages_command(
     target: Path = typer.Argument(..., help="A folder of page images (PNG, JPEG, TIFF), or one image."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),

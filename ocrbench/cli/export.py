@@ -8,11 +8,10 @@ from pathlib import Path
 import typer
 from rich.console import Console
 
-from ocrbench.cli import EXIT_OK, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError
 
 
-@app.command("export")
 def export_cmd(
     store: Path = typer.Argument(..., help="A run store written by 'ocrbench run'."),
     out: Path = typer.Option(..., "--out", help="Folder for runs, pages, lines and batches files."),

@@ -3,7 +3,7 @@
 ``ocrbench report --plan FILE`` accepts the project's two plan formats:
 
 * **a plan file** (TOML), the same format ``ocrbench plan`` reads
-  (:data:`ocrbench.planio.PLAN_FILE_FORMAT`). Its ``calibration`` may be left
+  (:data:`ocrbench.planning.inputs.PLAN_FILE_FORMAT`). Its ``calibration`` may be left
   out: the report's store is then the calibration. When the file does not
   describe the archive's pages (no ``sample``, ``store`` or
   ``lines_per_page``), the report's own pages describe them, as read by the
@@ -12,8 +12,8 @@
 * **plan results** (JSON), as ``ocrbench plan --json`` prints them: an
   object with a ``recognisers`` list (or the list itself). Shown as given.
 
-The plan is computed with the planner's own pieces (:mod:`ocrbench.planio`,
-:mod:`ocrbench.planner`), so it equals what ``ocrbench plan`` says for the
+The plan is computed with the planner's own pieces (:mod:`ocrbench.planning.inputs`,
+:mod:`ocrbench.planning.model`), so it equals what ``ocrbench plan`` says for the
 same inputs, and the report adds the wall-clock against the number of
 workers: one worker per machine up to as many workers as the measured
 machine has cores (only with throughput measured at several workers, see
@@ -32,8 +32,8 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from ocrbench import planio
-from ocrbench import planner as P
+from ocrbench.planning import inputs as planio
+from ocrbench.planning import model as P
 from ocrbench.errors import InputError, PlanError
 
 __all__ = ["PlanRequest", "PlanResults", "load_plan_file", "compute_plan", "plan_from_results", "ROW_KEYS"]

@@ -22,13 +22,13 @@ Why it is built this way:
   refits of the cost model (pages resampled), (b) the archive's page
   distribution and (c) the fit residuals.
 * **No free scaling.** Several workers on one machine are only planned with a
-  measured throughput table (``ocrbench.scaling``); between measured points and
+  measured throughput table (``ocrbench.run.measure``); between measured points and
   beyond them Amdahl's law (G. Amdahl 1967) with a fitted serial fraction is
   used, and a warning says so.
 
 Pure: numpy and pandas only; no onnxruntime, no files, no CLI. The I/O around it
 (reading a store, segmenting a sample folder, scoring ground truth) lives in
-``ocrbench.planio``.
+``ocrbench.planning.inputs``.
 """
 
 from __future__ import annotations
@@ -799,7 +799,7 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         notes.append(f"the machine's speed varied by {100 * speed_cv:.1f}% (coefficient of variation) between "
                      f"{int(session['sessions'])} timed sessions of the same pages; the interval includes it")
     if session:
-        # measured directly around a run (ocrbench.scaling): more precise than store timestamps
+        # measured directly around a run (ocrbench.run.measure): more precise than store timestamps
         gap_mean = float(session.get("gap_seconds_per_page", gap_mean) or 0.0)
         startup = float(session.get("startup_seconds", startup or 0.0) or 0.0)
         if gap_mean < 0:

@@ -1,12 +1,12 @@
 """The planner's inputs from files: calibration stores, sample folders, ground truth, plan files.
 
-``ocrbench.planner`` is pure (tables in, tables out); this module reads what
+``ocrbench.planning.model`` is pure (tables in, tables out); this module reads what
 it needs from disk and hands it over:
 
-* a calibration store -> one :class:`~ocrbench.planner.CostModel` per
+* a calibration store -> one :class:`~ocrbench.planning.model.CostModel` per
   recogniser (the machine profile is the store's host), plus the throughput
-  table ``scaling`` that :mod:`ocrbench.scaling` adds to the same file;
-* a sample folder -> an :class:`~ocrbench.planner.Archive` (pages segmented
+  table ``scaling`` that :mod:`ocrbench.run.measure` adds to the same file;
+* a sample folder -> an :class:`~ocrbench.planning.model.Archive` (pages segmented
   only, nothing recognised);
 * a ground-truth folder -> each recogniser's CER with its interval and the
   per-page scores the sample-size calculation needs;
@@ -26,7 +26,7 @@ from typing import Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from ocrbench import planner as P
+from ocrbench.planning import model as P
 from ocrbench.errors import InputError, OcrbenchError, PlanError, StoreError
 
 PLAN_FILE_FORMAT = """\
@@ -56,7 +56,7 @@ deadline = "6w"                            # s, m, h, d or w
 budget = 5000
 
 [correction]
-seconds_per_error = 10                     # default 10 (see ocrbench.planner.Correction)
+seconds_per_error = 10                     # default 10 (see ocrbench.planning.model.Correction)
 price_hour = 25                            # cost of an hour of correction (default: not priced)
 truth = "truth/"                           # ground truth of the calibration pages -> CER and sample size
 cer_margin = 0.005                         # wanted half-width of the CER interval
@@ -284,7 +284,7 @@ def score_calibration(store_path: Path | str, truth_dir: Path | str, *, recognis
                       profile: str = "nfc") -> dict[str, tuple[P.AccuracyInput, pd.DataFrame]]:
     """Each recogniser's CER (with its interval) and per-page scores on the calibration pages that have truth."""
     from ocrbench.accuracy.score import score_pages
-    from ocrbench.accuracy.textio import read_text_lines
+    from ocrbench.io.text import read_text_lines
     from ocrbench.store import RunStore
 
     truth_dir = Path(truth_dir)

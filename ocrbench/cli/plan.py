@@ -15,7 +15,7 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from ocrbench.cli import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, app, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError
 
 
@@ -41,7 +41,7 @@ def _yes(v) -> str:
 
 def render(table, console: Console) -> None:
     """The side-by-side table and the plan's statements, for people."""
-    from ocrbench.planner import format_duration
+    from ocrbench.planning.model import format_duration
 
     rows = table.to_dict(orient="records")
     t = Table(title="Archive plan", show_lines=False)
@@ -93,7 +93,6 @@ def render(table, console: Console) -> None:
         console.print(f"[dim]assumption: {a}[/dim]")
 
 
-@app.command("plan")
 def plan(
     calibration: list[str] = typer.Option([], "--calibration", "-c",
                                           help="A calibration run store (repeat for other machines; "
@@ -133,7 +132,7 @@ def plan(
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Plan an archive: wall-clock P10/P50/P90, core-hours, money, correction hours, deadline and budget fit."""
-    from ocrbench import planio
+    from ocrbench.planning import inputs as planio
 
     if plan_format:
         typer.echo(planio.PLAN_FILE_FORMAT, nl=False)
@@ -168,7 +167,6 @@ def plan(
     raise typer.Exit(EXIT_OK)
 
 
-@app.command("measure-scaling")
 def measure_scaling_cmd(
     target: Path = typer.Argument(..., help="A folder of calibration pages."),
     recogniser: list[Path] = typer.Option(..., "--recogniser", "-r", help="A recogniser card; repeat for more."),
@@ -182,9 +180,9 @@ def measure_scaling_cmd(
     """Time a run of each recogniser on TARGET (start-up, pages/s) and, with --workers K, 2..K workers too."""
     import pandas as pd
 
-    from ocrbench import planio
+    from ocrbench.planning import inputs as planio
     from ocrbench.recognisers.base import EngineOptions
-    from ocrbench.scaling import measure_scaling, measure_session
+    from ocrbench.run.measure import measure_scaling, measure_session
 
     err = Console(stderr=True)
     rows = []

@@ -1,0 +1,1 @@
+"""Archive planning: cost model, estimates, decisions, inputs (stores, plan files), and the one plan() service."""
