@@ -17,7 +17,8 @@ ROOT = Path(__file__).resolve().parents[1] / "ocrbench"
 LAYERS: list[list[str]] = [
     ["__init__", "errors"],
     ["io"],
-    ["pages", "recognisers", "store", "synth"],
+    ["pages"],                      # page images -> line crops; recognisers cut crops with pages.segment
+    ["recognisers", "store", "synth"],
     ["ledger"],
     ["accuracy"],
     ["postprocess"],

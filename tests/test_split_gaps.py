@@ -3,7 +3,7 @@
 import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
-from ocrbench.recognisers.preprocess import split_at_gaps
+from ocrbench.pages.segment import split_at_gaps
 
 
 def _line(fields_at, width=900, height=34):

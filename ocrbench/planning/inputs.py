@@ -230,7 +230,7 @@ def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pa
     pieces' widths are measured too (column ``pieces_<gap>``), as the card would cut them.
     """
     from ocrbench.pages import analyse_page, list_pages, load_page
-    from ocrbench.recognisers.preprocess import split_at_gaps
+    from ocrbench.pages.segment import split_at_gaps
 
     gaps = sorted({float(g) for g in split_gaps if g and g > 0})
 

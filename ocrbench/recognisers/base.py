@@ -16,7 +16,8 @@ import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
 from ocrbench.recognisers.card import Card
-from ocrbench.recognisers.preprocess import split_at_gaps, InputSpec, make_batch, resize_line, width_batches
+from ocrbench.pages.segment import split_at_gaps
+from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line, width_batches
 
 Clock = Callable[[], float]
 

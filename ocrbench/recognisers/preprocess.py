@@ -91,39 +91,3 @@ def width_batches(widths: Sequence[int], max_batch: int, max_pad_ratio: float = 
     if cur:
         batches.append(cur)
     return batches
-
-
-def split_at_gaps(gray: np.ndarray, gap_factor: float) -> list[tuple[int, int]]:
-    """Column spans of the pieces of a line separated by blank gaps wider than
-    ``gap_factor`` times the crop height (tables: fields far apart on the page).
-
-    A column is blank when fewer than two of its pixels are darker than the
-    midpoint between the crop's paper (98th percentile) and ink (2nd percentile).
-    Each piece keeps a little paper on both sides. One piece (the whole width)
-    when there is no such gap or ``gap_factor`` is 0.
-    """
-    h, w = gray.shape
-    if gap_factor <= 0 or w < 2 * h:
-        return [(0, w)]
-    lo, hi = np.percentile(gray, 2), np.percentile(gray, 98)
-    if hi - lo < 30:
-        return [(0, w)]
-    ink = (gray < (lo + hi) / 2).sum(axis=0) >= 2
-    cols = np.flatnonzero(ink)
-    if cols.size == 0:
-        return [(0, w)]
-    min_gap = gap_factor * h
-    pad = max(2, int(0.25 * h))
-    spans = []
-    start = int(cols[0])
-    prev = int(cols[0])
-    for c in cols[1:]:
-        c = int(c)
-        if c - prev - 1 >= min_gap:
-            spans.append((start, prev + 1))
-            start = c
-        prev = c
-    spans.append((start, prev + 1))
-    if len(spans) == 1:
-        return [(0, w)]
-    return [(max(0, a - pad), min(w, b + pad)) for a, b in spans]

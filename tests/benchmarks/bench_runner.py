@@ -144,7 +144,7 @@ class PlainScript:
     def line(self, crop: np.ndarray) -> str:
         """One line; with the card's split_gap, each piece between wide gaps alone, joined with a space."""
         if self.card.input.split_gap > 0:
-            from ocrbench.recognisers.preprocess import split_at_gaps
+            from ocrbench.pages.segment import split_at_gaps
 
             spans = split_at_gaps(crop, self.card.input.split_gap)
             if len(spans) > 1:

@@ -1,0 +1,81 @@
+"""A page's layout: skew estimated and removed, text lines found with their crops.
+
+Boxes are in the coordinates of the deskewed page; with ``deskew`` the page is
+rotated back about its centre on the same canvas, so boxes line up with the
+unrotated original.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ocrbench.pages.binarise import binarise
+from ocrbench.pages.crops import crop_line
+from ocrbench.pages.segment import find_line_boxes, remove_rules
+from ocrbench.pages.skew import MIN_DESKEW_DEGREES, skew_from_ink
+from ocrbench.pages.skew import deskew as rotate_back   # analyse_page's keyword ``deskew`` shadows the name
+
+
+@dataclass
+class LineBox:
+    """One text line: its ink box (x1/y1 exclusive) and a padded grey crop."""
+
+    x0: int
+    y0: int
+    x1: int
+    y1: int
+    crop: np.ndarray
+
+    @property
+    def height(self) -> int:
+        return self.y1 - self.y0
+
+    @property
+    def width(self) -> int:
+        return self.x1 - self.x0
+
+
+@dataclass
+class Layout:
+    lines: list[LineBox]
+    skew_degrees: float
+    deskewed: np.ndarray
+
+
+def lines_from_ink(g: np.ndarray, ink: np.ndarray) -> list[LineBox]:
+    """Lines of a grey page from its ink mask: rules removed, boxes found, padded crops cut."""
+    boxes = find_line_boxes(remove_rules(ink))
+    lines = []
+    for i, box in enumerate(boxes):
+        neighbours = boxes[max(0, i - 2): i] + boxes[i + 1: i + 3]
+        lines.append(LineBox(*box, crop=crop_line(g, box, neighbours)))
+    return lines
+
+
+def segment_lines(gray: np.ndarray) -> list[LineBox]:
+    """Text lines of an already-deskewed page, top to bottom, with padded grey crops."""
+    g = np.asarray(gray, dtype=np.uint8)
+    if g.ndim != 2 or min(g.shape) < 4:
+        return []
+    return lines_from_ink(g, binarise(g))
+
+
+def analyse_page(gray: np.ndarray, *, deskew: bool = True, max_degrees: float = 5.0) -> Layout:
+    """Estimate the skew, deskew (about the centre, same canvas) and find the lines."""
+    g = np.asarray(gray, dtype=np.uint8)
+    if g.ndim != 2:
+        raise ValueError(f"expected a 2-D grey image, got shape {g.shape}")
+    if g.size == 0 or min(g.shape) < 4:
+        return Layout(lines=[], skew_degrees=0.0, deskewed=g.copy())
+    ink = binarise(g)
+    skew = 0.0
+    if deskew and min(g.shape) >= 8:
+        skew = skew_from_ink(ink, max_degrees=max_degrees)
+    if abs(skew) >= MIN_DESKEW_DEGREES:
+        straight = rotate_back(g, skew)
+        ink = binarise(straight)
+    else:
+        straight = g.copy()
+    return Layout(lines=lines_from_ink(straight, ink), skew_degrees=skew, deskewed=straight)
