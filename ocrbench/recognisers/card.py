@@ -15,16 +15,16 @@ the file and the field.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import json
-import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ocrbench.errors import CardError
+from ocrbench.errors import CardError, ConfigError
+from ocrbench.io.config import Key, check_table
+from ocrbench.recognisers.graphs import GraphInfo, TensorInfo, class_count, need_tensor, read_graph
 from ocrbench.recognisers.preprocess import InputSpec
 
 CARD_FILE = "card.toml"
@@ -34,35 +34,6 @@ DEFAULT_MASK_VALID = 0.0
 DEFAULT_MASK_PADDED = -1e9
 
 # --------------------------------------------------------------------------- data
-
-
-@dataclass(frozen=True)
-class TensorInfo:
-    """Name, element type and shape of one graph input or output (None or a string for a free axis)."""
-
-    name: str
-    elem_type: int
-    shape: tuple[int | str | None, ...] | None
-
-    @property
-    def rank(self) -> int | None:
-        return None if self.shape is None else len(self.shape)
-
-    def static(self, axis: int) -> int | None:
-        if self.shape is None:
-            return None
-        d = self.shape[axis]
-        return d if isinstance(d, int) and d > 0 else None
-
-
-@dataclass(frozen=True)
-class GraphInfo:
-    """The interface of one ONNX file: its inputs and outputs by name."""
-
-    path: Path
-    inputs: dict[str, TensorInfo]
-    outputs: dict[str, TensorInfo]
-    opset: int
 
 
 @dataclass(frozen=True)
@@ -173,6 +144,122 @@ class Card:
         return self.ctc.symbols if self.ctc else self.seq.symbols  # type: ignore[union-attr]
 
 
+
+# --------------------------------------------------------------------------- schemas
+#
+# The typed pass (names, types, ranges, unknown keys with the nearest valid name)
+# goes through ocrbench.io.config.check_table; the checks against the ONNX graphs
+# and the symbol files follow in the loaders below.
+
+
+def _str(default: Any = None, *, required: bool = False, **kw) -> Key:
+    return Key((str,), default, required=required, **kw)
+
+
+def _pos_int(default: int) -> Key:
+    return Key((int,), default, low=1)
+
+
+def _names(default: Any = None, *, required: bool = False) -> Key:
+    """A tensor name or a list of them."""
+    return Key((list, str), default, required=required, items=(str,))
+
+
+def _layout_key(default: Any, letters: str) -> Key:
+    def check(v: str) -> str | None:
+        if len(set(v)) != len(v) or not set(letters) <= set(v):
+            return f"must name each axis with one letter and contain {', '.join(letters)} (got {v!r})"
+        return None
+    return Key((str,), default, required=default is None, check=check)
+
+
+_D = InputSpec()
+INPUT_SCHEMA = {
+    "height": _pos_int(_D.height),
+    "width_multiple": _pos_int(_D.width_multiple),
+    "min_width": _pos_int(_D.min_width),
+    "max_width": _pos_int(_D.max_width),
+    "invert": Key((bool,), _D.invert),
+    "scale": Key((float,), _D.scale, check=lambda v: None if v != 0 else "must be a non-zero number"),
+    "mean": Key((float,), _D.mean),
+    "std": Key((float,), _D.std, low=0, low_open=True),
+    "split_gap": Key((float,), _D.split_gap, low=0),
+}
+TOP_SCHEMA = {
+    "name": _str(),
+    "kind": _str(required=True),
+    "description": _str(""),
+    "version": Key((str, int), "1"),
+    "input": INPUT_SCHEMA,
+    "ctc": Key((dict,)),
+    "seq": Key((dict,)),
+}
+CTC_SCHEMA = {
+    "model": _str(required=True),
+    "input": _str("image"),
+    "output": _str("logits"),
+    "layout": _str("BTC", choices=CTC_LAYOUTS),
+    "output_is_log_probs": Key((bool,), False),
+    "frames_per_pixel": Key((float,), None, low=0, low_open=True),
+    "blank_index": Key((int,), 0, low=0),
+    "alphabet": _str(required=True),
+}
+SEQ_SCHEMA = {
+    "vocab": _str(required=True),
+    "bos_index": Key((int,), required=True, low=0),
+    "eos_index": Key((int,), required=True, low=0),
+    "pad_index": Key((int,), None, low=0),
+    "special_indices": Key((list,), [], items=(int,)),
+    "max_tokens": _pos_int(256),
+    "frames_per_pixel": Key((float,), None, low=0, low_open=True),
+    "memory_mask_valid": Key((float,), DEFAULT_MASK_VALID),
+    "memory_mask_padded": Key((float,), DEFAULT_MASK_PADDED),
+    "encoder": {
+        "model": _str(required=True),
+        "input": _str("image"),
+        "outputs": _names(required=True),
+        "layout": _layout_key("BTD", "BT"),
+    },
+    "decoder_step": Key((dict,)),
+    "decoder_full": Key((dict,)),
+}
+STEP_SCHEMA = {
+    "model": _str(required=True),
+    "tokens": _str("tokens"),
+    "step": _str(""),
+    "past": _names(required=True),
+    "present": _names(required=True),
+    "memory": _names(),
+    "memory_mask": _str(""),
+    "log_probs": _str("log_probs"),
+    "cache_layout": _layout_key(None, "BT"),
+}
+FULL_SCHEMA = {
+    "model": _str(required=True),
+    "tokens": _str("tokens"),
+    "memory": _names(),
+    "memory_mask": _str(""),
+    "log_probs": _str("log_probs"),
+}
+
+
+def checked(p: Path, doc: dict, schema: dict, prefix: str = "") -> dict:
+    """``doc`` through the typed-table check, its ConfigError turned into a CardError naming the card."""
+    try:
+        return check_table(doc, schema, source=p, prefix=prefix)
+    except CardError:
+        raise
+    except ConfigError as e:
+        raise CardError(p, e.reason) from e
+
+
+def _names_of(p: Path, v: Any, key: str) -> tuple[str, ...]:
+    names = (v,) if isinstance(v, str) else tuple(v)
+    if not names or not all(names):
+        raise CardError(p, f"field '{key}': must be a non-empty list of tensor names")
+    return names
+
+
 # --------------------------------------------------------------------------- helpers
 
 
@@ -183,117 +270,6 @@ def sha256_file(path: Path) -> str:
         for chunk in iter(lambda: f.read(1 << 20), b""):
             h.update(chunk)
     return h.hexdigest()
-
-
-class _Table:
-    """Typed access to one TOML table, with errors naming the card and the field."""
-
-    def __init__(self, card: Path, data: dict, where: str):
-        self.card, self.data, self.where = card, data, where
-        self.used: set[str] = set()
-
-    def _name(self, key: str) -> str:
-        return f"{self.where}.{key}" if self.where else key
-
-    def err(self, key: str | None, msg: str) -> CardError:
-        at = f"field '{self._name(key)}'" if key else (f"table [{self.where}]" if self.where else "card")
-        return CardError(self.card, f"{at}: {msg}")
-
-    def has(self, key: str) -> bool:
-        return key in self.data
-
-    def get(self, key: str, typ: type | tuple, default: Any = ..., *, check=None) -> Any:
-        self.used.add(key)
-        if key not in self.data:
-            if default is ...:
-                raise self.err(key, "is required but missing")
-            return default
-        v = self.data[key]
-        types = typ if isinstance(typ, tuple) else (typ,)
-        if float in types and isinstance(v, int) and not isinstance(v, bool):
-            v = float(v)
-        if not isinstance(v, types) or (isinstance(v, bool) and bool not in types):
-            names = " or ".join(t.__name__ for t in types)
-            raise self.err(key, f"must be {names}, got {type(v).__name__} {v!r}")
-        if check is not None:
-            problem = check(v)
-            if problem:
-                raise self.err(key, problem)
-        return v
-
-    def str_list(self, key: str, default: Any = ...) -> tuple[str, ...]:
-        v = self.get(key, (list, str), default)
-        if isinstance(v, str):
-            return (v,)
-        if not v or not all(isinstance(s, str) and s for s in v):
-            raise self.err(key, "must be a non-empty list of tensor names")
-        return tuple(v)
-
-    def table(self, key: str, required: bool = True) -> "_Table | None":
-        self.used.add(key)
-        if key not in self.data:
-            if required:
-                raise self.err(key, "table is required but missing")
-            return None
-        v = self.data[key]
-        if not isinstance(v, dict):
-            raise self.err(key, "must be a table")
-        return _Table(self.card, v, self._name(key))
-
-    def finish(self) -> None:
-        """Reject fields the format does not know (a typo must not be ignored silently)."""
-        unknown = sorted(set(self.data) - self.used)
-        if unknown:
-            k = unknown[0]
-            close = difflib.get_close_matches(k, sorted(self.used), n=1)
-            hint = f" (did you mean '{close[0]}'?)" if close else ""
-            raise self.err(k, f"is not a field of this table{hint}")
-
-
-def _positive(v) -> str | None:
-    return None if v > 0 else "must be greater than 0"
-
-
-def _non_negative(v) -> str | None:
-    return None if v >= 0 else "must be 0 or more"
-
-
-def _read_graph(card: Path, role: str, path: Path) -> GraphInfo:
-    import onnx
-
-    try:
-        m = onnx.load(str(path), load_external_data=False)
-    except Exception as e:  # onnx raises DecodeError and friends
-        raise CardError(path, f"{role}: not a readable ONNX model ({type(e).__name__}: {e})") from e
-    init = {i.name for i in m.graph.initializer}
-
-    def info(v) -> TensorInfo:
-        tt = v.type.tensor_type
-        shape = None
-        if tt.HasField("shape"):
-            shape = tuple((d.dim_value if d.HasField("dim_value") else (d.dim_param or None)) for d in tt.shape.dim)
-        return TensorInfo(v.name, tt.elem_type, shape)
-
-    opset = max((o.version for o in m.opset_import if o.domain in ("", "ai.onnx")), default=0)
-    return GraphInfo(path, {v.name: info(v) for v in m.graph.input if v.name not in init},
-                     {v.name: info(v) for v in m.graph.output}, opset)
-
-
-def _need(card: Path, role: str, g: GraphInfo, name: str, *, output: bool, rank: int | tuple[int, ...] | None,
-          key: str) -> TensorInfo:
-    pool = g.outputs if output else g.inputs
-    what = "output" if output else "input"
-    if name not in pool:
-        have = ", ".join(sorted(pool)) or "none"
-        raise CardError(card, f"field '{key}': {role} model {g.path.name} has no {what} named '{name}' "
-                              f"(its {what}s: {have})")
-    t = pool[name]
-    ranks = (rank,) if isinstance(rank, int) else rank
-    if ranks is not None and t.rank is not None and t.rank not in ranks:
-        want = " or ".join(str(r) for r in ranks)
-        raise CardError(card, f"field '{key}': {what} '{name}' of {g.path.name} has rank {t.rank} "
-                              f"(shape {list(t.shape)}), expected rank {want}")
-    return t
 
 
 def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
@@ -311,7 +287,7 @@ def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
         try:
             s = json.loads(line)
         except json.JSONDecodeError as e:
-            raise CardError(path, f"{key}: line {i} is not a JSON string ({e.msg}): {line[:40]!r}") from e
+            raise CardError(path, f"{key}: line {i} is not a JSON string ({e.msg} at column {e.colno})") from e
         if not isinstance(s, str):
             raise CardError(path, f"{key}: line {i} must be a JSON string, got {type(s).__name__}")
         out.append(s)
@@ -321,7 +297,7 @@ def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
 
 
 def _check_input_image(card: Path, role: str, g: GraphInfo, name: str, key: str, spec: InputSpec) -> None:
-    t = _need(card, role, g, name, output=False, rank=4, key=key)
+    t = need_tensor(card, role, g, name, output=False, rank=4, key=key)
     if t.rank is None:
         return
     c, h = t.static(1), t.static(2)
@@ -333,25 +309,47 @@ def _check_input_image(card: Path, role: str, g: GraphInfo, name: str, key: str,
                               f"wants height {h}")
 
 
-def _layout(tab: _Table, key: str, default: str, letters: str, rank: int | None) -> str:
-    def check(v: str) -> str | None:
-        if len(set(v)) != len(v) or not set(letters) <= set(v):
-            return f"must name each axis with one letter and contain {', '.join(letters)} (got {v!r})"
-        if rank is not None and len(v) != rank:
-            return f"has {len(v)} axes but the tensor has rank {rank}"
-        return None
-    v = tab.get(key, str, default, check=check)
-    problem = check(v)
-    if problem:
-        raise tab.err(key, problem)
-    return v
+def _check_rank(p: Path, key: str, layout: str, rank: int | None) -> str:
+    if rank is not None and len(layout) != rank:
+        raise CardError(p, f"field '{key}': has {len(layout)} axes but the tensor has rank {rank}")
+    return layout
 
 
-def _class_count(t: TensorInfo, axis: int) -> int | None:
-    return t.static(axis) if t.shape is not None else None
+class _Files:
+    """The files a card names, resolved against its folder, with the role each plays (hashed together)."""
+
+    def __init__(self, card: Path, folder: Path):
+        self.card, self.folder = card, folder
+        self.paths: dict[str, Path] = {}
+
+    def __call__(self, rel: str, key: str, role: str) -> Path:
+        f = (self.folder / rel).resolve()
+        if not f.is_file():
+            raise CardError(self.card, f"field '{key}': file not found: {f}")
+        self.paths[role] = f
+        return f
 
 
 # --------------------------------------------------------------------------- loader
+
+
+def _read_card(p: Path) -> tuple[bytes, dict]:
+    if not p.exists():
+        raise CardError(p, "recogniser card not found")
+    try:
+        text = p.read_bytes()
+        return text, tomllib.loads(text.decode("utf-8"))
+    except UnicodeDecodeError as e:
+        raise CardError(p, f"not UTF-8 text (byte {e.start})") from e
+    except tomllib.TOMLDecodeError as e:
+        raise CardError(p, f"not valid TOML: {e}") from e
+
+
+def _input_spec(p: Path, t: dict) -> InputSpec:
+    spec = InputSpec(**t)
+    if spec.min_width > spec.max_width:
+        raise CardError(p, f"field 'input.min_width': {spec.min_width} is larger than max_width {spec.max_width}")
+    return spec
 
 
 def load_card(path: Path | str) -> Card:
@@ -365,94 +363,46 @@ def load_card(path: Path | str) -> Card:
     p = Path(path)
     if p.is_dir():
         p = p / CARD_FILE
-    if not p.exists():
-        raise CardError(p, "recogniser card not found")
-    try:
-        text = p.read_bytes()
-        data = tomllib.loads(text.decode("utf-8"))
-    except UnicodeDecodeError as e:
-        raise CardError(p, f"not UTF-8 text (byte {e.start})") from e
-    except tomllib.TOMLDecodeError as e:
-        raise CardError(p, f"not valid TOML: {e}") from e
+    text, data = _read_card(p)
     folder = p.parent.resolve()
-    top = _Table(p, data, "")
-    kind = top.get("kind", str)
-    if kind not in KINDS:
-        raise top.err("kind", f"unknown kind {kind!r}; use one of {', '.join(KINDS)}")
-    name = top.get("name", str, folder.name, check=lambda v: None if v.strip() else "must not be empty")
+    if "kind" in data and isinstance(data["kind"], str) and data["kind"] not in KINDS:
+        raise CardError(p, f"field 'kind': unknown kind {data['kind']!r}; use one of {', '.join(KINDS)}")
+    top = checked(p, data, TOP_SCHEMA)
+    kind = top["kind"]
+    name = top["name"] if top["name"] is not None else folder.name
+    if not name.strip():
+        raise CardError(p, "field 'name': must not be empty")
     if any(c in name for c in "/\\:\0"):
-        raise top.err("name", f"must not contain path separators: {name!r}")
-    description = top.get("description", str, "")
-    version = str(top.get("version", (str, int), "1"))
-
-    itab = top.table("input", required=False)
-    if itab is None:
-        spec = InputSpec()
-    else:
-        d = InputSpec()
-        spec = InputSpec(
-            height=itab.get("height", int, d.height, check=_positive),
-            width_multiple=itab.get("width_multiple", int, d.width_multiple, check=_positive),
-            min_width=itab.get("min_width", int, d.min_width, check=_positive),
-            max_width=itab.get("max_width", int, d.max_width, check=_positive),
-            invert=itab.get("invert", bool, d.invert),
-            scale=itab.get("scale", float, d.scale, check=lambda v: None if math.isfinite(v) and v != 0 else "must be a non-zero number"),
-            mean=itab.get("mean", float, d.mean),
-            std=itab.get("std", float, d.std, check=lambda v: None if v > 0 else "must be greater than 0"),
-            split_gap=itab.get("split_gap", float, d.split_gap, check=lambda v: None if v >= 0 else "must be 0 (off) or more"),
-        )
-        if spec.min_width > spec.max_width:
-            raise itab.err("min_width", f"{spec.min_width} is larger than max_width {spec.max_width}")
-        itab.finish()
-
-    files: dict[str, Path] = {}
-
-    def file_of(tab: _Table, key: str, role: str) -> Path:
-        rel = tab.get(key, str)
-        f = (folder / rel).resolve()
-        if not f.is_file():
-            raise CardError(p, f"field '{tab._name(key)}': file not found: {f}")
-        files[role] = f
-        return f
-
-    ctc = seq = None
-    if kind == "ctc":
-        if top.has("seq"):
-            raise top.err("seq", "a ctc card has no [seq] table")
-        ctc = _load_ctc(p, top.table("ctc"), spec, file_of)
-    else:
-        if top.has("ctc"):
-            raise top.err("ctc", "a seq card has no [ctc] table")
-        seq = _load_seq(p, top.table("seq"), spec, file_of)
-    top.finish()
-
-    hashes = {role: sha256_file(f) for role, f in files.items()}
+        raise CardError(p, f"field 'name': must not contain path separators: {name!r}")
+    spec = _input_spec(p, top["input"])
+    files = _Files(p, folder)
+    other = "seq" if kind == "ctc" else "ctc"
+    if top[other] is not None:
+        raise CardError(p, f"table [{other}]: a {kind} card has no [{other}] table")
+    if top[kind] is None:
+        raise CardError(p, f"field '{kind}': table is required but missing")
+    ctc = _load_ctc(p, checked(p, top["ctc"], CTC_SCHEMA, "ctc."), spec, files) if kind == "ctc" else None
+    seq = _load_seq(p, top["seq"], spec, files) if kind == "seq" else None
+    hashes = {role: sha256_file(f) for role, f in files.paths.items()}
     h = hashlib.sha256(text)
     for role in sorted(hashes):
         h.update(f"\n{role}={hashes[role]}".encode())
-    return Card(name=name, kind=kind, description=description, version=version, path=p.resolve(),
-                folder=folder, card_hash=h.hexdigest(), files=files, file_hashes=hashes, input=spec,
-                ctc=ctc, seq=seq)
+    return Card(name=name, kind=kind, description=top["description"], version=str(top["version"]),
+                path=p.resolve(), folder=folder, card_hash=h.hexdigest(), files=files.paths, file_hashes=hashes,
+                input=spec, ctc=ctc, seq=seq)
 
 
-def _load_ctc(p: Path, t: _Table, spec: InputSpec, file_of) -> CtcSpec:
-    model = file_of(t, "model", "model")
-    g = _read_graph(p, "ctc", model)
-    inp = t.get("input", str, "image")
-    out = t.get("output", str, "logits")
-    layout = t.get("layout", str, "BTC",
-                   check=lambda v: None if v in CTC_LAYOUTS else f"must be one of {', '.join(CTC_LAYOUTS)}")
-    is_log = t.get("output_is_log_probs", bool, False)
-    fpp = t.get("frames_per_pixel", float, None, check=_positive)
-    blank = t.get("blank_index", int, 0, check=_non_negative)
-    sym_path = file_of(t, "alphabet", "alphabet")
-    t.finish()
+def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
+    model = files(t["model"], "ctc.model", "model")
+    g = read_graph(p, "ctc", model)
+    inp, out, blank = t["input"], t["output"], t["blank_index"]
+    sym_path = files(t["alphabet"], "ctc.alphabet", "alphabet")
     _check_input_image(p, "ctc", g, inp, "ctc.input", spec)
-    ot = _need(p, "ctc", g, out, output=True, rank=3, key="ctc.output")
+    ot = need_tensor(p, "ctc", g, out, output=True, rank=3, key="ctc.output")
     symbols = _read_symbols(p, "ctc.alphabet", sym_path)
     if blank >= len(symbols):
-        raise t.err("blank_index", f"{blank} is outside the alphabet ({len(symbols)} entries)")
-    n_out = _class_count(ot, 2)
+        raise CardError(p, f"field 'ctc.blank_index': {blank} is outside the alphabet ({len(symbols)} entries)")
+    n_out = class_count(ot, 2)
     if n_out is None:
         n_out = _dry_run_classes(p, model, {inp: "image"}, out, spec, axis=2)
     if n_out != len(symbols):
@@ -460,117 +410,115 @@ def _load_ctc(p: Path, t: _Table, spec: InputSpec, file_of) -> CtcSpec:
                            f"but the model scores {n_out} classes per frame")
     syms = list(symbols)
     syms[blank] = ""
-    return CtcSpec(model=model, input=inp, output=out, layout=layout, output_is_log_probs=is_log,
-                   frames_per_pixel=fpp, blank_index=blank, symbols=tuple(syms), graph=g)
+    return CtcSpec(model=model, input=inp, output=out, layout=t["layout"], output_is_log_probs=t["output_is_log_probs"],
+                   frames_per_pixel=t["frames_per_pixel"], blank_index=blank, symbols=tuple(syms), graph=g)
 
 
-def _load_seq(p: Path, t: _Table, spec: InputSpec, file_of) -> SeqSpec:
-    sym_path = file_of(t, "vocab", "vocab")
+def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
+    t = checked(p, raw, SEQ_SCHEMA, "seq.")
+    sym_path = files(t["vocab"], "seq.vocab", "vocab")
     symbols = _read_symbols(p, "seq.vocab", sym_path)
     n = len(symbols)
-
-    def index(key: str, default) -> int:
-        return t.get(key, int, default, check=lambda v: None if 0 <= v < n else f"{v} is outside the vocabulary ({n} entries)")
-
-    bos = index("bos_index", ...)
-    eos = index("eos_index", ...)
-    pad = index("pad_index", eos)
-    extra = t.get("special_indices", list, [])
-    if not all(isinstance(i, int) and 0 <= i < n for i in extra):
-        raise t.err("special_indices", f"must be a list of indices inside the vocabulary ({n} entries)")
+    for key in ("bos_index", "eos_index", "pad_index"):
+        if t[key] is not None and t[key] >= n:
+            raise CardError(p, f"field 'seq.{key}': {t[key]} is outside the vocabulary ({n} entries)")
+    bos, eos = t["bos_index"], t["eos_index"]
+    pad = eos if t["pad_index"] is None else t["pad_index"]
+    extra = t["special_indices"]
+    if not all(0 <= i < n for i in extra):
+        raise CardError(p, f"field 'seq.special_indices': must be a list of indices inside the vocabulary ({n} entries)")
     if bos == eos:
-        raise t.err("eos_index", "must differ from bos_index")
-    max_tokens = t.get("max_tokens", int, 256, check=_positive)
-    fpp = t.get("frames_per_pixel", float, None, check=_positive)
-    mask_valid = t.get("memory_mask_valid", float, DEFAULT_MASK_VALID)
-    mask_padded = t.get("memory_mask_padded", float, DEFAULT_MASK_PADDED)
-
-    et = t.table("encoder")
-    emodel = file_of(et, "model", "encoder")
-    eg = _read_graph(p, "encoder", emodel)
-    einp = et.get("input", str, "image")
-    eouts = et.str_list("outputs")
-    _check_input_image(p, "encoder", eg, einp, "seq.encoder.input", spec)
-    ranks = set()
-    for i, o in enumerate(eouts):
-        ranks.add(_need(p, "encoder", eg, o, output=True, rank=None, key="seq.encoder.outputs").rank)
-    rank = next(iter(ranks)) if len(ranks) == 1 else None
-    elayout = _layout(et, "layout", "BTD", "BT", rank)
-    et.finish()
-    enc = EncoderSpec(model=emodel, input=einp, outputs=eouts, layout=elayout, graph=eg)
-
+        raise CardError(p, "field 'seq.eos_index': must differ from bos_index")
+    enc, rank = _load_encoder(p, t["encoder"], spec, files)
     step_spec = full_spec = None
-    st = t.table("decoder_step", required=False)
-    if st is not None:
-        smodel = file_of(st, "model", "decoder_step")
-        sg = _read_graph(p, "decoder_step", smodel)
-        tok = st.get("tokens", str, "tokens")
-        step = st.get("step", str, None) or None
-        past = st.str_list("past")
-        present = st.str_list("present")
-        memory = st.str_list("memory", tuple(eouts))
-        mmask = st.get("memory_mask", str, None) or None
-        lp = st.get("log_probs", str, "log_probs")
-        if len(past) != len(present):
-            raise st.err("present", f"lists {len(present)} tensors but 'past' lists {len(past)}; they pair by position")
-        if len(memory) != len(eouts):
-            raise st.err("memory", f"lists {len(memory)} tensors but the encoder gives {len(eouts)}; they pair by position")
-        _need(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
-        if step:
-            _need(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
-        prank = {_need(p, "decoder_step", sg, x, output=False, rank=None, key="seq.decoder_step.past").rank for x in past}
-        cl = _layout(st, "cache_layout", ..., "BT", next(iter(prank)) if len(prank) == 1 else None)
-        for x in past:
-            ti = sg.inputs[x]
-            if ti.shape is not None:
-                free = [a for a, d in enumerate(ti.shape) if a not in (cl.index("B"), cl.index("T"))
-                        and not (isinstance(d, int) and d > 0)]
-                if free:
-                    raise st.err("past", f"input '{x}' of {smodel.name} must have fixed sizes on every axis but "
-                                         f"batch and positions (cache_layout {cl!r}); axis {free[0]} is free")
-        for x in present:
-            _need(p, "decoder_step", sg, x, output=True, rank=len(cl), key="seq.decoder_step.present")
-        for x in memory:
-            _need(p, "decoder_step", sg, x, output=False, rank=rank, key="seq.decoder_step.memory")
-        if mmask:
-            _need(p, "decoder_step", sg, mmask, output=False, rank=2, key="seq.decoder_step.memory_mask")
-        lpt = _need(p, "decoder_step", sg, lp, output=True, rank=2, key="seq.decoder_step.log_probs")
-        st.finish()
-        _check_vocab(p, sym_path, n, lpt, "decoder_step")
-        step_spec = DecoderStepSpec(model=smodel, tokens=tok, step=step, past=past, present=present, memory=memory,
-                                    memory_mask=mmask, log_probs=lp, cache_layout=cl, graph=sg)
-    ft = t.table("decoder_full", required=False)
-    if ft is not None:
-        fmodel = file_of(ft, "model", "decoder_full")
-        fg = _read_graph(p, "decoder_full", fmodel)
-        tok = ft.get("tokens", str, "tokens")
-        memory = ft.str_list("memory", tuple(eouts))
-        mmask = ft.get("memory_mask", str, None) or None
-        lp = ft.get("log_probs", str, "log_probs")
-        if len(memory) != len(eouts):
-            raise ft.err("memory", f"lists {len(memory)} tensors but the encoder gives {len(eouts)}; they pair by position")
-        _need(p, "decoder_full", fg, tok, output=False, rank=2, key="seq.decoder_full.tokens")
-        for x in memory:
-            _need(p, "decoder_full", fg, x, output=False, rank=rank, key="seq.decoder_full.memory")
-        if mmask:
-            _need(p, "decoder_full", fg, mmask, output=False, rank=2, key="seq.decoder_full.memory_mask")
-        lpt = _need(p, "decoder_full", fg, lp, output=True, rank=2, key="seq.decoder_full.log_probs")
-        ft.finish()
-        _check_vocab(p, sym_path, n, lpt, "decoder_full")
-        full_spec = DecoderFullSpec(model=fmodel, tokens=tok, memory=memory, memory_mask=mmask, log_probs=lp, graph=fg)
+    if t["decoder_step"] is not None:
+        step_spec = _load_step(p, checked(p, t["decoder_step"], STEP_SCHEMA, "seq.decoder_step."), enc, rank, files)
+        _check_vocab(p, sym_path, n, step_spec.graph.outputs[step_spec.log_probs], "decoder_step")
+    if t["decoder_full"] is not None:
+        full_spec = _load_full(p, checked(p, t["decoder_full"], FULL_SCHEMA, "seq.decoder_full."), enc, rank, files)
+        _check_vocab(p, sym_path, n, full_spec.graph.outputs[full_spec.log_probs], "decoder_full")
     if step_spec is None and full_spec is None:
-        raise t.err(None, "needs a [seq.decoder_step] table (cached decoder), a [seq.decoder_full] table "
-                          "(uncached decoder), or both")
-    t.finish()
+        raise CardError(p, "table [seq]: needs a [seq.decoder_step] table (cached decoder), a [seq.decoder_full] "
+                           "table (uncached decoder), or both")
     special = frozenset({bos, eos, pad, *extra})
     syms = [("" if i in special else s) for i, s in enumerate(symbols)]
     return SeqSpec(symbols=tuple(syms), bos_index=bos, eos_index=eos, pad_index=pad, special=special,
-                   max_tokens=max_tokens, frames_per_pixel=fpp, mask_valid=mask_valid, mask_padded=mask_padded,
+                   max_tokens=t["max_tokens"], frames_per_pixel=t["frames_per_pixel"],
+                   mask_valid=t["memory_mask_valid"], mask_padded=t["memory_mask_padded"],
                    encoder=enc, decoder_step=step_spec, decoder_full=full_spec)
 
 
+def _load_encoder(p: Path, et: dict, spec: InputSpec, files: _Files) -> tuple[EncoderSpec, int | None]:
+    emodel = files(et["model"], "seq.encoder.model", "encoder")
+    eg = read_graph(p, "encoder", emodel)
+    einp = et["input"]
+    eouts = _names_of(p, et["outputs"], "seq.encoder.outputs")
+    _check_input_image(p, "encoder", eg, einp, "seq.encoder.input", spec)
+    ranks = {need_tensor(p, "encoder", eg, o, output=True, rank=None, key="seq.encoder.outputs").rank for o in eouts}
+    rank = next(iter(ranks)) if len(ranks) == 1 else None
+    elayout = _check_rank(p, "seq.encoder.layout", et["layout"], rank)
+    return EncoderSpec(model=emodel, input=einp, outputs=eouts, layout=elayout, graph=eg), rank
+
+
+def _memory_inputs(p: Path, role: str, g: GraphInfo, t: dict, enc: EncoderSpec, rank: int | None,
+                   ) -> tuple[tuple[str, ...], str | None]:
+    memory = _names_of(p, t["memory"], f"seq.{role}.memory") if t["memory"] is not None else enc.outputs
+    if len(memory) != len(enc.outputs):
+        raise CardError(p, f"field 'seq.{role}.memory': lists {len(memory)} tensors but the encoder gives "
+                           f"{len(enc.outputs)}; they pair by position")
+    for x in memory:
+        need_tensor(p, role, g, x, output=False, rank=rank, key=f"seq.{role}.memory")
+    mmask = t["memory_mask"] or None
+    if mmask:
+        need_tensor(p, role, g, mmask, output=False, rank=2, key=f"seq.{role}.memory_mask")
+    return memory, mmask
+
+
+def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderStepSpec:
+    smodel = files(st["model"], "seq.decoder_step.model", "decoder_step")
+    sg = read_graph(p, "decoder_step", smodel)
+    tok, step = st["tokens"], st["step"] or None
+    past = _names_of(p, st["past"], "seq.decoder_step.past")
+    present = _names_of(p, st["present"], "seq.decoder_step.present")
+    if len(past) != len(present):
+        raise CardError(p, f"field 'seq.decoder_step.present': lists {len(present)} tensors but 'past' lists "
+                           f"{len(past)}; they pair by position")
+    memory, mmask = _memory_inputs(p, "decoder_step", sg, st, enc, rank)
+    need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
+    if step:
+        need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
+    prank = {need_tensor(p, "decoder_step", sg, x, output=False, rank=None, key="seq.decoder_step.past").rank
+             for x in past}
+    cl = _check_rank(p, "seq.decoder_step.cache_layout", st["cache_layout"],
+                     next(iter(prank)) if len(prank) == 1 else None)
+    for x in past:
+        ti = sg.inputs[x]
+        if ti.shape is not None:
+            free = [a for a, d in enumerate(ti.shape) if a not in (cl.index("B"), cl.index("T"))
+                    and not (isinstance(d, int) and d > 0)]
+            if free:
+                raise CardError(p, f"field 'seq.decoder_step.past': input '{x}' of {smodel.name} must have fixed "
+                                   f"sizes on every axis but batch and positions (cache_layout {cl!r}); "
+                                   f"axis {free[0]} is free")
+    for x in present:
+        need_tensor(p, "decoder_step", sg, x, output=True, rank=len(cl), key="seq.decoder_step.present")
+    need_tensor(p, "decoder_step", sg, st["log_probs"], output=True, rank=2, key="seq.decoder_step.log_probs")
+    return DecoderStepSpec(model=smodel, tokens=tok, step=step, past=past, present=present, memory=memory,
+                           memory_mask=mmask, log_probs=st["log_probs"], cache_layout=cl, graph=sg)
+
+
+def _load_full(p: Path, ft: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderFullSpec:
+    fmodel = files(ft["model"], "seq.decoder_full.model", "decoder_full")
+    fg = read_graph(p, "decoder_full", fmodel)
+    memory, mmask = _memory_inputs(p, "decoder_full", fg, ft, enc, rank)
+    need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
+    need_tensor(p, "decoder_full", fg, ft["log_probs"], output=True, rank=2, key="seq.decoder_full.log_probs")
+    return DecoderFullSpec(model=fmodel, tokens=ft["tokens"], memory=memory, memory_mask=mmask,
+                           log_probs=ft["log_probs"], graph=fg)
+
+
 def _check_vocab(p: Path, sym_path: Path, n: int, lpt: TensorInfo, role: str) -> None:
-    n_out = _class_count(lpt, 1)
+    n_out = class_count(lpt, 1)
     if n_out is not None and n_out != n:
         raise CardError(p, f"field 'seq.vocab': {sym_path.name} has {n} entries but {role} scores {n_out} tokens")
     # A free vocabulary axis is checked by the recogniser's warm-up run (see seq.SeqRecogniser).

@@ -28,8 +28,9 @@ from typing import Sequence
 
 import numpy as np
 
-from ocrbench.recognisers.base import (BatchTiming, Clock, EngineOptions, LineResult, PreparedBatch, Recogniser,
-                                       make_session, share_time, valid_frames, warm_up_lines)
+from ocrbench.recognisers.base import LineResult, Recogniser
+from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
+from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, share_time
 from ocrbench.recognisers.card import Card
 
 NEG_INF = float("-inf")

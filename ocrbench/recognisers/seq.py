@@ -31,8 +31,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
-from ocrbench.recognisers.base import (BatchTiming, Clock, EngineOptions, LineResult, PreparedBatch, Recogniser,
-                                       make_session, onnx_dtype, share_time, valid_frames, warm_up_lines)
+from ocrbench.recognisers.base import LineResult, Recogniser
+from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
+from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, onnx_dtype, share_time
 from ocrbench.recognisers.card import Card
 
 
