@@ -11,7 +11,7 @@ External references used here, each named beside its check:
 
 Timings come from a fake machine driven by a fake clock: every stage of every
 batch advances the clock by a cost computed from known coefficients, and the
-rows are written with the run store's column names (CONTRACTS.md), so the
+rows are written with the run store's column names (ocrbench/store/CONTRACT.md), so the
 planner sees exactly what it would read from a store.
 """
 

@@ -282,7 +282,7 @@ def test_export_command(pages, cards, tmp_path):
 
 
 def test_text_out_names_follow_the_ground_truth_pairing():
-    # CONTRACTS.md: page_001.png <-> page_001.txt; a TIFF frame book.tif#3 <-> book_3.txt
+    # The pairing rule (ocrbench/io/textdir.py): page_001.png <-> page_001.txt; a TIFF frame book.tif#3 <-> book_3.txt
     from ocrbench.io.textdir import text_stem
 
     assert text_stem("page_001.png") == "page_001"

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import sqlite3
 import subprocess
@@ -17,18 +18,22 @@ import pytest
 from ocrbench.errors import StoreError
 from ocrbench.store import SCHEMA_VERSION, BatchRecord, LineRecord, PageRecord, RunStore, export
 
-# Column names as written in the project's interface contract (CONTRACTS.md, "ocrbench/store.py").
+# Column names as written in the store's contract (ocrbench/store/CONTRACT.md).
 CONTRACT = {
     "meta": ["key", "value"],
     "runs": ["run_id", "recogniser", "kind", "card_path", "card_hash", "settings_json", "input_dir", "host_json",
              "engine", "ocrbench_version", "started_at", "finished_at"],
     "pages": ["run_id", "page_id", "path", "content_hash", "status", "error", "width", "height", "n_lines",
               "skew_degrees", "t_load", "t_segment", "t_preprocess", "t_encode", "t_steps", "t_collapse",
-              "t_postprocess", "t_total", "finished_at"],
+              "t_postprocess", "t_total", "finished_at", "file_size", "file_mtime_ns"],
     "lines": ["run_id", "page_id", "line_no", "x0", "y0", "x1", "y1", "width_px", "text", "text_post", "confidence",
-              "char_conf_json", "n_chars", "steps", "batch_no", "t_line"],
+              "char_conf_json", "n_chars", "steps", "batch_no", "t_line", "truncated", "error"],
     "batches": ["run_id", "page_id", "batch_no", "n_lines", "padded_width", "sum_width", "frames", "steps_max",
                 "tokens_sum", "tokens_sq_sum", "t_preprocess", "t_encode", "t_steps", "t_collapse"],
+    "postprocessing": ["run_id", "recipe", "applied_at"],
+    "scaling": ["measured_at", "recogniser", "kind", "card_hash", "host_json", "workers", "threads", "pages",
+                "wall_seconds", "pages_per_second", "startup_seconds", "busy_seconds", "gap_seconds_per_page",
+                "run_id"],
 }
 
 
@@ -226,3 +231,123 @@ def test_killed_writer_leaves_only_whole_pages(tmp_path):
     orphans = con.execute("SELECT COUNT(*) FROM lines l WHERE NOT EXISTS (SELECT 1 FROM pages p "
                           "WHERE p.run_id=l.run_id AND p.page_id=l.page_id)").fetchone()[0]
     assert orphans == 0
+
+
+# The DDL of a version-1 store as ocrbench wrote it before schema version 2 (copied from the version-1 source),
+# with its whole-second timestamps: it must still be read, and be migrated when written to.
+V1_DDL = """
+CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT);
+CREATE TABLE runs(run_id INTEGER PRIMARY KEY, recogniser TEXT NOT NULL, kind TEXT NOT NULL, card_path TEXT,
+    card_hash TEXT NOT NULL, settings_json TEXT NOT NULL, input_dir TEXT NOT NULL, host_json TEXT, engine TEXT,
+    ocrbench_version TEXT, started_at TEXT, finished_at TEXT);
+CREATE TABLE pages(run_id INTEGER NOT NULL REFERENCES runs(run_id), page_id TEXT NOT NULL, path TEXT,
+    content_hash TEXT, status TEXT NOT NULL CHECK (status IN ('done', 'failed')), error TEXT, width INTEGER,
+    height INTEGER, n_lines INTEGER, skew_degrees REAL, t_load REAL, t_segment REAL, t_preprocess REAL,
+    t_encode REAL, t_steps REAL, t_collapse REAL, t_postprocess REAL, t_total REAL, finished_at TEXT,
+    PRIMARY KEY (run_id, page_id));
+CREATE TABLE lines(run_id INTEGER NOT NULL, page_id TEXT NOT NULL, line_no INTEGER NOT NULL,
+    x0 INTEGER, y0 INTEGER, x1 INTEGER, y1 INTEGER, width_px INTEGER, text TEXT, text_post TEXT, confidence REAL,
+    char_conf_json TEXT, n_chars INTEGER, steps INTEGER, batch_no INTEGER, t_line REAL,
+    PRIMARY KEY (run_id, page_id, line_no));
+CREATE TABLE batches(run_id INTEGER NOT NULL, page_id TEXT NOT NULL, batch_no INTEGER NOT NULL, n_lines INTEGER,
+    padded_width INTEGER, sum_width INTEGER, frames INTEGER, steps_max INTEGER, tokens_sum INTEGER,
+    tokens_sq_sum INTEGER, t_preprocess REAL, t_encode REAL, t_steps REAL, t_collapse REAL,
+    PRIMARY KEY (run_id, page_id, batch_no));
+INSERT INTO meta VALUES ('schema_version', '1');
+INSERT INTO runs VALUES (1, 'r', 'ctc', '/c/card.toml', 'hhhh', '{"batch_size":16}', '/pages', '{}', 'onnxruntime x',
+    '0.1.0', '2026-01-05T10:00:00+00:00', '2026-01-05T10:00:09+00:00');
+INSERT INTO pages VALUES (1, 'a.png', '/pages/a.png', 'c', 'done', NULL, 10, 10, 1, 0.0, 0.1, 0.1, 0.1, 0.1, 0, 0,
+    0, 0.5, '2026-01-05T10:00:04+00:00');
+INSERT INTO lines VALUES (1, 'a.png', 1, 0, 0, 9, 9, 40, 'old text', NULL, 0.9, '[0.9]', 8, 9, 0, 0.01);
+"""
+
+
+def old_store(path: Path) -> Path:
+    con = sqlite3.connect(path)
+    con.executescript(V1_DDL)
+    con.close()
+    return path
+
+
+def test_timestamps_carry_microseconds(tmp_path):
+    import datetime as dt
+
+    from ocrbench.store import now_iso, parse_time
+
+    with RunStore(tmp_path / "s.sqlite") as st:
+        run = new_run(st)
+        page(st, run, "a.png", ["x"])
+        st.finish_run(run)
+        info = st.run_info(run)
+        fin = st.read_frames()["pages"]["finished_at"][0]
+    for stamp in (info.started_at, info.finished_at, fin, now_iso()):
+        assert re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{6}\+00:00", stamp), stamp
+        assert parse_time(stamp).tzinfo == dt.timezone.utc
+    assert parse_time("2026-01-05T10:00:04+00:00") == dt.datetime(2026, 1, 5, 10, 0, 4, tzinfo=dt.timezone.utc)
+
+
+def test_old_whole_second_store_is_read_as_it_is_and_migrated_when_written(tmp_path):
+    db = old_store(tmp_path / "v1.sqlite")
+    with RunStore(db, read_only=True) as ro:          # read-only: read as it is, new columns filled in
+        assert ro.schema_version == 1
+        f = ro.read_frames()
+        assert f["lines"]["truncated"].tolist() == [0] and f["lines"]["error"].tolist() == [None]
+        assert f["pages"]["file_size"].isna().all()
+        assert ro.page_texts(1) == {"a.png": ["old text"]}
+        assert ro.post_recipe(1) is None and ro.run_totals(1)["lines_truncated"] == 0
+        assert ro.run_info(1).started_at == "2026-01-05T10:00:00+00:00"
+    con = sqlite3.connect(db)
+    assert "truncated" not in [r[1] for r in con.execute("PRAGMA table_info(lines)")]   # untouched by reading
+    con.close()
+    with RunStore(db) as st:                           # written to: migrated in place, earlier rows kept
+        assert st.schema_version == SCHEMA_VERSION
+        assert st.find_run(card_hash="hhhh", settings={"batch_size": 16}, input_dir="/pages") == 1
+        page(st, 1, "b.png", ["new text"])
+        assert st.page_texts(1) == {"a.png": ["old text"], "b.png": ["new text"]}
+    con = sqlite3.connect(db)
+    for table, cols in CONTRACT.items():
+        if table != "meta":
+            assert set(cols) <= {r[1] for r in con.execute(f"PRAGMA table_info({table})")}, table
+    stamps = [r[0] for r in con.execute("SELECT finished_at FROM pages ORDER BY page_id")]
+    con.close()
+    assert stamps[0] == "2026-01-05T10:00:04+00:00" and "." in stamps[1]
+
+
+def test_older_and_newer_versions_than_known_are_refused(tmp_path):
+    db = old_store(tmp_path / "v0.sqlite")
+    con = sqlite3.connect(db)
+    con.execute("UPDATE meta SET value='0' WHERE key='schema_version'")
+    con.commit()
+    con.close()
+    with pytest.raises(StoreError, match="schema version 0 is not one this ocrbench reads"):
+        RunStore(db, read_only=True)
+
+
+def test_names_that_are_not_utf8_are_stored_exactly_and_shown_safely(tmp_path):
+    name = os.fsdecode(b"caf\xe9.png")          # how Python holds a non-UTF-8 file name (PEP 383)
+    with RunStore(tmp_path / "s.sqlite") as st:
+        run = new_run(st, input_dir=os.fsdecode(b"/scans/\xff"))
+        page(st, run, name, ["x"])
+        bad_path = os.fsdecode(b"/scans/b\xe9.png")
+        st.write_page(run, PageRecord(page_id=os.fsdecode(b"b\xe9.png"), path=bad_path, content_hash=None,
+                                      status="failed", error=bad_path + ": not an image"))
+        assert st.find_run(card_hash="h" * 64, settings={"batch_size": 16, "decoding": "greedy"},
+                           input_dir=os.fsdecode(b"/scans/\xff")) == run
+        assert name in st.page_texts(run) and name in st.page_status(run)     # the same string comes back
+        assert st.done_page_ids(run) == [name]
+        assert st.page_lines(run, name)[0][1] == "x"
+        f = st.read_frames()
+        assert sorted(f["pages"]["page_id"]) == ["b\\xe9.png", "caf\\xe9.png"]     # shown with \xNN
+    files = export(tmp_path / "s.sqlite", tmp_path / "out", "csv")
+    assert "caf\\xe9.png" in (tmp_path / "out" / "pages.csv").read_text(encoding="utf-8") and files
+
+
+def test_scaling_rows_go_through_the_store(tmp_path):
+    from ocrbench.store import SCALING_COLUMNS
+
+    row = ["2026-01-05T10:00:00.000001+00:00", "r", "ctc", "h", "{}", 2, 1, 10, 5.0, 2.0, 1.0, 4.0, 0.1, None]
+    with RunStore(tmp_path / "s.sqlite") as st:
+        st.append_scaling([row])
+    con = sqlite3.connect(tmp_path / "s.sqlite")
+    assert [r[1] for r in con.execute("PRAGMA table_info(scaling)")] == list(SCALING_COLUMNS)
+    assert list(con.execute("SELECT * FROM scaling").fetchone()) == row

@@ -91,15 +91,8 @@ def read_store_frames(path: Path | str) -> dict[str, pd.DataFrame]:
         return st.read_frames()
 
 
-SCALING_COLUMNS = ("measured_at", "recogniser", "kind", "card_hash", "host_json", "workers", "threads", "pages",
-                   "wall_seconds", "pages_per_second", "startup_seconds", "busy_seconds", "gap_seconds_per_page",
-                   "run_id")
-
-_SCALING_DDL = """CREATE TABLE IF NOT EXISTS scaling(
-    measured_at TEXT, recogniser TEXT, kind TEXT, card_hash TEXT, host_json TEXT,
-    workers INTEGER, threads INTEGER, pages INTEGER, wall_seconds REAL, pages_per_second REAL,
-    startup_seconds REAL, busy_seconds REAL, gap_seconds_per_page REAL,
-    run_id INTEGER)  -- the calibration run a one-worker session wrote (NULL for scaling workers)"""
+# The scaling table's DDL and columns live with every other table of the store (ocrbench/store/schema.py).
+from ocrbench.store.schema import SCALING_COLUMNS, create_scaling  # noqa: E402
 
 
 def save_scaling(path: Path | str, table: pd.DataFrame) -> None:
@@ -115,7 +108,7 @@ def save_scaling(path: Path | str, table: pd.DataFrame) -> None:
         con = sqlite3.connect(str(path), timeout=30)
         try:
             with con:
-                con.execute(_SCALING_DDL)
+                create_scaling(con)
                 con.executemany(f"INSERT INTO scaling({', '.join(SCALING_COLUMNS)}) VALUES "
                                 f"({', '.join('?' * len(SCALING_COLUMNS))})",
                                 [tuple(None if (isinstance(v, float) and math.isnan(v)) else

@@ -49,9 +49,10 @@ from ocrbench.pages import PageRef, list_pages
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.run.engine import (PageOutcome, PostProcess, ProgressEvent, RunOptions, RunSummary, RunState, RunWriter,
-                             as_run_options, file_sha256, host_info, input_folder, load_cards, open_run,
-                             recognise_page)
+from ocrbench.run.engine import PageOutcome, RunOptions, as_run_options, input_folder, load_cards, recognise_page
+from ocrbench.run.host import host_info
+from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummary, RunWriter, file_sha256, file_stamp,
+                                 open_run)
 from ocrbench.store import PageRecord, RunStore
 
 
@@ -333,7 +334,8 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                 extra = {"dask": {"scheduler": cl.scheduler, "workers": cl.workers, "threads": cl.threads,
                                   "processes": dask.processes if dask.scheduler is None else None}}
                 states.append(open_run(st, card, None, settings=settings, input_dir=input_dir, fresh=fresh,
-                                       engine=engine, host=lambda host=host, extra=extra: {**host, **extra}))
+                                       engine=engine, host=lambda host=host, extra=extra: {**host, **extra},
+                                       refs=refs))
             window = dask.max_in_flight or max(4, 4 * cl.threads)
             return _write_as_completed(client, refs, states, card_list, st, options, dask.pages_per_task, window,
                                        clock, progress, postprocess, input_dir)
@@ -417,7 +419,8 @@ def _lost(ref: PageRef, e: BaseException) -> PageOutcome:
     import dask
 
     tries = int(dask.config.get("distributed.scheduler.allowed-failures", 3)) + 1
+    size, mtime = file_stamp(Path(ref.path))
     return PageOutcome(PageRecord(page_id=ref.id, path=ref.display(), content_hash=file_sha256(Path(ref.path)),
-                                  status="failed",
+                                  status="failed", file_size=size, file_mtime_ns=mtime,
                                   error=f"the Dask worker reading this page died {tries} times "
                                         f"(out of memory?): {type(e).__name__}"))
