@@ -22,9 +22,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from ocrbench import synth  # noqa: E402
 from ocrbench.planning import inputs as planio  # noqa: E402
+from ocrbench.planning.service import plan_frame  # noqa: E402
 from ocrbench.cli.app import app  # noqa: E402
+from ocrbench.errors import ConfigError  # noqa: E402
 
-pytest.importorskip("onnxruntime")
 from _tiny_models import write_ctc, write_seq  # noqa: E402
 
 cli = CliRunner()
@@ -101,7 +102,7 @@ def test_plan_json_from_a_run_store(calibrated):
     assert any("250x the 4 calibration pages" in w for w in doc["warnings"])
     assert doc["recommendation"]["text"]
     # the Python API gives the same plan as a DataFrame
-    df = planio.plan(calibration=[str(d / "cal.sqlite")], archive_store=d / "cal.sqlite", pages=1000,
+    df = plan_frame(calibration=[str(d / "cal.sqlite")], archive_store=d / "cal.sqlite", pages=1000,
                      deadline="1h", price_core_hour=0.10, draws=200)
     assert set(df["recogniser"]) == set(rows)
     for _, r in df.iterrows():
@@ -109,7 +110,6 @@ def test_plan_json_from_a_run_store(calibrated):
 
 
 def test_plan_with_ground_truth_gives_cer_and_sample_size(calibrated):
-    pytest.importorskip("ocrbench.io.text")
     d, _ = calibrated
     res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
                            "--pages", "1000", "--truth", str(d / "pages"), "--draws", "100", "--json"])
@@ -171,6 +171,84 @@ draws = 100
     assert res.exit_code == 2 and "none.sqlite" in res.output
 
 
+def _plan_file(tmp_path, d, extra: str) -> Path:
+    f = tmp_path / "plan.toml"
+    f.write_text(f'''calibration = ["lab={d / 'cal.sqlite'}"]
+recognisers = ["tiny-ctc"]
+[archive]
+pages = 200
+lines_per_page = "4-10"
+chars_per_line = "20-30"
+[goals]
+deadline = "2d"
+[simulation]
+draws = 100
+{extra}''', encoding="utf-8")
+    return f
+
+
+def test_report_plan_honours_profiles_like_plan(calibrated, tmp_path):
+    """``report --plan`` and ``plan --plan`` go through one function: a [profiles] table counts in both."""
+    d, _ = calibrated
+    f = _plan_file(tmp_path, d, "[profiles.lab]\nmachines = 3\nprice_machine_hour = 1.5\n")
+    res = cli.invoke(app, ["plan", "--plan", str(f), "--json"])
+    assert res.exit_code == 0, res.output
+    (planned,) = json.loads(res.stdout)["recognisers"]
+    assert planned["machines"] == 3 and planned["profile"] == "lab"
+    res = cli.invoke(app, ["report", str(d / "cal.sqlite"), "--out", str(tmp_path / "rep"), "--plan", str(f),
+                           "--json"])
+    assert res.exit_code == 0, res.output
+    summary = json.loads(Path(json.loads(res.stdout)["summary"]).read_text(encoding="utf-8"))
+    row = summary["plan"]["rows"]["tiny-ctc"]
+    assert row["machines"] == 3
+    # the same request, the same seed: the same figures (3 machines at 1.5 per machine-hour, by hand)
+    assert row["wall_seconds_p50"] == pytest.approx(planned["wall_seconds_p50"], rel=1e-12)
+    assert row["compute_cost"] == pytest.approx(row["wall_seconds_p50"] / 3600 * 3 * 1.5, rel=1e-12)
+
+
+@pytest.mark.parametrize("extra, words", [
+    ("[archive]\npagez = 1000\n", ["archive.pagez", "archive.pages"]),
+    ("[resources]\nworker = 4\n", ["resources.worker", "resources.workers"]),
+    ("[profiles.lab]\nmachine = 2\n", ["profiles.lab.machine", "profiles.lab.machines"]),
+    ("[goals]\nbudget = \"lots\"\n", ["goals.budget", "a number"]),
+])
+def test_plan_file_misspelt_or_wrong_key_is_a_usage_error(calibrated, tmp_path, extra, words):
+    d, _ = calibrated
+    f = tmp_path / "bad.toml"
+    f.write_text(f'calibration = ["{d / "cal.sqlite"}"]\n' + extra, encoding="utf-8")
+    for cmd in (["plan", "--plan", str(f)], ["report", str(d / "cal.sqlite"), "--out", str(tmp_path / "r"),
+                                             "--plan", str(f)]):
+        res = cli.invoke(app, cmd)
+        assert res.exit_code == 2, res.output
+        text = " ".join(res.output.split())
+        assert "bad.toml" in text and all(w in text for w in words), text
+
+
+def test_wrong_type_names_the_dotted_path(tmp_path):
+    f = tmp_path / "t.toml"
+    f.write_text('[archive]\npages = "many"\n', encoding="utf-8")
+    with pytest.raises(ConfigError, match=r"t\.toml.*archive\.pages must be an integer"):
+        planio.load_plan_file(f)
+
+
+def test_plan_format_is_a_valid_plan_file(tmp_path):
+    """What `ocrbench plan --plan-format` prints loads through the same checks, every key of it."""
+    res = cli.invoke(app, ["plan", "--plan-format"])
+    assert res.exit_code == 0
+    f = tmp_path / "format.toml"
+    f.write_text(res.stdout, encoding="utf-8")
+    req = planio.load_plan_file(f)
+    assert req.pages == 180000 and req.workers == 2 and req.profiles == {"gpu-box": {"price_machine_hour": 2.5,
+                                                                                      "workers": 1}}
+    assert req.accuracy["ledger-ctc"]["cer"] == 0.021 and req.speed_drift == 0.08
+    # every commented-out key is a valid key too
+    uncommented = "\n".join(ln[2:] if ln.startswith("# ") and "=" in ln.split("#")[1] else ln
+                            for ln in res.stdout.splitlines()[3:])
+    f.write_text(res.stdout.splitlines()[2] + "\n" + uncommented, encoding="utf-8")
+    req = planio.load_plan_file(f)
+    assert req.sample_pages == 20 and req.price_machine_hour == 0.40 and req.archive_store is not None
+
+
 def test_sample_folder_is_segmented_not_recognised(tmp_path):
     truth = synth.write_archive(tmp_path / "s", synth.ArchiveSpec(n_pages=3, seed=9, lines_per_page=(5, 9)))
     (tmp_path / "s" / "broken.png").write_bytes(b"not an image")
@@ -186,7 +264,7 @@ def test_sample_folder_is_segmented_not_recognised(tmp_path):
 
 @pytest.mark.slow
 def test_scaling_two_workers_on_the_real_runner(calibrated):
-    from ocrbench.planning.model import ScalingFit
+    from ocrbench.planning.numerics import ScalingFit
     from ocrbench.run.measure import measure_scaling
 
     d, _ = calibrated

@@ -1,4 +1,4 @@
-"""Tests of the archive planner (ocrbench.planning.model).
+"""Tests of the archive planner (ocrbench.planning: numerics, costmodel, archive, estimate, decide).
 
 External references used here, each named beside its check:
 * G. Amdahl (1967), "Validity of the single processor approach to achieving
@@ -25,7 +25,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ocrbench.planning import model as P
+from ocrbench.planning.archive import Archive, batch_units
+from ocrbench.planning.costmodel import BATCH_FEATURES, batch_feature_matrix, fit_cost_model, fit_cost_models, fit_width
+from ocrbench.planning.decide import PlanInputs, crossover, make_plan
+from ocrbench.planning.estimate import AccuracyInput, Correction, Goals, Resources
+from ocrbench.planning.numerics import ScalingFit, amdahl_max_speedup, amdahl_speedup, fit_serial_fraction, nnls, parse_duration, parse_range
 from ocrbench.errors import PlanError
 from ocrbench.recognisers.preprocess import width_batches
 
@@ -170,7 +174,7 @@ def test_nnls_agrees_with_scipy_and_recovers_known_coefficients():
         x_true = rng.uniform(0.5, 2.0, size=6)
         x_true[rng.integers(0, 6, size=2)] = 0.0
         b = A @ x_true + rng.normal(0, 0.01 * np.abs(A @ x_true).mean(), size=60)
-        x, rn = P.nnls(A, b)
+        x, rn = nnls(A, b)
         x_ref, rn_ref = scipy_opt.nnls(A, b)   # reference library
         assert rn == pytest.approx(rn_ref, rel=1e-7, abs=1e-9)
         np.testing.assert_allclose(x, x_ref, rtol=1e-5, atol=1e-8 * np.abs(x_ref).max())
@@ -181,14 +185,14 @@ def test_nnls_agrees_with_scipy_and_recovers_known_coefficients():
     A = np.column_stack([np.ones_like(n), n, n * W])
     x_true = np.array([3e-3, 2e-4, 4e-7])
     t = (A @ x_true) * np.exp(0.02 * rng.standard_normal(200))
-    x, _ = P.nnls(A, t)
+    x, _ = nnls(A, t)
     np.testing.assert_allclose(x, x_true, rtol=0.10)
     np.testing.assert_allclose(x, scipy_opt.nnls(A, t)[0], rtol=1e-6)   # reference library
     # A problem whose unconstrained solution is negative: KKT conditions (Lawson & Hanson 1974):
     # x >= 0, gradient w = A^T (b - A x) <= 0 where x = 0, and w = 0 where x > 0.
     A = np.array([[1.0, 1.0], [1.0, 2.0], [1.0, 3.0]])
     b = np.array([3.0, 2.0, 1.0])          # falling line: slope -1 unconstrained
-    x, _ = P.nnls(A, b)
+    x, _ = nnls(A, b)
     w = A.T @ (b - A @ x)
     assert (x >= 0).all() and x[1] == 0.0
     assert x[0] == pytest.approx(2.0)      # mean of b, worked by hand
@@ -198,7 +202,7 @@ def test_nnls_agrees_with_scipy_and_recovers_known_coefficients():
 def test_fit_recovers_fake_machine_coefficients():
     frames = calibrate(noise=0.0)
     for kind in ("ctc", "seq"):
-        m = P.fit_cost_model(frames, f"demo-{kind}", n_boot=20)
+        m = fit_cost_model(frames, f"demo-{kind}", n_boot=20)
         for stage in m.stages:
             want = TRUE[kind][stage.stage]
             for f, v in want.items():
@@ -215,14 +219,14 @@ def test_fit_recovers_fake_machine_coefficients():
 
 def test_fit_with_noise_stays_close_and_reports_quality():
     frames = calibrate(noise=0.03)
-    m = P.fit_cost_model(frames, "demo-seq", n_boot=50)
+    m = fit_cost_model(frames, "demo-seq", n_boot=50)
     q = m.batch_quality()
     assert 0.95 < q["r2"] <= 1.0
     assert q["resid_p10"] < 0 < q["resid_p90"]
     fits = m.fit_table()
     assert {"stage", "features", "coefficients", "r2", "resid_sd", "cv_rmse"} <= set(fits.columns)
     # per-line time at 40 characters within 5% of the true machine's
-    true = P.fit_cost_model(calibrate(noise=0.0), "demo-seq", n_boot=5)
+    true = fit_cost_model(calibrate(noise=0.0), "demo-seq", n_boot=5)
     assert m.line_time(40.0)[0] == pytest.approx(true.line_time(40.0)[0], rel=0.05)
 
 
@@ -231,32 +235,32 @@ def test_fit_with_noise_stays_close_and_reports_quality():
 
 def test_amdahl_worked_example():
     # G. Amdahl (1967): serial fraction 0.05 -> maximum speed-up 1/0.05 = 20.
-    assert P.amdahl_max_speedup(0.05) == pytest.approx(20.0)
-    assert P.amdahl_speedup(0.05, 1e12) == pytest.approx(20.0, rel=1e-9)
+    assert amdahl_max_speedup(0.05) == pytest.approx(20.0)
+    assert amdahl_speedup(0.05, 1e12) == pytest.approx(20.0, rel=1e-9)
     # by hand: n = 2 -> 1 / (0.05 + 0.95 / 2) = 1 / 0.525 = 1.904762
-    assert P.amdahl_speedup(0.05, 2) == pytest.approx(1.904762, rel=1e-6)
+    assert amdahl_speedup(0.05, 2) == pytest.approx(1.904762, rel=1e-6)
     # the fit recovers the serial fraction from exact Amdahl speed-ups
     n = np.array([1, 2, 3, 4])
-    assert P.fit_serial_fraction(n, 1 / (0.05 + 0.95 / n)) == pytest.approx(0.05, abs=1e-12)
-    sc = P.ScalingFit(pd.DataFrame({"workers": n, "threads": 1, "pages_per_second": 2.0 / (0.05 + 0.95 / n)}))
+    assert fit_serial_fraction(n, 1 / (0.05 + 0.95 / n)) == pytest.approx(0.05, abs=1e-12)
+    sc = ScalingFit(pd.DataFrame({"workers": n, "threads": 1, "pages_per_second": 2.0 / (0.05 + 0.95 / n)}))
     s, note = sc.speedup(8, 1)          # beyond the measured 4: Amdahl, with a note saying so
     assert s == pytest.approx(1 / (0.05 + 0.95 / 8)) and "beyond" in note
     with pytest.raises(PlanError):
-        P.ScalingFit(pd.DataFrame({"workers": [1], "threads": [1], "pages_per_second": [1.0]})).speedup(2, 1)
+        ScalingFit(pd.DataFrame({"workers": [1], "threads": [1], "pages_per_second": [1.0]})).speedup(2, 1)
 
 
 def test_durations_and_ranges():
     # Python's datetime.timedelta as the reference for unit arithmetic
-    assert P.parse_duration("6w") == dt.timedelta(weeks=6).total_seconds()
-    assert P.parse_duration("42d") == dt.timedelta(days=42).total_seconds()
-    assert P.parse_duration("1000h") == dt.timedelta(hours=1000).total_seconds()
-    assert P.parse_duration("1.5d") == dt.timedelta(days=1.5).total_seconds()
+    assert parse_duration("6w") == dt.timedelta(weeks=6).total_seconds()
+    assert parse_duration("42d") == dt.timedelta(days=42).total_seconds()
+    assert parse_duration("1000h") == dt.timedelta(hours=1000).total_seconds()
+    assert parse_duration("1.5d") == dt.timedelta(days=1.5).total_seconds()
     for bad in ("6", "six weeks", "-3d", "0h"):
         with pytest.raises(PlanError):
-            P.parse_duration(bad)
-    assert P.parse_range("16-30") == (16, 30) and P.parse_range("24") == (24, 24)
+            parse_duration(bad)
+    assert parse_range("16-30") == (16, 30) and parse_range("24") == (24, 24)
     with pytest.raises(PlanError):
-        P.parse_range("30-16")
+        parse_range("30-16")
 
 
 # --------------------------------------------------------------------------- cost arithmetic
@@ -281,16 +285,16 @@ def test_cost_arithmetic_hand_worked():
     at 20 per hour 1,066.6667; with compute: 1,066.6716. Upper CER 0.03 -> 80 h -> 1,600.0050.
     """
     frames = calibrate(noise=0.0, width_noise=0, kinds=("ctc",))
-    m = P.fit_cost_model(frames, "demo-ctc", n_boot=10)
-    archive = P.Archive.from_numbers(1000, "24", "40", page_size=(1100, 1430))
-    sc = P.ScalingFit(pd.DataFrame({"workers": [1, 2], "threads": [1, 1], "pages_per_second": [1.0, 1.8]}))
-    inputs = P.PlanInputs(
-        archive=archive, resources=P.Resources(workers=2, price_core_hour=0.12),
-        goals=P.Goals(deadline_s=60.0, budget=2000.0),
-        correction=P.Correction(seconds_per_error=10.0, price_hour=20.0),
-        accuracy={"demo-ctc": P.AccuracyInput(0.02, 0.015, 0.03)}, scaling={"demo-ctc": sc}, draws=50,
+    m = fit_cost_model(frames, "demo-ctc", n_boot=10)
+    archive = Archive.from_numbers(1000, "24", "40", page_size=(1100, 1430))
+    sc = ScalingFit(pd.DataFrame({"workers": [1, 2], "threads": [1, 1], "pages_per_second": [1.0, 1.8]}))
+    inputs = PlanInputs(
+        archive=archive, resources=Resources(workers=2, price_core_hour=0.12),
+        goals=Goals(deadline_s=60.0, budget=2000.0),
+        correction=Correction(seconds_per_error=10.0, price_hour=20.0),
+        accuracy={"demo-ctc": AccuracyInput(0.02, 0.015, 0.03)}, scaling={"demo-ctc": sc}, draws=50,
         speed_drift=0.0)                                   # exact figures: no machine drift in the draws
-    plan = P.make_plan([m], inputs)
+    plan = make_plan([m], inputs)
     r = plan.iloc[0]
     # store timestamps carry microseconds, so the per-page gap is known to ~1 us: rel 1e-5
     assert r["wall_seconds_p10"] == pytest.approx(74.5141333, rel=1e-5)
@@ -314,9 +318,9 @@ def test_cost_arithmetic_hand_worked():
 
 def test_plan_beyond_measured_range_warns():
     frames = calibrate(noise=0.02)
-    models = list(P.fit_cost_models(frames, n_boot=20).values())
-    archive = P.Archive.from_numbers(200_000, "40-80", "150-190", page_size=(2200, 3000))
-    plan = P.make_plan(models, P.PlanInputs(archive=archive, draws=200))
+    models = list(fit_cost_models(frames, n_boot=20).values())
+    archive = Archive.from_numbers(200_000, "40-80", "150-190", page_size=(2200, 3000))
+    plan = make_plan(models, PlanInputs(archive=archive, draws=200))
     warnings = "\n".join(plan.attrs["warnings"])
     assert "line width (px)" in warnings and "exceed the largest measured" in warnings
     assert "decoder steps per line" in warnings       # the seq model's tokens too
@@ -329,12 +333,12 @@ def test_plan_beyond_measured_range_warns():
 
 def test_plan_in_range_has_no_range_warning_and_needs_measured_scaling():
     frames = calibrate(noise=0.02)
-    m = P.fit_cost_model(frames, "demo-ctc", n_boot=20)
-    archive = P.Archive.from_numbers(8, "18-28", "40-55", page_size=(1100, 1430))
-    plan = P.make_plan([m], P.PlanInputs(archive=archive, draws=200))
+    m = fit_cost_model(frames, "demo-ctc", n_boot=20)
+    archive = Archive.from_numbers(8, "18-28", "40-55", page_size=(1100, 1430))
+    plan = make_plan([m], PlanInputs(archive=archive, draws=200))
     assert not plan["extrapolated"].any()
     with pytest.raises(PlanError, match="linear scaling is not assumed"):
-        P.make_plan([m], P.PlanInputs(archive=archive, resources=P.Resources(workers=2), draws=50))
+        make_plan([m], PlanInputs(archive=archive, resources=Resources(workers=2), draws=50))
 
 
 # --------------------------------------------------------------------------- crossover
@@ -342,9 +346,9 @@ def test_plan_in_range_has_no_range_warning_and_needs_measured_scaling():
 
 def test_crossover_solves_the_fitted_models():
     frames = calibrate(noise=0.0)
-    seq = P.fit_cost_model(frames, "demo-seq", n_boot=5)
-    ctc = P.fit_cost_model(frames, "demo-ctc", n_boot=5)
-    out = P.crossover(seq, ctc)
+    seq = fit_cost_model(frames, "demo-seq", n_boot=5)
+    ctc = fit_cost_model(frames, "demo-ctc", n_boot=5)
+    out = crossover(seq, ctc)
     # By hand from the true coefficients, per line in a batch of B = 16 with width w = a + b c
     # (a, b the fitted px-per-character line) and s = c + 1 steps, the preprocess terms cancel:
     #   seq - ctc = [3e-3 + 2e-4 B + 3e-7 B w + 1.2e-3 s + 6e-5 B s + 4e-7 B s^2 / 2 + 5e-5 + 1e-5 B
@@ -379,14 +383,14 @@ def test_fake_clock_validation_mechanics(kind):
     """
     clock = FakeClock()
     calib = run_fake(kind, fake_pages(10, seed=11), clock, run_id=1, recogniser="r", noise=0.01, seed=5)
-    m = P.fit_cost_model(frames_of(calib), "r", n_boot=100)
+    m = fit_cost_model(frames_of(calib), "r", n_boot=100)
     held = fake_pages(60, seed=12, lines=(32, 60))
     # the planner sees the held-out pages only as segmentation gives them: page sizes and line widths
     pages_df = pd.DataFrame({"page_id": [p["page_id"] for p in held], "width": [p["width"] for p in held],
                              "height": [p["height"] for p in held]})
     lines_df = pd.DataFrame([{"page_id": p["page_id"], "width_px": int(w)} for p in held for w in p["widths"]])
-    archive = P.Archive.from_layouts(pages_df, lines_df, n_pages=60)
-    plan = P.make_plan([m], P.PlanInputs(archive=archive, draws=1000, seed=3))
+    archive = Archive.from_layouts(pages_df, lines_df, n_pages=60)
+    plan = make_plan([m], PlanInputs(archive=archive, draws=1000, seed=3))
     r = plan.iloc[0]
     c2 = FakeClock()
     run_fake(kind, held, c2, run_id=2, recogniser="r", noise=0.01, seed=6)
@@ -415,25 +419,25 @@ def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
                 t[k] += sub[k]
     t["runs"] = [{**sub["runs"][0], "run_id": rid, "recogniser": f"demo-{k}", "kind": k,
                   "started_at": BASE.isoformat()} for rid, k in ((1, "ctc"), (2, "seq"))]
-    m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=5)
+    m = fit_cost_model(frames_of(t), "demo-seq", n_boot=5)
     assert m.gap_per_page == 0.0 and any("took turns" in n for n in m.notes)
-    m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=5,
+    m = fit_cost_model(frames_of(t), "demo-seq", n_boot=5,
                          session={"gap_seconds_per_page": GAP, "startup_seconds": STARTUP})
     assert m.gap_per_page == GAP and m.startup_s == STARTUP and not m.notes
     # repeated sessions that ran at different speeds widen the interval by that spread
-    archive = P.Archive.from_numbers(2000, "20-30", "40-50", page_size=(1100, 1430))
+    archive = Archive.from_numbers(2000, "20-30", "40-50", page_size=(1100, 1430))
     band = {}
     for cv in (0.0, 0.10):
-        m = P.fit_cost_model(frames_of(t), "demo-seq", n_boot=20, session={
+        m = fit_cost_model(frames_of(t), "demo-seq", n_boot=20, session={
             "gap_seconds_per_page": GAP, "startup_seconds": STARTUP, "speed_cv": cv, "sessions": 3})
-        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=1000, speed_drift=0.0)).iloc[0]
+        r = make_plan([m], PlanInputs(archive=archive, draws=1000, speed_drift=0.0)).iloc[0]
         band[cv] = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
     # P10-P90 of a normal factor with sd 0.10 spans 2 x 1.2816 x 0.10 = 0.256 (normal quantiles)
     assert band[0.0] < 0.05 and 0.2 < band[0.10] < 0.32
 
     frames = calibrate(noise=0.0, kinds=("ctc",))
     frames["pages"]["finished_at"] = frames["pages"]["finished_at"].str.replace(r"\.\d+", "", regex=True)
-    m = P.fit_cost_model(frames, "demo-ctc", n_boot=5)
+    m = fit_cost_model(frames, "demo-ctc", n_boot=5)
     assert m.gap_per_page == 0.0 and m.startup_s == 0.0
     assert any("whole seconds" in n for n in m.notes)
 
@@ -461,14 +465,14 @@ def test_pages_overlapped_by_loading_ahead():
     calib = run_fake("ctc", fake_pages(10, seed=21), FakeClock(), run_id=1, recogniser="r")
     span, busy = span_of(calib)
     session = {"gap_seconds_per_page": (span - busy) / 10, "startup_seconds": STARTUP, "run_id": 1}
-    m = P.fit_cost_model(frames_of(calib), "r", session=session, n_boot=20)
+    m = fit_cost_model(frames_of(calib), "r", session=session, n_boot=20)
     assert m.overlap == pytest.approx(phi, rel=1e-6) and m.gap_per_page == pytest.approx(0.0, abs=1e-12)
     held = fake_pages(60, seed=22, lines=(32, 60))
     measured, _ = span_of(run_fake("ctc", held, FakeClock(), run_id=2, recogniser="r"))
     pages_df = pd.DataFrame({"page_id": [p["page_id"] for p in held], "width": [p["width"] for p in held],
                              "height": [p["height"] for p in held]})
     lines_df = pd.DataFrame([{"page_id": p["page_id"], "width_px": int(w)} for p in held for w in p["widths"]])
-    plan = P.make_plan([m], P.PlanInputs(archive=P.Archive.from_layouts(pages_df, lines_df, n_pages=60), draws=400))
+    plan = make_plan([m], PlanInputs(archive=Archive.from_layouts(pages_df, lines_df, n_pages=60), draws=400))
     assert plan.iloc[0]["wall_seconds_p50"] - STARTUP == pytest.approx(measured, rel=0.03)
 
 
@@ -477,7 +481,7 @@ def test_characters_from_width_regress_to_the_calibration_mean():
     rng = np.random.default_rng(4)
     c = rng.integers(15, 56, size=300).astype(float)
     w = 1000 + 0.5 * c + rng.normal(0, 120, size=300)          # almost unrelated, as in ledgers
-    fit = P.fit_width(c, w)
+    fit = fit_width(c, w)
     est = fit.chars(w, np.random.default_rng(5))
     # least squares of characters on width (numpy.polyfit as the reference) and the calibration's spread
     slope, icpt = np.polyfit(w, c, 1)
@@ -485,7 +489,7 @@ def test_characters_from_width_regress_to_the_calibration_mean():
     assert abs(est.mean() - c.mean()) < 2.0 and est.std() < 1.5 * c.std()
     # a strong relation (about 9 px per character) is followed closely
     w2 = 6 + 9 * c + rng.normal(0, 5, size=300)
-    fit2 = P.fit_width(c, w2)
+    fit2 = fit_width(c, w2)
     assert fit2.px_per_char == pytest.approx(9.0, rel=0.02) and fit2.r2 > 0.99
     assert np.abs(fit2.chars(w2) - c).mean() < 1.0
 
@@ -496,35 +500,35 @@ def test_lines_cut_into_pieces_are_batched_as_pieces():
     Hand-worked: a line of 30 characters in pieces 100, 200 and 100 px wide has 30 - 2 = 28 tokens
     (the two joining spaces are not decoded), shared 7, 14, 7 in proportion to width.
     """
-    m = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5, split_gap=1.0)
+    m = fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5, split_gap=1.0)
     rng = np.random.default_rng(0)
-    w, t = P._units(m, np.array([400.0]), np.array([30]), [np.array([100.0, 200.0, 100.0])], rng)
+    w, t = batch_units(m, np.array([400.0]), np.array([30]), [np.array([100.0, 200.0, 100.0])], rng)
     assert list(w) == [100, 200, 100] and list(t) == [7, 14, 7]
     # without measured pieces: the calibration's pieces per line (here 1: the fake machine never splits)
     assert m.pieces_per_line == pytest.approx(1.0)
-    w, t = P._units(m, np.array([400.0, 300.0]), np.array([30, 20]), None, rng)
+    w, t = batch_units(m, np.array([400.0, 300.0]), np.array([30, 20]), None, rng)
     assert list(w) == [400, 300] and list(t) == [30, 20]
     # per-line time of a split line is k pieces' time: k = 2 pieces of half width and (c - 1) / 2 tokens
-    m2 = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
+    m2 = fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
     object.__setattr__(m2, "split_gap", 1.0)
     m2.pieces_per_line = 2.0
-    whole = P.fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
+    whole = fit_cost_model(calibrate(noise=0.0, kinds=("seq",)), "demo-seq", n_boot=5)
     B = whole.batch_size
     wd = whole.width.intercept + whole.width.px_per_char * 41
-    X = P.batch_feature_matrix([B], [wd / 2], [B * wd / 2], [21.0], [B * 20.0], [B * 400.0])
-    assert m2.line_time(41.0)[0] == pytest.approx(2 * (X @ whole.coef[:len(P.BATCH_FEATURES)])[0] / B)
+    X = batch_feature_matrix([B], [wd / 2], [B * wd / 2], [21.0], [B * 20.0], [B * 400.0])
+    assert m2.line_time(41.0)[0] == pytest.approx(2 * (X @ whole.coef[:len(BATCH_FEATURES)])[0] / B)
 
 
 def test_bad_inputs_raise_plan_errors():
     frames = calibrate(noise=0.0, n=1, kinds=("ctc",))
     with pytest.raises(PlanError, match="at least 2 pages"):
-        P.fit_cost_model(frames, "demo-ctc")
+        fit_cost_model(frames, "demo-ctc")
     with pytest.raises(PlanError, match="no run of recogniser"):
-        P.fit_cost_model(frames, "nope")
+        fit_cost_model(frames, "nope")
     with pytest.raises(PlanError):
-        P.Archive(n_pages=0, source="x", lines_per_page=(1, 2), chars_per_line=(1, 2))
+        Archive(n_pages=0, source="x", lines_per_page=(1, 2), chars_per_line=(1, 2))
     with pytest.raises(PlanError):
-        P.AccuracyInput(0.1, 0.2, 0.3)
+        AccuracyInput(0.1, 0.2, 0.3)
 
 
 def test_default_speed_drift_widens_the_band_as_a_normal_factor():
@@ -532,13 +536,38 @@ def test_default_speed_drift_widens_the_band_as_a_normal_factor():
     band: P10-P90 of a normal factor with sd 0.08 spans 2 x 1.2816 x 0.08 = 0.205 of the median (normal
     quantiles); a larger measured spread wins over the default."""
     frames = calibrate(noise=0.0, kinds=("ctc",))
-    archive = P.Archive.from_numbers(5000, "24", "40", page_size=(1100, 1430))
+    archive = Archive.from_numbers(5000, "24", "40", page_size=(1100, 1430))
     band = {}
     for cv in (0.0, 0.15):
-        m = P.fit_cost_model(frames, "demo-ctc", n_boot=20, session={"speed_cv": cv, "sessions": 3,
+        m = fit_cost_model(frames, "demo-ctc", n_boot=20, session={"speed_cv": cv, "sessions": 3,
                                                                      "gap_seconds_per_page": 0.0})
-        r = P.make_plan([m], P.PlanInputs(archive=archive, draws=2000)).iloc[0]
+        r = make_plan([m], PlanInputs(archive=archive, draws=2000)).iloc[0]
         band[cv] = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
     assert 0.17 < band[0.0] < 0.24 and 0.33 < band[0.15] < 0.45      # 2 x 1.2816 x 0.15 = 0.384
     with pytest.raises(PlanError):
-        P.PlanInputs(archive=archive, speed_drift=1.5)
+        PlanInputs(archive=archive, speed_drift=1.5)
+
+
+def test_timeline_reads_microsecond_and_whole_second_timestamps():
+    """Start-up and gaps from ISO timestamps as the store writes them (datetime.isoformat, the reference).
+
+    isoformat() drops the fraction when it is zero, so a microsecond store may hold a value like
+    '...:05+00:00' among '...:05.250000+00:00'; both are read with datetime.fromisoformat.
+    Hand-worked: run starts 09:00:00; pages take 0.5 s each (t_total) and finish at 01.0, 01.75, 03.0:
+    start-up = 1.0 - 0.5 = 0.5 s; gaps = (0.75 - 0.5, 1.25 - 0.5) = (0.25, 0.75) s.
+    """
+    from ocrbench.planning.timeline import WHOLE_SECONDS_NOTE, timeline
+
+    t0 = BASE
+    fin = [t0 + dt.timedelta(seconds=s) for s in (1.0, 1.75, 3.0)]
+    runs = pd.DataFrame({"run_id": [1], "started_at": [t0.isoformat()]})
+    pages = pd.DataFrame({"run_id": [1, 1, 1], "page_id": ["a", "b", "c"], "status": ["done"] * 3,
+                          "t_total": [0.5, 0.5, 0.5], "finished_at": [t.isoformat() for t in fin]})
+    assert pages["finished_at"][0].endswith(":01+00:00")           # no fraction written for .000000
+    gaps, startup, notes = timeline(runs, pages, [1])
+    assert startup == pytest.approx(0.5) and not notes
+    assert sorted(gaps.values()) == pytest.approx([0.25, 0.75])
+    # an older store: whole seconds everywhere -> nothing attributed, and the note says why
+    pages["finished_at"] = [t.replace(microsecond=0).isoformat() for t in fin]
+    gaps, startup, notes = timeline(runs, pages, [1])
+    assert gaps == {} and startup is None and notes == [WHOLE_SECONDS_NOTE]

@@ -41,7 +41,7 @@ def _yes(v) -> str:
 
 def render(table, console: Console) -> None:
     """The side-by-side table and the plan's statements, for people."""
-    from ocrbench.planning.model import format_duration
+    from ocrbench.planning.numerics import format_duration
 
     rows = table.to_dict(orient="records")
     t = Table(title="Archive plan", show_lines=False)
@@ -133,6 +133,7 @@ def plan(
 ) -> None:
     """Plan an archive: wall-clock P10/P50/P90, core-hours, money, correction hours, deadline and budget fit."""
     from ocrbench.planning import inputs as planio
+    from ocrbench.planning import service
 
     if plan_format:
         typer.echo(planio.PLAN_FILE_FORMAT, nl=False)
@@ -144,19 +145,19 @@ def plan(
             "calibration": calibration, "recognisers": recogniser or None, "sample": sample,
             "sample_pages": sample_pages, "archive_store": archive_store, "pages": pages,
             "lines_per_page": lines_per_page, "chars_per_line": chars_per_line,
-            "page_size": planio._page_size(page_size), "workers": workers, "threads": threads,
+            "page_size": planio.parse_page_size(page_size), "workers": workers, "threads": threads,
             "machines": machines, "deadline": deadline, "budget": budget, "price_core_hour": price_core_hour,
             "price_machine_hour": price_machine_hour, "seconds_per_error": seconds_per_error,
             "correction_price_hour": correction_price_hour, "truth": truth, "cer_margin": cer_margin,
             "draws": draws, "seed": seed, "speed_drift": speed_drift})
         with err.status("planning") as status:
-            result = planio.run_request(req, progress=lambda m: status.update(m))
+            result = service.plan(req, progress=lambda m: status.update(m))
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
     if as_json:
-        doc = planio.plan_json(result.table)
+        doc = service.plan_json(result.table)
         doc["sample_failures"] = [{"page": p, "error": e} for p, e in result.sample_failures]
-        typer.echo(planio.json_dumps(doc))
+        typer.echo(service.json_dumps(doc))
     else:
         render(result.table, Console())
     for p, e in result.sample_failures:
@@ -181,6 +182,7 @@ def measure_scaling_cmd(
     import pandas as pd
 
     from ocrbench.planning import inputs as planio
+    from ocrbench.planning.service import json_dumps
     from ocrbench.recognisers.base import EngineOptions
     from ocrbench.run.measure import measure_scaling, measure_session
 
@@ -206,7 +208,7 @@ def measure_scaling_cmd(
             "gap_seconds_per_page"]
     if as_json:
         rec = df[cols].astype(object).where(df[cols].notna(), None).to_dict(orient="records")
-        typer.echo(planio.json_dumps({"scaling": rec}))
+        typer.echo(json_dumps({"scaling": rec}))
         raise typer.Exit(EXIT_OK)
     t = Table(title=f"Throughput on this machine (saved in {store})")
     heads = ["recogniser", "workers", "threads", "pages", "pages/s", "speed-up", "start-up s", "gap s/page"]

@@ -1,12 +1,12 @@
 """The planner's inputs from files: calibration stores, sample folders, ground truth, plan files.
 
-``ocrbench.planning.model`` is pure (tables in, tables out); this module reads what
+The planner's core (numerics, costmodel, archive, estimate, decide) is pure (tables in, tables out); this module reads what
 it needs from disk and hands it over:
 
-* a calibration store -> one :class:`~ocrbench.planning.model.CostModel` per
+* a calibration store -> one :class:`~ocrbench.planning.costmodel.CostModel` per
   recogniser (the machine profile is the store's host), plus the throughput
   table ``scaling`` that :mod:`ocrbench.run.measure` adds to the same file;
-* a sample folder -> an :class:`~ocrbench.planning.model.Archive` (pages segmented
+* a sample folder -> an :class:`~ocrbench.planning.archive.Archive` (pages segmented
   only, nothing recognised);
 * a ground-truth folder -> each recogniser's CER with its interval and the
   per-page scores the sample-size calculation needs;
@@ -15,10 +15,8 @@ it needs from disk and hands it over:
 
 from __future__ import annotations
 
-import json
 import math
 import sqlite3
-import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Callable, Mapping, Sequence
@@ -26,8 +24,12 @@ from typing import Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from ocrbench.planning import model as P
-from ocrbench.errors import InputError, OcrbenchError, PlanError, StoreError
+from ocrbench.io.config import Key, check_table, read_toml
+from ocrbench.planning.archive import Archive
+from ocrbench.planning.costmodel import DEFAULT_CER_MARGIN, DEFAULT_SECONDS_PER_ERROR, CostModel, fit_cost_model
+from ocrbench.planning.estimate import SPEED_DRIFT, AccuracyInput
+from ocrbench.planning.numerics import ScalingFit
+from ocrbench.errors import ConfigError, InputError, OcrbenchError, PlanError, StoreError
 
 PLAN_FILE_FORMAT = """\
 # An ocrbench plan file (TOML). Paths are relative to this file. Every key is optional
@@ -56,7 +58,7 @@ deadline = "6w"                            # s, m, h, d or w
 budget = 5000
 
 [correction]
-seconds_per_error = 10                     # default 10 (see ocrbench.planning.model.Correction)
+seconds_per_error = 10                     # default 10 (see ocrbench.planning.estimate.Correction)
 price_hour = 25                            # cost of an hour of correction (default: not priced)
 truth = "truth/"                           # ground truth of the calibration pages -> CER and sample size
 cer_margin = 0.005                         # wanted half-width of the CER interval
@@ -154,8 +156,8 @@ class Calibration:
 
     path: Path
     profile: str
-    models: list[P.CostModel]
-    scaling: dict[str, P.ScalingFit]
+    models: list[CostModel]
+    scaling: dict[str, ScalingFit]
 
 
 def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = None, n_boot: int = 200,
@@ -194,9 +196,9 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
                            "gap_seconds_per_page": float((one["gap_seconds_per_page"] * one["pages"]).sum()
                                                          / one["pages"].sum()),
                            "run_id": None if rid is None or pd.isna(rid) else int(rid)}
-            scaling[n] = P.ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
+            scaling[n] = ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
-            m = P.fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,
+            m = fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,
                                  split_gap=split_gap, session=session, n_boot=n_boot, seed=seed)
         except PlanError as e:
             raise PlanError(f"{path}: {e}") from e
@@ -213,7 +215,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
 
 def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pages: int = 20, seed: int = 0,
                     split_gaps: Sequence[float] = (),
-                    progress: Callable[[int, int], None] | None = None) -> tuple[P.Archive, list[tuple[str, str]]]:
+                    progress: Callable[[int, int], None] | None = None) -> tuple[Archive, list[tuple[str, str]]]:
     """Segment (no recognition) up to ``sample_pages`` pages of ``folder`` into an archive description.
 
     Pages are picked evenly at random (by ``seed``); a page that cannot be
@@ -253,7 +255,7 @@ def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pa
     if not prow:
         raise InputError(folder, f"none of the {len(pick)} sampled pages could be segmented")
     cols = ["page_id", "crop_w", "crop_h"] + [f"pieces_{g:g}" for g in gaps]
-    archive = P.Archive.from_layouts(pd.DataFrame(prow), pd.DataFrame(lrows, columns=cols),
+    archive = Archive.from_layouts(pd.DataFrame(prow), pd.DataFrame(lrows, columns=cols),
                                      n_pages=n_pages or len(refs), source=f"sample of {folder}")
     return archive, failed
 
@@ -274,7 +276,7 @@ def truth_path_for(truth_dir: Path, page_id: str) -> Path | None:
 
 
 def score_calibration(store_path: Path | str, truth_dir: Path | str, *, recognisers: Sequence[str] | None = None,
-                      profile: str = "nfc") -> dict[str, tuple[P.AccuracyInput, pd.DataFrame]]:
+                      profile: str = "nfc") -> dict[str, tuple[AccuracyInput, pd.DataFrame]]:
     """Each recogniser's CER (with its interval) and per-page scores on the calibration pages that have truth."""
     from ocrbench.accuracy.score import score_pages
     from ocrbench.io.text import read_text_lines
@@ -303,7 +305,7 @@ def score_calibration(store_path: Path | str, truth_dir: Path | str, *, recognis
             s = sc.summary
             if s.get("cer") is None:
                 raise PlanError(f"{truth_dir}: the ground truth of run {rid} holds no characters")
-            out[name] = (P.AccuracyInput(float(s["cer"]), float(s["cer_low"]), float(s["cer_high"])), sc.pages)
+            out[name] = (AccuracyInput(float(s["cer"]), float(s["cer_low"]), float(s["cer_high"])), sc.pages)
     return out
 
 
@@ -330,18 +332,18 @@ class PlanRequest:
     price_machine_hour: float | None = None
     deadline: str | None = None
     budget: float | None = None
-    seconds_per_error: float = P.DEFAULT_SECONDS_PER_ERROR
+    seconds_per_error: float = DEFAULT_SECONDS_PER_ERROR
     correction_price_hour: float | None = None
     truth: Path | None = None
-    cer_margin: float = P.DEFAULT_CER_MARGIN
+    cer_margin: float = DEFAULT_CER_MARGIN
     accuracy: dict[str, dict] = field(default_factory=dict)
     profiles: dict[str, dict] = field(default_factory=dict)
     draws: int = 2000
     seed: int = 0
-    speed_drift: float = P.SPEED_DRIFT
+    speed_drift: float = SPEED_DRIFT
 
 
-def page_size_or_calibrated(size: tuple[int, int] | None, ref: P.CostModel) -> tuple[int, int]:
+def page_size_or_calibrated(size: tuple[int, int] | None, ref: CostModel) -> tuple[int, int]:
     """``size``, else a page of the calibration's middle pixel count at the 1 : 1.3 shape of a ledger leaf."""
     if size is not None:
         return size
@@ -350,7 +352,7 @@ def page_size_or_calibrated(size: tuple[int, int] | None, ref: P.CostModel) -> t
     return int(side), int(1.3 * side)
 
 
-def _page_size(v) -> tuple[int, int] | None:
+def parse_page_size(v) -> tuple[int, int] | None:
     if v is None:
         return None
     if isinstance(v, str):
@@ -367,49 +369,98 @@ def _page_size(v) -> tuple[int, int] | None:
     return w, h
 
 
-def load_plan_file(path: Path | str) -> PlanRequest:
-    """Read a plan file (format: :data:`PLAN_FILE_FORMAT`); paths become relative to its folder."""
-    p = Path(path)
-    try:
-        doc = tomllib.loads(p.read_text(encoding="utf-8"))
-    except FileNotFoundError as e:
-        raise InputError(p, "plan file not found") from e
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as e:
-        raise InputError(p, f"not a valid TOML plan file: {e}") from e
+_NUM = (int, float)
+_RANGE = (int, str, list)
+
+#: Keys a ``[profiles.NAME]`` table may set: the resources of one machine profile.
+PROFILE_SCHEMA = {
+    "workers": Key((int,), low=1), "threads": Key((int,), low=1), "machines": Key((int,), low=1),
+    "price_core_hour": Key(_NUM, low=0), "price_machine_hour": Key(_NUM, low=0),
+}
+
+#: The plan file's schema (format and comments: :data:`PLAN_FILE_FORMAT`), checked by ``io.config.check_table``.
+PLAN_FILE_SCHEMA = {
+    "calibration": Key((str, list), default=[], items=(str,)),
+    "recognisers": Key((list,), items=(str,)),
+    "archive": {
+        "pages": Key((int,), low=1), "lines_per_page": Key(_RANGE), "chars_per_line": Key(_RANGE),
+        "page_size": Key((list, str)), "sample": Key((str,)), "sample_pages": Key((int,), default=20, low=1),
+        "store": Key((str,)),
+    },
+    "resources": {k: (Key((int,), default=1, low=1) if k in ("workers", "machines") else v)
+                  for k, v in PROFILE_SCHEMA.items()},
+    "goals": {"deadline": Key((str,)), "budget": Key(_NUM, low=0)},
+    "correction": {
+        "seconds_per_error": Key(_NUM, default=DEFAULT_SECONDS_PER_ERROR, low=0),
+        "price_hour": Key(_NUM, low=0), "truth": Key((str,)),
+        "cer_margin": Key(_NUM, default=DEFAULT_CER_MARGIN, low=0, low_open=True),
+    },
+    "accuracy": Key((dict,), default={}, free=True),
+    "profiles": Key((dict,), default={}, free=True),
+    "simulation": {"draws": Key((int,), default=2000, low=1), "seed": Key((int,), default=0),
+                   "speed_drift": Key(_NUM, default=SPEED_DRIFT, low=0, high=0.99)},
+}
+
+#: Keys of an ``[accuracy.NAME]`` table.
+ACCURACY_SCHEMA = {"cer": Key(_NUM, required=True, low=0), "cer_low": Key(_NUM, required=True, low=0),
+                   "cer_high": Key(_NUM, required=True, low=0)}
+
+
+def _named_tables(doc: Mapping, key: str, schema: Mapping, source: Path) -> dict[str, dict]:
+    """``[key.NAME]`` tables, each checked against ``schema`` (the names are the user's)."""
+    out = {}
+    for name, sub in doc.items():
+        if not isinstance(sub, Mapping):
+            raise ConfigError(source, f"{key}.{name} must be a table, not {type(sub).__name__}")
+        out[str(name)] = check_table(sub, schema, source=source, prefix=f"{key}.{name}.")
+    return out
+
+
+def _plan_file_paths(p: Path):
     base = p.parent
-    rel = lambda v: None if v is None else (base / v if not Path(v).is_absolute() else Path(v))  # noqa: E731
+
+    def rel(v):
+        return None if v is None else (base / v if not Path(v).is_absolute() else Path(v))
 
     def cal(v: str) -> str:
         if "=" in v and not (base / v).exists():
             n, q = v.split("=", 1)
             return f"{n}={rel(q)}"
         return str(rel(v))
+    return rel, cal
 
-    known = {"calibration", "recognisers", "archive", "resources", "goals", "correction", "accuracy", "profiles",
-             "simulation"}
-    unknown = sorted(set(doc) - known)
-    if unknown:
-        raise InputError(p, f"unknown key(s) {', '.join(unknown)}; known: {', '.join(sorted(known))}")
-    a, r, g, c, s = (doc.get(k, {}) for k in ("archive", "resources", "goals", "correction", "simulation"))
-    cals = doc.get("calibration", [])
-    req = PlanRequest(
+
+def load_plan_file(path: Path | str) -> PlanRequest:
+    """Read a plan file (format: :data:`PLAN_FILE_FORMAT`); paths become relative to its folder.
+
+    Every key is checked (:data:`PLAN_FILE_SCHEMA`): a misspelt key, a value of the
+    wrong type or out of range raises :class:`ConfigError` naming the file, the
+    key's dotted path and, for a misspelt key, the nearest valid one.
+    """
+    p = Path(path)
+    doc = check_table(read_toml(p), PLAN_FILE_SCHEMA, source=p)
+    accuracy = _named_tables(doc["accuracy"], "accuracy", ACCURACY_SCHEMA, p)
+    profiles = {n: {k: v for k, v in t.items() if v is not None}
+                for n, t in _named_tables(doc["profiles"], "profiles", PROFILE_SCHEMA, p).items()}
+    rel, cal = _plan_file_paths(p)
+    a, r, g, c, s = (doc[k] for k in ("archive", "resources", "goals", "correction", "simulation"))
+    cals = doc["calibration"]
+    text = lambda v: None if v is None else str(v)  # noqa: E731
+    try:
+        page_size = parse_page_size(a["page_size"])
+    except PlanError as e:
+        raise ConfigError(p, f"archive.page_size: {e}") from e
+    return PlanRequest(
         calibration=[cal(v) for v in ([cals] if isinstance(cals, str) else cals)],
-        recognisers=doc.get("recognisers"),
-        sample=rel(a.get("sample")), sample_pages=int(a.get("sample_pages", 20)),
-        archive_store=rel(a.get("store")), pages=a.get("pages"),
-        lines_per_page=None if a.get("lines_per_page") is None else str(a.get("lines_per_page")),
-        chars_per_line=None if a.get("chars_per_line") is None else str(a.get("chars_per_line")),
-        page_size=_page_size(a.get("page_size")),
-        workers=int(r.get("workers", 1)), threads=r.get("threads"), machines=int(r.get("machines", 1)),
-        price_core_hour=r.get("price_core_hour"), price_machine_hour=r.get("price_machine_hour"),
-        deadline=None if g.get("deadline") is None else str(g.get("deadline")), budget=g.get("budget"),
-        seconds_per_error=float(c.get("seconds_per_error", P.DEFAULT_SECONDS_PER_ERROR)),
-        correction_price_hour=c.get("price_hour"), truth=rel(c.get("truth")),
-        cer_margin=float(c.get("cer_margin", P.DEFAULT_CER_MARGIN)),
-        accuracy=dict(doc.get("accuracy", {})), profiles=dict(doc.get("profiles", {})),
-        draws=int(s.get("draws", 2000)), seed=int(s.get("seed", 0)),
-        speed_drift=float(s.get("speed_drift", P.SPEED_DRIFT)))
-    return req
+        recognisers=doc["recognisers"], sample=rel(a["sample"]), sample_pages=a["sample_pages"],
+        archive_store=rel(a["store"]), pages=a["pages"], lines_per_page=text(a["lines_per_page"]),
+        chars_per_line=text(a["chars_per_line"]), page_size=page_size,
+        workers=r["workers"], threads=r["threads"], machines=r["machines"],
+        price_core_hour=r["price_core_hour"], price_machine_hour=r["price_machine_hour"],
+        deadline=g["deadline"], budget=g["budget"], seconds_per_error=float(c["seconds_per_error"]),
+        correction_price_hour=c["price_hour"], truth=rel(c["truth"]), cer_margin=float(c["cer_margin"]),
+        accuracy=accuracy, profiles=profiles, draws=s["draws"], seed=s["seed"],
+        speed_drift=float(s["speed_drift"]))
 
 
 def merge_request(base: PlanRequest, overrides: Mapping) -> PlanRequest:
@@ -420,125 +471,3 @@ def merge_request(base: PlanRequest, overrides: Mapping) -> PlanRequest:
         if k in names and v is not None and v != [] and v != ():
             vals[k] = v
     return PlanRequest(**vals)
-
-
-@dataclass
-class PlanResult:
-    table: pd.DataFrame
-    sample_failures: list[tuple[str, str]]
-
-
-def run_request(req: PlanRequest, *, progress: Callable[[str], None] | None = None) -> PlanResult:
-    """Read, fit and plan: the whole of ``ocrbench plan`` below the command line."""
-    if not req.calibration:
-        raise PlanError("give at least one calibration store (--calibration STORE)")
-    say = progress or (lambda _m: None)
-    say("fitting cost models")
-    cals = [read_calibration(c, recognisers=req.recognisers, seed=req.seed) for c in req.calibration]
-    models = [m for c in cals for m in c.models]
-    ref = models[0]
-    failures: list[tuple[str, str]] = []
-    n_desc = sum(x is not None for x in (req.sample, req.archive_store)) + (req.lines_per_page is not None)
-    if n_desc != 1:
-        raise PlanError("describe the archive one way: --sample DIR, --archive-store STORE, or "
-                        "--pages N --lines-per-page A-B --chars-per-line A-B")
-    if req.sample is not None:
-        say(f"segmenting a sample of {req.sample}")
-        archive, failures = describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
-                                            seed=req.seed, split_gaps=[m.split_gap for m in models])
-    elif req.archive_store is not None:
-        archive = P.Archive.from_store_frames(read_store_frames(req.archive_store), n_pages=req.pages)
-    else:
-        if req.pages is None or req.chars_per_line is None:
-            raise PlanError("--pages and --chars-per-line are needed with --lines-per-page")
-        archive = P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line,
-                                         page_size=page_size_or_calibrated(req.page_size, ref))
-
-    accuracy: dict[str, P.AccuracyInput] = {}
-    sample_sizes: dict[str, dict] = {}
-    for n, d in (req.accuracy or {}).items():
-        try:
-            accuracy[n] = P.AccuracyInput.from_summary(d)
-        except (KeyError, TypeError, ValueError) as e:
-            raise PlanError(f"accuracy of {n}: give cer, cer_low and cer_high ({e})") from e
-    if req.truth is not None:
-        say("scoring the calibration pages against the ground truth")
-        from ocrbench.accuracy.stats import sample_size_for_cer
-
-        for c in cals:
-            for n, (acc, pages_df) in score_calibration(c.path, req.truth, recognisers=[m.recogniser for m in c.models]).items():
-                accuracy.setdefault(n, acc)
-                try:
-                    sample_sizes[n] = sample_size_for_cer(pages_df, half_width=req.cer_margin,
-                                                          population=archive.n_pages)
-                except (PlanError, ValueError) as e:
-                    sample_sizes[n] = {"pages": None, "notes": [str(e)]}
-
-    deadline = P.parse_duration(req.deadline) if req.deadline else None
-    res = P.Resources(workers=req.workers, threads=req.threads, machines=req.machines,
-                      price_core_hour=req.price_core_hour, price_machine_hour=req.price_machine_hour)
-    by_profile = {}
-    for name, over in (req.profiles or {}).items():
-        allowed = {"workers", "threads", "machines", "price_core_hour", "price_machine_hour"}
-        bad = set(over) - allowed
-        if bad:
-            raise PlanError(f"profile {name}: unknown key(s) {', '.join(sorted(bad))}")
-        vals = {k: getattr(res, k) for k in allowed} | dict(over)
-        by_profile[name] = P.Resources(**vals)
-    scaling = {k: v for c in cals for k, v in c.scaling.items()}
-    inputs = P.PlanInputs(archive=archive, resources=res, goals=P.Goals(deadline_s=deadline, budget=req.budget),
-                          correction=P.Correction(seconds_per_error=req.seconds_per_error,
-                                                  price_hour=req.correction_price_hour),
-                          accuracy=accuracy, sample_sizes=sample_sizes, scaling=scaling,
-                          resources_by_profile=by_profile, draws=req.draws, seed=req.seed,
-                          speed_drift=req.speed_drift)
-    say("simulating the archive")
-    table = P.make_plan(models, inputs)
-    table.attrs["sample_sizes"] = sample_sizes
-    table.attrs["cer_margin"] = req.cer_margin
-    return PlanResult(table=table, sample_failures=failures)
-
-
-def plan(**options) -> pd.DataFrame:
-    """Python API: the plan as a DataFrame (one row per recogniser and machine profile).
-
-    Keyword options are the fields of :class:`PlanRequest`, e.g.
-    ``plan(calibration=["cal.sqlite"], pages=180_000, lines_per_page="16-30",
-    chars_per_line="38-60", deadline="6w", price_core_hour=0.05)``. The
-    statements (choice, crossover, warnings, assumptions, fits) are in
-    ``DataFrame.attrs``.
-    """
-    return run_request(PlanRequest(**options)).table
-
-
-def plan_json(table: pd.DataFrame) -> dict:
-    """The plan as a JSON-ready dict: ``recognisers`` (one object each) plus the plan's statements."""
-    def clean(v):
-        if isinstance(v, (np.floating, float)):
-            return None if not np.isfinite(v) else float(v)
-        if isinstance(v, (np.integer,)):
-            return int(v)
-        if isinstance(v, (np.bool_,)):
-            return bool(v)
-        if isinstance(v, dict):
-            return {k: clean(x) for k, x in v.items()}
-        if isinstance(v, (list, tuple)):
-            return [clean(x) for x in v]
-        return v
-
-    rows = [clean(r) for r in table.to_dict(orient="records")]
-    fits = table.attrs.get("fits")
-    return clean({
-        "recognisers": rows,
-        "recommendation": table.attrs.get("recommendation"),
-        "crossover": table.attrs.get("crossover", []),
-        "warnings": table.attrs.get("warnings", []),
-        "assumptions": table.attrs.get("assumptions", []),
-        "archive": table.attrs.get("archive"),
-        "ground_truth_sample": table.attrs.get("sample_sizes", {}),
-        "fits": [] if fits is None else fits.to_dict(orient="records"),
-    })
-
-
-def json_dumps(obj) -> str:
-    return json.dumps(obj, indent=1, ensure_ascii=False, allow_nan=False)

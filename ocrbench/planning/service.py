@@ -1,23 +1,25 @@
-"""The archive plan shown in a report: read a plan file, or compute one with the planner on the report's store.
+"""The one way to plan: :func:`plan` takes a :class:`PlanRequest` and returns the plan.
 
-``ocrbench report --plan FILE`` accepts the project's two plan formats:
+``ocrbench plan``, ``ocrbench report --plan`` and the demo (through the report)
+all call :func:`plan`, so they accept the same plan file (``[profiles]``
+included) and the same archive descriptions:
 
-* **a plan file** (TOML), the same format ``ocrbench plan`` reads
-  (:data:`ocrbench.planning.inputs.PLAN_FILE_FORMAT`). Its ``calibration`` may be left
-  out: the report's store is then the calibration. When the file does not
-  describe the archive's pages (no ``sample``, ``store`` or
-  ``lines_per_page``), the report's own pages describe them, as read by the
-  most accurate recogniser. CER and its interval come from the report's
-  scores (the post-processed text where stored) unless the file gives them.
-* **plan results** (JSON), as ``ocrbench plan --json`` prints them: an
-  object with a ``recognisers`` list (or the list itself). Shown as given.
+* a sample folder (segmented only), an earlier run store, or numbers (pages,
+  lines per page, characters per line), exactly one of them; or
+* in a report only, none: the report's own pages as read by its most accurate
+  recogniser then describe the archive (:class:`ReportContext`).
 
-The plan is computed with the planner's own pieces (:mod:`ocrbench.planning.inputs`,
-:mod:`ocrbench.planning.model`), so it equals what ``ocrbench plan`` says for the
-same inputs, and the report adds the wall-clock against the number of
-workers: one worker per machine up to as many workers as the measured
-machine has cores (only with throughput measured at several workers, see
-``ocrbench measure-scaling``), then whole machines of that kind added.
+Without a calibration store in the request, a report calibrates on its own
+store. CER and its interval come, in this order, from the request's
+``[accuracy]`` tables, from ``truth`` scored against the calibration pages, and
+from the report's scores. ``ocrbench report --plan`` also reads plan results
+(JSON, as ``ocrbench plan --json`` prints them; :class:`PlanResults`), shown
+as given.
+
+The report adds the wall-clock against the number of workers
+(:func:`compute_plan`): one worker per machine up to as many workers as the
+measured machine has cores (only with throughput measured at several workers,
+see ``ocrbench measure-scaling``), then whole machines of that kind added.
 """
 
 from __future__ import annotations
@@ -27,18 +29,46 @@ import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-from ocrbench.planning import inputs as planio
-from ocrbench.planning import model as P
 from ocrbench.errors import InputError, PlanError
+from ocrbench.planning.archive import Archive
+from ocrbench.planning.costmodel import CostModel
+from ocrbench.planning.decide import PlanInputs, make_plan
+from ocrbench.planning.estimate import AccuracyInput, Correction, Goals, Resources, estimate_serial, evaluate_option
+from ocrbench.planning.inputs import (PROFILE_SCHEMA, Calibration, PlanRequest, describe_sample,
+                                      load_plan_file as load_plan_toml, page_size_or_calibrated, read_calibration,
+                                      read_store_frames, score_calibration)
+from ocrbench.planning.numerics import parse_duration
 
-__all__ = ["PlanRequest", "PlanResults", "load_plan_file", "compute_plan", "plan_from_results", "ROW_KEYS"]
+__all__ = ["PlanRequest", "PlanResult", "PlanResults", "ReportContext", "plan", "load_plan_file", "compute_plan",
+           "plan_from_results", "plan_json", "json_dumps", "ROW_KEYS"]
 
-PlanRequest = planio.PlanRequest
+
+@dataclass(frozen=True)
+class ReportContext:
+    """What a report adds to a plan request: its store, its runs and the accuracy it scored."""
+
+    store: Path
+    frames: Mapping[str, pd.DataFrame]
+    runs: Sequence[Mapping[str, Any]]                       # name, run_id
+    accuracy: Mapping[str, tuple[float, float, float]] = dataclasses.field(default_factory=dict)
+    page_scores: Mapping[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
+
+
+@dataclass
+class PlanResult:
+    """The plan (one row per recogniser and machine profile; statements in ``table.attrs``) and what made it."""
+
+    table: pd.DataFrame
+    sample_failures: list[tuple[str, str]]
+    models: list[CostModel]
+    inputs: PlanInputs
+    calibration: list[str]
+    described_by: str | None = None
 
 
 @dataclass(frozen=True)
@@ -54,7 +84,7 @@ def load_plan_file(path: Path | str) -> "PlanRequest | PlanResults":
     """Read ``--plan FILE``: a TOML plan file, or JSON plan results. InputError names the file and the problem."""
     p = Path(path)
     if p.suffix.lower() == ".toml":
-        return planio.load_plan_file(p)
+        return load_plan_toml(p)
     try:
         data: Any = json.loads(p.read_text(encoding="utf-8-sig"))
     except FileNotFoundError as e:
@@ -108,36 +138,128 @@ def plan_from_results(results: PlanResults) -> dict:
                    "curve": [], "curve_axis": None})
 
 
-def _archive(req: PlanRequest, frames: Mapping[str, pd.DataFrame], runs: Sequence[Mapping],
-             accuracy: Mapping[str, tuple], ref: P.CostModel) -> tuple[P.Archive, str | None]:
-    n_desc = sum(x is not None for x in (req.sample, req.archive_store)) + (req.lines_per_page is not None)
-    if n_desc > 1:
-        raise PlanError("describe the archive one way: a sample folder, an archive store, or lines per page "
-                        "and characters per line")
-    if req.sample is not None:
-        archive, _failed = planio.describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
-                                                  seed=req.seed)
-        return archive, None
-    if req.archive_store is not None:
-        return P.Archive.from_store_frames(planio.read_store_frames(req.archive_store), n_pages=req.pages), None
-    if req.pages is None:
-        raise PlanError("the plan needs the archive's page count (archive.pages)")
-    if req.lines_per_page is not None:
-        if req.chars_per_line is None:
-            raise PlanError("give chars_per_line with lines_per_page")
-        return P.Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line,
-                                      page_size=planio.page_size_or_calibrated(req.page_size, ref)), None
+def _calibrations(req: PlanRequest, ctx: ReportContext | None) -> tuple[list[str], list[Calibration]]:
+    specs = list(req.calibration) or ([str(ctx.store)] if ctx is not None else [])
+    if not specs:
+        raise PlanError("give at least one calibration store (--calibration STORE)")
+    names = req.recognisers
+    if names is None and ctx is not None and not req.calibration:
+        names = [r["name"] for r in ctx.runs]
+    return specs, [read_calibration(c, recognisers=names, seed=req.seed) for c in specs]
 
+
+def _report_pages(req: PlanRequest, ctx: ReportContext) -> tuple[Archive, str]:
+    """The report's own pages as read by its most accurate recogniser."""
     def key(r: Mapping) -> tuple:
-        a = accuracy.get(r["name"])
+        a = ctx.accuracy.get(r["name"])
         return (a is None, a[0] if a else 0.0, int(r["run_id"]))
 
-    best = min(runs, key=key)
-    archive = P.Archive.from_store_frames(frames, run_id=int(best["run_id"]), n_pages=int(req.pages))
+    best = min(ctx.runs, key=key)
+    archive = Archive.from_store_frames(ctx.frames, run_id=int(best["run_id"]), n_pages=int(req.pages))
     note = (f"the archive's pages are described by this store's pages as read by {best['name']} (run "
-            f"{best['run_id']}{', the most accurate' if accuracy.get(best['name']) else ''}): lines per page, "
+            f"{best['run_id']}{', the most accurate' if ctx.accuracy.get(best['name']) else ''}): lines per page, "
             "characters per line and line widths are resampled from them")
     return archive, note
+
+
+def _archive(req: PlanRequest, models: Sequence[CostModel], ctx: ReportContext | None,
+             say: Callable[[str], None]) -> tuple[Archive, list[tuple[str, str]], str | None]:
+    """The archive the request describes: (archive, sample pages that failed, how it was described)."""
+    n_desc = sum(x is not None for x in (req.sample, req.archive_store)) + (req.lines_per_page is not None)
+    if n_desc > 1 or (n_desc == 0 and ctx is None):
+        raise PlanError("describe the archive one way: --sample DIR, --archive-store STORE, or "
+                        "--pages N --lines-per-page A-B --chars-per-line A-B (plan file: archive.sample, "
+                        "archive.store, or archive.pages with archive.lines_per_page and archive.chars_per_line)")
+    if req.sample is not None:
+        say(f"segmenting a sample of {req.sample}")
+        archive, failures = describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
+                                            seed=req.seed, split_gaps=[m.split_gap for m in models])
+        return archive, failures, None
+    if req.archive_store is not None:
+        return Archive.from_store_frames(read_store_frames(req.archive_store), n_pages=req.pages), [], None
+    if req.pages is None:
+        raise PlanError("the plan needs the archive's page count (--pages, or archive.pages in a plan file)")
+    if req.lines_per_page is not None:
+        if req.chars_per_line is None:
+            raise PlanError("--chars-per-line (archive.chars_per_line) is needed with --lines-per-page")
+        return Archive.from_numbers(int(req.pages), req.lines_per_page, req.chars_per_line,
+                                    page_size=page_size_or_calibrated(req.page_size, models[0])), [], None
+    archive, note = _report_pages(req, ctx)
+    return archive, [], note
+
+
+def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext | None, n_pages: int,
+              say: Callable[[str], None]) -> tuple[dict[str, AccuracyInput], dict[str, dict]]:
+    """CER per recogniser (request's tables, then truth, then the report's scores) and ground-truth sample sizes."""
+    from ocrbench.accuracy.stats import sample_size_for_cer
+
+    accuracy: dict[str, AccuracyInput] = {}
+    for n, d in (req.accuracy or {}).items():
+        try:
+            accuracy[n] = AccuracyInput.from_summary(d)
+        except (KeyError, TypeError, ValueError) as e:
+            raise PlanError(f"accuracy of {n}: give cer, cer_low and cer_high ({e})") from e
+    page_scores: dict[str, pd.DataFrame] = {}
+    if req.truth is not None:
+        say("scoring the calibration pages against the ground truth")
+        for c in cals:
+            for n, (acc, pages_df) in score_calibration(c.path, req.truth,
+                                                         recognisers=[m.recogniser for m in c.models]).items():
+                accuracy.setdefault(n, acc)
+                page_scores.setdefault(n, pages_df)
+    if ctx is not None:
+        for n, v in ctx.accuracy.items():
+            if n not in accuracy and None not in v:
+                accuracy[n] = AccuracyInput(*v)
+        for n, df in ctx.page_scores.items():
+            page_scores.setdefault(n, df)
+    sizes: dict[str, dict] = {}
+    for n, df in page_scores.items():
+        try:
+            sizes[n] = sample_size_for_cer(df, half_width=req.cer_margin, population=n_pages)
+        except (PlanError, ValueError) as e:
+            sizes[n] = {"pages": None, "notes": [str(e)]}
+    return accuracy, sizes
+
+
+def resources_of(req: PlanRequest) -> tuple[Resources, dict[str, Resources]]:
+    """The request's resources, and those of each machine profile its ``profiles`` table overrides."""
+    res = Resources(workers=req.workers, threads=req.threads, machines=req.machines,
+                    price_core_hour=req.price_core_hour, price_machine_hour=req.price_machine_hour)
+    by_profile = {}
+    for name, over in (req.profiles or {}).items():
+        bad = sorted(set(over) - set(PROFILE_SCHEMA))
+        if bad:
+            raise PlanError(f"profile {name}: unknown key(s) {', '.join(bad)}; valid: {', '.join(PROFILE_SCHEMA)}")
+        by_profile[name] = dataclasses.replace(res, **dict(over))
+    return res, by_profile
+
+
+def plan(req: PlanRequest, *, context: ReportContext | None = None,
+         progress: Callable[[str], None] | None = None) -> PlanResult:
+    """Read, fit and plan: the whole of ``ocrbench plan`` (and of ``report --plan``) below the command line."""
+    say = progress or (lambda _m: None)
+    say("fitting cost models")
+    specs, cals = _calibrations(req, context)
+    models = [m for c in cals for m in c.models]
+    archive, failures, described_by = _archive(req, models, context, say)
+    accuracy, sizes = _accuracy(req, cals, context, archive.n_pages, say)
+    res, by_profile = resources_of(req)
+    inputs = PlanInputs(archive=archive, resources=res,
+                        goals=Goals(deadline_s=parse_duration(req.deadline) if req.deadline else None,
+                                    budget=req.budget),
+                        correction=Correction(seconds_per_error=req.seconds_per_error,
+                                              price_hour=req.correction_price_hour),
+                        accuracy=accuracy, sample_sizes=sizes, scaling={k: v for c in cals for k, v in c.scaling.items()},
+                        resources_by_profile=by_profile, draws=req.draws, seed=req.seed, speed_drift=req.speed_drift)
+    say("simulating the archive")
+    table = make_plan(models, inputs)
+    table.attrs["sample_sizes"] = sizes
+    table.attrs["cer_margin"] = req.cer_margin
+    if described_by:
+        table.attrs["assumptions"] = list(table.attrs.get("assumptions", [])) + [described_by]
+    return PlanResult(table=table, sample_failures=failures, models=models, inputs=inputs, calibration=specs,
+                      described_by=described_by)
 
 
 def _curve_points(cores: int, scaled: bool, max_workers: int) -> list[tuple[int, int, int]]:
@@ -152,67 +274,20 @@ def _curve_points(cores: int, scaled: bool, max_workers: int) -> list[tuple[int,
     return out
 
 
-def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: PlanRequest,
-                 runs: Sequence[Mapping[str, Any]], *,
-                 accuracy: Mapping[str, tuple[float, float, float]] | None = None,
-                 page_scores: Mapping[str, pd.DataFrame] | None = None, curve_max_workers: int = 16) -> dict:
-    """Plan the archive ``req`` describes, calibrated on ``req.calibration`` or else on ``store``.
-
-    ``runs``: the report's runs (``name``, ``run_id``). ``accuracy``: recogniser
-    name -> (CER, low, high) from the report's scores, used unless the request
-    gives its own. ``page_scores``: per-page scores by recogniser name, for the
-    ground-truth sample size. Returns the JSON-ready plan section.
-    """
-    accuracy = dict(accuracy or {})
-    names = [r["name"] for r in runs]
-    cal_specs = list(req.calibration) or [str(store)]
-    cals = [planio.read_calibration(c, recognisers=req.recognisers or (names if not req.calibration else None),
-                                    seed=req.seed) for c in cal_specs]
-    models = [m for c in cals for m in c.models]
-    scaling = {k: v for c in cals for k, v in c.scaling.items()}
-    archive, described_by = _archive(req, frames, runs, accuracy, models[0])
-
-    acc: dict[str, P.AccuracyInput] = {}
-    for n, d in (req.accuracy or {}).items():
-        try:
-            acc[n] = P.AccuracyInput.from_summary(d)
-        except (KeyError, TypeError, ValueError) as e:
-            raise PlanError(f"accuracy of {n}: give cer, cer_low and cer_high ({e})") from e
-    for n, v in accuracy.items():
-        if n not in acc and None not in v:
-            acc[n] = P.AccuracyInput(*v)
-    sizes: dict[str, dict] = {}
-    if page_scores:
-        from ocrbench.accuracy.stats import sample_size_for_cer
-
-        for n, df in page_scores.items():
+def _curve(result: PlanResult, req: PlanRequest, max_workers: int) -> tuple[list[dict], set[str]]:
+    """Wall-clock against workers, from the same Monte Carlo draws (make_plan seeds model i with seed + i)."""
+    inputs = result.inputs
+    curve, axis = [], set()
+    for i, m in enumerate(result.models):
+        est = estimate_serial(m, inputs.archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift)
+        sc = inputs.scaling.get(f"{m.profile}/{m.recogniser}") or inputs.scaling.get(m.recogniser)
+        base = inputs.resources_by_profile.get(m.profile, inputs.resources)
+        cores = int(m.host.get("cores") or 1) // int(base.threads or m.threads or 1)
+        for total, per, machines in _curve_points(cores, sc is not None, max_workers):
+            r = dataclasses.replace(base, workers=per, machines=machines)
             try:
-                sizes[n] = sample_size_for_cer(df, half_width=req.cer_margin, population=archive.n_pages)
-            except (PlanError, ValueError) as e:
-                sizes[n] = {"pages": None, "notes": [str(e)]}
-
-    res = P.Resources(workers=req.workers, threads=req.threads, machines=req.machines,
-                      price_core_hour=req.price_core_hour, price_machine_hour=req.price_machine_hour)
-    goals = P.Goals(deadline_s=P.parse_duration(req.deadline) if req.deadline else None, budget=req.budget)
-    correction = P.Correction(seconds_per_error=req.seconds_per_error, price_hour=req.correction_price_hour)
-    inputs = P.PlanInputs(archive=archive, resources=res, goals=goals, correction=correction, accuracy=acc,
-                          sample_sizes=sizes, scaling=scaling, draws=req.draws, seed=req.seed,
-                          speed_drift=req.speed_drift)
-    table = P.make_plan(models, inputs)
-    rows = {str(rec["recogniser"]): {k: _clean(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
-
-    # Wall-clock against workers, from the same Monte Carlo draws (make_plan seeds model i with seed + i).
-    curve = []
-    axis = set()
-    for i, m in enumerate(models):
-        est = P.estimate_serial(m, archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift)
-        sc = scaling.get(f"{m.profile}/{m.recogniser}") or scaling.get(m.recogniser)
-        cores = int(m.host.get("cores") or 1) // int(req.threads or m.threads or 1)
-        for total, per, machines in _curve_points(cores, sc is not None, curve_max_workers):
-            r = dataclasses.replace(res, workers=per, machines=machines)
-            try:
-                o = P.evaluate_option(est, r, goals, scaling=sc, accuracy=acc.get(m.recogniser),
-                                      correction=correction).row
+                o = evaluate_option(est, r, inputs.goals, scaling=sc, accuracy=inputs.accuracy.get(m.recogniser),
+                                    correction=inputs.correction).row
             except PlanError:
                 continue
             curve.append({"recogniser": m.recogniser, "kind": m.kind, "workers": total, "workers_per_machine": per,
@@ -221,16 +296,67 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
                           "cost": o["cost"], "meets_deadline": o["meets_deadline"]})
         axis.add(f"up to {max(1, cores)} per machine as measured, then more machines like {m.profile}"
                  if sc is not None else f"one per machine like {m.profile}, machines assumed independent")
-    assumptions = list(table.attrs.get("assumptions", []))
-    if described_by:
-        assumptions.append(described_by)
+    return curve, axis
+
+
+def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: PlanRequest,
+                 runs: Sequence[Mapping[str, Any]], *,
+                 accuracy: Mapping[str, tuple[float, float, float]] | None = None,
+                 page_scores: Mapping[str, pd.DataFrame] | None = None, curve_max_workers: int = 16) -> dict:
+    """The report's plan section: :func:`plan` with the report as context, plus the workers curve.
+
+    ``runs``: the report's runs (``name``, ``run_id``). ``accuracy``: recogniser
+    name -> (CER, low, high) from the report's scores, used unless the request
+    gives its own. ``page_scores``: per-page scores by recogniser name, for the
+    ground-truth sample size. Returns the JSON-ready plan section.
+    """
+    ctx = ReportContext(store=Path(store), frames=frames, runs=runs, accuracy=dict(accuracy or {}),
+                        page_scores=dict(page_scores or {}))
+    result = plan(req, context=ctx)
+    table = result.table
+    rows = {str(rec["recogniser"]): {k: _clean(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
+    curve, axis = _curve(result, req, curve_max_workers)
     spec = {k: _clean(v) for k, v in dataclasses.asdict(req).items()}
-    spec["calibration"] = [str(c) for c in cal_specs]
+    spec["calibration"] = [str(c) for c in result.calibration]
     return _clean({
         "source": "computed by the planner" + ("" if req.calibration else " on this store"),
-        "spec": spec, "rows": rows, "archive": table.attrs.get("archive"), "assumptions": assumptions,
+        "spec": spec, "rows": rows, "archive": table.attrs.get("archive"),
+        "assumptions": list(table.attrs.get("assumptions", [])),
         "recommendation": table.attrs.get("recommendation"), "crossover": list(table.attrs.get("crossover", [])),
-        "warnings": list(table.attrs.get("warnings", [])), "sample_sizes": sizes,
+        "warnings": list(table.attrs.get("warnings", [])), "sample_sizes": table.attrs.get("sample_sizes", {}),
+        "sample_failures": [{"page": p, "error": e} for p, e in result.sample_failures],
         "curve": curve, "curve_axis": "; ".join(sorted(axis)) or None,
-        "scaling_measured": sorted({k.split("/")[-1] for k in scaling}),
+        "scaling_measured": sorted({k.split("/")[-1] for k in result.inputs.scaling}),
     })
+
+
+def plan_frame(**options) -> pd.DataFrame:
+    """Python API: the plan as a DataFrame (one row per recogniser and machine profile).
+
+    Keyword options are the fields of :class:`PlanRequest`, e.g.
+    ``plan_frame(calibration=["cal.sqlite"], pages=180_000, lines_per_page="16-30",
+    chars_per_line="38-60", deadline="6w", price_core_hour=0.05)``. The
+    statements (choice, crossover, warnings, assumptions, fits) are in
+    ``DataFrame.attrs``.
+    """
+    return plan(PlanRequest(**options)).table
+
+
+def plan_json(table: pd.DataFrame) -> dict:
+    """The plan as a JSON-ready dict: ``recognisers`` (one object each) plus the plan's statements."""
+    rows = [_clean(r) for r in table.to_dict(orient="records")]
+    fits = table.attrs.get("fits")
+    return _clean({
+        "recognisers": rows,
+        "recommendation": table.attrs.get("recommendation"),
+        "crossover": table.attrs.get("crossover", []),
+        "warnings": table.attrs.get("warnings", []),
+        "assumptions": table.attrs.get("assumptions", []),
+        "archive": table.attrs.get("archive"),
+        "ground_truth_sample": table.attrs.get("sample_sizes", {}),
+        "fits": [] if fits is None else fits.to_dict(orient="records"),
+    })
+
+
+def json_dumps(obj) -> str:
+    return json.dumps(obj, indent=1, ensure_ascii=False, allow_nan=False)

@@ -150,7 +150,7 @@ def validate(argv=None) -> tuple[int, list]:
         return 2, []
 
     from ocrbench.planning import inputs as planio
-    from ocrbench.planning import model as P
+    from ocrbench.planning import service as plan_service
     from ocrbench.recognisers.base import EngineOptions
     from ocrbench.recognisers.card import load_card
     from ocrbench.run.engine import RunOptions, run_pages
@@ -186,14 +186,14 @@ def validate(argv=None) -> tuple[int, list]:
         only = [card.name]
         log(f"predicting {card.name} on the held-out set from its segmentation (no recognition)")
         t0 = time.perf_counter()
-        fulls.append(planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
+        fulls.append(plan_service.plan(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
                                                            sample=held, sample_pages=a.held_pages,
                                                            draws=a.draws, seed=0)).table)
         t_plan += time.perf_counter() - t0
-        parts.append(planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
+        parts.append(plan_service.plan(planio.PlanRequest(calibration=[str(cal_store)], recognisers=only,
                                                            sample=held, sample_pages=15, pages=a.held_pages,
                                                            draws=a.draws, seed=1)).table)
-        numbers_l.append(planio.run_request(planio.PlanRequest(
+        numbers_l.append(plan_service.plan(planio.PlanRequest(
             calibration=[str(cal_store)], recognisers=only, pages=a.held_pages, lines_per_page=f"{lo}-{hi}",
             chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}", draws=a.draws, seed=2)).table)
         log(f"running {card.name} on the {a.held_pages} held-out pages")
@@ -206,7 +206,7 @@ def validate(argv=None) -> tuple[int, list]:
     part = pd.concat(parts, ignore_index=True)
     numbers = pd.concat(numbers_l, ignore_index=True)
     # the crossover and the fits of both, from the whole calibration store
-    both = planio.run_request(planio.PlanRequest(calibration=[str(cal_store)], pages=a.held_pages,
+    both = plan_service.plan(planio.PlanRequest(calibration=[str(cal_store)], pages=a.held_pages,
                                                  lines_per_page=f"{lo}-{hi}",
                                                  chars_per_line=f"{base.chars_per_line[0]}-{base.chars_per_line[1]}",
                                                  draws=200)).table

@@ -1,0 +1,330 @@
+"""The archive's time and money for one recogniser: Monte Carlo P10/P50/P90 on given resources.
+
+Intervals, always: wall-clock comes from a Monte Carlo over (a) bootstrap refits
+of the cost model (pages resampled), (b) the archive's page distribution,
+(c) the fit residuals and (d) the machine's speed drift. No free scaling:
+several workers on one machine are only planned with a measured throughput
+table; beyond it Amdahl's law (G. Amdahl 1967) with a fitted serial fraction,
+and a warning says so.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from ocrbench.errors import PlanError
+from ocrbench.planning.archive import Archive, PagePool, simulate_pool
+from ocrbench.planning.costmodel import DEFAULT_SECONDS_PER_ERROR, CostModel
+from ocrbench.planning.numerics import ScalingFit
+
+# --------------------------------------------------------------------------- prediction
+
+
+@dataclass
+class SerialEstimate:
+    """One recogniser's archive time on one worker (Monte Carlo draws), before scaling."""
+
+    model: CostModel
+    archive: Archive
+    serial_s: np.ndarray      # draws: sum of page times on one worker at calibration threads
+    chars: np.ndarray         # draws: total characters
+    lines: np.ndarray         # draws: total lines
+    warnings: list[str]
+    extrapolation: list[dict]
+
+
+def _sum_of_draws(values: np.ndarray, n: int, rng: np.random.Generator, exact_limit: int = 5000) -> float:
+    """Sum of ``n`` draws with replacement from ``values`` (exact when small, normal approximation when large)."""
+    if n <= 0 or len(values) == 0:
+        return 0.0
+    if n <= exact_limit:
+        return float(values[rng.integers(0, len(values), size=n)].sum())
+    return float(n * values.mean() + math.sqrt(n) * values.std() * rng.standard_normal())
+
+
+def _extrapolation(model: CostModel, pools: Sequence[PagePool], archive: Archive) -> tuple[list[str], list[dict]]:
+    msgs, rows = [], []
+    allw = np.concatenate([p.widths for p in pools]) if pools else np.zeros(0)
+    checks = [
+        ("line width (px)", allw),
+        ("batch padded width (px)", np.array([p.max_padded for p in pools])),
+        ("lines per page", np.concatenate([p.n_lines for p in pools]).astype(float)),
+        ("page pixels", np.concatenate([p.pixels for p in pools]).astype(float)),
+    ]
+    if model.kind == "seq":
+        checks.append(("decoder steps per line", np.array([p.max_steps for p in pools])))
+    measured_both = archive.sample_pages is not None and "n_chars" in archive.sample_lines \
+        and "width_px" in archive.sample_lines
+    if model.width is not None and model.width.r2 < 0.5 and not measured_both:
+        what = ("line widths follow mostly the calibration lines' own" if archive.sample_pages is None
+                else "characters per line follow mostly the calibration lines' own")
+        msgs.append(f"{model.recogniser}: line width and characters per line are weakly related in the calibration "
+                    f"(R^2 {max(model.width.r2, 0):.2f}); in this plan {what}")
+    for name, vals in checks:
+        if not len(vals):
+            continue
+        lo, hi = model.ranges[name]
+        top = float(vals.max())
+        if hi > 0 and top > hi * 1.0001:
+            share = float((vals > hi).mean())
+            rows.append({"quantity": name, "measured_max": hi, "planned_max": top, "ratio": top / hi,
+                         "share_beyond": share})
+            msgs.append(f"{model.recogniser}: {name} up to {top:,.0f} exceed the largest measured ({hi:,.0f}) "
+                        f"by {100 * (top / hi - 1):.0f}%; the cost model is extrapolated there")
+    busy = float(model.quality.get("calibration_seconds") or 0.0)
+    if 0 < busy < 30:
+        msgs.append(f"{model.recogniser}: the calibration covers only {busy:.1f} s of recognition; a moment's "
+                    "slowness of the machine weighs on the whole fit (time the pages more than once, or more pages)")
+    if archive.n_pages > model.n_pages:
+        ratio = archive.n_pages / model.n_pages
+        rows.append({"quantity": "pages", "measured_max": float(model.n_pages), "planned_max": float(archive.n_pages),
+                     "ratio": ratio, "share_beyond": 1.0 - model.n_pages / archive.n_pages})
+        if ratio > 10:
+            msgs.append(f"{model.recogniser}: the archive ({archive.n_pages:,} pages) is {ratio:,.0f}x the "
+                        f"{model.n_pages} calibration pages: the plan assumes each page costs what it cost in "
+                        "calibration, however long the run (no drift, no slow-down over time was measured)")
+    return msgs, rows
+
+
+#: Default spread of a machine's speed between the calibration and the run (coefficient of variation).
+#: Measured on this project's shared 2-core virtual machine: the same 60 pages took the seq recogniser
+#: 30.5-39.1 s and the CTC recogniser 19.2-21.9 s in runs minutes apart (about 10 % and 5 %), while
+#: three back-to-back calibration sessions of 10 pages varied by only 2-5 %: a calibration cannot see
+#: the slower drift. 0.08 is between the two; pass 0 for a dedicated machine, or your own measurement.
+SPEED_DRIFT = 0.08
+
+
+def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, seed: int = 0,
+                    pools: int = 20, speed_drift: float = SPEED_DRIFT) -> SerialEstimate:
+    """Monte Carlo of the archive's one-worker time for one recogniser.
+
+    Each draw uses one bootstrap refit of the cost model, one simulated pool of
+    pages (itself drawn with a bootstrap refit of width-per-character, and for a
+    sample a resample of its pages), a sum over the archive's pages drawn from
+    the pool, the fit residuals summed over the batches and pages, and (when
+    the calibration timed the same pages several times) a factor for the
+    machine's speed: normal with a coefficient of variation of the larger of the
+    measured session-to-session spread and ``speed_drift`` (the drift between a
+    calibration and a run that the calibration cannot see; :data:`SPEED_DRIFT`).
+    """
+    rng = np.random.default_rng(seed)
+    n_pools = max(1, min(pools, draws))
+    pool_list: list[PagePool] = []
+    for k in range(n_pools):
+        wf = model.width if (k == 0 or model.width is None) else model.width.resampled(rng)
+        pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf))
+    serial = np.empty(draws)
+    chars = np.empty(draws)
+    lines = np.empty(draws)
+    N = archive.n_pages
+    for i in range(draws):
+        pool = pool_list[i % n_pools]
+        theta = model.boot[i % len(model.boot)] if len(model.boot) else model.coef
+        T = model.page_times(pool.X, theta)
+        C = pool.n_chars.astype(float)
+        L = pool.n_lines.astype(float)
+        if N <= 5000:
+            idx = rng.integers(0, len(T), size=N)
+            s, c, l = T[idx].sum(), C[idx].sum(), L[idx].sum()
+            nb = int(pool.n_batches[idx].sum())
+        else:
+            z = rng.standard_normal(3)
+            s = N * T.mean() + math.sqrt(N) * T.std() * z[0]
+            c = N * C.mean() + math.sqrt(N) * C.std() * z[1]
+            l = N * L.mean() + math.sqrt(N) * L.std() * z[2]
+            nb = int(round(N * pool.n_batches.mean()))
+        s += _sum_of_draws(model.batch_resid, nb, rng) + _sum_of_draws(model.page_resid, N, rng)
+        s += model.first_page_extra(pool.X, theta)        # nothing loads ahead of the first page
+        cv = max(model.speed_cv, speed_drift)
+        if cv > 0:   # the machine runs a little faster or slower than when it was calibrated
+            s *= max(0.2, 1.0 + cv * rng.standard_normal())
+        serial[i], chars[i], lines[i] = max(s, 0.0), c, l
+    msgs, rows = _extrapolation(model, pool_list, archive)
+    return SerialEstimate(model=model, archive=archive, serial_s=serial, chars=chars, lines=lines,
+                          warnings=msgs + [f"{model.recogniser}: {n}" for n in model.notes], extrapolation=rows)
+
+
+# --------------------------------------------------------------------------- resources, goals, money
+
+
+@dataclass(frozen=True)
+class Resources:
+    """What runs the archive: ``machines`` x ``workers`` processes x ``threads`` each, and prices.
+
+    Give a price per core-hour (cores reserved = workers x threads x machines)
+    or per machine-hour, or neither (then money is not computed).
+    """
+
+    workers: int = 1
+    threads: int | None = None            # None: as calibrated
+    machines: int = 1
+    price_core_hour: float | None = None
+    price_machine_hour: float | None = None
+
+    def __post_init__(self) -> None:
+        if self.workers < 1 or self.machines < 1 or (self.threads is not None and self.threads < 1):
+            raise PlanError("workers, threads and machines must be at least 1")
+        for p in (self.price_core_hour, self.price_machine_hour):
+            if p is not None and p < 0:
+                raise PlanError("prices cannot be negative")
+
+
+@dataclass(frozen=True)
+class Goals:
+    deadline_s: float | None = None
+    budget: float | None = None
+
+
+@dataclass(frozen=True)
+class Correction:
+    """Human correction effort.
+
+    ``seconds_per_error`` defaults to :data:`DEFAULT_SECONDS_PER_ERROR` (10 s).
+    Assumption and its reasoning: the edit itself (look at the error, point,
+    click, retype a character) is about 3-4 s by the keystroke-level model's
+    operator times (mental act 1.35 s, pointing 1.1 s, homing 0.4 s, key
+    presses 0.2-0.3 s; Card, Moran & Newell 1980, from memory), and finding the
+    error by comparing the text with the scan and re-checking the line roughly
+    doubles to triples that; 10 s per error is the round figure in common
+    practice for proof-reading with the image side by side. Measure your own
+    correctors and pass their figure.
+    ``price_hour``: what an hour of correction costs (None: not priced).
+    """
+
+    seconds_per_error: float = DEFAULT_SECONDS_PER_ERROR
+    price_hour: float | None = None
+
+
+@dataclass(frozen=True)
+class AccuracyInput:
+    """CER and its interval from the accuracy module's summary (``cer``, ``cer_low``, ``cer_high``)."""
+
+    cer: float
+    cer_low: float
+    cer_high: float
+
+    def __post_init__(self) -> None:
+        if not (0 <= self.cer_low <= self.cer <= self.cer_high):
+            raise PlanError(f"CER interval must satisfy 0 <= low <= cer <= high, got "
+                            f"{self.cer_low}, {self.cer}, {self.cer_high}")
+
+    @classmethod
+    def from_summary(cls, summary: Mapping) -> "AccuracyInput":
+        return cls(float(summary["cer"]), float(summary["cer_low"]), float(summary["cer_high"]))
+
+
+@dataclass
+class Option:
+    """One recogniser on one set of resources: the row of the side-by-side table."""
+
+    row: dict
+    wall: np.ndarray
+    serial: SerialEstimate
+
+
+def _speedup(model: CostModel, res: Resources, scaling: ScalingFit | None) -> tuple[float, list[str]]:
+    notes: list[str] = []
+    threads = res.threads or model.threads
+    factor = 1.0
+    if threads != model.threads:
+        if scaling is None:
+            raise PlanError(f"{model.recogniser}: calibrated with {model.threads} thread(s); planning "
+                            f"{threads} needs a scaling measurement at both")
+        factor = scaling.thread_factor(threads, model.threads)
+    cores = int(model.host.get("cores") or 0)
+    w = res.workers
+    if w > 1:
+        if scaling is None:
+            raise PlanError(f"{model.recogniser}: {w} workers need throughput measured at several workers on "
+                            f"{model.profile} (ocrbench measure-scaling); linear scaling is not assumed")
+        if cores and w * threads > cores:
+            capped = max(1, cores // threads)
+            notes.append(f"{model.recogniser}: {w} workers x {threads} thread(s) exceed {model.profile}'s "
+                         f"{cores} cores; speed-up taken at {capped} worker(s)")
+            w = capped
+        s, note = scaling.speedup(w, threads)
+        if note:
+            notes.append(f"{model.recogniser}: {note}")
+        factor *= s
+    if res.machines > 1:
+        notes.append(f"{model.recogniser}: {res.machines} machines assumed independent "
+                     "(pages split evenly, no shared bottleneck measured)")
+    return factor * res.machines, notes
+
+
+def _pct(a: np.ndarray, q: float) -> float:
+    return float(np.percentile(a, q))
+
+
+def evaluate_option(est: SerialEstimate, res: Resources, goals: Goals, *, scaling: ScalingFit | None = None,
+                    accuracy: AccuracyInput | None = None, correction: Correction = Correction(),
+                    sample_size: Mapping | None = None) -> Option:
+    """Wall-clock, core-hours, money, errors and correction for one recogniser on ``res``."""
+    m = est.model
+    speed, notes = _speedup(m, res, scaling)
+    wall = m.startup_s + est.serial_s / speed
+    threads = res.threads or m.threads
+    cores = res.workers * threads * res.machines
+    w10, w50, w90 = _pct(wall, 10), _pct(wall, 50), _pct(wall, 90)
+    ch50, ch90 = w50 / 3600 * cores, w90 / 3600 * cores
+
+    def compute_cost(wall_s: float) -> float | None:
+        if res.price_core_hour is not None:
+            return wall_s / 3600 * cores * res.price_core_hour
+        if res.price_machine_hour is not None:
+            return wall_s / 3600 * res.machines * res.price_machine_hour
+        return None
+
+    chars50 = _pct(est.chars, 50)
+    row: dict = {
+        "recogniser": m.recogniser, "kind": m.kind, "profile": m.profile,
+        "cpu_model": m.host.get("cpu_model"), "cores": m.host.get("cores"), "workers": res.workers,
+        "threads": threads, "machines": res.machines, "pages": est.archive.n_pages,
+        "lines": _pct(est.lines, 50), "characters": chars50,
+        "characters_p10": _pct(est.chars, 10), "characters_p90": _pct(est.chars, 90),
+        "wall_seconds_p10": w10, "wall_seconds_p50": w50, "wall_seconds_p90": w90,
+        "core_hours": ch50, "core_hours_p90": ch90,
+        "compute_cost": compute_cost(w50), "compute_cost_p90": compute_cost(w90),
+    }
+    if accuracy is not None:
+        errs = (accuracy.cer * chars50, accuracy.cer_low * chars50, accuracy.cer_high * chars50)
+        hours = tuple(e * correction.seconds_per_error / 3600 for e in errs)
+        row |= {"cer": accuracy.cer, "cer_low": accuracy.cer_low, "cer_high": accuracy.cer_high,
+                "char_errors": errs[0], "char_errors_low": errs[1], "char_errors_high": errs[2],
+                "correction_hours": hours[0], "correction_hours_low": hours[1], "correction_hours_high": hours[2]}
+        if correction.price_hour is not None:
+            row["correction_cost"] = hours[0] * correction.price_hour
+            row["correction_cost_high"] = hours[2] * correction.price_hour
+        else:
+            row["correction_cost"] = row["correction_cost_high"] = None
+    else:
+        row |= {k: None for k in ("cer", "cer_low", "cer_high", "char_errors", "char_errors_low",
+                                  "char_errors_high", "correction_hours", "correction_hours_low",
+                                  "correction_hours_high", "correction_cost", "correction_cost_high")}
+    row["seconds_per_error"] = correction.seconds_per_error
+    parts = [row["compute_cost"], row["correction_cost"]]
+    parts_hi = [row["compute_cost_p90"], row["correction_cost_high"]]
+    row["cost"] = None if all(p is None for p in parts) else sum(p for p in parts if p is not None)
+    row["cost_high"] = None if all(p is None for p in parts_hi) else sum(p for p in parts_hi if p is not None)
+    if goals.deadline_s is not None:
+        row["deadline_seconds"] = goals.deadline_s
+        row["meets_deadline"] = bool(w90 <= goals.deadline_s)
+        row["p_meets_deadline"] = float((wall <= goals.deadline_s).mean())
+    else:
+        row["deadline_seconds"] = row["meets_deadline"] = row["p_meets_deadline"] = None
+    if goals.budget is not None:
+        row["budget"] = goals.budget
+        row["meets_budget"] = None if row["cost_high"] is None else bool(row["cost_high"] <= goals.budget)
+    else:
+        row["budget"] = row["meets_budget"] = None
+    q = m.batch_quality()
+    row |= {"fit_r2_batch": q["r2"], "fit_resid_sd_batch": q["resid_sd"], "fit_r2_page": q["page_r2"],
+            "calibration_pages": m.n_pages}
+    row["gt_sample_pages"] = None if not sample_size else sample_size.get("pages")
+    row["extrapolated"] = bool(est.extrapolation and any(r["quantity"] != "pages" for r in est.extrapolation))
+    row["warnings"] = est.warnings + notes
+    return Option(row=row, wall=wall, serial=est)
