@@ -18,7 +18,8 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.io.textdir import list_text_files, read_lines
+from ocrbench.io.text import read_text_lines
+from ocrbench.io.textdir import list_text_files
 from ocrbench.errors import OcrbenchError
 from ocrbench.ledger import balance as ledger
 
@@ -46,7 +47,7 @@ def balance(
         task = progress.add_task("balance", total=len(files))
         for path in files:
             try:
-                lines = read_lines(path)
+                lines = read_text_lines(path)
             except OcrbenchError as e:
                 failed.append({"path": str(path), "error": str(e)})
             else:

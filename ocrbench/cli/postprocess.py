@@ -25,7 +25,9 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.io.textdir import list_text_files, read_lines, write_lines
+from ocrbench.io.files import atomic_write_lines
+from ocrbench.io.text import read_text_lines
+from ocrbench.io.textdir import list_text_files
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.postprocess.lexicon import Lexicon, read_word_list
 from ocrbench.postprocess.config import load_pipeline
@@ -84,10 +86,10 @@ def postprocess(
         task = progress.add_task("postprocess", total=len(files))
         for path in files:
             try:
-                lines = read_lines(path)
+                lines = read_text_lines(path)
                 res = pipeline.apply_page([LineText(t, None, line_confidence) for t in lines])
                 target = out_dir / path.name
-                write_lines(target, res.texts)
+                atomic_write_lines(target, res.texts)
             except OcrbenchError as e:
                 failed.append({"path": str(path), "error": str(e)})
             else:
