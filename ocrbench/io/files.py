@@ -14,7 +14,7 @@ from pathlib import Path
 
 from ocrbench.errors import TextFileError
 
-__all__ = ["atomic_write_text", "atomic_write_lines", "sha256_file", "ensure_folder"]
+__all__ = ["atomic_write_text", "atomic_write_lines", "sha256_file", "ensure_folder", "is_sqlite_file", "SQLITE_MAGIC"]
 
 _CHUNK = 1 << 20
 
@@ -57,3 +57,16 @@ def sha256_file(path: str | Path) -> str:
         for chunk in iter(lambda: f.read(_CHUNK), b""):
             h.update(chunk)
     return h.hexdigest()
+
+
+SQLITE_MAGIC = b"SQLite format 3\x00"     # the first 16 bytes of every SQLite 3 database file
+
+
+def is_sqlite_file(path: str | Path) -> bool:
+    """True for an SQLite file (a run store, or something to refuse with a clear error when opened)."""
+    p = Path(path)
+    try:
+        with open(p, "rb") as f:
+            return p.is_file() and f.read(16) == SQLITE_MAGIC
+    except OSError:
+        return False

@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -136,7 +135,6 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
            "seconds_per_char_high": None, "line_seconds_at_0": None}
     if len(d) < 3 or d["n_chars"].nunique() < 2:
         return out
-    x = d["n_chars"].to_numpy(float)
     y = d["t_line"].to_numpy(float)
     g = d.groupby("page_id", sort=False)
     sums = pd.DataFrame({"n": g.size(), "x": g["n_chars"].sum(), "y": g["t_line"].sum(),
