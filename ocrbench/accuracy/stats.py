@@ -29,15 +29,16 @@ from __future__ import annotations
 
 import math
 from statistics import NormalDist
-from typing import Any, Iterator
+from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
 
 from ocrbench.errors import PlanError
 
-__all__ = ["z_value", "t_cdf", "t_quantile", "expanded_tail", "resample_counts", "bootstrap_sums", "bootstrap_ratio_ci", "bootstrap_ratio_cis",
-           "paired_comparison", "sample_size_for_cer", "cochran_n0"]
+__all__ = ["z_value", "t_cdf", "t_quantile", "expanded_tail", "resample_counts", "bootstrap_sums",
+           "bootstrap_ratio_ci", "bootstrap_ratio_cis", "percentile_interval", "bootstrap_statistic",
+           "wilson_interval", "paired_comparison", "sample_size_for_cer", "cochran_n0"]
 
 #: Upper bound on the entries of one resampling block (memory: 8 bytes each).
 _BLOCK = 2_000_000
@@ -209,6 +210,48 @@ def bootstrap_ratio_ci(edits: Any, totals: Any, *, n_boot: int = 2000, level: fl
     if e.shape != t.shape or e.ndim != 1:
         raise ValueError("edits and totals must be 1-D arrays of the same length (one entry per page)")
     return bootstrap_ratio_cis(e, t, n_boot=n_boot, level=level, seed=seed)[0]
+
+
+def percentile_interval(samples: Any, level: float = 0.95) -> tuple[float, float] | None:
+    """Plain percentile interval of bootstrap samples (non-finite ones dropped); None when none is left."""
+    s = np.asarray(samples, dtype=np.float64)
+    s = s[np.isfinite(s)]
+    if s.size == 0:
+        return None
+    lo, hi = np.quantile(s, [(1 - level) / 2, 1 - (1 - level) / 2])
+    return float(lo), float(hi)
+
+
+def bootstrap_statistic(stat: Callable[[np.ndarray], float | None], groups: Sequence[np.ndarray], *,
+                        n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> tuple[float, float] | None:
+    """Percentile bootstrap interval of ``stat(indices)``, resampling whole groups of item indices.
+
+    ``groups``: one index array per sampling unit (a page's lines, or one line
+    each). Resamples where ``stat`` is undefined (None) are skipped; None when
+    every resample was.
+    """
+    rng = np.random.default_rng(seed)
+    vals = []
+    for _ in range(n_boot):
+        pick = rng.integers(0, len(groups), len(groups))
+        v = stat(np.concatenate([groups[g] for g in pick]))
+        if v is not None:
+            vals.append(v)
+    return percentile_interval(vals, level) if vals else None
+
+
+def wilson_interval(successes: int, n: int, *, level: float = 0.95) -> tuple[float, float] | None:
+    """Wilson score interval for a binomial proportion (Wilson 1927); None when n == 0."""
+    if n <= 0:
+        return None
+    z = NormalDist().inv_cdf(0.5 + level / 2)
+    p = successes / n
+    denom = 1 + z * z / n
+    centre = (p + z * z / (2 * n)) / denom
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
+    low = 0.0 if successes == 0 else max(0.0, centre - half)
+    high = 1.0 if successes == n else min(1.0, centre + half)
+    return low, high
 
 
 # --------------------------------------------------------------------------- paired comparison

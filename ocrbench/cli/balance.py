@@ -18,7 +18,8 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.io.textdir import list_text_files, read_lines
+from ocrbench.io.text import read_text_lines
+from ocrbench.io.textdir import list_text_files
 from ocrbench.errors import OcrbenchError
 from ocrbench.ledger import balance as ledger
 
@@ -46,11 +47,11 @@ def balance(
         task = progress.add_task("balance", total=len(files))
         for path in files:
             try:
-                lines = read_lines(path)
+                results.append((path, ledger.check_page(read_text_lines(path), decimal_mark=mark)))
             except OcrbenchError as e:
                 failed.append({"path": str(path), "error": str(e)})
-            else:
-                results.append((path, ledger.check_page(lines, decimal_mark=mark)))
+            except ValueError as e:   # e.g. an amount of thousands of digits, beyond reading as a number
+                failed.append({"path": str(path), "error": f"{path}: cannot check the page ({e})"})
             progress.advance(task)
     est = ledger.estimate_misreads([b for _, b in results], level=level)
     pages = [{"path": str(p), "status": b.status, "difference": b.difference_text, "form": b.form,

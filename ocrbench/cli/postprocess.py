@@ -15,38 +15,38 @@ lexicon's confidence gate unless ``--line-confidence`` says otherwise.
 
 from __future__ import annotations
 
-import json
-import tomllib
 from pathlib import Path
-from typing import Any, Optional
+from typing import Optional
 
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.io.textdir import list_text_files, read_lines, write_lines
-from ocrbench.errors import InputError, OcrbenchError
-from ocrbench.postprocess.lexicon import Lexicon, read_word_list
+from ocrbench.errors import OcrbenchError
+from ocrbench.io.files import is_sqlite_file
+from ocrbench.io.tables import json_text
+from ocrbench.io.textdir import list_text_files, write_texts
 from ocrbench.postprocess.config import load_pipeline
-from ocrbench.postprocess.steps import LineText, Pipeline, describe_steps, pipeline_from_config
-
-
+from ocrbench.postprocess.steps import Pipeline, describe_steps
 
 
 def postprocess(
-    source: Path = typer.Argument(..., help="Folder of .txt pages, one .txt file, or a run store (.sqlite)."),
+    source: Optional[Path] = typer.Argument(None, help="Folder of .txt pages, one .txt file, or a run store "
+                                                       "(.sqlite)."),
     out_dir: Optional[Path] = typer.Argument(None, help="Folder for the results (created; must differ from the "
                                                         "source). Optional for a run store."),
     run: list[int] = typer.Option([], "--run", help="Run store only: the run to post-process (repeat; "
                                                     "default: every run)."),
     steps: str = typer.Option(None, "--steps", help="Comma-separated step names, e.g. unicode,whitespace,lexicon. "
                               "Default: unicode,whitespace (+ hyphen_join,lexicon with a word list)."),
-    config: Path = typer.Option(None, "--config", help="TOML file with a [postprocess] table (steps, options, word_list)."),
+    config: Path = typer.Option(None, "--config", help="TOML file with a \\[postprocess] table (steps, options, "
+                                                       "word_list)."),
     word_list: Path = typer.Option(None, "--word-list", help="Word list: one entry per line, # for comments."),
     line_confidence: float = typer.Option(None, "--line-confidence", min=0.0, max=1.0,
                                           help="Confidence to assume for every line (text files carry none)."),
-    list_steps: bool = typer.Option(False, "--list-steps", help="Describe the available steps and exit."),
+    list_steps: bool = typer.Option(False, "--list-steps", help="Describe the available steps and exit "
+                                                                "(no source needed)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Normalise and correct recognised text: a folder of pages into another folder, or a run store's
@@ -55,27 +55,32 @@ def postprocess(
         for name, doc in describe_steps().items():
             typer.echo(f"{name:14s} {doc}")
         raise typer.Exit(EXIT_OK)
+    if source is None:
+        raise fail("give a source: a folder of .txt pages, one .txt file or a run store "
+                   "(or --list-steps to see the steps)", EXIT_USAGE)
     try:
         pipeline = load_pipeline(steps=steps, config=config, word_list=word_list)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
-    if is_run_store(source):
+    if is_sqlite_file(source):
         _postprocess_store(source, out_dir, run, pipeline, as_json)
     if run:
         raise fail("--run needs a run store as the source", EXIT_USAGE)
     if out_dir is None:
         raise fail(f"{source}: give an output folder for the post-processed text pages", EXIT_USAGE)
+    _postprocess_folder(source, out_dir, pipeline, line_confidence, as_json)
+
+
+def _postprocess_folder(source: Path, out_dir: Path, pipeline: Pipeline, line_confidence: float | None,
+                        as_json: bool) -> None:
+    """Post-process text pages into ``out_dir``; exits (0, or 1 when a page failed)."""
+    from ocrbench.postprocess.files import check_output_folder, postprocess_file
+
     try:
         files = list_text_files(source)
+        check_output_folder(source, out_dir)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
-    src_dir = source if source.is_dir() else source.parent
-    if out_dir.resolve() == src_dir.resolve():
-        raise fail(f"{out_dir}: the output folder must differ from the source (originals are never overwritten)")
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise fail(f"{out_dir}: cannot create the output folder: {e.strerror or e}")
     pages: list[dict] = []
     failed: list[dict] = []
     err = Console(stderr=True)
@@ -84,20 +89,12 @@ def postprocess(
         task = progress.add_task("postprocess", total=len(files))
         for path in files:
             try:
-                lines = read_lines(path)
-                res = pipeline.apply_page([LineText(t, None, line_confidence) for t in lines])
-                target = out_dir / path.name
-                write_lines(target, res.texts)
+                pages.append(postprocess_file(path, out_dir, pipeline, line_confidence))
             except OcrbenchError as e:
                 failed.append({"path": str(path), "error": str(e)})
-            else:
-                pages.append({"path": str(path), "out": str(target), "lines": len(lines),
-                              "changed_lines": len({c.line_no for c in res.changes}),
-                              "changes": [{"step": c.step, "line": c.line_no + 1, "before": c.before,
-                                           "after": c.after, "detail": c.detail} for c in res.changes]})
             progress.advance(task)
     if as_json:
-        typer.echo(json.dumps({"recipe": pipeline.recipe, "pages": pages, "failed": failed}, ensure_ascii=False))
+        typer.echo(json_text({"recipe": pipeline.recipe, "pages": pages, "failed": failed}))
     else:
         out = Console()
         changed = sum(p["changed_lines"] for p in pages)
@@ -109,22 +106,9 @@ def postprocess(
     raise typer.Exit(EXIT_SOME_FAILED if failed else EXIT_OK)
 
 
-SQLITE_MAGIC = b"SQLite format 3\x00"     # the first 16 bytes of every SQLite 3 database file
-
-
-def is_run_store(path: Path) -> bool:
-    """True for an SQLite file (a run store, or something to refuse with a clear error when opened)."""
-    try:
-        with open(path, "rb") as f:
-            return path.is_file() and f.read(16) == SQLITE_MAGIC
-    except OSError:
-        return False
-
-
 def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipeline: Pipeline,
                        as_json: bool) -> None:
     """Refill the post-processed text of a store's runs; exits (0, or 1 when a page was refused)."""
-    from ocrbench.io.textdir import write_texts
     from ocrbench.run.engine import apply_postprocess
     from ocrbench.store import RunStore
 
@@ -160,8 +144,8 @@ def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipe
         raise fail(str(e), EXIT_USAGE)
     failed = [(r, f) for r in results for f in r["failed"]]
     if as_json:
-        typer.echo(json.dumps({"recipe": pipeline.recipe, "store": str(source), "runs": results,
-                               "text_out": written or None}, ensure_ascii=False))
+        typer.echo(json_text({"recipe": pipeline.recipe, "store": str(source), "runs": results,
+                              "text_out": written or None}))
     else:
         out = Console()
         out.print(f"recipe: {pipeline.recipe}", markup=False, highlight=False, soft_wrap=True)

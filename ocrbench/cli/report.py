@@ -16,7 +16,7 @@ from typing import Optional
 import typer
 from rich.console import Console
 
-from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, fail
+from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, ProfileName, fail
 from ocrbench.errors import OcrbenchError
 
 
@@ -27,22 +27,18 @@ def report(
     plan: Optional[Path] = typer.Option(None, "--plan", help="A plan file (TOML, as 'ocrbench plan' reads; this "
                                                                "store calibrates when it names none) or plan "
                                                                "results (JSON from 'ocrbench plan --json')."),
-    profile: str = typer.Option("nfc", "--profile", help="Normalisation profile for scoring: exact, nfc, loose, "
-                                                         "ledger."),
+    profile: ProfileName = typer.Option("nfc", "--profile", help="Normalisation profile for scoring."),
     run: Optional[list[int]] = typer.Option(None, "--run", help="Show these run ids (repeat); default: the latest "
                                                                 "run of each recogniser."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Write the comparison report of a run store: tables, figures, worst pages, plan and cautions."""
-    from ocrbench.accuracy.normalise import PROFILES
     from ocrbench.report import write_report
 
-    if profile not in PROFILES:
-        raise fail(f"--profile must be one of {', '.join(PROFILES)}, not {profile!r}", EXIT_USAGE)
     err = Console(stderr=True)
     try:
         with err.status("writing the report", spinner="line"):
-            files = write_report(store, out, truth=truth, plan=plan, profile=profile, run_ids=run or None)
+            files = write_report(store, out, truth=truth, plan=plan, profile=profile.value, run_ids=run or None)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
     if as_json:

@@ -14,26 +14,23 @@ another recipe later.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Optional
 
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
-from rich.table import Table
 
+from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, choices, fail
 from ocrbench.cli.progress import RunProgress
+from ocrbench.cli.show import print_run_problems, print_run_summary
+from ocrbench.io.tables import json_text
+from ocrbench.errors import OcrbenchError
 from ocrbench.io.textdir import write_texts
-from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.errors import OcrbenchError, TextFileError
-from ocrbench.recognisers.base import DECODINGS, EngineOptions
+from ocrbench.recognisers.base import DECODINGS, GRAPH_LEVELS, EngineOptions
 
-
-
-
-def _fmt(v, spec: str) -> str:
-    return "-" if v is None else format(v, spec)
+Decoding = choices("Decoding", DECODINGS)
+GraphLevel = choices("GraphLevel", GRAPH_LEVELS)
 
 
 def run(
@@ -47,12 +44,12 @@ def run(
     threads: int = typer.Option(1, "--threads", min=1, help="Threads inside each model run (intra-op)."),
     inter_threads: int = typer.Option(1, "--inter-threads", min=1,
                                       help="Threads running independent parts of a model in parallel (inter-op)."),
-    graph_optimisation: str = typer.Option("all", "--graph-optimisation",
-                                           help="onnxruntime graph optimisation: disable, basic, extended or all."),
+    graph_optimisation: GraphLevel = typer.Option("all", "--graph-optimisation",
+                                                  help="onnxruntime graph optimisation level."),
     provider: list[str] = typer.Option(["CPUExecutionProvider"], "--provider",
                                        help="onnxruntime execution provider, in order of preference (repeat); "
                                             "those not installed are skipped, CPU is always the fallback."),
-    decoding: str = typer.Option("greedy", "--decoding", help="greedy or beam."),
+    decoding: Decoding = typer.Option("greedy", "--decoding", help="Decoding: greedy, or beam search."),
     beam_width: int = typer.Option(8, "--beam-width", min=1, help="Hypotheses kept by beam search."),
     no_cache: bool = typer.Option(False, "--no-cache",
                                   help="Seq recognisers: recompute the whole prefix each step (for comparison)."),
@@ -78,109 +75,75 @@ def run(
                                              help="Comma-separated post-processing steps (ocrbench postprocess "
                                                   "--list-steps)."),
     post_config: Optional[Path] = typer.Option(None, "--post-config",
-                                               help="TOML file with a [postprocess] table (steps, options, "
+                                               help="TOML file with a \\[postprocess] table (steps, options, "
                                                     "word_list)."),
     word_list: Optional[Path] = typer.Option(None, "--word-list",
                                              help="Word list for post-processing: one entry per line, # comments."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
+    # Over 80 lines only because typer declares the 26 options in the signature; the body is short.
     from ocrbench.postprocess.config import load_pipeline
-    from ocrbench.run.engine import RunOptions, run_pages
-    from ocrbench.store import RunStore
 
-    if decoding not in DECODINGS:
-        raise fail(f"--decoding must be one of {', '.join(DECODINGS)}, not {decoding!r}", EXIT_USAGE)
     if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1):
         raise fail("--threads-per-worker, --no-processes and --pages-per-task need --workers or --scheduler",
                    EXIT_USAGE)
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
-    err = Console(stderr=True)
-    pipeline = None
-    if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
-        try:
-            pipeline = load_pipeline(steps=post_steps, config=post_config, word_list=word_list)
-        except OcrbenchError as e:
-            raise fail(str(e), EXIT_USAGE)
-    try:
-        if not store.parent.exists():
-            try:
-                store.parent.mkdir(parents=True)
-            except OSError as e:
-                raise fail(f"{store}: cannot create the store's folder: {e.strerror or e}", EXIT_USAGE)
-        engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
-                               graph_optimisation=graph_optimisation, providers=tuple(provider),
-                               batch_size=batch_size, decoding=decoding,
-                               beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
-        with RunStore(store) as st:
-            with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
-                          TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
-                          console=err, transient=False) as bar:
-                task = bar.add_task("loading recognisers", total=None, lps="-")
-                if workers is None and scheduler is None:
-                    summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                        progress=RunProgress(bar, task), fresh=fresh, postprocess=pipeline)
-                else:
-                    from ocrbench.run.distributed import DaskOptions, run_distributed
+    engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
+                           graph_optimisation=graph_optimisation.value, providers=tuple(provider),
+                           batch_size=batch_size, decoding=decoding.value,
+                           beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
+    dask = None
+    if workers is not None or scheduler is not None:
+        from ocrbench.run.distributed import DaskOptions
 
-                    dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
-                                       scheduler=scheduler, pages_per_task=pages_per_task)
-                    summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
-                                              dask=dask, progress=RunProgress(bar, task), fresh=fresh,
-                                              postprocess=pipeline)
-            written = {}
-            if text_out is not None:
-                for r in summary.recognisers:
-                    written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
+        dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
+                           scheduler=scheduler, pages_per_task=pages_per_task)
+    try:
+        pipeline = None
+        if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
+            pipeline = load_pipeline(steps=post_steps, config=post_config, word_list=word_list)
+        summary, written = _recognise(target, recogniser, store, engine, dask, fresh, pipeline, text_out)
     except KeyboardInterrupt:
-        raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
+        raise fail("interrupted; finished pages are in the store: rerun the same command to resume",
+                   EXIT_INTERRUPTED)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
-
-    failed = summary.failed_pages
     if as_json:
         d = summary.to_dict()
         d["store"] = str(store)
         d["text_out"] = {k: str(text_out / k) for k in written} if text_out is not None else None
-        typer.echo(json.dumps(d, ensure_ascii=False))
+        typer.echo(json_text(d))
     else:
-        out = Console()
-        if not out.is_terminal:
-            out = Console(width=max(out.width, 132))
-        table = Table(title=f"Run summary: {summary.input_dir}")
-        for col in ("recogniser", "kind", "run", "pages done", "failed", "lines", "page s p50", "p90", "p99",
-                    "pages/hour", "lines/s"):
-            table.add_column(col, justify="left" if col in ("recogniser", "kind") else "right")
-        for r in summary.recognisers:
-            table.add_row(r.name, r.kind, f"{r.run_id}{' (resumed)' if r.resumed else ''}", str(r.pages_done),
-                          str(r.pages_failed), str(r.lines), _fmt(r.page_seconds_p50, ".3f"),
-                          _fmt(r.page_seconds_p90, ".3f"), _fmt(r.page_seconds_p99, ".3f"),
-                          _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
-        out.print(table)
-        out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
-                  f"{summary.wall_seconds:.1f} s; store: {store}")
+        print_run_summary(summary, store, text_out, written, pipeline)
+    print_run_problems(summary, store)
+    raise typer.Exit(EXIT_SOME_FAILED if summary.failed_pages else EXIT_OK)
+
+
+def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh: bool, pipeline,
+               text_out: Path | None):
+    """Run the pages (here, or on Dask when ``dask`` is given) with a progress bar; write the texts."""
+    from ocrbench.io.files import ensure_folder
+    from ocrbench.run.engine import RunOptions, run_pages
+    from ocrbench.store import RunStore
+
+    ensure_folder(store.parent)
+    with RunStore(store) as st:
+        with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                      TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
+                      console=Console(stderr=True), transient=False) as bar:
+            progress = RunProgress(bar, bar.add_task("loading recognisers", total=None, lps="-"))
+            if dask is None:
+                summary = run_pages(target, cards, store=st, options=RunOptions(engine=engine),
+                                    progress=progress, fresh=fresh, postprocess=pipeline)
+            else:
+                from ocrbench.run.distributed import run_distributed
+
+                summary = run_distributed(target, cards, store=st, options=RunOptions(engine=engine), dask=dask,
+                                          progress=progress, fresh=fresh, postprocess=pipeline)
+        written = {}
         if text_out is not None:
-            out.print(f"texts{' (post-processed)' if pipeline is not None else ''}: "
-                      f"{', '.join(str(text_out / k) for k in written)}")
-        if pipeline is not None:
-            out.print(f"post-processed text stored beside the raw text; recipe: {pipeline.recipe}", markup=False,
-                      highlight=False, soft_wrap=True)
-    for r in summary.recognisers:
-        for page_id, error in r.post_failures:
-            err.print(f"ocrbench: {r.name}: {page_id}: post-processing refused this page ({error}); its raw text "
-                      "is kept", markup=False, highlight=False, soft_wrap=True)
-        if r.post_incomplete:
-            err.print(f"ocrbench: {r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed "
-                      f"text (pages added without post-processing); refill with: ocrbench postprocess {store} "
-                      f"--run {r.run_id}", markup=False, highlight=False, soft_wrap=True)
-    for r in summary.recognisers:
-        for page_id, error in r.failures:
-            err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False, soft_wrap=True)
-    if failed:
-        err.print(f"ocrbench: {len(failed)} of {summary.pages_total} pages failed", markup=False, highlight=False,
-                  soft_wrap=True)
-        raise typer.Exit(EXIT_SOME_FAILED)
-    raise typer.Exit(EXIT_OK)
-
-
+            for r in summary.recognisers:
+                written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
+    return summary, written

@@ -4,7 +4,7 @@ Ground truth and hypotheses pair by file stem (``page_001.txt`` with
 ``page_001.txt``; a store's ``page_001.png`` with ``page_001.txt``, a TIFF frame
 ``book.tif#3`` with ``book_3.txt``). Files on one side only, unreadable files
 and pages that failed in a run are listed and make the exit status 1; the rest
-is scored.
+is scored (:mod:`ocrbench.accuracy.evaluate`).
 
 With ``--json`` stdout carries one JSON object. For one recogniser (a ``--hyp``
 folder, or a store with one run or one ``--run``) the corpus figures are
@@ -18,194 +18,16 @@ comparisons include post-processing's paired effect.
 
 from __future__ import annotations
 
-import json
-import math
-from itertools import combinations
 from pathlib import Path
-from typing import Any, Callable, Optional
+from typing import Optional
 
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
-from rich.table import Table
 
-from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.errors import OcrbenchError, TextFileError
-
-
-def _show_char(ch: str) -> str:
-    if ch == "":
-        return "(none)"
-    if ch == " ":
-        return "space"
-    if ch == "\n":
-        return "line break"
-    if not ch.isprintable() or ch.isspace():
-        return f"U+{ord(ch):04X}"
-    return ch
-
-
-def _pct(v: float | None) -> str:
-    return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{100 * v:.2f}%"
-
-
-def _interval(lo: float | None, hi: float | None) -> str:
-    return "-" if lo is None or hi is None else f"{100 * lo:.2f}% – {100 * hi:.2f}%"
-
-
-class _System:
-    """One recogniser's hypotheses: a folder, or one run of a store."""
-
-    def __init__(self, name: str, run_id: int | None, rec_hash: str | None, pairing,
-                 load: Callable[[Any], list[str]], failed: list[tuple[str, str]] | None = None):
-        self.name, self.run_id, self.rec_hash = name, run_id, rec_hash
-        self.pairing, self.load, self.failed = pairing, load, failed or []
-        self.unreadable: list[dict[str, str]] = []
-        self.scores = None
-
-    def problems(self) -> bool:
-        return bool(self.pairing.hyp_only or self.pairing.truth_only or self.unreadable or self.failed)
-
-    def report(self) -> dict:
-        out = dict(self.scores.summary) if self.scores is not None else {}
-        out.update({
-            "system": self.name, "run_id": self.run_id,
-            "unpaired": {"hyp_without_truth": list(self.pairing.hyp_only),
-                         "truth_without_hyp": list(self.pairing.truth_only)},
-            "unreadable": self.unreadable,
-            "failed_pages": [{"page_id": p, "error": e} for p, e in self.failed],
-        })
-        return out
-
-
-def _store_systems(store_path: Path, truth: Path, runs: list[int] | None, post: bool) -> list[_System]:
-    try:
-        from ocrbench.store import RunStore
-    except ImportError:
-        raise fail("--store: store support needs ocrbench.store, which this installation lacks", EXIT_USAGE)
-    from ocrbench.io.text import pair_store_pages
-
-    store = RunStore(store_path, read_only=True)
-    try:
-        ids = runs or store.run_ids()
-        if not ids:
-            raise fail(f"{store_path}: the store holds no runs", EXIT_USAGE)
-        systems = []
-        for rid in ids:
-            info = store.run_info(rid)
-            if post and store.post_recipe(rid) is None:
-                raise fail(f"{store_path}: run {rid} ({info.recogniser}) has no post-processed text; make it with "
-                           f"'ocrbench postprocess {store_path} --run {rid}' or 'ocrbench run ... --postprocess'",
-                           EXIT_USAGE)
-            for as_post in ((False, True) if post else (False,)):
-                texts = store.page_texts(rid, post=as_post)
-                pairing = pair_store_pages(truth, texts.keys())
-                label = f"{info.recogniser} (run {rid})" + (" post-processed" if as_post else "")
-                systems.append(_System(label, rid, info.card_hash, pairing, texts.__getitem__,
-                                       store.failed_pages(rid)))
-            if post:
-                with_post, n = store.post_coverage(rid)
-                if with_post < n:
-                    Console(stderr=True).print(
-                        f"ocrbench: run {rid}: {n - with_post} of {n} lines have no post-processed text and are "
-                        "scored raw", markup=False, highlight=False, soft_wrap=True)
-        return systems
-    finally:
-        store.close()
-
-
-def _write_tables(out: Path, systems: list[_System], payload: dict) -> list[Path]:
-    import pandas as pd
-
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise TextFileError(out, f"cannot create the output folder ({e.strerror or e})") from e
-    written = []
-    tables: dict[str, list] = {"lines": [], "pages": [], "confusions": [], "amounts": []}
-    for s in systems:
-        if s.scores is None:
-            continue
-        for key in tables:
-            df = getattr(s.scores, key)
-            if df is None:
-                continue
-            df = df.copy()
-            df.insert(0, "run_id", pd.array([s.run_id] * len(df), dtype="Int64"))
-            df.insert(0, "system", pd.Series([s.name] * len(df), dtype=object))
-            tables[key].append(df)
-    try:
-        for key, frames in tables.items():
-            if not frames:
-                continue
-            df = pd.concat(frames, ignore_index=True)
-            for ext in ("csv", "parquet"):
-                path = out / f"{key}.{ext}"
-                if ext == "csv":
-                    df.to_csv(path, index=False)
-                else:
-                    df.to_parquet(path, index=False)
-                written.append(path)
-        path = out / "summary.json"
-        path.write_text(json.dumps(payload, indent=1, ensure_ascii=False, allow_nan=False) + "\n", encoding="utf-8")
-        written.append(path)
-    except OSError as e:
-        raise TextFileError(out, f"cannot write the tables ({e.strerror or e})") from e
-    return written
-
-
-def _print_system(con: Console, s: _System, top: int) -> None:
-    sm = s.scores.summary
-    t = Table(title=f"{s.name} — profile {sm['profile']}, {sm['pages']} pages", title_justify="left")
-    t.add_column("figure")
-    t.add_column("value", justify="right")
-    t.add_column(f"{100 * sm['interval']['level']:g}% interval", justify="right")
-    t.add_column("counts", justify="right")
-    t.add_row("CER (corpus)", _pct(sm["cer"]), _interval(sm["cer_low"], sm["cer_high"]),
-              f"{sm['char_edits']:,} edits / {sm['ref_chars']:,} chars")
-    t.add_row("WER (corpus)", _pct(sm["wer"]), _interval(sm["wer_low"], sm["wer_high"]),
-              f"{sm['word_edits']:,} edits / {sm['ref_words']:,} words")
-    t.add_row("CER (page mean)", _pct(sm["cer_page_mean"]), "-", "mean of page rates")
-    if sm["subs"] is not None:
-        t.add_row("substitutions / deletions / insertions", "", "",
-                  f"{sm['subs']:,} / {sm['dels']:,} / {sm['ins']:,}")
-    if sm["amounts"]:
-        a = sm["amounts"]
-        t.add_row("amounts with digits right", _pct(a["share_right"]), _interval(a["low"], a["high"]),
-                  f"{a['right']:,} of {a['found']:,}")
-    con.print(t)
-    if sm["classes"]:
-        c = Table(title="by character class (substitutions and deletions charged to the truth character; "
-                        "insertions to the inserted one)", title_justify="left")
-        for col in ("class", "truth chars", "errors", "error rate", "interval", "inserted"):
-            c.add_column(col, justify="left" if col == "class" else "right")
-        for name, v in sm["classes"].items():
-            c.add_row(name, f"{v['ref_chars']:,}", f"{v['errors']:,}", _pct(v["rate"]),
-                      _interval(v["low"], v["high"]), f"{v['inserted']:,}")
-        con.print(c)
-    if sm["confusions"] and top:
-        f = Table(title=f"most frequent confusions (truth → recognised), top {top}", title_justify="left")
-        for col in ("truth", "recognised", "kind", "count"):
-            f.add_column(col, justify="right" if col == "count" else "left")
-        for row in sm["confusions"][:top]:
-            f.add_row(_show_char(row["ref"]), _show_char(row["hyp"]), row["op"], f"{row['count']:,}")
-        con.print(f)
-    if sm["line_count_mismatch"]:
-        con.print(f"{len(sm['line_count_mismatch'])} page(s) had different line counts and were aligned "
-                  "as one text each.", markup=False, highlight=False)
-    con.print(f"recipe: {sm['recipe']}", markup=False, highlight=False, style="dim", soft_wrap=True)
-
-
-def _print_problems(s: _System) -> None:
-    """One plain line per problem on stderr (not wrapped, so it can be grepped)."""
-    for p in s.pairing.hyp_only:
-        typer.echo(f"ocrbench: {s.name}: no ground truth for {p}", err=True)
-    for p in s.pairing.truth_only:
-        typer.echo(f"ocrbench: {s.name}: no hypothesis for {p}", err=True)
-    for u in s.unreadable:
-        typer.echo(f"ocrbench: {u['path']}: {u['error']}", err=True)
-    for pid, e in s.failed:
-        typer.echo(f"ocrbench: {s.name}: page {pid} failed in the run: {e}", err=True)
+from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, ProfileName, fail
+from ocrbench.cli.show import print_comparisons, print_scores
+from ocrbench.errors import OcrbenchError
 
 
 def score_cmd(
@@ -214,7 +36,7 @@ def score_cmd(
     store: Optional[Path] = typer.Option(None, "--store", help="A run store written by 'ocrbench run' (instead of --hyp)."),
     run: Optional[list[int]] = typer.Option(None, "--run", metavar="ID", help="Store run id to score; repeat for several "
                                                                 "(default: every run in the store)."),
-    profile: str = typer.Option("nfc", "--profile", help="Normalisation: exact, nfc, loose or ledger."),
+    profile: ProfileName = typer.Option("nfc", "--profile", help="Normalisation profile."),
     out: Optional[Path] = typer.Option(None, "--out", help="Folder for lines/pages/confusions/amounts tables "
                                                            "(CSV and Parquet) and summary.json."),
     post: bool = typer.Option(False, "--post", help="Store only: score each run's raw and post-processed text "
@@ -227,98 +49,46 @@ def score_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Score recognised text against ground truth: CER and WER with intervals, character classes, confusions."""
-    from ocrbench.accuracy.normalise import PROFILES
-    from ocrbench.accuracy.score import score_pages
-    from ocrbench.accuracy.stats import paired_comparison
-    from ocrbench.io.text import pair_folders, read_text_lines
+    from ocrbench.accuracy.evaluate import (Evaluation, PostText, compare_systems, folder_systems, score_systems,
+                                            store_systems)
+    from ocrbench.io.tables import json_text, write_json, write_tables
 
     if (hyp is None) == (store is None):
         raise fail("give exactly one of --hyp DIR or --store FILE", EXIT_USAGE)
     if store is None and (run or post):
         raise fail("--run and --post need --store", EXIT_USAGE)
-    if profile not in PROFILES:
-        raise fail(f"--profile must be one of {', '.join(PROFILES)}, not {profile!r}", EXIT_USAGE)
     err = Console(stderr=True)
-
     try:
         if hyp is not None:
-            systems = [_System(hyp.name or str(hyp), None, None, pair_folders(truth, hyp), read_text_lines)]
+            systems, notes = folder_systems(truth, hyp), []
         else:
-            systems = _store_systems(store, truth, run, post)
-    except OcrbenchError as e:
-        raise fail(str(e), EXIT_USAGE)
-
-    truth_cache: dict[Path, list[str] | TextFileError] = {}
-
-    def truth_lines(path: Path) -> list[str] | TextFileError:
-        if path not in truth_cache:
-            try:
-                truth_cache[path] = read_text_lines(path)
-            except TextFileError as e:
-                truth_cache[path] = e
-        return truth_cache[path]
-
-    total = sum(len(s.pairing.pairs) for s in systems)
-    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), console=err,
-                  transient=True) as bar:
-        task = bar.add_task("reading texts", total=total)
-        for s in systems:
-            pages = []
-            for key, tpath, hkey in s.pairing.pairs:
-                t = truth_lines(tpath)
-                bar.advance(task)
-                if isinstance(t, TextFileError):
-                    s.unreadable.append({"path": t.path, "error": t.reason})
-                    continue
-                try:
-                    h = s.load(hkey)
-                except TextFileError as e:
-                    s.unreadable.append({"path": e.path, "error": e.reason})
-                    continue
-                pages.append((key, t, h))
-            bar.update(task, description=f"scoring {s.name}")
-            s.scores = score_pages(pages, profile=profile, classes=not no_classes, recogniser_hash=s.rec_hash,
-                                   top=top, n_boot=boot, seed=seed)
-
-    comparisons = []
-    for a, b in combinations(systems, 2):
-        try:
-            comparisons.append(paired_comparison(a.scores, b.scores, n_boot=boot, seed=seed,
-                                                 names=(a.name, b.name)))
-        except ValueError as e:
-            comparisons.append({"a": a.name, "b": b.name, "error": str(e)})
-
-    if len(systems) == 1:
-        payload = systems[0].report()
-    else:
-        payload = {"systems": [s.report() for s in systems], "comparisons": comparisons,
-                   "profile": profile}
-
-    try:
-        written = _write_tables(out, systems, payload) if out is not None else []
+            systems, notes = store_systems(store, truth, run, PostText.BOTH if post else PostText.RAW)
+        for note in notes:
+            err.print(f"ocrbench: {note}", markup=False, highlight=False, soft_wrap=True)
+        with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), console=err,
+                      transient=True) as bar:
+            task = bar.add_task("reading texts", total=sum(len(s.pairing.pairs) for s in systems))
+            score_systems(systems, profile=profile.value, classes=not no_classes, top=top, n_boot=boot, seed=seed,
+                          progress=lambda what, n: bar.update(task, description=what, advance=n))
+        ev = Evaluation(systems, compare_systems(systems, n_boot=boot, seed=seed), profile.value, notes)
+        payload = ev.payload()
+        written = []
+        if out is not None:
+            written = write_tables(ev.tables(), out) + [write_json(out / "summary.json", payload)]
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
 
     for s in systems:
-        _print_problems(s)
+        for line in s.problem_lines():
+            typer.echo(f"ocrbench: {line}", err=True)
     if as_json:
-        typer.echo(json.dumps(payload, ensure_ascii=False, allow_nan=False))
+        typer.echo(json_text(payload))
     else:
         con = Console()
         for s in systems:
-            _print_system(con, s, top)
-        if comparisons:
-            c = Table(title="paired comparisons (CER, same pages)", title_justify="left")
-            for col in ("a", "b", "CER a − b", "interval", "p-value", "better"):
-                c.add_column(col)
-            for r in comparisons:
-                if "error" in r:
-                    c.add_row(r["a"], r["b"], "-", "-", "-", r["error"])
-                    continue
-                c.add_row(r["a"], r["b"], _pct(r["diff"]), _interval(r["low"], r["high"]),
-                          "-" if r["p_value"] is None else f"{r['p_value']:.3g}",
-                          r["winner"] or "no clear difference")
-            con.print(c)
+            print_scores(con, s.report(), top)
+        if ev.comparisons:
+            print_comparisons(con, ev.comparisons)
         for p in written:
             con.print(f"wrote {p}", markup=False, highlight=False)
-    raise typer.Exit(EXIT_SOME_FAILED if any(s.problems() for s in systems) else EXIT_OK)
+    raise typer.Exit(EXIT_SOME_FAILED if ev.problems() else EXIT_OK)

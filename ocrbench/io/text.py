@@ -25,22 +25,31 @@ from typing import Iterable
 
 from ocrbench.errors import TextFileError
 
-__all__ = ["read_text_lines", "decode_text", "Pairing", "pair_folders", "pair_store_pages",
+__all__ = ["read_text_lines", "read_text", "decode_text", "decode_utf8", "split_lines", "Pairing", "pair_folders", "pair_store_pages",
            "truth_candidates", "TEXT_SUFFIX"]
 
 TEXT_SUFFIX = ".txt"
 
 
-def decode_text(data: bytes, name: str | Path = "<bytes>") -> list[str]:
-    """Decode UTF-8 bytes (optional BOM) into lines; TextFileError names ``name`` and the byte offset."""
+def decode_utf8(data: bytes, name: str | Path = "<bytes>") -> str:
+    """Decode UTF-8 bytes (optional BOM dropped); TextFileError names ``name`` and the byte offset."""
     bom = len(codecs.BOM_UTF8) if data.startswith(codecs.BOM_UTF8) else 0
     try:
-        text = data[bom:].decode("utf-8")
+        return data[bom:].decode("utf-8")
     except UnicodeDecodeError as e:
         offset = e.start + bom
         bad = data[offset:offset + 4]
         raise TextFileError(name, f"not valid UTF-8: undecodable byte 0x{data[offset]:02x} at byte offset "
                                   f"{offset} (bytes {bad!r}); save the file as UTF-8") from None
+
+
+def decode_text(data: bytes, name: str | Path = "<bytes>") -> list[str]:
+    """Decode UTF-8 bytes (optional BOM) into lines; TextFileError names ``name`` and the byte offset."""
+    return split_lines(decode_utf8(data, name))
+
+
+def split_lines(text: str) -> list[str]:
+    """Lines of a text: only LF, CRLF and a lone CR end a line; a final line end starts no extra line."""
     if "\r" in text:
         text = text.replace("\r\n", "\n").replace("\r", "\n")
     if not text:
@@ -53,6 +62,11 @@ def decode_text(data: bytes, name: str | Path = "<bytes>") -> list[str]:
 
 def read_text_lines(path: str | Path) -> list[str]:
     """The lines of a UTF-8 text file (BOM optional, LF/CRLF); raises TextFileError naming the file."""
+    return split_lines(read_text(path))
+
+
+def read_text(path: str | Path) -> str:
+    """A UTF-8 text file's whole text (BOM dropped, line ends kept); raises TextFileError naming the file."""
     p = Path(path)
     try:
         data = p.read_bytes()
@@ -62,7 +76,7 @@ def read_text_lines(path: str | Path) -> list[str]:
         raise TextFileError(p, "does not exist") from None
     except OSError as e:
         raise TextFileError(p, f"cannot be read: {e.strerror or e}") from None
-    return decode_text(data, p)
+    return decode_utf8(data, p)
 
 
 @dataclass

@@ -1,10 +1,15 @@
-"""File helpers shared by the ``balance`` and ``postprocess`` commands (the library stays free of I/O)."""
+"""Folders of page texts: listing ``.txt`` pages and writing one text file per page.
+
+Reading a text file is :func:`ocrbench.io.text.read_text_lines`; writing one is
+:func:`ocrbench.io.files.atomic_write_lines`.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from ocrbench.errors import InputError, TextFileError
+from ocrbench.errors import InputError
+from ocrbench.io.files import atomic_write_lines, ensure_folder
 
 
 def list_text_files(target: Path) -> list[Path]:
@@ -22,35 +27,6 @@ def list_text_files(target: Path) -> list[Path]:
     return files
 
 
-def read_lines(path: Path) -> list[str]:
-    """Lines of a UTF-8 text file (BOM allowed, LF or CRLF). TextFileError names the file and the bad byte."""
-    try:
-        data = path.read_bytes()
-    except OSError as e:
-        raise TextFileError(path, f"cannot read: {e.strerror or e}") from e
-    skip = 3 if data.startswith(b"\xef\xbb\xbf") else 0     # byte-order mark
-    try:
-        text = data[skip:].decode("utf-8")
-    except UnicodeDecodeError as e:
-        at = e.start + skip
-        raise TextFileError(path, f"not UTF-8 text (bad byte 0x{data[at]:02x} at offset {at})") from e
-    text = text.replace("\r\n", "\n").replace("\r", "\n")
-    lines = text.split("\n")
-    if lines and lines[-1] == "":
-        lines.pop()          # the newline that ends the last line
-    return lines
-
-
-def write_lines(path: Path, lines: list[str]) -> None:
-    """Write lines as UTF-8 with ``\n`` endings, through a temporary file so a crash leaves no half file."""
-    tmp = path.with_name(path.name + ".part")
-    try:
-        tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
-        tmp.replace(path)
-    except OSError as e:
-        raise TextFileError(path, f"cannot write: {e.strerror or e}") from e
-
-
 def text_stem(page_id: str) -> str:
     """File stem of a page's text: ``page_001.png`` -> ``page_001``, ``book.tif#3`` -> ``book_3``."""
     name, _, frame = page_id.partition("#")
@@ -60,17 +36,7 @@ def text_stem(page_id: str) -> str:
 
 def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]]) -> int:
     """Write each page's lines to ``out_dir/recogniser/<stem>.txt`` (UTF-8, one line per text line)."""
-    folder = out_dir / recogniser
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise TextFileError(folder, f"cannot create the folder ({e.strerror or e})") from e
+    folder = ensure_folder(out_dir / recogniser)
     for page_id, lines in texts.items():
-        path = folder / f"{text_stem(page_id)}.txt"
-        tmp = path.with_name(path.name + ".part")
-        try:
-            tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
-            tmp.replace(path)
-        except OSError as e:
-            raise TextFileError(path, f"cannot write ({e.strerror or e})") from e
+        atomic_write_lines(folder / f"{text_stem(page_id)}.txt", lines)
     return len(texts)

@@ -42,6 +42,7 @@ from rapidfuzz import process
 from rapidfuzz.distance import Levenshtein
 
 from ocrbench.errors import TextFileError
+from ocrbench.io.text import read_text
 
 _EDGE_PUNCT = ".,;:!?()[]{}\"'“”‘’«»"
 
@@ -138,13 +139,9 @@ def read_word_list(path: str | Path, *, case_sensitive: bool = False) -> Lexicon
     """Read a UTF-8 word list file (one entry per line, ``#`` comments). Raises TextFileError."""
     p = Path(path)
     try:
-        data = p.read_bytes()
-    except OSError as e:
-        raise TextFileError(p, f"cannot read word list: {e.strerror or e}") from e
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as e:
-        raise TextFileError(p, f"word list is not UTF-8 (bad byte at offset {e.start})") from e
+        text = read_text(p)
+    except TextFileError as e:
+        raise TextFileError(p, f"word list {e.reason}") from None
     return Lexicon.from_text(text, case_sensitive=case_sensitive)
 
 

@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 from rapidfuzz.distance import Levenshtein
 
+from ocrbench.accuracy.stats import bootstrap_statistic, wilson_interval
 from ocrbench.ledger import balance as _ledger
 from ocrbench.postprocess.lexicon import Lexicon, unknown_words
 
@@ -141,13 +142,17 @@ class ReviewQueue:
 def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
                  balances: Mapping[Any, _ledger.PageBalance] | None = None,
                  lexicon: Lexicon | None = None, weights: DoubtWeights = DoubtWeights(),
-                 rate: ReviewRate = ReviewRate(), decimal_mark: str = ".") -> ReviewQueue:
+                 rate: ReviewRate = ReviewRate(), decimal_mark: str = ".",
+                 problems: list[str] | None = None) -> ReviewQueue:
     """Rank lines by doubt.
 
     ``lines``: rows with page_id, line_no, text and (optionally) confidence, one
     row per recognised line (e.g. the store's ``lines`` table, with ``text`` set
     to the raw or post-processed column). ``balances``: page_id -> PageBalance;
-    computed from the lines themselves when not given.
+    computed from the lines themselves when not given. A page whose arithmetic
+    cannot be checked at all (an amount beyond what can be read as a number)
+    keeps its lines in the queue without the arithmetic part; the page and the
+    reason are appended to ``problems`` when given.
     """
     df = _as_frame(lines).sort_values(["page_id", "line_no"], kind="stable").reset_index(drop=True)
     conf = pd.to_numeric(df["confidence"], errors="coerce")
@@ -157,7 +162,12 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
     for page_id, grp in df.groupby("page_id", sort=False):
         bal = balances.get(page_id) if balances is not None else None
         if bal is None:
-            bal = _ledger.check_page(grp["text"].tolist(), decimal_mark=decimal_mark)
+            try:
+                bal = _ledger.check_page(grp["text"].tolist(), decimal_mark=decimal_mark)
+            except ValueError as e:   # e.g. an amount of thousands of digits
+                if problems is not None:
+                    problems.append(f"{page_id}: arithmetic not checked ({e}); its lines are ranked without it")
+                continue
         parts = ledger_parts(bal)
         for pos, idx in enumerate(grp.index):
             if pos in parts:
@@ -221,23 +231,12 @@ def auroc_interval(y_true: Sequence[bool] | np.ndarray, score: Sequence[float] |
     s = np.asarray(score, dtype=float)
     if auroc(y, s) is None:
         return None
-    rng = np.random.default_rng(seed)
     if groups is None:
         members = [np.array([i]) for i in range(y.size)]
     else:
         codes, _ = pd.factorize(pd.Series(list(groups)))
         members = [np.flatnonzero(codes == g) for g in range(codes.max() + 1)]
-    vals = []
-    for _ in range(n_boot):
-        pick = rng.integers(0, len(members), len(members))
-        idx = np.concatenate([members[g] for g in pick])
-        a = auroc(y[idx], s[idx])
-        if a is not None:
-            vals.append(a)
-    if not vals:
-        return None
-    lo, hi = np.quantile(vals, [(1 - level) / 2, 1 - (1 - level) / 2])
-    return float(lo), float(hi)
+    return bootstrap_statistic(lambda idx: auroc(y[idx], s[idx]), members, n_boot=n_boot, level=level, seed=seed)
 
 
 def line_edits(texts: Sequence[str], truths: Sequence[str], *,
@@ -271,7 +270,7 @@ def error_by_decile(confidences: Sequence[float], edits: Sequence[int], ref_char
     rows = []
     for k, idx in enumerate(bins, start=1):
         err = int((e[idx] > 0).sum())
-        lo, hi = _ledger.wilson_interval(err, idx.size, level=level)  # type: ignore[misc]
+        lo, hi = wilson_interval(err, idx.size, level=level)  # type: ignore[misc]
         ref = int(r[idx].sum())
         rows.append({"decile": k, "lines": int(idx.size), "conf_min": float(c[idx].min()),
                      "conf_max": float(c[idx].max()), "conf_mean": float(c[idx].mean()),
@@ -321,3 +320,144 @@ def calibration(texts: Sequence[str], confidences: Sequence[float], truths: Sequ
     return Calibration(lines=int(keep.sum()), error_lines=int(y.sum()), auroc=a,
                        auroc_low=ci[0] if ci else None, auroc_high=ci[1] if ci else None,
                        deciles=error_by_decile(conf, edits, ref, n_bins=n_bins, level=level), level=level)
+
+
+# --------------------------------------------------------------------------- a store's runs
+
+
+def head_catch(truth_edits: Mapping[tuple[str, int], int], head_keys: set[tuple[str, int]]) -> dict | None:
+    """How many of the lines with errors (among lines with ground truth) are in the head of the queue."""
+    keys = list(truth_edits)
+    err = [k for k in keys if truth_edits[k] > 0]
+    if not keys:
+        return None
+    in_head = [k for k in keys if k in head_keys]
+    caught = [k for k in err if k in head_keys]
+    return {"lines_with_truth": len(keys), "error_lines": len(err), "head_lines_with_truth": len(in_head),
+            "error_lines_in_head": len(caught),
+            "share_of_error_lines_caught": len(caught) / len(err) if err else None,
+            # what checking the same number of lines picked at random would catch, on average
+            "share_if_random": len(in_head) / len(keys)}
+
+
+def run_lines(frames: Mapping[str, pd.DataFrame], run_id: int, *, post: bool) -> tuple[pd.DataFrame, list[str]]:
+    """The lines of a run's done pages (``text`` the post-processed text where stored when ``post``),
+    and the done page ids."""
+    ln = frames["lines"][frames["lines"]["run_id"] == run_id].copy()
+    pages = frames["pages"]
+    done = sorted(set(pages.loc[(pages["run_id"] == run_id) & (pages["status"] == "done"), "page_id"]))
+    ln = ln[ln["page_id"].isin(done)]
+    if post:
+        ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
+    return ln, done
+
+
+@dataclass
+class TruthCalibration:
+    """Calibration on the lines of pages with ground truth, and what could not be used (one line each)."""
+
+    calibration: Calibration | None
+    edits: dict[tuple[str, int], int]
+    problems: list[str]
+
+
+def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequence[str] | None = None,
+                       normalise: Callable[[str], str] | None = None, seed: int = 0) -> TruthCalibration:
+    """Pair a run's pages with ground-truth files, align line by line and measure the calibration.
+
+    ``page_ids``: the run's done pages (default: the pages ``lines`` holds). A page
+    whose line count differs from its truth's, or whose truth cannot be read, is
+    left out and named in ``problems``.
+    """
+    from ocrbench.accuracy.evaluate import read_truth_pages
+
+    ids = sorted(set(lines["page_id"].astype(str)) if page_ids is None else page_ids)
+    truth, pairing, unreadable = read_truth_pages(truth_dir, ids)
+    problems = [f"{u['path']}: {u['error']}" for u in unreadable]
+    paths = {pid: path for pid, path, _ in pairing.pairs}
+    by_page = {str(pid): g.sort_values("line_no") for pid, g in lines.groupby("page_id")}
+    texts, confs, truths, groups = [], [], [], []
+    edits: dict[tuple[str, int], int] = {}
+    for pid in sorted(truth):
+        ref, g = truth[pid], by_page.get(pid)
+        if g is None or len(g) != len(ref):
+            problems.append(f"{paths[pid]}: {len(ref)} ground-truth lines but {0 if g is None else len(g)} "
+                            f"recognised lines on {pid}; left out of the calibration")
+            continue
+        hyp = g["text"].fillna("").tolist()
+        for no, k in zip(g["line_no"], line_edits(hyp, ref, normalise=normalise)):
+            edits[(pid, int(no))] = int(k)
+        texts += hyp
+        confs += pd.to_numeric(g["confidence"], errors="coerce").astype(float).tolist()
+        truths += ref
+        groups += [pid] * len(ref)
+    cal = calibration(texts, confs, truths, page_ids=groups, normalise=normalise, seed=seed) if texts else None
+    return TruthCalibration(cal, edits, problems)
+
+
+@dataclass
+class RunReview:
+    """One run's review: its queue, the head chosen, the time both take, and (with truth) the calibration."""
+
+    run_id: int
+    recogniser: str
+    text: str                       # "raw" or "post-processed"
+    queue: ReviewQueue
+    head: pd.DataFrame
+    select: dict
+    truth: TruthCalibration | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {
+            "run_id": self.run_id, "recogniser": self.recogniser, "text": self.text,
+            "lines": int(len(self.queue.table)), "head": self.queue.minutes(**self.select),
+            "all": self.queue.minutes(),
+            "queue": [{"page_id": r.page_id, "line_no": int(r.line_no), "doubt": round(float(r.doubt), 4),
+                       "confidence": None if r.confidence != r.confidence else float(r.confidence),
+                       "reasons": r.reasons, "text": r.text} for r in self.head.itertuples()]}
+        if self.truth is not None:
+            cal = self.truth.calibration
+            out["calibration"] = cal.to_dict() if cal is not None else None
+            if cal is not None:
+                keys = {(str(r.page_id), int(r.line_no)) for r in self.head.itertuples()}
+                out["head_catch"] = head_catch(self.truth.edits, keys)
+        return out
+
+
+def review_store(store_path: Any, runs: Sequence[int] = (), *, lexicon: Lexicon | None = None,
+                 rate: ReviewRate = ReviewRate(), post: bool = False, max_lines: int | None = 20,
+                 max_minutes: float | None = None, truth_dir: Any = None,
+                 normalise: Callable[[str], str] | None = None) -> tuple[list[RunReview], list[str]]:
+    """Rank the lines of a store's runs (default every run) and, with ``truth_dir``, calibrate them.
+
+    Returns the reviews and the problems (one line each, naming the file or page).
+    Raises StoreError for a missing run or an unusable store.
+    """
+    from ocrbench.errors import StoreError
+    from ocrbench.store import RunStore
+
+    select: dict = {"max_minutes": max_minutes} if max_minutes is not None else {"max_lines": max_lines}
+    out: list[RunReview] = []
+    problems: list[str] = []
+    with RunStore(store_path, read_only=True) as st:
+        have = st.run_ids()
+        missing = [r for r in runs if r not in have]
+        if missing:
+            raise StoreError(f"{store_path}: no run {', '.join(map(str, missing))} in this store "
+                             f"(runs: {', '.join(map(str, have)) or 'none'})")
+        frames = st.read_frames(list(runs) or have)
+        for rid in list(runs) or have:
+            info = st.run_info(rid)
+            use_post = post and st.post_recipe(rid) is not None
+            ln, done = run_lines(frames, rid, post=use_post)
+            q = review_queue(ln[["page_id", "line_no", "text", "confidence"]], lexicon=lexicon, rate=rate,
+                             problems=problems)
+            rev = RunReview(rid, info.recogniser, "post-processed" if use_post else "raw", q, q.take(**select),
+                            select)
+            if truth_dir is not None:
+                rev.truth = calibrate_on_truth(ln, truth_dir, page_ids=done, normalise=normalise)
+                problems += rev.truth.problems
+                if rev.truth.calibration is None:
+                    problems.append(f"{truth_dir}: no page of run {rid} has usable ground truth")
+            out.append(rev)
+    return out, problems

@@ -11,12 +11,13 @@ computes the archive plan.
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence
 
-from ocrbench.errors import ReportError
+from ocrbench.errors import ReportError, TextFileError
+from ocrbench.io.files import atomic_write_text
+from ocrbench.io.tables import TABLE_FORMATS, write_tables
 from ocrbench.report.data import CAUTIONS, ReportData, build_report_data, resolve
 from ocrbench.report.display import fmt
 from ocrbench.planning.service import PlanRequest, PlanResults, load_plan_file
@@ -34,15 +35,6 @@ class ReportFiles:
     summary: Path
     tables: list[Path]
     data: ReportData
-
-
-def _write_text(path: Path, text: str) -> None:
-    tmp = path.with_name(path.name + ".part")
-    try:
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, path)
-    except OSError as e:
-        raise ReportError(f"{path}: cannot write ({e.strerror or e})") from e
 
 
 def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | None = None,
@@ -63,29 +55,20 @@ def write_report(store: Path | str, out_dir: Path | str, *, truth: Path | str | 
         plan = load_plan_file(plan)
     data = build_report_data(store, truth=truth, plan=plan, profile=profile, run_ids=run_ids, n_boot=n_boot,
                              seed=seed, currency=currency, curve_max_workers=curve_max_workers, title=title)
+    unknown = [f for f in table_formats if f not in TABLE_FORMATS]
+    if unknown:
+        raise ReportError(f"unknown table format {unknown[0]!r} ({' or '.join(TABLE_FORMATS)})")
     out = Path(out_dir)
-    tables_dir = out / "tables"
+    summary_path, html_path = out / "summary.json", out / "report.html"
     try:
-        tables_dir.mkdir(parents=True, exist_ok=True)
+        (out / "tables").mkdir(parents=True, exist_ok=True)
     except OSError as e:
         raise ReportError(f"{out}: cannot create the report folder ({e.strerror or e})") from e
-    summary_path = out / "summary.json"
-    _write_text(summary_path, data.to_json() + "\n")
-    svgs = render_figures(data.summary, page_scores=data.page_scores, line_times=data.line_times)
-    html_path = out / "report.html"
-    _write_text(html_path, render_html(data.summary, svgs))
-    written = []
-    for name, df in data.tables.items():
-        for f in table_formats:
-            p = tables_dir / f"{name}.{f}"
-            try:
-                if f == "csv":
-                    df.to_csv(p, index=False, encoding="utf-8")
-                elif f == "parquet":
-                    df.to_parquet(p, index=False)
-                else:
-                    raise ReportError(f"unknown table format {f!r} (csv or parquet)")
-            except OSError as e:
-                raise ReportError(f"{p}: cannot write ({e.strerror or e})") from e
-            written.append(p)
+    try:
+        atomic_write_text(summary_path, data.to_json() + "\n")
+        svgs = render_figures(data.summary, page_scores=data.page_scores, line_times=data.line_times)
+        atomic_write_text(html_path, render_html(data.summary, svgs))
+        written = write_tables(data.tables, out / "tables", table_formats)
+    except TextFileError as e:
+        raise ReportError(str(e)) from e
     return ReportFiles(folder=out, html=html_path, summary=summary_path, tables=written, data=data)

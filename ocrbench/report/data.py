@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -37,10 +36,11 @@ import pandas as pd
 
 from ocrbench import __version__
 from ocrbench.accuracy.normalise import get_profile
-from ocrbench.accuracy.score import score_pages
-from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, paired_comparison
-from ocrbench.io.text import pair_store_pages, read_text_lines
-from ocrbench.errors import StoreError, TextFileError
+from ocrbench.accuracy.evaluate import (PostText, System, TruthReader, compare, read_truth_pages, score_systems,
+                                        store_systems)
+from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, percentile_interval
+from ocrbench.errors import StoreError
+from ocrbench.io.tables import json_ready
 from ocrbench.planning.service import PlanRequest, PlanResults, compute_plan, plan_from_results
 from ocrbench.store import RunStore
 
@@ -90,20 +90,6 @@ def resolve(summary: Mapping, path: str) -> Any:
     return cur
 
 
-def _clean(v: Any) -> Any:
-    if isinstance(v, Mapping):
-        return {str(k): _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    if isinstance(v, np.generic):
-        v = v.item()
-    if isinstance(v, float) and not math.isfinite(v):
-        return None
-    if v is pd.NA:
-        return None
-    return v
-
-
 def _now() -> str:
     return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
 
@@ -149,7 +135,6 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
            "seconds_per_char_high": None, "line_seconds_at_0": None}
     if len(d) < 3 or d["n_chars"].nunique() < 2:
         return out
-    x = d["n_chars"].to_numpy(float)
     y = d["t_line"].to_numpy(float)
     g = d.groupby("page_id", sort=False)
     sums = pd.DataFrame({"n": g.size(), "x": g["n_chars"].sum(), "y": g["t_line"].sum(),
@@ -169,10 +154,9 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
     if len(sums) >= 2:
         boot = bootstrap_sums(sums, n_boot=n_boot, seed=seed)
         bb, _ = fit(boot)
-        bb = bb[np.isfinite(bb)]
-        if bb.size:
-            lo, hi = np.quantile(bb, [0.025, 0.975])
-            out.update(seconds_per_char_low=float(lo), seconds_per_char_high=float(hi))
+        ci = percentile_interval(bb, 0.95)
+        if ci is not None:
+            out.update(seconds_per_char_low=ci[0], seconds_per_char_high=ci[1])
     return out
 
 
@@ -213,20 +197,6 @@ def _accuracy(scores) -> dict:
         "empty_reference": s.get("empty_reference", []),
         "recipe": s["recipe"], "recipes": s.get("recipes", {}),
     }
-
-
-def _read_truth(truth_dir: Path, page_ids: Sequence[str]) -> tuple[dict[str, list[str]], dict]:
-    pairing = pair_store_pages(truth_dir, page_ids)
-    truth: dict[str, list[str]] = {}
-    problems = []
-    for pid, path, _ in pairing.pairs:
-        try:
-            truth[pid] = read_text_lines(path)
-        except TextFileError as e:
-            problems.append({"path": str(path), "error": e.reason})
-    info = {"pages_paired": len(truth), "pages_without_truth": list(pairing.hyp_only),
-            "truth_without_page": list(pairing.truth_only), "unreadable_truth": problems}
-    return truth, info
 
 
 def _worst(run: dict, scores, n_pages: int, n_lines: int) -> list[dict]:
@@ -271,15 +241,46 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     with RunStore(store, read_only=True) as st:
         frames = st.read_frames()
         sel = _select_runs(frames["runs"], run_ids)
-        texts = {int(r): st.page_texts(int(r)) for r in sel["run_id"]}
-        post_texts = {int(r): st.page_texts(int(r), post=True) for r in sel["run_id"]}
         recipes = {int(r): st.post_recipe(int(r)) for r in sel["run_id"]}
+    runs, line_times, page_rows = _gather_runs(sel, frames, recipes, n_boot, seed)
+    summary: dict[str, Any] = {
+        "format": FORMAT_VERSION, "title": title or f"Recogniser comparison: {store.name}",
+        "generated_at": _now(), "ocrbench_version": __version__, "store": str(store),
+        "truth": str(truth) if truth is not None else None, "profile": prof.name if truth is not None else None,
+        "profile_summary": prof.summary if truth is not None else None,
+        "recognisers": runs, "paired": [], "truth_pairing": None, "worst_pages": [], "plan": None,
+        "cautions": list(CAUTIONS),
+    }
+    data = ReportData(summary=summary)
+    if truth is not None:
+        _add_accuracy(data, store, Path(truth), frames, prof, n_boot, seed, worst_pages, worst_lines)
+    else:
+        for run in runs:
+            run["accuracy"] = run["accuracy_post"] = None
+    if plan is not None:
+        _add_plan(data, store, frames, plan, currency, curve_max_workers)
+    else:
+        for run in runs:
+            run["plan"] = None
+    data.tables["recognisers"] = pd.DataFrame([_flat_row(r) for r in runs])
+    if page_rows:
+        data.tables["pages"] = pd.concat(page_rows, ignore_index=True)
+    if line_times:
+        data.line_times = pd.concat(line_times, ignore_index=True)
+        data.tables["line_times"] = data.line_times
+    if summary["paired"]:
+        data.tables["paired"] = pd.DataFrame(summary["paired"])
+    summary["figures"] = figure_index(summary)
+    data.summary = json_ready(summary)
+    return data
 
+
+def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes: Mapping[int, str | None],
+                 n_boot: int, seed: int) -> tuple[list[dict], list[pd.DataFrame], list[pd.DataFrame]]:
+    """Per selected run: its summary entry (counts, throughput, slope, balance), line times and page rows."""
     pages_f, lines_f = frames["pages"], frames["lines"]
-    runs: list[dict] = []
-    line_times = []
-    page_rows = []
-    for i, r in enumerate(sel.itertuples(index=False)):
+    runs, line_times, page_rows = [], [], []
+    for r in sel.itertuples(index=False):
         rid = int(r.run_id)
         pg = pages_f[pages_f["run_id"] == rid]
         done = pg[pg["status"] == "done"]
@@ -313,131 +314,114 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
         pr.insert(0, "recogniser", r.recogniser)
         pr.insert(0, "run_id", rid)
         page_rows.append(pr)
+    return runs, line_times, page_rows
 
-    summary: dict[str, Any] = {
-        "format": FORMAT_VERSION, "title": title or f"Recogniser comparison: {store.name}",
-        "generated_at": _now(), "ocrbench_version": __version__, "store": str(store),
-        "truth": str(truth) if truth is not None else None, "profile": prof.name if truth is not None else None,
-        "profile_summary": prof.summary if truth is not None else None,
-        "recognisers": runs, "paired": [], "truth_pairing": None, "worst_pages": [], "plan": None,
-        "cautions": list(CAUTIONS),
-    }
-    data = ReportData(summary=summary)
-    pages_table = pd.concat(page_rows, ignore_index=True) if page_rows else pd.DataFrame()
 
-    # ---- accuracy against ground truth
-    if truth is not None:
-        truth_dir = Path(truth)
-        all_ids = sorted({pid for t in texts.values() for pid in t})
-        gt, info = _read_truth(truth_dir, all_ids)
-        summary["truth_pairing"] = info
-        class_rows, worst, score_pages_rows = [], [], []
-        for run in runs:
-            rid = run["run_id"]
-            for which, source in (("raw", texts[rid]), ("post", post_texts[rid] if run["has_post"] else None)):
-                if source is None:
-                    run["accuracy_post"] = None
-                    continue
-                items = [(pid, gt[pid], source[pid]) for pid in sorted(source) if pid in gt]
-                if not items:
-                    run["accuracy" if which == "raw" else "accuracy_post"] = None
-                    continue
-                sc = score_pages(items, profile=prof, classes=True, recogniser_hash=run["card_hash"],
-                                 n_boot=n_boot, seed=seed)
-                acc = _accuracy(sc)
-                run["accuracy" if which == "raw" else "accuracy_post"] = acc
-                for cname, c in acc["classes"].items():
-                    class_rows.append({"run_id": rid, "recogniser": run["name"], "text": which, "class": cname,
-                                       **{k: c[k] for k in ("ref_chars", "errors", "rate", "low", "high",
-                                                            "inserted", "ins_rate")}})
-                sp = sc.pages.copy()
-                sp.insert(0, "text", which)
-                sp.insert(0, "recogniser", run["name"])
-                sp.insert(0, "run_id", rid)
-                score_pages_rows.append(sp)
-                if which == "raw":
-                    data.page_scores[str(rid)] = sc.pages
-                    worst += _worst(run, sc, worst_pages, worst_lines)
-                else:
-                    data.page_scores[f"{rid}/post"] = sc.pages
-            run.setdefault("accuracy", None)
-            run.setdefault("accuracy_post", None)
-        summary["worst_pages"] = worst
-        # paired comparisons: every two runs with accuracy, raw text (and post-processed where both have it)
-        scored = [r for r in runs if r.get("accuracy")]
-        for a in range(len(scored)):
-            for b in range(a + 1, len(scored)):
-                ra, rb = scored[a], scored[b]
-                for which, key in (("raw", ""), ("post", "/post")):
-                    pa = data.page_scores.get(f"{ra['run_id']}{key}")
-                    pb = data.page_scores.get(f"{rb['run_id']}{key}")
-                    if pa is None or pb is None:
-                        continue
-                    try:
-                        cmp = paired_comparison(pa, pb, n_boot=n_boot, seed=seed, names=(ra["name"], rb["name"]))
-                    except ValueError as e:
-                        summary["paired"].append({"a": ra["name"], "b": rb["name"], "text": which,
-                                                  "error": str(e)})
-                        continue
-                    summary["paired"].append({"text": which, **{k: cmp.get(k) for k in (
-                        "a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value",
-                        "winner", "method", "level", "n_boot", "seed")}})
-        if class_rows:
-            data.tables["classes"] = pd.DataFrame(class_rows)
-        if score_pages_rows:
-            sp = pd.concat(score_pages_rows, ignore_index=True)
-            keep = [c for c in ("run_id", "recogniser", "text", "page_id", "pairing", "ref_lines", "hyp_lines",
-                                "ref_chars", "char_edits", "cer", "ref_words", "word_edits", "wer", "subs",
-                                "dels", "ins") if c in sp]
-            data.tables["page_scores"] = sp[keep]
-        if worst:
-            data.tables["worst_lines"] = pd.DataFrame([
-                {"recogniser": w["recogniser"], "page_id": w["page_id"], "page_cer": w["cer"], **ln}
-                for w in worst for ln in w["lines"]])
-    else:
-        for run in runs:
-            run["accuracy"] = run["accuracy_post"] = None
-
-    # ---- plan
-    if plan is not None:
-        if isinstance(plan, PlanResults):
-            summary["plan"] = plan_from_results(plan)
+def _add_accuracy(data: ReportData, store: Path, truth_dir: Path, frames: Mapping[str, pd.DataFrame], prof,
+                  n_boot: int, seed: int, worst_pages: int, worst_lines: int) -> None:
+    """Score every shown run (raw, and post-processed where stored) against the truth folder."""
+    summary = data.summary
+    runs = {run["run_id"]: run for run in summary["recognisers"]}
+    pages_f = frames["pages"]
+    done_ids = pages_f.loc[pages_f["run_id"].isin(list(runs)) & (pages_f["status"] == "done"), "page_id"]
+    reader = TruthReader()
+    gt, pairing, unreadable = read_truth_pages(truth_dir, sorted(set(done_ids)), reader)
+    summary["truth_pairing"] = {"pages_paired": len(gt), "pages_without_truth": list(pairing.hyp_only),
+                                "truth_without_page": list(pairing.truth_only), "unreadable_truth": unreadable}
+    systems, _ = store_systems(store, truth_dir, list(runs), PostText.WHERE_STORED)
+    score_systems(systems, profile=prof, classes=True, n_boot=n_boot, seed=seed, reader=reader)
+    class_rows, worst, score_pages_rows = [], [], []
+    for run in runs.values():
+        run["accuracy"] = run["accuracy_post"] = None
+    for s in systems:
+        run = runs[s.run_id]
+        if not s.scored:
+            continue
+        acc = _accuracy(s.scores)
+        run["accuracy" if s.text == "raw" else "accuracy_post"] = acc
+        for cname, c in acc["classes"].items():
+            class_rows.append({"run_id": s.run_id, "recogniser": run["name"], "text": s.text, "class": cname,
+                               **{k: c[k] for k in ("ref_chars", "errors", "rate", "low", "high", "inserted",
+                                                    "ins_rate")}})
+        sp = s.scores.pages.copy()
+        sp.insert(0, "text", s.text)
+        sp.insert(0, "recogniser", run["name"])
+        sp.insert(0, "run_id", s.run_id)
+        score_pages_rows.append(sp)
+        if s.text == "raw":
+            data.page_scores[str(s.run_id)] = s.scores.pages
+            worst += _worst(run, s.scores, worst_pages, worst_lines)
         else:
-            accuracy, gt_pages = {}, {}
-            for run in runs:
-                post = run.get("accuracy_post")
-                acc = post or run.get("accuracy")
-                if acc and acc.get("cer") is not None and acc.get("cer_low") is not None:
-                    accuracy[run["name"]] = (acc["cer"], acc["cer_low"], acc["cer_high"])
-                    key = f"{run['run_id']}/post" if post else str(run["run_id"])
-                    if key in data.page_scores:
-                        gt_pages[run["name"]] = data.page_scores[key]
-            summary["plan"] = compute_plan(store, frames, plan, runs, accuracy=accuracy, page_scores=gt_pages,
-                                           curve_max_workers=curve_max_workers)
-            summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
-                                                  if accuracy else None)
-        summary["plan"]["currency"] = currency
-        for run in runs:
-            run["plan"] = summary["plan"]["rows"].get(run["name"])
-        if summary["plan"]["curve"]:
-            data.tables["plan_curve"] = pd.DataFrame(summary["plan"]["curve"])
-        data.tables["plan"] = pd.DataFrame([{"recogniser": k, **v} for k, v in summary["plan"]["rows"].items()])
-    else:
-        for run in runs:
-            run["plan"] = None
+            data.page_scores[f"{s.run_id}/post"] = s.scores.pages
+    summary["worst_pages"] = worst
+    summary["paired"] = _paired(systems, runs, n_boot, seed)
+    if class_rows:
+        data.tables["classes"] = pd.DataFrame(class_rows)
+    if score_pages_rows:
+        sp = pd.concat(score_pages_rows, ignore_index=True)
+        keep = [c for c in ("run_id", "recogniser", "text", "page_id", "pairing", "ref_lines", "hyp_lines",
+                            "ref_chars", "char_edits", "cer", "ref_words", "word_edits", "wer", "subs",
+                            "dels", "ins") if c in sp]
+        data.tables["page_scores"] = sp[keep]
+    if worst:
+        data.tables["worst_lines"] = pd.DataFrame([
+            {"recogniser": w["recogniser"], "page_id": w["page_id"], "page_cer": w["cer"], **ln}
+            for w in worst for ln in w["lines"]])
 
-    # ---- tables
-    data.tables["recognisers"] = pd.DataFrame([_flat_row(r) for r in runs])
-    if not pages_table.empty:
-        data.tables["pages"] = pages_table
-    if line_times:
-        data.line_times = pd.concat(line_times, ignore_index=True)
-        data.tables["line_times"] = data.line_times
-    if summary["paired"]:
-        data.tables["paired"] = pd.DataFrame(summary["paired"])
-    summary["figures"] = figure_index(summary)
-    data.summary = _clean(summary)
-    return data
+
+_PAIRED_KEYS = ("a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value",
+                "winner", "method", "level", "n_boot", "seed")
+
+
+def _paired(systems: Sequence[System], runs: Mapping[int, dict], n_boot: int, seed: int) -> list[dict]:
+    """Every two runs with raw accuracy, compared on raw text, then on post-processed text where both have it."""
+    scored = [rid for rid, r in runs.items() if r.get("accuracy")]
+    by_key = {(s.run_id, s.text): s for s in systems if s.scored}
+    out = []
+    for i, ra in enumerate(scored):
+        for rb in scored[i + 1:]:
+            for which in ("raw", "post"):
+                sa, sb = by_key.get((ra, which)), by_key.get((rb, which))
+                if sa is None or sb is None:
+                    continue
+                # names are the recognisers' (the report's rows), not the systems' labels
+                cmp = compare(System(runs[ra]["name"], ra, None, sa.pairing, sa.load, scores=sa.scores),
+                              System(runs[rb]["name"], rb, None, sb.pairing, sb.load, scores=sb.scores),
+                              n_boot=n_boot, seed=seed)
+                if "error" in cmp:
+                    out.append({"a": cmp["a"], "b": cmp["b"], "text": which, "error": cmp["error"]})
+                else:
+                    out.append({"text": which, **{k: cmp.get(k) for k in _PAIRED_KEYS}})
+    return out
+
+
+def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
+              plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int) -> None:
+    """The plan section: given results as they are, or a request computed on this store."""
+    summary = data.summary
+    runs = summary["recognisers"]
+    if isinstance(plan, PlanResults):
+        summary["plan"] = plan_from_results(plan)
+    else:
+        accuracy, gt_pages = {}, {}
+        for run in runs:
+            post = run.get("accuracy_post")
+            acc = post or run.get("accuracy")
+            if acc and acc.get("cer") is not None and acc.get("cer_low") is not None:
+                accuracy[run["name"]] = (acc["cer"], acc["cer_low"], acc["cer_high"])
+                key = f"{run['run_id']}/post" if post else str(run["run_id"])
+                if key in data.page_scores:
+                    gt_pages[run["name"]] = data.page_scores[key]
+        summary["plan"] = compute_plan(store, frames, plan, runs, accuracy=accuracy, page_scores=gt_pages,
+                                       curve_max_workers=curve_max_workers)
+        summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
+                                              if accuracy else None)
+    summary["plan"]["currency"] = currency
+    for run in runs:
+        run["plan"] = summary["plan"]["rows"].get(run["name"])
+    if summary["plan"]["curve"]:
+        data.tables["plan_curve"] = pd.DataFrame(summary["plan"]["curve"])
+    data.tables["plan"] = pd.DataFrame([{"recogniser": k, **v} for k, v in summary["plan"]["rows"].items()])
 
 
 def _flat_row(run: dict) -> dict:

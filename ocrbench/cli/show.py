@@ -1,0 +1,162 @@
+"""Console output shared by commands: how scores, intervals and characters are printed.
+
+Only printing lives here (rich tables); every figure comes from the library's
+summaries unchanged.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from rich.console import Console
+from rich.table import Table
+
+__all__ = ["show_char", "pct", "interval", "wide_console", "print_scores", "print_comparisons", "print_run_summary",
+           "print_run_problems"]
+
+
+def show_char(ch: str) -> str:
+    """A character as a person can read it in a table (spaces, line breaks and invisibles named)."""
+    if ch == "":
+        return "(none)"
+    if ch == " ":
+        return "space"
+    if ch == "\n":
+        return "line break"
+    if not ch.isprintable() or ch.isspace():
+        return f"U+{ord(ch):04X}"
+    return ch
+
+
+def pct(v: float | None) -> str:
+    return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{100 * v:.2f}%"
+
+
+def interval(lo: float | None, hi: float | None) -> str:
+    return "-" if lo is None or hi is None else f"{100 * lo:.2f}% – {100 * hi:.2f}%"
+
+
+def wide_console() -> Console:
+    """stdout; at least 132 columns when it is not a terminal (so piped tables do not fold)."""
+    con = Console()
+    return con if con.is_terminal else Console(width=max(con.width, 132))
+
+
+def _figures(sm: dict) -> Table:
+    t = Table(title=f"{sm['system']} — profile {sm['profile']}, {sm['pages']} pages", title_justify="left")
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column(f"{100 * sm['interval']['level']:g}% interval", justify="right")
+    t.add_column("counts", justify="right")
+    t.add_row("CER (corpus)", pct(sm["cer"]), interval(sm["cer_low"], sm["cer_high"]),
+              f"{sm['char_edits']:,} edits / {sm['ref_chars']:,} chars")
+    t.add_row("WER (corpus)", pct(sm["wer"]), interval(sm["wer_low"], sm["wer_high"]),
+              f"{sm['word_edits']:,} edits / {sm['ref_words']:,} words")
+    t.add_row("CER (page mean)", pct(sm["cer_page_mean"]), "-", "mean of page rates")
+    if sm["subs"] is not None:
+        t.add_row("substitutions / deletions / insertions", "", "",
+                  f"{sm['subs']:,} / {sm['dels']:,} / {sm['ins']:,}")
+    if sm["amounts"]:
+        a = sm["amounts"]
+        t.add_row("amounts with digits right", pct(a["share_right"]), interval(a["low"], a["high"]),
+                  f"{a['right']:,} of {a['found']:,}")
+    return t
+
+
+def _classes(sm: dict) -> Table:
+    c = Table(title="by character class (substitutions and deletions charged to the truth character; "
+                    "insertions to the inserted one)", title_justify="left")
+    for col in ("class", "truth chars", "errors", "error rate", "interval", "inserted"):
+        c.add_column(col, justify="left" if col == "class" else "right")
+    for name, v in sm["classes"].items():
+        c.add_row(name, f"{v['ref_chars']:,}", f"{v['errors']:,}", pct(v["rate"]),
+                  interval(v["low"], v["high"]), f"{v['inserted']:,}")
+    return c
+
+
+def _confusions(sm: dict, top: int) -> Table:
+    f = Table(title=f"most frequent confusions (truth → recognised), top {top}", title_justify="left")
+    for col in ("truth", "recognised", "kind", "count"):
+        f.add_column(col, justify="right" if col == "count" else "left")
+    for row in sm["confusions"][:top]:
+        f.add_row(show_char(row["ref"]), show_char(row["hyp"]), row["op"], f"{row['count']:,}")
+    return f
+
+
+def print_scores(con: Console, sm: dict, top: int) -> None:
+    """One system's corpus figures, classes and confusions (``sm``: its JSON report)."""
+    con.print(_figures(sm))
+    if sm["classes"]:
+        con.print(_classes(sm))
+    if sm["confusions"] and top:
+        con.print(_confusions(sm, top))
+    if sm["line_count_mismatch"]:
+        n = len(sm["line_count_mismatch"])
+        con.print(f"{n} page{'s' if n != 1 else ''} had different line counts and "
+                  f"{'were' if n != 1 else 'was'} aligned as one text each.", markup=False, highlight=False)
+    con.print(f"recipe: {sm['recipe']}", markup=False, highlight=False, style="dim", soft_wrap=True)
+
+
+def print_comparisons(con: Console, comparisons: list[dict]) -> None:
+    """The paired CER comparisons, one row each."""
+    c = Table(title="paired comparisons (CER, same pages)", title_justify="left")
+    for col in ("a", "b", "CER a − b", "interval", "p-value", "better"):
+        c.add_column(col)
+    for r in comparisons:
+        if "error" in r:
+            c.add_row(r["a"], r["b"], "-", "-", "-", r["error"])
+            continue
+        c.add_row(r["a"], r["b"], pct(r["diff"]), interval(r["low"], r["high"]),
+                  "-" if r["p_value"] is None else f"{r['p_value']:.3g}", r["winner"] or "no clear difference")
+    con.print(c)
+
+
+# --------------------------------------------------------------------------- runs
+
+
+def _fmt(v, spec: str) -> str:
+    return "-" if v is None else format(v, spec)
+
+
+def print_run_summary(summary, store: Path, text_out: Path | None, written: dict, pipeline) -> None:
+    """The run summary table, what was written and the post-processing recipe (stdout)."""
+    out = wide_console()
+    table = Table(title=f"Run summary: {summary.input_dir}")
+    for col in ("recogniser", "kind", "run", "pages done", "failed", "lines", "page s p50", "p90", "p99",
+                "pages/hour", "lines/s"):
+        table.add_column(col, justify="left" if col in ("recogniser", "kind") else "right")
+    for r in summary.recognisers:
+        table.add_row(r.name, r.kind, f"{r.run_id}{' (resumed)' if r.resumed else ''}", str(r.pages_done),
+                      str(r.pages_failed), str(r.lines), _fmt(r.page_seconds_p50, ".3f"),
+                      _fmt(r.page_seconds_p90, ".3f"), _fmt(r.page_seconds_p99, ".3f"),
+                      _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
+    out.print(table)
+    out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
+              f"{summary.wall_seconds:.1f} s; store: {store}", markup=False, highlight=False)
+    if text_out is not None:
+        out.print(f"texts{' (post-processed)' if pipeline is not None else ''}: "
+                  f"{', '.join(str(text_out / k) for k in written)}", markup=False, highlight=False)
+    if pipeline is not None:
+        out.print(f"post-processed text stored beside the raw text; recipe: {pipeline.recipe}", markup=False,
+                  highlight=False, soft_wrap=True)
+
+
+def print_run_problems(summary, store: Path) -> None:
+    """One stderr line per failed page or post-processing problem, then the count of failed pages."""
+    err = Console(stderr=True)
+
+    def say(text: str) -> None:
+        err.print(f"ocrbench: {text}", markup=False, highlight=False, soft_wrap=True)
+
+    for r in summary.recognisers:
+        for page_id, error in r.post_failures:
+            say(f"{r.name}: {page_id}: post-processing refused this page ({error}); its raw text is kept")
+        if r.post_incomplete:
+            say(f"{r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed text (pages "
+                f"added without post-processing); refill with: ocrbench postprocess {store} --run {r.run_id}")
+    for r in summary.recognisers:
+        for page_id, error in r.failures:
+            say(f"{r.name}: {page_id}: {error}")
+    if summary.failed_pages:
+        say(f"{len(summary.failed_pages)} of {summary.pages_total} pages failed")
