@@ -269,83 +269,98 @@ def _random_amount(rng: random.Random, spec: PageSpec) -> int:
     return f if rng.random() < 0.25 else f - f % 4
 
 
-def render_page(spec: PageSpec) -> tuple[Image.Image, PageTruth]:
-    """Render one cash-book page. Returns the image (mode L) and its truth."""
-    rng = random.Random(spec.seed)
-    fnt = font(spec.font, spec.font_size)
+@dataclass
+class _Geometry:
+    """Where a page's columns sit, in pixels (from the spec, the font and the first random draws)."""
+
+    pitch: int
+    top: int
+    margin_x: int
+    text_w: int
+    x_date: int
+    x_payee: int
+    x_part: int
+    right: int
+    col_w: int
+    amount_x: list[int]
+
+
+def _geometry(spec: PageSpec, fnt, rng: random.Random) -> _Geometry:
     ascent, descent = fnt.getmetrics()
     pitch = int(round((ascent + descent) * rng.uniform(1.45, 1.75)))
     margin_x = int(spec.width * 0.07)
-    top = int(pitch * 2.2)
-
-    # Field layout: positions as fractions of the text width.
     text_w = spec.width - 2 * margin_x
-    date_style = rng.choice(["dmy", "md", "slash", "iso"])
-    amount_ncols = 3 if spec.currency == "lsd" else 1
-
-    # Build the rows: list of (fields, kind). Each field is (text, x, align).
-    rows: list[tuple[list[tuple[str, int, str]], str]] = []
-    x_date = margin_x
-    x_payee = margin_x + int(text_w * 0.20)
-    x_part = margin_x + int(text_w * 0.44)
     right = margin_x + text_w
     col_w = int(fnt.getlength("0000") * 1.1)
-    if amount_ncols == 3:
+    if spec.currency == "lsd":
         amount_x = [right - 2 * col_w - int(col_w * 0.5), right - col_w - int(col_w * 0.2), right]
     else:
         amount_x = [right]
+    return _Geometry(pitch=pitch, top=int(pitch * 2.2), margin_x=margin_x, text_w=text_w, x_date=margin_x,
+                     x_payee=margin_x + int(text_w * 0.20), x_part=margin_x + int(text_w * 0.44), right=right,
+                     col_w=col_w, amount_x=amount_x)
+
+
+Row = tuple[list[tuple[str, int, str]], str]   # fields (text, x, align) and the row's kind
+
+
+def _entry_particulars(spec: PageSpec, fnt, rng: random.Random, g: _Geometry, want: int) -> str:
+    """Particulars of one entry, cut at word boundaries to fit its column."""
+    part = particulars(rng)
+    while len(part) < want - 6:
+        part += " " + rng.choice([particulars(rng), rng.choice(_PLACES), rng.choice(_GOODS)])
+    max_w = (g.amount_x[0] - g.col_w * (1.6 if len(g.amount_x) == 1 else 0.9)) - g.x_part
+    words = part.split()
+    while len(words) > 1 and (len(" ".join(words)) > want or fnt.getlength(" ".join(words)) > max_w):
+        words.pop()
+    while words and words[-1] in ("&", "per", "to", "of", "on", "from"):
+        words.pop()
+    return " ".join(words) or "sundries"
+
+
+def _page_rows(spec: PageSpec, fnt, rng: random.Random, g: _Geometry, date_style: str) -> tuple[list[Row], int]:
+    """The page's rows (header, headings, brought forward, entries, total) and its closing total."""
 
     def amount_fields(value: int) -> list[tuple[str, int, str]]:
-        return [(t, x, "r") for t, x in zip(_amount_cols(spec, value), amount_x)]
+        return [(t, x, "r") for t, x in zip(_amount_cols(spec, value), g.amount_x)]
 
-    rows.append(([(FIRM, margin_x, "l"), ("Cash Book", margin_x + int(text_w * 0.45), "l"),
-                  (f"Folio {spec.folio}", right, "r")], "header"))
-    head_amount = (["£", "s", "d"] if amount_ncols == 3 else ["Amount"])
-    rows.append(([("Date", x_date, "l"), ("Payee", x_payee, "l"), ("Particulars", x_part, "l")]
-                 + [(t, x, "r") for t, x in zip(head_amount, amount_x)], "headings"))
+    rows: list[Row] = [([(FIRM, g.margin_x, "l"), ("Cash Book", g.margin_x + int(g.text_w * 0.45), "l"),
+                         (f"Folio {spec.folio}", g.right, "r")], "header")]
+    head_amount = (["£", "s", "d"] if len(g.amount_x) == 3 else ["Amount"])
+    rows.append(([("Date", g.x_date, "l"), ("Payee", g.x_payee, "l"), ("Particulars", g.x_part, "l")]
+                 + [(t, x, "r") for t, x in zip(head_amount, g.amount_x)], "headings"))
     total = spec.brought_forward
     if spec.folio > 1:
-        rows.append(([("Brought forward", x_payee, "l")] + amount_fields(total), "brought"))
+        rows.append(([("Brought forward", g.x_payee, "l")] + amount_fields(total), "brought"))
     dates = sorted(random_date(rng, spec.year) for _ in range(spec.lines_per_page))
-    # Space available for particulars, in characters.
     for d in dates:
         value = _random_amount(rng, spec)
         total += value
         date_s = format_date(d, date_style)
         payee = invented_payee(rng)
         base = len(date_s) + len(payee) + sum(len(t) for t in _amount_cols(spec, value)) + 4
-        want = max(6, spec.chars_per_line - base)
-        part = particulars(rng)
-        while len(part) < want - 6:
-            part += " " + rng.choice([particulars(rng), rng.choice(_PLACES), rng.choice(_GOODS)])
-        # keep particulars inside its column, cutting at word boundaries
-        max_w = (amount_x[0] - col_w * (1.6 if amount_ncols == 1 else 0.9)) - x_part
-        words = part.split()
-        while len(words) > 1 and (len(" ".join(words)) > want or fnt.getlength(" ".join(words)) > max_w):
-            words.pop()
-        while words and words[-1] in ("&", "per", "to", "of", "on", "from"):
-            words.pop()
-        part = " ".join(words) or "sundries"
-        rows.append(([(date_s, x_date, "l"), (payee, x_payee, "l"), (part, x_part, "l")]
+        part = _entry_particulars(spec, fnt, rng, g, max(6, spec.chars_per_line - base))
+        rows.append(([(date_s, g.x_date, "l"), (payee, g.x_payee, "l"), (part, g.x_part, "l")]
                      + amount_fields(value), "entry"))
     final_label = "Carried forward" if rng.random() < 0.6 else "Total"
-    rows.append(([(final_label, x_payee, "l")] + amount_fields(total), "total"))
+    rows.append(([(final_label, g.x_payee, "l")] + amount_fields(total), "total"))
+    return rows, total
 
-    height = top + pitch * (len(rows) + 1) + int(pitch * 1.5)
-    height = max(height, int(spec.width * 1.3))
-    ink = rng.randint(90, 140) if (spec.degrade and rng.random() < 0.5) else rng.randint(0, 40)
 
-    page = Image.new("L", (spec.width, height), 255)
-    draw = ImageDraw.Draw(page)
+def _draw_rows(page: Image.Image, rows: list[Row], fnt, g: _Geometry, ink: int
+               ) -> tuple[list[str], list[tuple[int, int, int, int]], list[str]]:
+    """Draw each row in its own band (so its box is exact) onto ``page``; lines, boxes and kinds."""
+    ascent, descent = fnt.getmetrics()
+    band_h = ascent + descent + 8
     lines: list[str] = []
     boxes: list[tuple[int, int, int, int]] = []
     kinds: list[str] = []
-    band_h = ascent + descent + 8
+    width = page.width
     for i, (fields, kind) in enumerate(rows):
-        baseline = top + i * pitch + ascent
+        baseline = g.top + i * g.pitch + ascent
         if kind == "total":
-            baseline += pitch // 3
-        band = Image.new("L", (spec.width, band_h), 255)
+            baseline += g.pitch // 3
+        band = Image.new("L", (width, band_h), 255)
         bd = ImageDraw.Draw(band)
         prev_end = -1e9
         min_gap = 1.5 * fnt.getlength(" ")
@@ -359,21 +374,45 @@ def render_page(spec: PageSpec) -> tuple[Image.Image, PageTruth]:
         if bb is None:
             continue
         y0 = baseline - ascent - 4
-        page.paste(Image.fromarray(np.minimum(np.asarray(page.crop((0, y0, spec.width, y0 + band_h))),
+        page.paste(Image.fromarray(np.minimum(np.asarray(page.crop((0, y0, width, y0 + band_h))),
                                               np.asarray(band))), (0, y0))
         boxes.append((bb[0], bb[1] + y0, bb[2], bb[3] + y0))
         lines.append(" ".join(t for t, _, _ in fields))
         kinds.append(kind)
+    return lines, boxes, kinds
 
+
+def _draw_rules(page: Image.Image, boxes: list[tuple[int, int, int, int]], g: _Geometry, ink: int) -> None:
+    """A rule under the headings and a double rule above the total."""
+    draw = ImageDraw.Draw(page)
+    rule_ink = max(0, ink - 10)
+    y = (boxes[1][3] + boxes[2][1]) // 2
+    draw.line([(g.margin_x - 10, y), (g.right + 10, y)], fill=rule_ink, width=2)
+    yt = (boxes[-2][3] + boxes[-1][1]) // 2
+    draw.line([(g.amount_x[0] - g.col_w * 1.3, yt - 2), (g.right + 6, yt - 2)], fill=rule_ink, width=1)
+    draw.line([(g.amount_x[0] - g.col_w * 1.3, yt + 2), (g.right + 6, yt + 2)], fill=rule_ink, width=1)
+
+
+def render_page(spec: PageSpec) -> tuple[Image.Image, PageTruth]:
+    """Render one cash-book page. Returns the image (mode L) and its truth.
+
+    The random draws happen in a fixed order (geometry, date style, rows, ink, degradation),
+    so a seed gives the same page byte for byte.
+    """
+    rng = random.Random(spec.seed)
+    fnt = font(spec.font, spec.font_size)
+    g = _geometry(spec, fnt, rng)
+    date_style = rng.choice(["dmy", "md", "slash", "iso"])
+    rows, total = _page_rows(spec, fnt, rng, g, date_style)
+
+    height = g.top + g.pitch * (len(rows) + 1) + int(g.pitch * 1.5)
+    height = max(height, int(spec.width * 1.3))
+    ink = rng.randint(90, 140) if (spec.degrade and rng.random() < 0.5) else rng.randint(0, 40)
+
+    page = Image.new("L", (spec.width, height), 255)
+    lines, boxes, kinds = _draw_rows(page, rows, fnt, g, ink)
     if spec.rules:
-        rule_ink = max(0, ink - 10)
-        # Rule under the headings: midway between headings and the next line.
-        y = (boxes[1][3] + boxes[2][1]) // 2
-        draw.line([(margin_x - 10, y), (right + 10, y)], fill=rule_ink, width=2)
-        # Double rule above the total.
-        yt = (boxes[-2][3] + boxes[-1][1]) // 2
-        draw.line([(amount_x[0] - col_w * 1.3, yt - 2), (right + 6, yt - 2)], fill=rule_ink, width=1)
-        draw.line([(amount_x[0] - col_w * 1.3, yt + 2), (right + 6, yt + 2)], fill=rule_ink, width=1)
+        _draw_rules(page, boxes, g, ink)
 
     img = page
     if spec.rotation_degrees:
