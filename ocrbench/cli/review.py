@@ -126,7 +126,7 @@ def review(
                                             f"recognised lines on {pid}; left out of the calibration")
                             continue
                         hyp = g["text"].fillna("").tolist()
-                        e = line_edits(hyp, ref, normalise=norm)
+                        e = line_edits(ref, hyp, normalise=norm)
                         for no, k in zip(g["line_no"], e):
                             edits[(str(pid), int(no))] = int(k)
                         texts += hyp
@@ -134,7 +134,7 @@ def review(
                         truths += ref
                         groups += [str(pid)] * len(ref)
                     if texts:
-                        cal = calibration(texts, confs, truths, page_ids=groups, normalise=norm)
+                        cal = calibration(truths, texts, confs, page_ids=groups, normalise=norm)
                         res["calibration"] = cal.to_dict()
                         res["head_catch"] = _head_catch(edits, {(r.page_id, int(r.line_no)) for r in head.itertuples()})
                     else:

@@ -240,13 +240,13 @@ def auroc_interval(y_true: Sequence[bool] | np.ndarray, score: Sequence[float] |
     return float(lo), float(hi)
 
 
-def line_edits(texts: Sequence[str], truths: Sequence[str], *,
+def line_edits(truths: Sequence[str], texts: Sequence[str], *,
                normalise: Callable[[str], str] | None = None) -> np.ndarray:
-    """Character edits (Levenshtein distance) of each recognised line against its truth."""
+    """Character edits (Levenshtein distance) of each recognised line against its truth (truth first)."""
     if len(texts) != len(truths):
         raise ValueError(f"{len(texts)} recognised lines but {len(truths)} truth lines")
     f = normalise or (lambda t: t)
-    return np.array([Levenshtein.distance(f(h), f(r)) for h, r in zip(texts, truths)], dtype=np.int64)
+    return np.array([Levenshtein.distance(f(r), f(h)) for r, h in zip(truths, texts)], dtype=np.int64)
 
 
 def error_by_decile(confidences: Sequence[float], edits: Sequence[int], ref_chars: Sequence[int], *,
@@ -299,17 +299,18 @@ class Calibration:
                 "deciles": self.deciles.to_dict(orient="records")}
 
 
-def calibration(texts: Sequence[str], confidences: Sequence[float], truths: Sequence[str], *,
+def calibration(truths: Sequence[str], texts: Sequence[str], confidences: Sequence[float | None], *,
                 page_ids: Sequence[Any] | None = None, normalise: Callable[[str], str] | None = None,
                 n_bins: int = 10, n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> Calibration:
     """Calibration figures on lines with ground truth (aligned lists, one entry per line).
 
-    A line "holds errors" when its edit distance to the truth (after
-    ``normalise``, e.g. the accuracy module's profile) is above zero. Lines with
-    no confidence are left out.
+    Truth first, then the recognised text and its confidence. A line "holds
+    errors" when its edit distance to the truth (after ``normalise``, e.g. the
+    accuracy module's profile) is above zero. Lines with no confidence (None
+    or NaN: a line the model could not read) are left out.
     """
-    conf = np.asarray(confidences, dtype=float)
-    edits = line_edits(texts, truths, normalise=normalise)
+    conf = np.array([np.nan if c is None else c for c in confidences], dtype=float)
+    edits = line_edits(truths, texts, normalise=normalise)
     f = normalise or (lambda t: t)
     ref = np.array([len(f(t)) for t in truths], dtype=np.int64)
     keep = ~np.isnan(conf)
