@@ -25,9 +25,10 @@ from rich.table import Table
 
 from ocrbench.cli.progress import RunProgress
 from ocrbench.io.textdir import write_texts
-from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError, TextFileError
 from ocrbench.recognisers.base import DECODINGS, EngineOptions
+from ocrbench.store import printable
 
 
 
@@ -70,6 +71,8 @@ def run(
                                             help="Read pages on an existing Dask cluster (tcp://HOST:PORT)."),
     pages_per_task: int = typer.Option(1, "--pages-per-task", min=1,
                                        help="With --workers/--scheduler: pages sent to a worker at a time."),
+    connect_timeout: float = typer.Option(10.0, "--connect-timeout", min=0.1,
+                                          help="With --scheduler: seconds to reach the scheduler and find a worker."),
     postprocess_on: bool = typer.Option(False, "--postprocess",
                                         help="Post-process each page's text and store it beside the raw text "
                                              "(steps: unicode,whitespace; with --word-list also "
@@ -91,8 +94,10 @@ def run(
 
     if decoding not in DECODINGS:
         raise fail(f"--decoding must be one of {', '.join(DECODINGS)}, not {decoding!r}", EXIT_USAGE)
-    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1):
-        raise fail("--threads-per-worker, --no-processes and --pages-per-task need --workers or --scheduler",
+    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1
+                                                  or connect_timeout != 10.0):
+        raise fail("--threads-per-worker, --no-processes, --pages-per-task and --connect-timeout need --workers or "
+                   "--scheduler",
                    EXIT_USAGE)
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
@@ -125,7 +130,8 @@ def run(
                     from ocrbench.run.distributed import DaskOptions, run_distributed
 
                     dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
-                                       scheduler=scheduler, pages_per_task=pages_per_task)
+                                       scheduler=scheduler, pages_per_task=pages_per_task,
+                                       connect_timeout=connect_timeout)
                     summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
                                               dask=dask, progress=RunProgress(bar, task), fresh=fresh,
                                               postprocess=pipeline)
@@ -134,7 +140,8 @@ def run(
                 for r in summary.recognisers:
                     written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
     except KeyboardInterrupt:
-        raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
+        raise fail("interrupted; finished pages are in the store: rerun the same command to resume",
+                   EXIT_INTERRUPTED)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
 
@@ -148,7 +155,7 @@ def run(
         out = Console()
         if not out.is_terminal:
             out = Console(width=max(out.width, 132))
-        table = Table(title=f"Run summary: {summary.input_dir}")
+        table = Table(title=f"Run summary: {printable(summary.input_dir)}")
         for col in ("recogniser", "kind", "run", "pages done", "failed", "lines", "page s p50", "p90", "p99",
                     "pages/hour", "lines/s"):
             table.add_column(col, justify="left" if col in ("recogniser", "kind") else "right")
@@ -159,7 +166,9 @@ def run(
                           _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
         out.print(table)
         out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
-                  f"{summary.wall_seconds:.1f} s; store: {store}")
+                  f"{summary.wall_seconds:.1f} s; store: {printable(store)}", markup=False, highlight=False)
+        for note in summary.notes():
+            out.print(note, markup=False, highlight=False, soft_wrap=True)
         if text_out is not None:
             out.print(f"texts{' (post-processed)' if pipeline is not None else ''}: "
                       f"{', '.join(str(text_out / k) for k in written)}")
@@ -168,7 +177,7 @@ def run(
                       highlight=False, soft_wrap=True)
     for r in summary.recognisers:
         for page_id, error in r.post_failures:
-            err.print(f"ocrbench: {r.name}: {page_id}: post-processing refused this page ({error}); its raw text "
+            err.print(f"ocrbench: {r.name}: {printable(page_id)}: post-processing refused this page ({error}); its raw text "
                       "is kept", markup=False, highlight=False, soft_wrap=True)
         if r.post_incomplete:
             err.print(f"ocrbench: {r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed "
@@ -176,7 +185,8 @@ def run(
                       f"--run {r.run_id}", markup=False, highlight=False, soft_wrap=True)
     for r in summary.recognisers:
         for page_id, error in r.failures:
-            err.print(f"ocrbench: {r.name}: {page_id}: {error}", markup=False, highlight=False, soft_wrap=True)
+            err.print(f"ocrbench: {r.name}: {printable(page_id)}: {printable(error)}", markup=False, highlight=False,
+                      soft_wrap=True)
     if failed:
         err.print(f"ocrbench: {len(failed)} of {summary.pages_total} pages failed", markup=False, highlight=False,
                   soft_wrap=True)

@@ -22,6 +22,10 @@ Doubt score of a line (documented formula, all parts within 0..1)::
 Default weights 1, 1, 0.5 (:class:`DoubtWeights`): failed arithmetic is as
 strong a sign as a confidence of zero; an unlisted word is weaker, since word
 lists are never complete. Ties are broken by page and line order.
+
+Lines known to be incomplete come before every other line, whatever their
+doubt: a line the recogniser's length guard cut (``truncated``) and a line the
+model could not read (``error``, e.g. NaN output; its confidence is unknown).
 """
 
 from __future__ import annotations
@@ -81,8 +85,21 @@ def _as_frame(lines: pd.DataFrame | Sequence[Mapping[str, Any]]) -> pd.DataFrame
             raise ValueError(f"review queue needs a {col!r} column; got {list(df.columns)}")
     if "confidence" not in df.columns:
         df["confidence"] = np.nan
+    df["confidence"] = pd.to_numeric(df["confidence"], errors="coerce").astype(float)   # NULL -> NaN
     df["text"] = df["text"].fillna("").astype(str)
     return df
+
+
+def _incomplete(df: pd.DataFrame, reasons: list[list[str]]) -> np.ndarray:
+    """Lines cut by the length guard or left unread (see the module notes); their reasons come first."""
+    cut = (df["truncated"].fillna(0).astype(bool).to_numpy() if "truncated" in df.columns
+           else np.zeros(len(df), dtype=bool))
+    failed = df["error"].notna().to_numpy() if "error" in df.columns else np.zeros(len(df), dtype=bool)
+    for i in np.flatnonzero(failed):
+        reasons[i].insert(0, f"not read: {df['error'].iloc[i]}")
+    for i in np.flatnonzero(cut):
+        reasons[i].insert(0, "cut by the recogniser's length guard")
+    return cut | failed
 
 
 def ledger_parts(balance: _ledger.PageBalance) -> dict[int, tuple[float, str]]:
@@ -106,10 +123,11 @@ def ledger_parts(balance: _ledger.PageBalance) -> dict[int, tuple[float, str]]:
 
 @dataclass
 class ReviewQueue:
-    """Lines ranked by doubt (most doubtful first) and the time to review them.
+    """Lines ranked by doubt (incomplete lines, then the most doubtful, first) and the time to review them.
 
     ``table`` columns: page_id, line_no, text, confidence, doubt, conf_part,
-    ledger_part, word_part, reasons, seconds (expected review time of the line).
+    ledger_part, word_part, reasons, seconds (expected review time of the line),
+    incomplete (cut by the length guard or not read: always at the head).
     """
 
     table: pd.DataFrame
@@ -122,7 +140,7 @@ class ReviewQueue:
         and no more than ``max_minutes`` of review in all."""
         t = self.table
         if min_doubt is not None:
-            t = t[t["doubt"] >= min_doubt]
+            t = t[(t["doubt"] >= min_doubt) | t["incomplete"]]
         if max_lines is not None:
             t = t.head(max_lines)
         if max_minutes is not None:
@@ -175,11 +193,12 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
     df["word_part"] = word_col
     for i, c in enumerate(conf):
         reasons[i].insert(0, "confidence unknown" if pd.isna(c) else f"confidence {c:.2f}")
+    df["incomplete"] = _incomplete(df, reasons)
     df["doubt"] = (weights.confidence * df["conf_part"] + weights.arithmetic * df["ledger_part"]
                    + weights.unknown_words * df["word_part"])
     df["reasons"] = ["; ".join(r) for r in reasons]
     df["seconds"] = rate.seconds(df["text"].str.len().to_numpy())
-    df = df.sort_values("doubt", ascending=False, kind="stable").reset_index(drop=True)
+    df = df.sort_values(["incomplete", "doubt"], ascending=[False, False], kind="stable").reset_index(drop=True)
     cols = ["page_id", "line_no", "text", "confidence", "doubt", "conf_part", "ledger_part",
             "word_part", "reasons", "seconds"]
     extra = [c for c in df.columns if c not in cols]
