@@ -102,6 +102,15 @@ def run(
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
     err = Console(stderr=True)
+    dask = None
+    if workers is not None or scheduler is not None:       # checked before anything is opened or started
+        from ocrbench.run.distributed import DaskOptions
+
+        try:
+            dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
+                               scheduler=scheduler, pages_per_task=pages_per_task, connect_timeout=connect_timeout)
+        except OcrbenchError as e:
+            raise fail(str(e), EXIT_USAGE)
     pipeline = None
     if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
         try:
@@ -123,15 +132,12 @@ def run(
                           TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
                           console=err, transient=False) as bar:
                 task = bar.add_task("loading recognisers", total=None, lps="-")
-                if workers is None and scheduler is None:
+                if dask is None:
                     summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
                                         progress=RunProgress(bar, task), fresh=fresh, postprocess=pipeline)
                 else:
-                    from ocrbench.run.distributed import DaskOptions, run_distributed
+                    from ocrbench.run.distributed import run_distributed
 
-                    dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
-                                       scheduler=scheduler, pages_per_task=pages_per_task,
-                                       connect_timeout=connect_timeout)
                     summary = run_distributed(target, recogniser, store=st, options=RunOptions(engine=engine),
                                               dask=dask, progress=RunProgress(bar, task), fresh=fresh,
                                               postprocess=pipeline)
