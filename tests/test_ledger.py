@@ -105,6 +105,37 @@ def test_amount_is_the_trailing_field():
     assert (a.text, a.value) == ("9.60", 960)
 
 
+def test_one_grammar_reads_pounds_written_after_the_number_the_same_everywhere():
+    # Hand-worked: 12l. 7s. 6d. is £12 7s 6d = (12*20 + 7)*12 + 6 = 2970 pence = 11,880 farthings.
+    from ocrbench.accuracy import normalise
+    from ocrbench.ledger import amounts
+
+    line = "To Kettle for coals 12l. 7s. 6d."
+    scored = amounts.find_amounts(line)                              # accuracy scoring
+    assert [(a.text, a.digits) for a in scored] == [("12l. 7s. 6d.", "12 7 6")]
+    norm = normalise.apply(line, "ledger")                           # normalisation
+    assert norm.endswith("£12 7s 6d")
+    assert [a.digits for a in amounts.find_amounts(norm)] == ["12 7 6"]
+    checked = L.find_amount(line, L.LSD_MARKED)                      # the balance check
+    assert (checked.text, checked.value) == ("12l. 7s. 6d.", L.lsd_to_farthings(12, 7, 6)) == ("12l. 7s. 6d.", 11880)
+    assert L.detect_form([line]) == L.LSD_MARKED
+    # and a page written that way adds up: 12l. 7s. 6d. + 3l. 12s. 6d. = 16l. 0s. 0d. (6d + 6d = 1s, 7s + 12s + 1s = £1)
+    page = ["Cash Book Folio 3", "Jan 2 To Kettle for coals 12l. 7s. 6d.", "Jan 9 To wages 3l. 12s. 6d.",
+            "Total 16l. 0s. 0d."]
+    assert L.check_page(page).status == L.BALANCED
+    assert L.check_page(page[:3] + ["Total 15l. 0s. 0d."]).difference_text == "-£1 0s 0d"
+    # "Jan 12 L." is a date and an initial, never pounds, for all three
+    assert amounts.find_amounts("Jan 12 L. Tarnby") == [] and normalise.apply("Jan 12 L. Tarnby", "ledger") == \
+        normalise.apply("Jan 12 L. Tarnby", "loose")
+
+
+def test_balance_reads_the_shared_dashes_and_written_fractions():
+    # The dashes and fractions of the one grammar: "–" (en dash) and "1/2" as in amounts.find_amounts.
+    assert L.parse_amount("£0 0s 8 1/2d").value == L.parse_amount("£0 0s 8½d").value == 34
+    assert L.parse_amount("12 7 6\u00bd").value == L.parse_amount("12 7 61/2").value
+    assert L.parse_amount("4 \u2013 \u2014").value == L.parse_amount("4 - -").value == L.lsd_to_farthings(4)
+
+
 # --------------------------------------------------------------------------- dates
 
 

@@ -28,8 +28,8 @@ def test_single_misreads_are_all_detected_and_located(truth_pages):
         sims = simulate_misreads(truth, per_page=1, seed=seed)
         hyp = [lines for lines, _ in sims]
         for (lines, altered), t in zip(sims, truth):
-            assert misread_amount_lines(lines, t) == altered and len(altered) == 1
-        det = amount_misread_detection(hyp, truth)
+            assert misread_amount_lines(t, lines) == altered and len(altered) == 1
+        det = amount_misread_detection(truth, hyp)
         # one changed digit always changes the sum (or makes the amount unreadable): all caught
         assert det.misread_lines == 6 and det.detected == 6 and det.detection_rate == 1.0
         assert det.located == 6                        # and the line itself is pointed at
@@ -44,14 +44,14 @@ def test_detection_with_several_misreads_and_skipped_pages(truth_pages):
     sims = []
     for seed in range(10):
         sims += simulate_misreads(truth, per_page=3, seed=seed)
-    det = amount_misread_detection([s for s, _ in sims], truth * 10)
+    det = amount_misread_detection(truth * 10, [s for s, _ in sims])
     assert det.misread_lines == 180
     assert det.detection_rate >= 0.95                  # only cancelling misreads can hide
     assert det.detection_low <= det.detection_rate <= det.detection_high
-    short = amount_misread_detection([truth[0][:-1]], [truth[0]])
+    short = amount_misread_detection([truth[0]], [truth[0][:-1]])
     assert short.pages_skipped == 1 and short.misread_lines == 0
     with pytest.raises(ValueError):
-        amount_misread_detection([truth[0]], [])
+        amount_misread_detection([], [truth[0]])
 
 
 def test_alter_amount_digit_changes_exactly_one_digit():

@@ -67,6 +67,8 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 from typing import Callable, Iterable
 
+from ocrbench.ledger.amounts import POUNDS_AFTER
+
 __all__ = ["Profile", "PROFILES", "DEFAULT_PROFILE", "get_profile", "apply", "apply_lines",
            "DASHES", "SINGLE_QUOTES", "DOUBLE_QUOTES"]
 
@@ -164,8 +166,9 @@ _ASCII_FRACTION = re.compile(r"(?<![\d/])([13])/([24])(?![\d/])")
 _ASCII_FRACTION_MAP = {("1", "4"): "¼", ("1", "2"): "½", ("3", "4"): "¾"}
 _POUND_SPACE = re.compile(r"£\s+(?=\d)")
 # "12l." counts as pounds only when shillings follow ("12l. 7s.") or the line
-# ends: "Jan 12 L. Tarnby" (a date, then an initial) must stay as it is.
-_POUNDS_AFTER = re.compile(r"(?<![\w.,])(\d[\d,]*)l\.(?=\s+(?:\d{1,2}|-)\s?s\b|\s*$)")
+# ends: "Jan 12 L. Tarnby" (a date, then an initial) must stay as it is. The rule
+# is the amount grammar's (ocrbench/ledger/amounts.py), shared with scoring and the balance check.
+_POUNDS_AFTER = POUNDS_AFTER
 _SHILLING_PENCE_STOP = re.compile(r"(?<=[\d¼½¾])([sd])\.(?=\s|$)")
 
 

@@ -67,6 +67,8 @@ def run(
                                             help="Read pages on an existing Dask cluster (tcp://HOST:PORT)."),
     pages_per_task: int = typer.Option(1, "--pages-per-task", min=1,
                                        help="With --workers/--scheduler: pages sent to a worker at a time."),
+    connect_timeout: float = typer.Option(10.0, "--connect-timeout", min=0.1,
+                                          help="With --scheduler: seconds to reach the scheduler and find a worker."),
     postprocess_on: bool = typer.Option(False, "--postprocess",
                                         help="Post-process each page's text and store it beside the raw text "
                                              "(steps: unicode,whitespace; with --word-list also "
@@ -85,9 +87,10 @@ def run(
     # Over 80 lines only because typer declares the 26 options in the signature; the body is short.
     from ocrbench.postprocess.config import load_pipeline
 
-    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1):
-        raise fail("--threads-per-worker, --no-processes and --pages-per-task need --workers or --scheduler",
-                   EXIT_USAGE)
+    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1
+                                                  or connect_timeout != 10.0):
+        raise fail("--threads-per-worker, --no-processes, --pages-per-task and --connect-timeout need --workers or "
+                   "--scheduler", EXIT_USAGE)
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
     engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
@@ -95,11 +98,14 @@ def run(
                            batch_size=batch_size, decoding=decoding.value,
                            beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
     dask = None
-    if workers is not None or scheduler is not None:
+    if workers is not None or scheduler is not None:       # checked before anything is opened or started
         from ocrbench.run.distributed import DaskOptions
 
-        dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
-                           scheduler=scheduler, pages_per_task=pages_per_task)
+        try:
+            dask = DaskOptions(workers=workers, threads_per_worker=threads_per_worker, processes=processes,
+                               scheduler=scheduler, pages_per_task=pages_per_task, connect_timeout=connect_timeout)
+        except OcrbenchError as e:
+            raise fail(str(e), EXIT_USAGE)
     try:
         pipeline = None
         if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:

@@ -12,6 +12,8 @@ from pathlib import Path
 from rich.console import Console
 from rich.table import Table
 
+from ocrbench.store import printable
+
 __all__ = ["show_char", "pct", "interval", "wide_console", "print_scores", "print_comparisons", "print_run_summary",
            "print_run_problems"]
 
@@ -122,7 +124,7 @@ def _fmt(v, spec: str) -> str:
 def print_run_summary(summary, store: Path, text_out: Path | None, written: dict, pipeline) -> None:
     """The run summary table, what was written and the post-processing recipe (stdout)."""
     out = wide_console()
-    table = Table(title=f"Run summary: {summary.input_dir}")
+    table = Table(title=f"Run summary: {printable(summary.input_dir)}")
     for col in ("recogniser", "kind", "run", "pages done", "failed", "lines", "page s p50", "p90", "p99",
                 "pages/hour", "lines/s"):
         table.add_column(col, justify="left" if col in ("recogniser", "kind") else "right")
@@ -133,7 +135,9 @@ def print_run_summary(summary, store: Path, text_out: Path | None, written: dict
                       _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
     out.print(table)
     out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
-              f"{summary.wall_seconds:.1f} s; store: {store}", markup=False, highlight=False)
+              f"{summary.wall_seconds:.1f} s; store: {printable(store)}", markup=False, highlight=False)
+    for note in summary.notes():
+        out.print(note, markup=False, highlight=False, soft_wrap=True)
     if text_out is not None:
         out.print(f"texts{' (post-processed)' if pipeline is not None else ''}: "
                   f"{', '.join(str(text_out / k) for k in written)}", markup=False, highlight=False)
@@ -151,12 +155,12 @@ def print_run_problems(summary, store: Path) -> None:
 
     for r in summary.recognisers:
         for page_id, error in r.post_failures:
-            say(f"{r.name}: {page_id}: post-processing refused this page ({error}); its raw text is kept")
+            say(f"{r.name}: {printable(page_id)}: post-processing refused this page ({error}); its raw text is kept")
         if r.post_incomplete:
             say(f"{r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed text (pages "
                 f"added without post-processing); refill with: ocrbench postprocess {store} --run {r.run_id}")
     for r in summary.recognisers:
         for page_id, error in r.failures:
-            say(f"{r.name}: {page_id}: {error}")
+            say(f"{r.name}: {printable(page_id)}: {printable(error)}")
     if summary.failed_pages:
         say(f"{len(summary.failed_pages)} of {summary.pages_total} pages failed")

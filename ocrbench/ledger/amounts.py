@@ -1,4 +1,16 @@
-"""Ledger amounts: find them in the reference and check whether the hypothesis got their digits right.
+"""The amount grammar: how money is written on a page, for scoring, normalisation and the balance check.
+
+This module is the one home of the grammar of amounts (decimal and pounds,
+shillings and pence): accuracy scoring finds amounts with :func:`find_amounts`,
+the ``ledger`` normalisation profile rewrites ``12l.`` with :data:`POUNDS_AFTER`,
+and the balance check (:mod:`ocrbench.ledger.balance`) builds its trailing-field
+patterns from the pieces below (:data:`DASH`, :data:`FRACTION`,
+:data:`POUNDS_AFTER_HEAD`, ...) and reads fractions with :data:`FRACTION_FORMS`.
+So ``To Kettle for coals 12l. 7s. 6d.`` is £12 7s 6d to all three.
+
+In a ledger the amounts matter most: one wrong digit changes a total. The
+scoring figure is the share of reference amounts whose digits the hypothesis
+reproduced exactly, at the place the alignment puts them.
 
 In a ledger the amounts matter most: one wrong digit changes a total. The
 figure reported is the share of reference amounts whose digits the hypothesis
@@ -35,13 +47,22 @@ from dataclasses import dataclass
 from typing import Sequence
 
 __all__ = ["Amount", "find_amounts", "find_amounts_in_lines", "canonical", "hyp_span", "check_amounts",
-           "AMOUNT_PATTERNS"]
+           "AMOUNT_PATTERNS", "SP", "DASH", "FRACTION", "FRACTION_FORMS", "POUND_SIGN", "POUNDS_AFTER_HEAD",
+           "POUNDS_AFTER", "POUNDS_AFTER_NUMBER", "POUNDS_AFTER_MARK", "fraction_char"]
 
-_SP = r"[^\S\n]"                       # whitespace, but never across a line break
-_DASH = r"[-\u2010-\u2015\u2212]"
-_FRAC = r"(?:[¼½¾]|[13][/\u2044][24])"
+SP = r"[^\S\n]"                        # whitespace, but never across a line break
+DASH = r"[-\u2010-\u2015\u2212]"        # a dash standing for a zero column
+FRACTION = r"(?:[¼½¾]|[13][/\u2044][24])"   # a fraction of a penny: ¼ ½ ¾, 1/2 or 1⁄2
+POUND_SIGN = "[£\u20a4]"                # £, or ₤ (lira sign, often used for the pound)
+_SP, _DASH = SP, DASH
 _PENCE = rf"(?:\d{{1,2}}[¼½¾]?|\d{{0,2}}[13][/\u2044][24]|[¼½¾]|{_DASH})"
 _POUNDS = r"\d[\d,]*"
+#: ``12l.``: pounds written after the number (libra). Only when shillings follow (``12l. 7s.``) or the line ends,
+#: so that ``Jan 12 L. Tarnby`` (a date, then an initial) is no amount. Group 1 is the number.
+POUNDS_AFTER_NUMBER = r"\d(?<![\w.,]\d)[\d,]*"
+POUNDS_AFTER_MARK = rf"l\.(?={_SP}+(?:\d{{1,2}}|{_DASH}){_SP}?s|{_SP}*$)"
+POUNDS_AFTER_HEAD = rf"({POUNDS_AFTER_NUMBER}){POUNDS_AFTER_MARK}"
+POUNDS_AFTER = re.compile(POUNDS_AFTER_HEAD, re.MULTILINE)
 
 # Written so that each pattern starts with a plain character class (the regex
 # engine can then skip quickly to candidate positions); the conditions on the
@@ -49,9 +70,8 @@ _POUNDS = r"\d[\d,]*"
 _SHILLINGS_PENCE = (rf"(?:{_SP}+(?:\d{{1,2}}|{_DASH}){_SP}?s\.?)?"
                     rf"(?:{_SP}+{_PENCE}{_SP}?d\.?)?"
                     r"(?!\w)")
-MARKED = re.compile(rf"[£\u20a4]{_SP}?{_POUNDS}" + _SHILLINGS_PENCE)
-MARKED_AFTER = re.compile(rf"\d(?<![\w.,]\d)[\d,]*l\.(?={_SP}+(?:\d{{1,2}}|{_DASH}){_SP}?s|{_SP}*$)"
-                          + _SHILLINGS_PENCE, re.MULTILINE)
+MARKED = re.compile(rf"{POUND_SIGN}{_SP}?{_POUNDS}" + _SHILLINGS_PENCE)
+MARKED_AFTER = re.compile(POUNDS_AFTER_HEAD + _SHILLINGS_PENCE, re.MULTILINE)
 COLUMNS = re.compile(
     rf"[\d\-\u2010-\u2015\u2212](?<!\S.)(?:(?<=\d)[\d,]*)?"
     rf"{_SP}+(?:\d{{1,2}}|{_DASH}){_SP}+{_PENCE}(?={_SP}*$)",
@@ -64,8 +84,17 @@ _DECIMAL_STRICT = re.compile(r"(?:\d{1,3}(?:,\d{3})+|\d+)\.\d{2}")
 AMOUNT_PATTERNS: tuple[tuple[str, re.Pattern[str]], ...] = (
     ("lsd_marked", MARKED), ("lsd_marked", MARKED_AFTER), ("lsd_columns", COLUMNS), ("decimal", DECIMAL))
 
-_FRACTION_FORMS = {"1/4": "¼", "1/2": "½", "3/4": "¾", "1\u20444": "¼", "1\u20442": "½", "3\u20444": "¾"}
+#: Written fractions of a penny and the character each stands for.
+FRACTION_FORMS = {"1/4": "¼", "1/2": "½", "3/4": "¾", "1\u20444": "¼", "1\u20442": "½", "3\u20444": "¾"}
+_FRACTION_FORMS = FRACTION_FORMS
 _FRACTION_RE = re.compile(r"[13][/\u2044][24]")
+
+
+def fraction_char(tok: str | None) -> str:
+    """``'½'`` for any written half (``½``, ``1/2``, ``1⁄2``); ``''`` for none."""
+    if not tok:
+        return ""
+    return FRACTION_FORMS.get(tok, tok)
 _FRAC_JOIN = re.compile(rf"(?<=\d){_SP}+(?=[¼½¾])")
 _NUMBER = re.compile(rf"\d[\d,]*(?:\.\d+)?[¼½¾]?|[¼½¾]|(?<!\S){_DASH}(?!\S)")
 _DIGIT = re.compile(r"[\d¼½¾]")

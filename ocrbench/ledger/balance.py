@@ -21,7 +21,12 @@ mistaken for money:
   thousands separators, optional leading ``£ $ €``);
 * ``lsd_columns``  three trailing columns ``12 7 6½`` with ``-`` for zero
   (shillings below 20, pence below 12, pence may carry ``¼ ½ ¾``);
-* ``lsd_marked``   ``£12 7s 6½d`` (``£0 0s 8¼d``; ``-`` for zero allowed).
+* ``lsd_marked``   ``£12 7s 6½d`` (``£0 0s 8¼d``; ``-`` for zero allowed), or with the
+  pounds written after the number, ``12l. 7s. 6d.``.
+
+The pieces of these patterns (dashes for zero, fractions of a penny, the ``l.``
+rule) come from :mod:`ocrbench.ledger.amounts`, the one amount grammar that
+accuracy scoring and normalisation use too.
 
 A page is made of lines (header, column headings, optional "Brought forward",
 entries, a closing "Carried forward" or "Total"); :func:`check_page` classifies
@@ -39,6 +44,9 @@ from statistics import NormalDist
 from typing import Iterable, Sequence
 
 from rapidfuzz.distance import Levenshtein
+
+from ocrbench.ledger.amounts import (DASH, FRACTION, POUND_SIGN, POUNDS_AFTER_MARK, POUNDS_AFTER_NUMBER,
+                                     fraction_char)
 
 # --------------------------------------------------------------------------- units
 
@@ -59,7 +67,7 @@ NOT_CHECKABLE = "not checkable"
 
 _FRACTION_FARTHINGS = {"": 0, "¼": 1, "½": 2, "¾": 3}
 _FARTHING_FRACTION = {v: k for k, v in _FRACTION_FARTHINGS.items()}
-_ZERO = r"[-–—]"
+_ZERO = DASH
 
 
 def lsd_to_farthings(pounds: int = 0, shillings: int = 0, pence: int = 0, farthings: int = 0) -> int:
@@ -161,16 +169,22 @@ def _decimal_regex(decimal_mark: str) -> re.Pattern[str]:
 _DECIMAL_RE = {m: _decimal_regex(m) for m in (".", ",")}
 _COLUMNS_RE = re.compile(
     rf"(?:^|(?<=\s))(?P<amt>(?P<l>{_POUNDS}|{_ZERO})\s+(?P<s>\d{{1,2}}|{_ZERO})\s+"
-    rf"(?P<d>{_ZERO}|\d{{1,2}}[¼½¾]?|[¼½¾]))\s*$")
+    rf"(?P<d>{_ZERO}|\d{{1,2}}(?P<q>{FRACTION})?|(?P<q2>{FRACTION})))\s*$")
+# Pounds (optional) as "£12" or "12l.", then shillings and pence.
 _MARKED_RE = re.compile(
-    rf"(?:^|(?<=\s))(?P<amt>(?:£\s?(?P<l>{_POUNDS}|{_ZERO})\s+)?(?P<s>\d{{1,2}}|{_ZERO})\s?s\.?\s+"
-    rf"(?P<d>\d{{1,2}}|{_ZERO})?\s?(?P<q>[¼½¾])?\s?d\.?)\s*$")
+    rf"(?:^|(?<=\s))(?P<amt>(?:(?:{POUND_SIGN}\s?(?P<l>{_POUNDS}|{_ZERO})|(?P<la>{POUNDS_AFTER_NUMBER}){POUNDS_AFTER_MARK})"
+    rf"\s+)?(?P<s>\d{{1,2}}|{_ZERO})\s?s\.?\s+(?P<d>\d{{1,2}}|{_ZERO})?\s?(?P<q>{FRACTION})?\s?d\.?)\s*$")
 
 
 def _num(tok: str | None) -> int:
     if tok is None or re.fullmatch(_ZERO, tok):
         return 0
     return int(tok.replace(",", ""))
+
+
+def _farthings(tok: str | None) -> int:
+    """Farthings of a written fraction of a penny (``½``, ``1/2``: 2), 0 for none."""
+    return _FRACTION_FARTHINGS[fraction_char(tok)]
 
 
 def find_amount(line: str, form: str, *, decimal_mark: str = ".") -> Amount | None:
@@ -192,13 +206,12 @@ def find_amount(line: str, form: str, *, decimal_mark: str = ".") -> Amount | No
         if not m:
             return None
         s = _num(m["s"])
-        dtok = m["d"]
-        frac = dtok[-1] if dtok and dtok[-1] in "¼½¾" else ""
-        dnum = dtok[:-1] if frac else dtok
+        frac = m["q"] or m["q2"]
+        dnum = m["d"][: len(m["d"]) - len(frac)] if frac else m["d"]
         d = _num(dnum) if dnum else 0
         if s >= SHILLINGS_PER_POUND or d >= PENCE_PER_SHILLING:
             return None
-        value = lsd_to_farthings(_num(m["l"]), s, d, _FRACTION_FARTHINGS[frac])
+        value = lsd_to_farthings(_num(m["l"]), s, d, _farthings(frac))
     elif form == LSD_MARKED:
         m = _MARKED_RE.search(text)
         if not m or (m["d"] is None and m["q"] is None):
@@ -206,7 +219,7 @@ def find_amount(line: str, form: str, *, decimal_mark: str = ".") -> Amount | No
         s, d = _num(m["s"]), _num(m["d"])
         if s >= SHILLINGS_PER_POUND or d >= PENCE_PER_SHILLING:
             return None
-        value = lsd_to_farthings(_num(m["l"]), s, d, _FRACTION_FARTHINGS[m["q"] or ""])
+        value = lsd_to_farthings(_num(m["l"] if m["l"] is not None else m["la"]), s, d, _farthings(m["q"]))
     else:
         raise ValueError(f"unknown amount form {form!r}; expected one of {', '.join(FORMS)}")
     return Amount(value=value, form=form, text=m["amt"], start=m.start("amt"), end=m.end("amt"))

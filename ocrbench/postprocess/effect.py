@@ -100,8 +100,8 @@ class Detection:
         return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
 
-def misread_amount_lines(hyp: Sequence[str], truth: Sequence[str], *, decimal_mark: str = ".") -> list[int]:
-    """0-based numbers of the lines whose amount (in the truth page's form) was misread."""
+def misread_amount_lines(truth: Sequence[str], hyp: Sequence[str], *, decimal_mark: str = ".") -> list[int]:
+    """0-based numbers of the lines whose amount (in the truth page's form) was misread (truth first)."""
     tb = _ledger.check_page(list(truth), decimal_mark=decimal_mark)
     if tb.form is None:
         return []
@@ -113,19 +113,22 @@ def misread_amount_lines(hyp: Sequence[str], truth: Sequence[str], *, decimal_ma
     return out
 
 
-def amount_misread_detection(hyp_pages: Sequence[Sequence[str]], truth_pages: Sequence[Sequence[str]], *,
+def amount_misread_detection(truth_pages: Sequence[Sequence[str]], hyp_pages: Sequence[Sequence[str]], *,
                              decimal_mark: str = ".", level: float = 0.95) -> Detection:
-    """Detection rate of the arithmetic check for lines with a misread amount, with a Wilson interval."""
+    """Detection rate of the arithmetic check for lines with a misread amount, with a Wilson interval.
+
+    Truth pages first, recognised (or simulated) pages second, page for page.
+    """
     from ocrbench.postprocess.review import ledger_parts
 
     if len(hyp_pages) != len(truth_pages):
         raise ValueError(f"{len(hyp_pages)} recognised pages but {len(truth_pages)} truth pages")
     misread = detected = located = skipped = clean = false_alarms = 0
-    for hyp, truth in zip(hyp_pages, truth_pages):
+    for truth, hyp in zip(truth_pages, hyp_pages):
         if len(hyp) != len(truth):
             skipped += 1
             continue
-        bad = misread_amount_lines(hyp, truth, decimal_mark=decimal_mark)
+        bad = misread_amount_lines(truth, hyp, decimal_mark=decimal_mark)
         hb = _ledger.check_page(list(hyp), decimal_mark=decimal_mark)
         flagged = hb.status != _ledger.BALANCED
         if not bad:

@@ -22,6 +22,10 @@ Doubt score of a line (documented formula, all parts within 0..1)::
 Default weights 1, 1, 0.5 (:class:`DoubtWeights`): failed arithmetic is as
 strong a sign as a confidence of zero; an unlisted word is weaker, since word
 lists are never complete. Ties are broken by page and line order.
+
+Lines known to be incomplete come before every other line, whatever their
+doubt: a line the recogniser's length guard cut (``truncated``) and a line the
+model could not read (``error``, e.g. NaN output; its confidence is unknown).
 """
 
 from __future__ import annotations
@@ -82,8 +86,21 @@ def _as_frame(lines: pd.DataFrame | Sequence[Mapping[str, Any]]) -> pd.DataFrame
             raise ValueError(f"review queue needs a {col!r} column; got {list(df.columns)}")
     if "confidence" not in df.columns:
         df["confidence"] = np.nan
+    df["confidence"] = pd.to_numeric(df["confidence"], errors="coerce").astype(float)   # NULL -> NaN
     df["text"] = df["text"].fillna("").astype(str)
     return df
+
+
+def _incomplete(df: pd.DataFrame, reasons: list[list[str]]) -> np.ndarray:
+    """Lines cut by the length guard or left unread (see the module notes); their reasons come first."""
+    cut = (df["truncated"].fillna(0).astype(bool).to_numpy() if "truncated" in df.columns
+           else np.zeros(len(df), dtype=bool))
+    failed = df["error"].notna().to_numpy() if "error" in df.columns else np.zeros(len(df), dtype=bool)
+    for i in np.flatnonzero(failed):
+        reasons[i].insert(0, f"not read: {df['error'].iloc[i]}")
+    for i in np.flatnonzero(cut):
+        reasons[i].insert(0, "cut by the recogniser's length guard")
+    return cut | failed
 
 
 def ledger_parts(balance: _ledger.PageBalance) -> dict[int, tuple[float, str]]:
@@ -107,10 +124,11 @@ def ledger_parts(balance: _ledger.PageBalance) -> dict[int, tuple[float, str]]:
 
 @dataclass
 class ReviewQueue:
-    """Lines ranked by doubt (most doubtful first) and the time to review them.
+    """Lines ranked by doubt (incomplete lines, then the most doubtful, first) and the time to review them.
 
     ``table`` columns: page_id, line_no, text, confidence, doubt, conf_part,
-    ledger_part, word_part, reasons, seconds (expected review time of the line).
+    ledger_part, word_part, reasons, seconds (expected review time of the line),
+    incomplete (cut by the length guard or not read: always at the head).
     """
 
     table: pd.DataFrame
@@ -123,7 +141,7 @@ class ReviewQueue:
         and no more than ``max_minutes`` of review in all."""
         t = self.table
         if min_doubt is not None:
-            t = t[t["doubt"] >= min_doubt]
+            t = t[(t["doubt"] >= min_doubt) | t["incomplete"]]
         if max_lines is not None:
             t = t.head(max_lines)
         if max_minutes is not None:
@@ -185,11 +203,12 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
     df["word_part"] = word_col
     for i, c in enumerate(conf):
         reasons[i].insert(0, "confidence unknown" if pd.isna(c) else f"confidence {c:.2f}")
+    df["incomplete"] = _incomplete(df, reasons)
     df["doubt"] = (weights.confidence * df["conf_part"] + weights.arithmetic * df["ledger_part"]
                    + weights.unknown_words * df["word_part"])
     df["reasons"] = ["; ".join(r) for r in reasons]
     df["seconds"] = rate.seconds(df["text"].str.len().to_numpy())
-    df = df.sort_values("doubt", ascending=False, kind="stable").reset_index(drop=True)
+    df = df.sort_values(["incomplete", "doubt"], ascending=[False, False], kind="stable").reset_index(drop=True)
     cols = ["page_id", "line_no", "text", "confidence", "doubt", "conf_part", "ledger_part",
             "word_part", "reasons", "seconds"]
     extra = [c for c in df.columns if c not in cols]
@@ -239,13 +258,13 @@ def auroc_interval(y_true: Sequence[bool] | np.ndarray, score: Sequence[float] |
     return bootstrap_statistic(lambda idx: auroc(y[idx], s[idx]), members, n_boot=n_boot, level=level, seed=seed)
 
 
-def line_edits(texts: Sequence[str], truths: Sequence[str], *,
+def line_edits(truths: Sequence[str], texts: Sequence[str], *,
                normalise: Callable[[str], str] | None = None) -> np.ndarray:
-    """Character edits (Levenshtein distance) of each recognised line against its truth."""
+    """Character edits (Levenshtein distance) of each recognised line against its truth (truth first)."""
     if len(texts) != len(truths):
         raise ValueError(f"{len(texts)} recognised lines but {len(truths)} truth lines")
     f = normalise or (lambda t: t)
-    return np.array([Levenshtein.distance(f(h), f(r)) for h, r in zip(texts, truths)], dtype=np.int64)
+    return np.array([Levenshtein.distance(f(r), f(h)) for r, h in zip(truths, texts)], dtype=np.int64)
 
 
 def error_by_decile(confidences: Sequence[float], edits: Sequence[int], ref_chars: Sequence[int], *,
@@ -298,17 +317,18 @@ class Calibration:
                 "deciles": self.deciles.to_dict(orient="records")}
 
 
-def calibration(texts: Sequence[str], confidences: Sequence[float], truths: Sequence[str], *,
+def calibration(truths: Sequence[str], texts: Sequence[str], confidences: Sequence[float | None], *,
                 page_ids: Sequence[Any] | None = None, normalise: Callable[[str], str] | None = None,
                 n_bins: int = 10, n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> Calibration:
     """Calibration figures on lines with ground truth (aligned lists, one entry per line).
 
-    A line "holds errors" when its edit distance to the truth (after
-    ``normalise``, e.g. the accuracy module's profile) is above zero. Lines with
-    no confidence are left out.
+    Truth first, then the recognised text and its confidence. A line "holds
+    errors" when its edit distance to the truth (after ``normalise``, e.g. the
+    accuracy module's profile) is above zero. Lines with no confidence (None
+    or NaN: a line the model could not read) are left out.
     """
-    conf = np.asarray(confidences, dtype=float)
-    edits = line_edits(texts, truths, normalise=normalise)
+    conf = np.array([np.nan if c is None else c for c in confidences], dtype=float)
+    edits = line_edits(truths, texts, normalise=normalise)
     f = normalise or (lambda t: t)
     ref = np.array([len(f(t)) for t in truths], dtype=np.int64)
     keep = ~np.isnan(conf)
@@ -385,13 +405,13 @@ def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequenc
                             f"recognised lines on {pid}; left out of the calibration")
             continue
         hyp = g["text"].fillna("").tolist()
-        for no, k in zip(g["line_no"], line_edits(hyp, ref, normalise=normalise)):
+        for no, k in zip(g["line_no"], line_edits(ref, hyp, normalise=normalise)):
             edits[(pid, int(no))] = int(k)
         texts += hyp
         confs += pd.to_numeric(g["confidence"], errors="coerce").astype(float).tolist()
         truths += ref
         groups += [pid] * len(ref)
-    cal = calibration(texts, confs, truths, page_ids=groups, normalise=normalise, seed=seed) if texts else None
+    cal = calibration(truths, texts, confs, page_ids=groups, normalise=normalise, seed=seed) if texts else None
     return TruthCalibration(cal, edits, problems)
 
 
@@ -450,7 +470,8 @@ def review_store(store_path: Any, runs: Sequence[int] = (), *, lexicon: Lexicon 
             info = st.run_info(rid)
             use_post = post and st.post_recipe(rid) is not None
             ln, done = run_lines(frames, rid, post=use_post)
-            q = review_queue(ln[["page_id", "line_no", "text", "confidence"]], lexicon=lexicon, rate=rate,
+            q = review_queue(ln[["page_id", "line_no", "text", "confidence", "truncated", "error"]],
+                             lexicon=lexicon, rate=rate,
                              problems=problems)
             rev = RunReview(rid, info.recogniser, "post-processed" if use_post else "raw", q, q.take(**select),
                             select)

@@ -35,6 +35,9 @@ from __future__ import annotations
 import itertools
 import json
 import logging
+import os
+import signal
+import socket
 import threading
 import time
 import uuid
@@ -44,7 +47,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterator, Sequence
 
-from ocrbench.errors import ClusterError, OcrbenchError
+from ocrbench.errors import ClusterError, ConfigError, OcrbenchError
 from ocrbench.pages import PageRef, list_pages
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
@@ -56,15 +59,84 @@ from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummar
 from ocrbench.store import PageRecord, RunStore
 
 
+# --------------------------------------------------------------------------- addresses and bounds
+
+#: Seconds to reach an existing scheduler (and for it to show a worker) before giving up.
+DEFAULT_CONNECT_TIMEOUT = 10.0
+
+#: A local cluster may run at most this many worker threads per core: beyond it workers only
+#: queue for the cores and each holds its own copy of every model.
+MAX_THREADS_PER_CORE = 2
+
+SCHEMES = ("tcp", "tls")
+
+
+def scheduler_endpoint(address: str) -> tuple[str, str, int]:
+    """``(scheme, host, port)`` of a scheduler address such as ``tcp://10.0.0.5:8786``.
+
+    Checked before any connection is tried: the scheme must be tcp or tls, the
+    host non-empty, the port a number from 1 to 65535. Raises ConfigError
+    naming the address and what is wrong.
+    """
+    def bad(why: str) -> ConfigError:
+        return ConfigError(address, f"not a Dask scheduler address: {why} (expected tcp://HOST:PORT)")
+
+    scheme, sep, rest = address.partition("://")
+    if not sep:
+        raise bad("no scheme")
+    if scheme.lower() not in SCHEMES:
+        raise bad(f"scheme {scheme!r} is not one of {', '.join(SCHEMES)}")
+    host, colon, port = rest.rpartition(":")
+    if not colon or not host:
+        raise bad("no HOST:PORT after the scheme")
+    host = host[1:-1] if host.startswith("[") and host.endswith("]") else host     # [::1]
+    if not port.isdigit() or not 1 <= int(port) <= 65535:
+        raise bad(f"port {port!r} is not a number from 1 to 65535")
+    if any(c.isspace() or c in "/?#@" for c in host):
+        raise bad(f"host {host!r} is not a host name or address")
+    return scheme.lower(), host, int(port)
+
+
+def check_local_size(workers: int, threads_per_worker: int = 1, cores: int | None = None) -> None:
+    """Refuse a local cluster of more worker threads than :data:`MAX_THREADS_PER_CORE` per core."""
+    cores = cores or os.cpu_count() or 1
+    cap = MAX_THREADS_PER_CORE * cores
+    if workers * threads_per_worker > cap:
+        raise OcrbenchError(f"{workers} workers x {threads_per_worker} threads is more than this machine can use: "
+                            f"at most {cap} worker threads ({MAX_THREADS_PER_CORE} per core, {cores} cores); "
+                            f"give --workers {max(1, cap // threads_per_worker)} or fewer")
+
+
+def probe_scheduler(address: str, timeout: float) -> None:
+    """Open and close a TCP connection to the scheduler, so a refused port or an unknown host fails at once."""
+    _, host, port = scheduler_endpoint(address)
+    try:
+        with socket.create_connection((host, port), timeout=timeout):
+            pass
+    except socket.gaierror as e:
+        raise ClusterError(f"cannot reach the Dask scheduler at {address}: unknown host {host!r}") from e
+    except ConnectionRefusedError as e:
+        raise ClusterError(f"cannot reach the Dask scheduler at {address}: connection refused "
+                           "(no scheduler listens there)") from e
+    except (socket.timeout, TimeoutError) as e:
+        raise ClusterError(f"cannot reach the Dask scheduler at {address}: no answer within {timeout:g} s "
+                           "(--connect-timeout)") from e
+    except OSError as e:
+        raise ClusterError(f"cannot reach the Dask scheduler at {address}: {e.strerror or e}") from e
+
+
 @dataclass(frozen=True)
 class DaskOptions:
     """Where and how widely to run. None of these is part of a run's identity.
 
     ``workers``/``threads_per_worker``/``processes`` shape a LocalCluster started
-    for this run; ``scheduler`` (``tcp://HOST:PORT``) uses an existing cluster
-    instead. ``pages_per_task`` groups pages into one task (1: each page is a
-    task). ``max_in_flight`` bounds the tasks submitted and not yet written
-    (default: four times the cluster's threads, so a worker never waits for the client).
+    for this run (at most :data:`MAX_THREADS_PER_CORE` worker threads per core
+    of this machine); ``scheduler`` (``tcp://HOST:PORT``, checked before any
+    connection) uses an existing cluster instead, reached within
+    ``connect_timeout`` seconds. ``pages_per_task`` groups pages into one task
+    (1: each page is a task). ``max_in_flight`` bounds the tasks submitted and
+    not yet written (default: four times the cluster's threads, so a worker
+    never waits for the client).
     """
 
     workers: int | None = None
@@ -73,11 +145,17 @@ class DaskOptions:
     scheduler: str | None = None
     pages_per_task: int = 1
     max_in_flight: int | None = None
-    connect_timeout: float = 60.0
+    connect_timeout: float = DEFAULT_CONNECT_TIMEOUT
 
     def __post_init__(self) -> None:
         if self.workers is not None and self.workers < 1:
             raise OcrbenchError(f"workers must be at least 1, not {self.workers}")
+        if not (self.connect_timeout > 0 and self.connect_timeout < float("inf")):
+            raise OcrbenchError(f"the connect timeout must be a positive number of seconds, not {self.connect_timeout}")
+        if self.scheduler is not None:
+            scheduler_endpoint(self.scheduler)
+        elif self.workers is not None:
+            check_local_size(self.workers, self.threads_per_worker)
         if self.threads_per_worker < 1:
             raise OcrbenchError(f"threads per worker must be at least 1, not {self.threads_per_worker}")
         if self.pages_per_task < 1:
@@ -87,6 +165,7 @@ class DaskOptions:
         if self.scheduler is not None and self.workers is not None:
             raise OcrbenchError("give either a number of workers (a cluster started here) or a scheduler address "
                                 "(an existing cluster), not both")
+
 
 
 # --------------------------------------------------------------------------- worker side
@@ -227,10 +306,64 @@ class _Cluster:
 
 
 @contextmanager
+def sigint_ignored() -> Iterator[None]:
+    """Ignore Ctrl-C (SIGINT) in this process while worker processes are started or closed.
+
+    An ignored signal stays ignored across fork and exec (POSIX execve), and
+    Python installs its KeyboardInterrupt handler only where SIGINT is at its
+    default, so the cluster's worker processes never see the terminal's
+    Ctrl-C: only this process does, and it closes them itself. (A blocked
+    signal would not do: Python's start-up in a spawned process clears the
+    mask, measured.) The price: a Ctrl-C pressed during those few seconds is
+    dropped; press it again once pages run.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old)
+
+
+def _remote_client(dask: DaskOptions):
+    """A client of the existing cluster at ``dask.scheduler``; ClusterError, quickly, when it cannot be used."""
+    from distributed import Client
+
+    probe_scheduler(dask.scheduler, dask.connect_timeout)      # a refused port fails here, at once
+    try:
+        client = Client(dask.scheduler, timeout=dask.connect_timeout)
+    except (OSError, TimeoutError) as e:
+        raise ClusterError(f"cannot reach the Dask scheduler at {dask.scheduler}: {e}") from e
+    try:
+        client.wait_for_workers(1, timeout=dask.connect_timeout)
+    except (OSError, TimeoutError) as e:
+        client.close()
+        raise ClusterError(f"the Dask scheduler at {dask.scheduler} has no workers "
+                           f"(waited {dask.connect_timeout:g} s, --connect-timeout)") from e
+    return client
+
+
+def _local_cluster(dask: DaskOptions):
+    """A LocalCluster of ``dask.workers`` started here, its workers deaf to the terminal's Ctrl-C."""
+    from distributed import LocalCluster
+
+    n = dask.workers or 1
+    check_local_size(n, dask.threads_per_worker)
+    with sigint_ignored():
+        try:   # the scheduler's HTTP server always starts: a free port on this machine only
+            return LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker, processes=dask.processes,
+                                dashboard_address="127.0.0.1:0", silence_logs=logging.CRITICAL)
+        except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
+            raise ClusterError(f"cannot start a local Dask cluster of {n} workers: {type(e).__name__}: {e}") from e
+
+
+@contextmanager
 def connect(dask: DaskOptions) -> Iterator[_Cluster]:
     """A Dask client: on a LocalCluster started here (closed on exit), or on the cluster at ``dask.scheduler``."""
     import dask.config as dask_config
-    from distributed import Client, LocalCluster
+    from distributed import Client
 
     # The client, and the scheduler of a LocalCluster, live in the writer's process. Their diagnostic
     # histories (recent messages, which hold every submitted task; transitions; events) keep 1,000
@@ -242,32 +375,15 @@ def connect(dask: DaskOptions) -> Iterator[_Cluster]:
     # it makes segmentation some 2x slower, see retune_allocator.
     with dask_config.set({"distributed.admin.low-level-log-length": keep,
                           "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
-        try:
-            if dask.scheduler is not None:
-                try:
-                    client = Client(dask.scheduler, timeout=dask.connect_timeout)
-                except (OSError, TimeoutError) as e:
-                    raise ClusterError(f"cannot reach the Dask scheduler at {dask.scheduler}: {e}") from e
-                try:
-                    client.wait_for_workers(1, timeout=dask.connect_timeout)
-                except (OSError, TimeoutError) as e:
-                    client.close()
-                    raise ClusterError(f"the Dask scheduler at {dask.scheduler} has no workers "
-                                       f"(waited {dask.connect_timeout:.0f} s)") from e
-            else:
-                n = dask.workers or 1
-                try:   # the scheduler's HTTP server always starts: a free port on this machine only
-                    cluster = LocalCluster(n_workers=n, threads_per_worker=dask.threads_per_worker,
-                                           processes=dask.processes, dashboard_address="127.0.0.1:0",
-                                           silence_logs=logging.CRITICAL)
-                except Exception as e:  # noqa: BLE001 - anything that stops the cluster from starting
-                    raise ClusterError(f"cannot start a local Dask cluster of {n} workers: "
-                                       f"{type(e).__name__}: {e}") from e
+        if dask.scheduler is not None:
+            client = _remote_client(dask)
+        else:
+            cluster = _local_cluster(dask)
+            try:
                 client = Client(cluster)
-        except ClusterError:
-            if cluster is not None:
+            except BaseException:
                 cluster.close()
-            raise
+                raise
     try:
         nthreads = client.nthreads()
         import distributed
@@ -278,9 +394,10 @@ def connect(dask: DaskOptions) -> Iterator[_Cluster]:
                 f"{max(nthreads.values(), default=0)} threads ({where})")
         yield _Cluster(client, desc, sum(nthreads.values()), len(nthreads), client.scheduler.address)
     finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
+        with sigint_ignored():                  # a second Ctrl-C must not leave workers behind
+            client.close()
+            if cluster is not None:
+                cluster.close()
 
 
 def _chunks(refs: Sequence[PageRef], states: Sequence[RunState], size: int,

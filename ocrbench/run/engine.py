@@ -243,7 +243,7 @@ def load_and_segment(ref: PageRef, *, options: RunOptions, clock: Clock = time.p
 
 
 #: Why a line whose model output was NaN or infinite has no text.
-NON_FINITE = "the model's output for this line is not a number (NaN or infinite); no text kept"
+NON_FINITE = "the model gave NaN or infinite scores for this line; no text kept"
 
 
 def _finite(r: LineResult) -> bool:

@@ -130,11 +130,26 @@ class RunSummary:
         """Distinct page ids that failed for at least one recogniser."""
         return sorted({pid for r in self.recognisers for pid, _ in r.failures})
 
+    def notes(self) -> list[str]:
+        """Lines worth a user's attention beyond the table: pages read again, lines cut or not read."""
+        out = []
+        if self.pages_changed:
+            out.append(f"{self.pages_changed} page(s) changed on disk since they were read: read again")
+        for r in self.recognisers:
+            if r.lines_truncated:
+                out.append(f"{r.name}: {r.lines_truncated} line(s) cut by the length guard (--max-tokens); "
+                           "flagged in the store and first in `ocrbench review`")
+            if r.lines_failed:
+                out.append(f"{r.name}: {r.lines_failed} line(s) not read (the model gave NaN or infinite scores); "
+                           "stored without text, first in `ocrbench review`")
+        return out
+
     def to_dict(self) -> dict:
         """The summary as JSON-ready values (names that are not UTF-8 shown with ``\\xNN``)."""
         d = asdict(self)
         d["input_dir"] = printable(self.input_dir)
         d["failed_pages"] = [printable(p) for p in self.failed_pages]
+        d["notes"] = self.notes()
         for r in d["recognisers"]:
             r["failures"] = [{"page_id": printable(p), "error": printable(e)} for p, e in r["failures"]]
             r["post_failures"] = [{"page_id": printable(p), "error": printable(e)} for p, e in r["post_failures"]]

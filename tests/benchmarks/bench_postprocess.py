@@ -94,7 +94,7 @@ def main(argv=None) -> dict:
                 say(f"  {r['class']:8s} {r['ref_chars']:6d} {r['cer_before']:8.3%} {r['cer_after']:8.3%} "
                     f"{r['diff']:+9.3%} {ci:>22s} {'YES' if r['raised'] else 'no'}")
             overall = df.iloc[0]
-            det = amount_misread_detection([p for _, _, p, _ in triples], [t for _, t, _, _ in triples])
+            det = amount_misread_detection([t for _, t, _, _ in triples], [p for _, _, p, _ in triples])
             say(f"  arithmetic check on this recogniser's raw pages: {det.misread_lines} lines with a misread "
                 f"amount, {det.detected} on pages it flagged"
                 + (f" ({det.detection_rate:.0%} [{det.detection_low:.0%}-{det.detection_high:.0%}])"
@@ -104,7 +104,7 @@ def main(argv=None) -> dict:
                                   "low": float(overall.low), "high": float(overall.high),
                                   "classes_raised": int(df["raised"].sum()), "detection_real": det.to_dict()}
         sims = simulate_misreads(truth_pages_all, per_page=1, seed=1)
-        det = amount_misread_detection([p for p, _ in sims], truth_pages_all)
+        det = amount_misread_detection(truth_pages_all, [p for p, _ in sims])
         say(f"\nsimulated: one amount digit altered on each of {len(sims)} ground-truth pages: {det.detected} of "
             f"{det.misread_lines} detected ({det.detection_rate:.0%} [{det.detection_low:.0%}-"
             f"{det.detection_high:.0%}]), {det.located} pointed at the altered line ({det.location_rate:.0%})")
