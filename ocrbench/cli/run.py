@@ -132,7 +132,8 @@ def run(
             written = {}
             if text_out is not None:
                 for r in summary.recognisers:
-                    written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
+                    written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True),
+                                                  input_root=target)
     except KeyboardInterrupt:
         raise fail("interrupted; finished pages are in the store: rerun the same command to resume", EXIT_USAGE)
     except OcrbenchError as e:

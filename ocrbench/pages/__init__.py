@@ -1,7 +1,7 @@
 """Page images: load, check, binarise, deskew and cut into text lines.
 
-This is the first stage of every run. It turns a scanned page (PNG, JPEG or
-TIFF, any of the modes scanners and archives produce) into an 8-bit grey array,
+This is the first stage of every run. It turns a scanned page (PNG, JPEG, TIFF,
+JPEG 2000, WebP, BMP, GIF, or a PDF page; any of the modes scanners and archives produce) into an 8-bit grey array,
 estimates and removes the skew, and finds the text lines with their boxes and
 grey crops for the recognisers.
 
@@ -47,13 +47,16 @@ from ocrbench.pages.analyse import Layout, LineBox, analyse_page, lines_from_ink
 from ocrbench.pages.binarise import MIN_CONTRAST, binarise, flatten_illumination, otsu_threshold
 from ocrbench.pages.components import Components, connected_components, row_runs
 from ocrbench.pages.crops import CROP_PAD_HORIZONTAL, CROP_PAD_VERTICAL, crop_line
-from ocrbench.pages.listing import IMAGE_SUFFIXES, PageRef, list_pages
+from ocrbench.pages.listing import (COMPANION_SUFFIXES, IMAGE_SUFFIXES, PAGE_SUFFIXES, PDF_SUFFIXES, Listing, PageRef,
+                                    list_pages, scan_pages)
 from ocrbench.pages.load import DEFAULT_MAX_PIXELS, Page, load_page
+from ocrbench.pages.pdf import DEFAULT_PDF_DPI
 from ocrbench.pages.segment import MIN_LINE_HEIGHT, find_line_boxes, remove_rules, split_at_gaps
 from ocrbench.pages.skew import MIN_DESKEW_DEGREES, deskew, estimate_skew, skew_from_ink
 
 __all__ = [
-    "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS", "IMAGE_SUFFIXES",
+    "COMPANION_SUFFIXES", "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS",
+    "DEFAULT_PDF_DPI", "IMAGE_SUFFIXES", "Listing", "PAGE_SUFFIXES", "PDF_SUFFIXES", "scan_pages",
     "Layout", "LineBox", "MIN_CONTRAST", "MIN_DESKEW_DEGREES", "MIN_LINE_HEIGHT", "Page", "PageRef",
     "analyse_page", "binarise", "connected_components", "crop_line", "deskew", "estimate_skew",
     "find_line_boxes", "flatten_illumination", "lines_from_ink", "list_pages", "load_page",
