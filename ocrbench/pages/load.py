@@ -168,8 +168,8 @@ def load_page(ref: PageRef, *, max_pixels: int = DEFAULT_MAX_PIXELS, pdf_dpi: fl
     if path.stat().st_size == 0:
         raise PageError(shown, "empty file (0 bytes)")
     if path.suffix.lower() in PDF_SUFFIXES or _signature(path) == "PDF":
-        gray, dpi = load_pdf_page(path, (ref.frame or 1) - 1, shown, dpi=pdf_dpi, max_pixels=max_pixels)
-        return Page(ref=ref, gray=gray, dpi=dpi)
+        im, dpi = load_pdf_page(path, (ref.frame or 1) - 1, shown, dpi=pdf_dpi, max_pixels=max_pixels)
+        return Page(ref=ref, gray=np.ascontiguousarray(_to_gray(im)), dpi=dpi)
     try:
         fh = open(path, "rb")
     except OSError as e:

@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-import numpy as np
+from PIL import Image
 
 from ocrbench.errors import ImageTooLargeError, PageError
 
@@ -50,8 +50,8 @@ def pdf_page_count(path: Path) -> int | None:
         doc.close()
 
 
-def native_dpi(page) -> float | None:
-    """The resolution of the page's one scanned image, or None when the page is not one image."""
+def _the_scan(page):
+    """The page's one image object when it covers the page, else None (a hidden text layer is allowed)."""
     import pypdfium2.raw as pdfium_c
 
     images = list(page.get_objects(filter=(pdfium_c.FPDF_PAGEOBJ_IMAGE,)))
@@ -63,16 +63,40 @@ def native_dpi(page) -> float | None:
     placed = max(0.0, right - left) * max(0.0, top - bottom)
     if pw <= 0 or ph <= 0 or placed < SCAN_COVERAGE * pw * ph:
         return None
+    return img
+
+
+def native_dpi(page) -> float | None:
+    """The resolution of the page's one scanned image, or None when the page is not one image."""
+    img = _the_scan(page)
+    if img is None:
+        return None
+    left, bottom, right, top = img.get_bounds()
     px_w, px_h = img.get_px_size()
     if px_w <= 0 or px_h <= 0:
         return None
     # pixels per inch over the placed area (placement may rotate the image: use areas)
-    return _POINTS_PER_INCH * math.sqrt(px_w * px_h / placed)
+    return _POINTS_PER_INCH * math.sqrt(px_w * px_h / ((right - left) * (top - bottom)))
+
+
+def _upright_scan_pixels(page):
+    """The scan's own decoded pixels when it is placed upright and unrotated, else None.
+
+    (PDFium's rendered variant of the image can come out a row larger from rounding.)
+    """
+    img = _the_scan(page)
+    if img is None or page.get_rotation() % 360 != 0:
+        return None
+    m = img.get_matrix()
+    if abs(m.b) > 1e-9 or abs(m.c) > 1e-9 or m.a <= 0 or m.d <= 0:
+        return None
+    im = img.get_bitmap(render=False).to_pil()
+    return im if im.size == tuple(img.get_px_size()) else None
 
 
 def load_pdf_page(path: Path, index: int, shown: str, *, dpi: float, max_pixels: int
-                  ) -> tuple[np.ndarray, tuple[float, float]]:
-    """Page ``index`` (0-based) as 8-bit grey and the resolution it was rendered at."""
+                  ) -> tuple[Image.Image, tuple[float, float]]:
+    """Page ``index`` (0-based) as an image and the resolution it was read at."""
     doc = _open(path, shown)
     try:
         n = len(doc)
@@ -80,20 +104,22 @@ def load_pdf_page(path: Path, index: int, shown: str, *, dpi: float, max_pixels:
             raise PageError(shown, f"has {n} page(s), no page {index + 1}")
         try:
             page = doc[index]
+            native = native_dpi(page)
         except Exception as e:  # noqa: BLE001 - PDFium reports damage in several ways
             raise PageError(shown, f"damaged PDF page ({e})") from e
-        use = native_dpi(page) or dpi
+        use = round(native, 3) if native else dpi
         pw, ph = page.get_size()
-        w, h = int(math.ceil(pw * use / _POINTS_PER_INCH)), int(math.ceil(ph * use / _POINTS_PER_INCH))
+        w, h = int(round(pw * use / _POINTS_PER_INCH)), int(round(ph * use / _POINTS_PER_INCH))
         if w * h > max_pixels:
             raise ImageTooLargeError(shown, f"renders to {w}x{h} = {w * h:,} pixels at {use:g} dpi, over the "
                                             f"limit of {max_pixels:,} (lower --pdf-dpi or raise max_pixels)")
         try:
-            bitmap = page.render(scale=use / _POINTS_PER_INCH, grayscale=True)
-            gray = np.asarray(bitmap.to_pil().convert("L"), dtype=np.uint8)
+            im = _upright_scan_pixels(page) if native else None
+            if im is None:
+                im = page.render(scale=use / _POINTS_PER_INCH, grayscale=True).to_pil()
         except Exception as e:  # noqa: BLE001
             raise PageError(shown, f"cannot render the PDF page ({e})") from e
         rounded = round(use, 1)
-        return np.ascontiguousarray(gray), (rounded, rounded)
+        return im, (rounded, rounded)
     finally:
         doc.close()
