@@ -9,7 +9,6 @@ photographs and photographed ``page`` (reference data), numpy's ``rot90`` for tu
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 import numpy as np
