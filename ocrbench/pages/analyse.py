@@ -79,10 +79,17 @@ def analyse_page(gray: np.ndarray, *, deskew: bool = True, max_degrees: float = 
         raise ValueError(f"expected a 2-D grey image, got shape {g.shape}")
     if g.size == 0 or min(g.shape) < 4:
         return Layout(lines=[], skew_degrees=0.0, deskewed=g.copy())
-    rotation = 0
+    layout = _analyse(g, deskew=deskew, max_degrees=max_degrees)
     if auto_rotate:
-        rotation = detect_rotation(g) or 0
-        g = turn_upright(g, rotation)
+        found = (layout.deskewed, [(ln.x0, ln.y0, ln.x1, ln.y1) for ln in layout.lines]) if deskew else None
+        rotation = detect_rotation(g, found=found) or 0
+        if rotation:
+            layout = _analyse(turn_upright(g, rotation), deskew=deskew, max_degrees=max_degrees)
+            layout.rotation = rotation
+    return layout
+
+
+def _analyse(g: np.ndarray, *, deskew: bool, max_degrees: float) -> Layout:
     ink = binarise(g)
     skew = 0.0
     if deskew and min(g.shape) >= 8:
@@ -92,4 +99,4 @@ def analyse_page(gray: np.ndarray, *, deskew: bool = True, max_degrees: float = 
         ink = binarise(straight)
     else:
         straight = g.copy()
-    return Layout(lines=lines_from_ink(straight, ink), skew_degrees=skew, deskewed=straight, rotation=rotation)
+    return Layout(lines=lines_from_ink(straight, ink), skew_degrees=skew, deskewed=straight)

@@ -39,9 +39,10 @@ MIN_BASELINE_MARGIN = 0.05
 def horizontal_share(ink: np.ndarray, *, seed: int = 0) -> float | None:
     """Share of letter-sized components whose nearest neighbour lies more left/right than up/down.
 
-    None when the page has fewer than 10 such components (nothing to judge).
+    ``ink``: a page's ink mask with the rules removed. None when the page has fewer
+    than 10 such components (nothing to judge).
     """
-    cc = connected_components(remove_rules(ink))
+    cc = connected_components(ink)
     if cc.count < 10:
         return None
     h, w = cc.y1 - cc.y0, cc.x1 - cc.x0
@@ -95,22 +96,31 @@ def turn_upright(gray: np.ndarray, rotation: int) -> np.ndarray:
     return np.ascontiguousarray(np.rot90(np.asarray(gray), (rotation // 90) % 4))
 
 
-def detect_rotation(gray: np.ndarray) -> int | None:
-    """0, 90, 180 or 270 (the clockwise turn of the text), or None when there is no text to judge."""
+def detect_rotation(gray: np.ndarray, *, found: tuple[np.ndarray, list[tuple[int, int, int, int]]] | None = None
+                    ) -> int | None:
+    """0, 90, 180 or 270 (the clockwise turn of the text), or None when there is no text to judge.
+
+    ``found``: the deskewed page and its line boxes when the page was already
+    analysed as it is (saves analysing it again when its lines run across).
+    """
     g = np.asarray(gray, dtype=np.uint8)
     if g.ndim != 2 or min(g.shape) < 8:
         return None
-    share = horizontal_share(binarise(g))
+    page_ink = remove_rules(binarise(found[0] if found is not None else g))
+    share = horizontal_share(page_ink)
     if share is None:
         return None
     candidates = (0, 180) if share >= MIN_HORIZONTAL_SHARE else (90, 270)
-    first = turn_upright(g, candidates[0])
-    ink = binarise(first)
-    skew = skew_from_ink(ink, max_degrees=5.0)
-    if abs(skew) >= MIN_DESKEW_DEGREES:
-        ink = binarise(deskew(first, skew))
-    ink = remove_rules(ink)
-    boxes = find_line_boxes(ink)
+    if candidates[0] == 0 and found is not None:
+        ink, boxes = page_ink, found[1]
+    else:
+        first = turn_upright(g, candidates[0])
+        ink = binarise(first)
+        skew = skew_from_ink(ink, max_degrees=5.0)
+        if abs(skew) >= MIN_DESKEW_DEGREES:
+            ink = binarise(deskew(first, skew))
+        ink = remove_rules(ink)
+        boxes = find_line_boxes(ink)
     if not boxes:
         return None
     score = baseline_score(ink, boxes)

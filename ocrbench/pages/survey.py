@@ -31,9 +31,12 @@ def survey_page(ref: PageRef, *, max_pixels: int = DEFAULT_MAX_PIXELS, deskew: b
         return row
     h, w = page.gray.shape
     row.update(width=int(w), height=int(h), dpi=list(page.dpi) if page.dpi else None)
-    rotation = detect_rotation(page.gray)
-    gray = turn_upright(page.gray, rotation) if auto_rotate and rotation else page.gray
-    layout = analyse_page(gray, deskew=deskew)
+    layout = analyse_page(page.gray, deskew=deskew)
+    found = (layout.deskewed, [(ln.x0, ln.y0, ln.x1, ln.y1) for ln in layout.lines]) if deskew else None
+    rotation = detect_rotation(page.gray, found=found)
+    if auto_rotate and rotation:
+        layout = analyse_page(turn_upright(page.gray, rotation), deskew=deskew)
+        layout.rotation = rotation
     check = check_page(layout, rotation=rotation, max_aspect=max_aspect)
     row.update(lines=len(layout.lines), skew_degrees=round(float(layout.skew_degrees), 2) + 0.0,
                rotation=rotation, flags=check.flags)
