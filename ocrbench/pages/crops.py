@@ -117,7 +117,15 @@ def remove_crop_rules(crop: np.ndarray) -> np.ndarray:
 
 
 def clean_crop(crop: np.ndarray, *, flatten: bool = False, remove_rules: bool = False) -> np.ndarray:
-    """The card's ``[input] flatten`` / ``remove_rules`` steps on one crop (rules first, then shading)."""
+    """The card's ``[input] flatten`` / ``remove_rules`` steps on one crop (rules first, then shading).
+
+    Measured (tests/test_pages_real_scans.py): on scikit-image's photographed ``page``,
+    body-line CER 21.4 -> 2.1 % (ledger-ctc) and 32.5 -> 4.3 % (ledger-seq) with
+    ``flatten``; on demo lines crossed by table rules, 25.2 -> 2.7 % (ctc) and
+    146.5 -> 2.7 % (seq) against the same lines without rules with ``remove_rules``;
+    on 8 clean demo pages 0.23 -> 0.22 % (ctc), 0.85 -> 0.83 % (seq) with ``flatten``,
+    no change with ``remove_rules``.
+    """
     out = np.asarray(crop, dtype=np.uint8)
     if remove_rules:
         out = remove_crop_rules(out)
