@@ -263,9 +263,10 @@ def test_truncated_tiff_pixel_data(tmp_path):
 
 
 def test_other_formats_and_missing_files(tmp_path):
-    Image.fromarray(display_page()).save(tmp_path / "really_a_bmp.png", format="BMP")
-    with pytest.raises(PageError, match=r"really_a_bmp\.png: not a PNG, JPEG or TIFF"):
-        load(tmp_path / "really_a_bmp.png")
+    # BMP is read now (issue 16); a format we do not read (PPM) still gets the one-line refusal
+    Image.fromarray(display_page()).save(tmp_path / "really_a_ppm.png", format="PPM")
+    with pytest.raises(PageError, match=r"really_a_ppm\.png: not a PNG, JPEG, TIFF, JPEG 2000, WebP, BMP, GIF or PDF"):
+        load(tmp_path / "really_a_ppm.png")
     with pytest.raises(PageError, match=r"gone\.png: file not found"):
         load(tmp_path / "gone.png")
     with pytest.raises(InputError, match="no such file or folder"):
@@ -316,7 +317,7 @@ def test_pages_command_goes_on_after_a_bad_file_and_exits_1(tmp_path, demo_dir):
     doc = json.loads(res.stdout)
     rows = {Path(p["path"]).name: p for p in doc["pages"]}
     assert set(rows) == {"page_002.png", "page_003.png", "page_004.tif"}
-    assert rows["page_002.png"]["error"] == "not a PNG, JPEG or TIFF image"
+    assert rows["page_002.png"]["error"] == "not a PNG, JPEG, TIFF, JPEG 2000, WebP, BMP, GIF or PDF file"
     assert rows["page_002.png"]["lines"] is None
     for name in ("page_003.png", "page_004.tif"):
         truth = (d / name).with_suffix(".txt").read_text(encoding="utf-8").splitlines()
@@ -325,7 +326,7 @@ def test_pages_command_goes_on_after_a_bad_file_and_exits_1(tmp_path, demo_dir):
     res = CliRunner().invoke(app, ["pages", str(d)])
     assert res.exit_code == 1
     assert "page_002.png" in res.stdout and "2 of 3 pages usable" in res.stdout
-    assert "page_002.png: not a PNG, JPEG or TIFF image" in res.stderr
+    assert "page_002.png: not a PNG, JPEG, TIFF, JPEG 2000, WebP, BMP, GIF or PDF file" in res.stderr
 
 
 def test_pages_command_usage_errors(tmp_path):

@@ -151,5 +151,6 @@ def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh
         written = {}
         if text_out is not None:
             for r in summary.recognisers:
-                written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True))
+                written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True),
+                                          input_root=target)
     return summary, written

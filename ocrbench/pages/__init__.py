@@ -1,7 +1,7 @@
 """Page images: load, check, binarise, deskew and cut into text lines.
 
-This is the first stage of every run. It turns a scanned page (PNG, JPEG or
-TIFF, any of the modes scanners and archives produce) into an 8-bit grey array,
+This is the first stage of every run. It turns a scanned page (PNG, JPEG, TIFF,
+JPEG 2000, WebP, BMP, GIF, or a PDF page; any of the modes scanners and archives produce) into an 8-bit grey array,
 estimates and removes the skew, and finds the text lines with their boxes and
 grey crops for the recognisers.
 
@@ -33,7 +33,9 @@ Design, in short (each step is a plain function so it can be tested alone):
 Modules, in the order a page meets them: ``listing`` (which pages a target holds),
 ``load`` (decode to grey), ``binarise``, ``skew``, ``components`` (runs and
 8-connected components), ``segment`` (rules out, line boxes, lines cut at wide
-gaps), ``crops`` (padded line crops), ``analyse`` (all of it for one page). The
+gaps), ``crops`` (padded line crops and their clean-up), ``orient`` (text turned
+90/180/270 degrees), ``analyse`` (all of it for one page), ``sanity`` (flags for
+pages that are blank, not text, turned or too wide), ``pdf`` (PDF pages). The
 public names of each are re-exported here.
 
 Boxes are in the coordinates of the deskewed page; with ``deskew`` the page is
@@ -46,14 +48,23 @@ from __future__ import annotations
 from ocrbench.pages.analyse import Layout, LineBox, analyse_page, lines_from_ink, segment_lines
 from ocrbench.pages.binarise import MIN_CONTRAST, binarise, flatten_illumination, otsu_threshold
 from ocrbench.pages.components import Components, connected_components, row_runs
-from ocrbench.pages.crops import CROP_PAD_HORIZONTAL, CROP_PAD_VERTICAL, crop_line
-from ocrbench.pages.listing import IMAGE_SUFFIXES, PageRef, list_pages
+from ocrbench.pages.crops import (CROP_PAD_HORIZONTAL, CROP_PAD_VERTICAL, clean_crop, crop_line, flatten_crop,
+                                  remove_crop_rules)
+from ocrbench.pages.listing import (COMPANION_SUFFIXES, IMAGE_SUFFIXES, PAGE_SUFFIXES, PDF_SUFFIXES, Listing, PageRef,
+                                    list_pages, scan_pages)
 from ocrbench.pages.load import DEFAULT_MAX_PIXELS, Page, load_page
+from ocrbench.pages.orient import detect_rotation, turn_upright
+from ocrbench.pages.pdf import DEFAULT_PDF_DPI
+from ocrbench.pages.sanity import PageCheck, check_page
+from ocrbench.pages.survey import survey_page
 from ocrbench.pages.segment import MIN_LINE_HEIGHT, find_line_boxes, remove_rules, split_at_gaps
 from ocrbench.pages.skew import MIN_DESKEW_DEGREES, deskew, estimate_skew, skew_from_ink
 
 __all__ = [
-    "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS", "IMAGE_SUFFIXES",
+    "COMPANION_SUFFIXES", "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS",
+    "DEFAULT_PDF_DPI", "IMAGE_SUFFIXES", "Listing", "PAGE_SUFFIXES", "PDF_SUFFIXES", "scan_pages",
+    "PageCheck", "check_page", "detect_rotation", "turn_upright", "clean_crop", "flatten_crop", "remove_crop_rules",
+    "survey_page",
     "Layout", "LineBox", "MIN_CONTRAST", "MIN_DESKEW_DEGREES", "MIN_LINE_HEIGHT", "Page", "PageRef",
     "analyse_page", "binarise", "connected_components", "crop_line", "deskew", "estimate_skew",
     "find_line_boxes", "flatten_illumination", "lines_from_ink", "list_pages", "load_page",
