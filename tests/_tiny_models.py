@@ -52,20 +52,30 @@ def _frames_nodes(img: str, out: str) -> list:
     ]
 
 
-def ctc_model(*, classes: int = 3, input_rank: int = 4, free_classes: bool = False) -> onnx.ModelProto:
+def ctc_model(*, classes: int = 3, input_rank: int = 4, free_classes: bool = False,
+              input_type: int = TensorProto.FLOAT, nan_on_ink: bool = False) -> onnx.ModelProto:
+    """``input_type``: the declared element type of the image (cast to float inside).
+    ``nan_on_ink``: frames with ink score NaN (sqrt of the negated ink), blank frames stay finite."""
     w = np.array([[0.0, 10.0, 20.0][:classes] + [0.0] * max(0, classes - 3)], np.float32)
     b = np.array([0.0, -2.0, -9.0][:classes] + [-50.0] * max(0, classes - 3), np.float32)
     nodes = []
     img = "image"
+    if input_type != TensorProto.FLOAT:
+        nodes.append(helper.make_node("Cast", ["image"], ["image_f"], to=TensorProto.FLOAT))
+        img = "image_f"
     if input_rank == 3:
-        nodes.append(helper.make_node("Unsqueeze", ["image", "axis1"], ["image4"]))
+        nodes.append(helper.make_node("Unsqueeze", [img, "axis1"], ["image4"]))
         img = "image4"
     nodes += _frames_nodes(img, "x")
-    nodes += [helper.make_node("MatMul", ["x", "w"], ["xw"]), helper.make_node("Add", ["xw", "b"], ["logits"])]
+    nodes += [helper.make_node("MatMul", ["x", "w"], ["xw"]),
+              helper.make_node("Add", ["xw", "b"], ["logits0" if nan_on_ink else "logits"])]
+    if nan_on_ink:
+        nodes += [helper.make_node("Neg", ["x"], ["negx"]), helper.make_node("Sqrt", ["negx"], ["nan_or_0"]),
+                  helper.make_node("Add", ["logits0", "nan_or_0"], ["logits"])]
     inits = [_init("shape_bt1", np.array([0, -1, 1], np.int64)), _init("w", w), _init("b", b),
              _init("axis1", np.array([1], np.int64))]
     in_shape = ["batch", 1, H, "width"] if input_rank == 4 else ["batch", H, "width"]
-    g = helper.make_graph(nodes, "tiny_ctc", [helper.make_tensor_value_info("image", TensorProto.FLOAT, in_shape)],
+    g = helper.make_graph(nodes, "tiny_ctc", [helper.make_tensor_value_info("image", input_type, in_shape)],
                           [helper.make_tensor_value_info("logits", TensorProto.FLOAT,
                                                          ["batch", "frames", "classes" if free_classes else classes])],
                           inits)
@@ -126,14 +136,18 @@ def _seq_weights(seed: int = 2) -> dict[str, np.ndarray]:
     }
 
 
-def seq_encoder() -> onnx.ModelProto:
+def seq_encoder(*, nan_on_ink: bool = False) -> onnx.ModelProto:
+    """``nan_on_ink``: memory frames with ink are NaN (sqrt of the negated ink), blank frames stay finite."""
     W = _seq_weights()
     nodes = _frames_nodes("image", "x") + [
         helper.make_node("MatMul", ["x", "we"], ["xw"]),
         helper.make_node("Add", ["xw", "be"], ["pre"]),
         helper.make_node("Tanh", ["pre"], ["mem0"]),
-        helper.make_node("Mul", ["mem0", "mem_scale"], ["memory"]),
+        helper.make_node("Mul", ["mem0", "mem_scale"], ["mem1" if nan_on_ink else "memory"]),
     ]
+    if nan_on_ink:
+        nodes += [helper.make_node("Neg", ["x"], ["negx"]), helper.make_node("Sqrt", ["negx"], ["nan_or_0"]),
+                  helper.make_node("Add", ["mem1", "nan_or_0"], ["memory"])]
     g = helper.make_graph(nodes, "tiny_encoder",
                           [helper.make_tensor_value_info("image", TensorProto.FLOAT, ["batch", 1, H, "width"])],
                           [helper.make_tensor_value_info("memory", TensorProto.FLOAT, ["batch", "frames", D])],

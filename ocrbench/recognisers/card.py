@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,7 +25,8 @@ from typing import Any
 
 from ocrbench.errors import CardError, ConfigError
 from ocrbench.io.config import Key, check_table
-from ocrbench.recognisers.graphs import GraphInfo, TensorInfo, class_count, need_tensor, read_graph
+from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
+                                        need_dtype, need_tensor, read_graph)
 from ocrbench.recognisers.preprocess import InputSpec
 
 CARD_FILE = "card.toml"
@@ -298,6 +300,7 @@ def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
 
 def _check_input_image(card: Path, role: str, g: GraphInfo, name: str, key: str, spec: InputSpec) -> None:
     t = need_tensor(card, role, g, name, output=False, rank=4, key=key)
+    need_dtype(card, g, t, FLOAT32, key, "ocrbench feeds line images as")
     if t.rank is None:
         return
     c, h = t.static(1), t.static(2)
@@ -316,18 +319,57 @@ def _check_rank(p: Path, key: str, layout: str, rank: int | None) -> str:
 
 
 class _Files:
-    """The files a card names, resolved against its folder, with the role each plays (hashed together)."""
+    """The files a card names, resolved against its folder, with the role each plays (hashed together).
 
-    def __init__(self, card: Path, folder: Path):
-        self.card, self.folder = card, folder
+    A path must stay inside the card's folder once resolved (``..``, absolute paths and symbolic links
+    included): the card format says paths are relative to the card's folder, and a card must not make
+    ocrbench read elsewhere unless the user allowed it (``allow_outside``).
+    """
+
+    def __init__(self, card: Path, folder: Path, allow_outside: bool):
+        self.card, self.folder, self.allow_outside = card, folder, allow_outside
         self.paths: dict[str, Path] = {}
 
     def __call__(self, rel: str, key: str, role: str) -> Path:
         f = (self.folder / rel).resolve()
+        if not self.allow_outside and not f.is_relative_to(self.folder):
+            raise CardError(self.card, f"field '{key}': {rel!r} leads outside the card's folder {self.folder} "
+                                       "(paths are relative to the card's folder; allow other places explicitly "
+                                       "with --allow-outside-paths)")
         if not f.is_file():
             raise CardError(self.card, f"field '{key}': file not found: {f}")
         self.paths[role] = f
         return f
+
+    def external(self, g: GraphInfo, key: str, role: str) -> None:
+        """Add a model's external data files (resolved beside the model, ONNX external data format)."""
+        for loc in g.external:
+            f = (g.path.parent / loc).resolve()
+            if not self.allow_outside and not f.is_relative_to(self.folder):
+                raise CardError(self.card, f"field '{key}': {g.path.name} keeps weights in {loc!r}, outside the "
+                                           f"card's folder {self.folder}")
+            if not f.is_file():
+                raise CardError(self.card, f"field '{key}': {g.path.name} keeps weights in {loc!r}, "
+                                           f"which is not there ({f})")
+            self.paths[f"{role}:{loc}"] = f
+
+    def graph(self, rel: str, key: str, role: str) -> GraphInfo:
+        """Read the model a field names; its external data files become part of the card's files."""
+        g = read_graph(self.card, role, self(rel, key, role))
+        self.external(g, key, role)
+        return g
+
+
+#: Card names become folder and file names of outputs: letters and digits (any script), then also
+#: space ``_ - . + ( )``; no path separators, no control characters, not ``.`` or ``..``.
+NAME_PATTERN = re.compile(r"[^\W_](?:[\w .+()-]{0,79})", re.UNICODE)
+
+
+def check_name(p: Path, name: str) -> str:
+    if not NAME_PATTERN.fullmatch(name) or name != name.strip():
+        raise CardError(p, f"field 'name': {name!r} is not a safe name (start with a letter or digit, then "
+                           "letters, digits, space, _ - . + ( ); at most 80 characters)")
+    return name
 
 
 # --------------------------------------------------------------------------- loader
@@ -352,13 +394,14 @@ def _input_spec(p: Path, t: dict) -> InputSpec:
     return spec
 
 
-def load_card(path: Path | str) -> Card:
+def load_card(path: Path | str, *, allow_outside: bool = False) -> Card:
     """Load and validate a recogniser card (``card.toml`` or the folder holding it).
 
     Checks that every file exists, that tensor names exist in the graphs with
     the expected ranks, and that the symbol table has exactly as many entries as
     the model scores (from the graph's static shape, else by one dry run with
     onnxruntime). Raises CardError naming the file and field on any problem.
+    ``allow_outside``: let file paths lead outside the card's folder.
     """
     p = Path(path)
     if p.is_dir():
@@ -369,13 +412,9 @@ def load_card(path: Path | str) -> Card:
         raise CardError(p, f"field 'kind': unknown kind {data['kind']!r}; use one of {', '.join(KINDS)}")
     top = checked(p, data, TOP_SCHEMA)
     kind = top["kind"]
-    name = top["name"] if top["name"] is not None else folder.name
-    if not name.strip():
-        raise CardError(p, "field 'name': must not be empty")
-    if any(c in name for c in "/\\:\0"):
-        raise CardError(p, f"field 'name': must not contain path separators: {name!r}")
+    name = check_name(p, top["name"] if top["name"] is not None else folder.name)
     spec = _input_spec(p, top["input"])
-    files = _Files(p, folder)
+    files = _Files(p, folder, allow_outside)
     other = "seq" if kind == "ctc" else "ctc"
     if top[other] is not None:
         raise CardError(p, f"table [{other}]: a {kind} card has no [{other}] table")
@@ -393,8 +432,8 @@ def load_card(path: Path | str) -> Card:
 
 
 def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
-    model = files(t["model"], "ctc.model", "model")
-    g = read_graph(p, "ctc", model)
+    g = files.graph(t["model"], "ctc.model", "model")
+    model = g.path
     inp, out, blank = t["input"], t["output"], t["blank_index"]
     sym_path = files(t["alphabet"], "ctc.alphabet", "alphabet")
     _check_input_image(p, "ctc", g, inp, "ctc.input", spec)
@@ -449,8 +488,8 @@ def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
 
 
 def _load_encoder(p: Path, et: dict, spec: InputSpec, files: _Files) -> tuple[EncoderSpec, int | None]:
-    emodel = files(et["model"], "seq.encoder.model", "encoder")
-    eg = read_graph(p, "encoder", emodel)
+    eg = files.graph(et["model"], "seq.encoder.model", "encoder")
+    emodel = eg.path
     einp = et["input"]
     eouts = _names_of(p, et["outputs"], "seq.encoder.outputs")
     _check_input_image(p, "encoder", eg, einp, "seq.encoder.input", spec)
@@ -470,13 +509,14 @@ def _memory_inputs(p: Path, role: str, g: GraphInfo, t: dict, enc: EncoderSpec, 
         need_tensor(p, role, g, x, output=False, rank=rank, key=f"seq.{role}.memory")
     mmask = t["memory_mask"] or None
     if mmask:
-        need_tensor(p, role, g, mmask, output=False, rank=2, key=f"seq.{role}.memory_mask")
+        tm = need_tensor(p, role, g, mmask, output=False, rank=2, key=f"seq.{role}.memory_mask")
+        need_dtype(p, g, tm, MASK_TYPES, f"seq.{role}.memory_mask", "the memory mask is fed as")
     return memory, mmask
 
 
 def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderStepSpec:
-    smodel = files(st["model"], "seq.decoder_step.model", "decoder_step")
-    sg = read_graph(p, "decoder_step", smodel)
+    sg = files.graph(st["model"], "seq.decoder_step.model", "decoder_step")
+    smodel = sg.path
     tok, step = st["tokens"], st["step"] or None
     past = _names_of(p, st["past"], "seq.decoder_step.past")
     present = _names_of(p, st["present"], "seq.decoder_step.present")
@@ -484,9 +524,11 @@ def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Fi
         raise CardError(p, f"field 'seq.decoder_step.present': lists {len(present)} tensors but 'past' lists "
                            f"{len(past)}; they pair by position")
     memory, mmask = _memory_inputs(p, "decoder_step", sg, st, enc, rank)
-    need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
+    tt = need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
+    need_dtype(p, sg, tt, INT_TYPES, "seq.decoder_step.tokens", "token ids are fed as")
     if step:
-        need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
+        ts = need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
+        need_dtype(p, sg, ts, INT_TYPES, "seq.decoder_step.step", "the step is fed as")
     prank = {need_tensor(p, "decoder_step", sg, x, output=False, rank=None, key="seq.decoder_step.past").rank
              for x in past}
     cl = _check_rank(p, "seq.decoder_step.cache_layout", st["cache_layout"],
@@ -508,10 +550,11 @@ def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Fi
 
 
 def _load_full(p: Path, ft: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderFullSpec:
-    fmodel = files(ft["model"], "seq.decoder_full.model", "decoder_full")
-    fg = read_graph(p, "decoder_full", fmodel)
+    fg = files.graph(ft["model"], "seq.decoder_full.model", "decoder_full")
+    fmodel = fg.path
     memory, mmask = _memory_inputs(p, "decoder_full", fg, ft, enc, rank)
-    need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
+    tt = need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
+    need_dtype(p, fg, tt, INT_TYPES, "seq.decoder_full.tokens", "token ids are fed as")
     need_tensor(p, "decoder_full", fg, ft["log_probs"], output=True, rank=2, key="seq.decoder_full.log_probs")
     return DecoderFullSpec(model=fmodel, tokens=ft["tokens"], memory=memory, memory_mask=mmask,
                            log_probs=ft["log_probs"], graph=fg)

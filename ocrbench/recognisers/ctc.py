@@ -28,7 +28,7 @@ from typing import Sequence
 
 import numpy as np
 
-from ocrbench.recognisers.base import LineResult, Recogniser
+from ocrbench.recognisers.base import LineResult, Recogniser, nonfinite_failure
 from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, share_time
 from ocrbench.recognisers.card import Card
@@ -121,12 +121,18 @@ def prefix_beam_search(logp: np.ndarray, *, blank: int = 0, beam_width: int = 8,
 
 
 def forced_alignment(logp: np.ndarray, labels: Sequence[int], blank: int = 0) -> np.ndarray:
-    """The most probable frame path (class per frame) that collapses to ``labels`` (Viterbi)."""
+    """The most probable frame path (class per frame) that collapses to ``labels`` (Viterbi).
+
+    An empty labelling (a blank line) aligns to blanks only: the extended label
+    sequence then has one state, and the one- and two-state moves do not exist.
+    """
     T = logp.shape[0]
     ext = [blank]
     for c in labels:
         ext += [c, blank]
     S = len(ext)
+    if T == 0:
+        return np.empty(0, np.int64)
     ext_a = np.array(ext)
     emit = logp[:, ext_a]                       # (T, S)
     # allowed skip s-2 -> s when ext[s] is a label different from ext[s-2]
@@ -138,11 +144,12 @@ def forced_alignment(logp: np.ndarray, labels: Sequence[int], blank: int = 0) ->
         score[1] = emit[0, 1]
     back = np.zeros((T, S), np.int64)
     idx = np.arange(S)
+    step1 = np.full(S, NEG_INF)
+    step2 = np.full(S, NEG_INF)
     for t in range(1, T):
-        stay = score
-        step1 = np.concatenate(([NEG_INF], score[:-1]))
-        step2 = np.where(skip, np.concatenate(([NEG_INF, NEG_INF], score[:-2])), NEG_INF)
-        choice = np.stack([stay, step1, step2])
+        step1[1:] = score[:-1]
+        step2[2:] = score[:-2]
+        choice = np.stack([score, step1, np.where(skip, step2, NEG_INF)])
         arg = np.argmax(choice, axis=0)
         score = choice[arg, idx] + emit[t]
         back[t] = idx - arg
@@ -213,7 +220,13 @@ class CtcRecogniser(Recogniser):
         sym = self.c.symbols
         results = []
         for b in range(B):
-            labels, conf, chars = self.decode_line(logp[b, : valid[b]])
+            lp = logp[b, : valid[b]]
+            failure = nonfinite_failure(lp)
+            if failure:
+                results.append(LineResult(text="", confidence=0.0, char_confidences=[], steps=int(valid[b]),
+                                          width_px=int(pb.widths[b]), batch_no=pb.batch_no, failure=failure))
+                continue
+            labels, conf, chars = self.decode_line(lp)
             text = "".join(sym[k] for k in labels)
             results.append(LineResult(text=text, confidence=conf, char_confidences=chars, steps=int(valid[b]),
                                       width_px=int(pb.widths[b]), batch_no=pb.batch_no, tokens=len(labels)))
