@@ -300,3 +300,61 @@ def block_line(pattern: str, *, grey: int = 128, block: int = 8) -> np.ndarray:
     value = {" ": 255, "a": grey, "b": 0}
     cols = [np.full((H, block), value[c], np.uint8) for c in pattern]
     return np.concatenate(cols, axis=1)
+
+
+# --------------------------------------------------------------------------- CTC layouts (bring your own model)
+
+
+def ctc_layout_model(*, layout: str = "NCHW", channels: int = 1, height: int = H, blank_last: bool = False,
+                     out_layout: str = "BTC", kind: str = "logits", width: int | None = None,
+                     mean: tuple[float, ...] = (0.0,), std: tuple[float, ...] = (1.0,)) -> onnx.ModelProto:
+    """The tiny CTC recogniser in another export layout: image axes ``layout``, ``channels`` (averaged),
+    line ``height``, the blank as the last class, output axes ``out_layout`` (BTC/TBC), output ``kind``
+    (logits / log_probs / probs), a fixed input ``width``. ``mean``/``std``: the per-channel normalisation
+    the card applies, undone first, so every variant reads the same ink x per 4-pixel column block."""
+    order = [1, 2, 0] if blank_last else [0, 1, 2]
+    w = np.array([[0.0, 10.0, 20.0]], np.float32)[:, order]
+    b = np.array([0.0, -2.0, -9.0], np.float32)[order]
+    nodes, img = [], "image"
+    if layout == "NHWC":
+        nodes.append(helper.make_node("Transpose", [img], ["nchw"], perm=[0, 3, 1, 2]))
+        img = "nchw"
+    c_shape = [1, channels, 1, 1]
+    nodes += [helper.make_node("Mul", [img, "std"], ["unstd"]), helper.make_node("Add", ["unstd", "mean"], ["raw"]),
+              helper.make_node("ReduceMean", ["raw"], ["grey"], axes=[1], keepdims=1),
+              helper.make_node("AveragePool", ["grey"], ["pooled"], kernel_shape=[height, 4], strides=[height, 4]),
+              helper.make_node("Reshape", ["pooled", "shape_bt1"], ["x"]),
+              helper.make_node("MatMul", ["x", "w"], ["xw"]), helper.make_node("Add", ["xw", "b"], ["scores"])]
+    last = "scores"
+    if kind != "logits":
+        nodes.append(helper.make_node("LogSoftmax" if kind == "log_probs" else "Softmax", [last], ["norm"], axis=-1))
+        last = "norm"
+    if out_layout == "TBC":
+        nodes.append(helper.make_node("Transpose", [last], ["tbc"], perm=[1, 0, 2]))
+        last = "tbc"
+    nodes.append(helper.make_node("Identity", [last], ["output"]))
+    W = width or "width"
+    in_shape = ["batch", channels, height, W] if layout == "NCHW" else ["batch", height, W, channels]
+    out_shape = ["batch", "frames", 3] if out_layout == "BTC" else ["frames", "batch", 3]
+    inits = [_init("shape_bt1", np.array([0, -1, 1], np.int64)), _init("w", w), _init("b", b),
+             _init("axis1", np.array([1], np.int64)),
+             _init("std", np.broadcast_to(np.asarray(std, np.float32), (channels,)).reshape(c_shape).copy()),
+             _init("mean", np.broadcast_to(np.asarray(mean, np.float32), (channels,)).reshape(c_shape).copy())]
+    g = helper.make_graph(nodes, "tiny_ctc_layout", [helper.make_tensor_value_info("image", TensorProto.FLOAT, in_shape)],
+                          [helper.make_tensor_value_info("output", TensorProto.FLOAT, out_shape)], inits)
+    m = helper.make_model(g, opset_imports=[helper.make_opsetid("", OPSET)])
+    return m
+
+
+def write_ctc_layout(folder: Path, card_extra: str = "", ctc_extra: str = "", **kw) -> Path:
+    """A card folder for :func:`ctc_layout_model` (``card_extra``: more [input] lines; ``ctc_extra``: [ctc])."""
+    folder.mkdir(parents=True, exist_ok=True)
+    _save(ctc_layout_model(**kw), folder / "model.onnx")
+    classes = CTC_CLASSES[1:] + CTC_CLASSES[:1] if kw.get("blank_last") else CTC_CLASSES
+    write_symbols(folder / "alphabet.txt", classes)
+    (folder / "card.toml").write_text(
+        f'name = "{folder.name}"\nkind = "ctc"\n\n[input]\nheight = {kw.get("height", H)}\nwidth_multiple = 4\n'
+        f'min_width = 8\n{card_extra}\n[ctc]\nmodel = "model.onnx"\ninput = "image"\noutput = "output"\n'
+        f'frames_per_pixel = 0.25\nalphabet = "alphabet.txt"\nblank_index = {2 if kw.get("blank_last") else 0}\n'
+        f'{ctc_extra}', encoding="utf-8")
+    return folder

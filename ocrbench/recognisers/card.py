@@ -27,11 +27,12 @@ from ocrbench.errors import CardError, ConfigError
 from ocrbench.io.config import Key, check_table
 from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
                                         need_dtype, need_tensor, read_graph)
-from ocrbench.recognisers.preprocess import InputSpec
+from ocrbench.recognisers.preprocess import FILTERS, LAYOUTS, RESIZE_MODES, InputSpec, make_batch, resize_line
 
 CARD_FILE = "card.toml"
 KINDS = ("ctc", "seq")
 CTC_LAYOUTS = ("BTC", "TBC")
+OUTPUT_KINDS = ("logits", "log_probs", "probs")
 DEFAULT_MASK_VALID = 0.0
 DEFAULT_MASK_PADDED = -1e9
 
@@ -46,11 +47,15 @@ class CtcSpec:
     input: str
     output: str
     layout: str                      # "BTC" or "TBC"
-    output_is_log_probs: bool
+    output_kind: str                 # "logits" | "log_probs" | "probs"
     frames_per_pixel: float | None   # valid frames = ceil(width * this); None: proportional to the padded width
     blank_index: int
     symbols: tuple[str, ...]         # class index -> text ("" for the blank)
     graph: GraphInfo = field(repr=False, compare=False)
+
+    @property
+    def output_is_log_probs(self) -> bool:
+        return self.output_kind == "log_probs"
 
 
 @dataclass(frozen=True)
@@ -175,6 +180,17 @@ def _layout_key(default: Any, letters: str) -> Key:
     return Key((str,), default, required=default is None, check=check)
 
 
+def _channel_values(positive: bool):
+    def check(v) -> str | None:
+        vals = v if isinstance(v, list) else [v]
+        if not vals:
+            return "must be a number or a non-empty list of numbers (one per channel)"
+        if positive and any(x <= 0 for x in vals):
+            return "must be greater than 0 (every channel)"
+        return None
+    return check
+
+
 _D = InputSpec()
 INPUT_SCHEMA = {
     "height": _pos_int(_D.height),
@@ -183,9 +199,14 @@ INPUT_SCHEMA = {
     "max_width": _pos_int(_D.max_width),
     "invert": Key((bool,), _D.invert),
     "scale": Key((float,), _D.scale, check=lambda v: None if v != 0 else "must be a non-zero number"),
-    "mean": Key((float,), _D.mean),
-    "std": Key((float,), _D.std, low=0, low_open=True),
+    "mean": Key((float, list), _D.mean, items=(float,), check=_channel_values(False)),
+    "std": Key((float, list), _D.std, items=(float,), low=0, low_open=True, check=_channel_values(True)),
     "split_gap": Key((float,), _D.split_gap, low=0),
+    "channels": Key((int,), _D.channels, choices=(1, 3)),
+    "layout": _str(_D.layout, choices=LAYOUTS),
+    "width": Key((int,), None, low=1),
+    "resize": _str(_D.resize, choices=RESIZE_MODES),
+    "filter": _str(_D.filter, choices=tuple(FILTERS)),
 }
 TOP_SCHEMA = {
     "name": _str(),
@@ -201,7 +222,8 @@ CTC_SCHEMA = {
     "input": _str("image"),
     "output": _str("logits"),
     "layout": _str("BTC", choices=CTC_LAYOUTS),
-    "output_is_log_probs": Key((bool,), False),
+    "output_kind": _str(None, choices=OUTPUT_KINDS),
+    "output_is_log_probs": Key((bool,), None),
     "frames_per_pixel": Key((float,), None, low=0, low_open=True),
     "blank_index": Key((int,), 0, low=0),
     "alphabet": _str(required=True),
@@ -299,17 +321,24 @@ def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
 
 
 def _check_input_image(card: Path, role: str, g: GraphInfo, name: str, key: str, spec: InputSpec) -> None:
+    """The image input: rank 4, float32, and every fixed axis equal to what the card's [input] makes."""
     t = need_tensor(card, role, g, name, output=False, rank=4, key=key)
     need_dtype(card, g, t, FLOAT32, key, "ocrbench feeds line images as")
     if t.rank is None:
         return
-    c, h = t.static(1), t.static(2)
-    if c is not None and c != 1:
-        raise CardError(card, f"field '{key}': input '{name}' of {g.path.name} has {c} channels; "
-                              "ocrbench feeds grey lines as (batch, 1, height, width)")
+    axes = {"channels": 1, "height": 2, "width": 3} if spec.layout == "NCHW" else {"height": 1, "width": 2, "channels": 3}
+    where = f"input '{name}' of {g.path.name} (shape {list(t.shape)}, read as {spec.layout})"
+    c, h, w = (t.static(axes[k]) for k in ("channels", "height", "width"))
+    if c is not None and c != spec.channels:
+        hint = "; is input.layout right?" if c not in (1, 3) else ""
+        raise CardError(card, f"field 'input.channels' is {spec.channels} but {where} has {c} channels{hint}")
     if h is not None and h != spec.height:
-        raise CardError(card, f"field 'input.height' is {spec.height} but input '{name}' of {g.path.name} "
-                              f"wants height {h}")
+        raise CardError(card, f"field 'input.height' is {spec.height} but {where} wants height {h}")
+    if w is not None and spec.width is None:
+        raise CardError(card, f"field 'input.width' is not set but {where} has a fixed width of {w}: "
+                              f"set input.width = {w}")
+    if w is not None and w != spec.width:
+        raise CardError(card, f"field 'input.width' is {spec.width} but {where} wants width {w}")
 
 
 def _check_rank(p: Path, key: str, layout: str, rank: int | None) -> str:
@@ -388,9 +417,18 @@ def _read_card(p: Path) -> tuple[bytes, dict]:
 
 
 def _input_spec(p: Path, t: dict) -> InputSpec:
+    t = dict(t)
+    for key in ("mean", "std"):
+        if isinstance(t[key], list):
+            if len(t[key]) not in (1, t["channels"]):
+                raise CardError(p, f"field 'input.{key}': has {len(t[key])} values but input.channels is "
+                                   f"{t['channels']} (give one value, or one per channel)")
+            t[key] = tuple(float(x) for x in t[key]) if len(t[key]) > 1 else float(t[key][0])
     spec = InputSpec(**t)
     if spec.min_width > spec.max_width:
         raise CardError(p, f"field 'input.min_width': {spec.min_width} is larger than max_width {spec.max_width}")
+    if spec.resize == "stretch" and spec.width is None:
+        raise CardError(p, "field 'input.resize': \"stretch\" needs a fixed input.width")
     return spec
 
 
@@ -449,7 +487,12 @@ def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
                            f"but the model scores {n_out} classes per frame")
     syms = list(symbols)
     syms[blank] = ""
-    return CtcSpec(model=model, input=inp, output=out, layout=t["layout"], output_is_log_probs=t["output_is_log_probs"],
+    kind, is_log = t["output_kind"], t["output_is_log_probs"]
+    if kind is not None and is_log is not None and (kind == "log_probs") != is_log:
+        raise CardError(p, f"field 'ctc.output_is_log_probs': {str(is_log).lower()} contradicts ctc.output_kind "
+                           f"{kind!r} (give output_kind alone)")
+    kind = kind or ("log_probs" if is_log else "logits")
+    return CtcSpec(model=model, input=inp, output=out, layout=t["layout"], output_kind=kind,
                    frames_per_pixel=t["frames_per_pixel"], blank_index=blank, symbols=tuple(syms), graph=g)
 
 
@@ -573,10 +616,16 @@ def _dry_run_classes(p: Path, model: Path, feeds: dict[str, str], out: str, spec
     import onnxruntime as ort
 
     w = max(spec.min_width, 8 * spec.width_multiple)
-    img = np.zeros((1, 1, spec.height, w), np.float32)
+    img = make_batch([resize_line(np.full((spec.height, w), 255, np.uint8), spec)], spec)[0]
     try:
         sess = ort.InferenceSession(str(model), providers=["CPUExecutionProvider"])
         y = sess.run([out], {name: img for name in feeds})[0]
     except Exception as e:
-        raise CardError(model, f"dry run on a blank line failed: {type(e).__name__}: {e}") from e
+        raise CardError(model, f"dry run on a blank line failed: {type(e).__name__}: {first_line(e)}") from e
     return int(y.shape[axis])
+
+
+def first_line(e: BaseException, limit: int = 300) -> str:
+    """The first line of an exception's message, cut to ``limit`` characters (onnxruntime's run a page)."""
+    text = str(e).strip().splitlines()
+    return (text[0] if text else "")[:limit]

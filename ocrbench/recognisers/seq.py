@@ -154,16 +154,17 @@ class SeqRecogniser(Recogniser):
         page or batch it comes in. Otherwise the padded batch is encoded at once.
         """
         e = self.s.encoder
-        fa, ba = e.frames_axis, e.batch_axis
+        fa, ba, wa = e.frames_axis, e.batch_axis, self.spec.width_axis
         if not self.options.encoder_per_line or tensor.shape[0] == 1:
             memory = self.encoder.run(list(e.outputs), {e.input: tensor})
             S = memory[0].shape[fa]
-            return memory, self._mask(valid_frames(widths, tensor.shape[-1], S, self.s.frames_per_pixel), S)
+            return memory, self._mask(valid_frames(widths, tensor.shape[wa], S, self.s.frames_per_pixel), S)
         m = self.spec.width_multiple
         parts, valid = [], []
         for i, w in enumerate(widths):
-            W_i = -(-int(w) // m) * m
-            out = self.encoder.run(list(e.outputs), {e.input: np.ascontiguousarray(tensor[i:i + 1, :, :, :W_i])})
+            W_i = self.spec.width or -(-int(w) // m) * m
+            line = np.take(tensor[i:i + 1], np.arange(W_i), axis=wa)
+            out = self.encoder.run(list(e.outputs), {e.input: line})
             parts.append(out)
             valid.append(int(valid_frames([w], W_i, out[0].shape[fa], self.s.frames_per_pixel)[0]))
         S = max(p[0].shape[fa] for p in parts)
@@ -381,7 +382,7 @@ class SeqRecogniser(Recogniser):
         frames = int(memory[0].shape[self.s.encoder.frames_axis])
         n_steps = [r.steps for r in results]
         n_tok = [r.tokens for r in results]
-        timing = BatchTiming(batch_no=pb.batch_no, n_lines=len(results), padded_width=int(pb.tensor.shape[-1]),
+        timing = BatchTiming(batch_no=pb.batch_no, n_lines=len(results), padded_width=pb.padded_width,
                              sum_width=int(np.sum(pb.widths)), frames=frames, steps_max=max(n_steps, default=0),
                              tokens_sum=int(sum(n_tok)), tokens_sq_sum=int(sum(n * n for n in n_tok)),
                              t_preprocess=pb.t_preprocess, t_encode=t1 - t0, t_steps=timer.t,
