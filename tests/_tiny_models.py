@@ -52,20 +52,30 @@ def _frames_nodes(img: str, out: str) -> list:
     ]
 
 
-def ctc_model(*, classes: int = 3, input_rank: int = 4, free_classes: bool = False) -> onnx.ModelProto:
+def ctc_model(*, classes: int = 3, input_rank: int = 4, free_classes: bool = False,
+              input_type: int = TensorProto.FLOAT, nan_on_ink: bool = False) -> onnx.ModelProto:
+    """``input_type``: the declared element type of the image (cast to float inside).
+    ``nan_on_ink``: frames with ink score NaN (sqrt of the negated ink), blank frames stay finite."""
     w = np.array([[0.0, 10.0, 20.0][:classes] + [0.0] * max(0, classes - 3)], np.float32)
     b = np.array([0.0, -2.0, -9.0][:classes] + [-50.0] * max(0, classes - 3), np.float32)
     nodes = []
     img = "image"
+    if input_type != TensorProto.FLOAT:
+        nodes.append(helper.make_node("Cast", ["image"], ["image_f"], to=TensorProto.FLOAT))
+        img = "image_f"
     if input_rank == 3:
-        nodes.append(helper.make_node("Unsqueeze", ["image", "axis1"], ["image4"]))
+        nodes.append(helper.make_node("Unsqueeze", [img, "axis1"], ["image4"]))
         img = "image4"
     nodes += _frames_nodes(img, "x")
-    nodes += [helper.make_node("MatMul", ["x", "w"], ["xw"]), helper.make_node("Add", ["xw", "b"], ["logits"])]
+    nodes += [helper.make_node("MatMul", ["x", "w"], ["xw"]),
+              helper.make_node("Add", ["xw", "b"], ["logits0" if nan_on_ink else "logits"])]
+    if nan_on_ink:
+        nodes += [helper.make_node("Neg", ["x"], ["negx"]), helper.make_node("Sqrt", ["negx"], ["nan_or_0"]),
+                  helper.make_node("Add", ["logits0", "nan_or_0"], ["logits"])]
     inits = [_init("shape_bt1", np.array([0, -1, 1], np.int64)), _init("w", w), _init("b", b),
              _init("axis1", np.array([1], np.int64))]
     in_shape = ["batch", 1, H, "width"] if input_rank == 4 else ["batch", H, "width"]
-    g = helper.make_graph(nodes, "tiny_ctc", [helper.make_tensor_value_info("image", TensorProto.FLOAT, in_shape)],
+    g = helper.make_graph(nodes, "tiny_ctc", [helper.make_tensor_value_info("image", input_type, in_shape)],
                           [helper.make_tensor_value_info("logits", TensorProto.FLOAT,
                                                          ["batch", "frames", "classes" if free_classes else classes])],
                           inits)
@@ -126,14 +136,18 @@ def _seq_weights(seed: int = 2) -> dict[str, np.ndarray]:
     }
 
 
-def seq_encoder() -> onnx.ModelProto:
+def seq_encoder(*, nan_on_ink: bool = False) -> onnx.ModelProto:
+    """``nan_on_ink``: memory frames with ink are NaN (sqrt of the negated ink), blank frames stay finite."""
     W = _seq_weights()
     nodes = _frames_nodes("image", "x") + [
         helper.make_node("MatMul", ["x", "we"], ["xw"]),
         helper.make_node("Add", ["xw", "be"], ["pre"]),
         helper.make_node("Tanh", ["pre"], ["mem0"]),
-        helper.make_node("Mul", ["mem0", "mem_scale"], ["memory"]),
+        helper.make_node("Mul", ["mem0", "mem_scale"], ["mem1" if nan_on_ink else "memory"]),
     ]
+    if nan_on_ink:
+        nodes += [helper.make_node("Neg", ["x"], ["negx"]), helper.make_node("Sqrt", ["negx"], ["nan_or_0"]),
+                  helper.make_node("Add", ["mem1", "nan_or_0"], ["memory"])]
     g = helper.make_graph(nodes, "tiny_encoder",
                           [helper.make_tensor_value_info("image", TensorProto.FLOAT, ["batch", 1, H, "width"])],
                           [helper.make_tensor_value_info("memory", TensorProto.FLOAT, ["batch", "frames", D])],
@@ -286,3 +300,61 @@ def block_line(pattern: str, *, grey: int = 128, block: int = 8) -> np.ndarray:
     value = {" ": 255, "a": grey, "b": 0}
     cols = [np.full((H, block), value[c], np.uint8) for c in pattern]
     return np.concatenate(cols, axis=1)
+
+
+# --------------------------------------------------------------------------- CTC layouts (bring your own model)
+
+
+def ctc_layout_model(*, layout: str = "NCHW", channels: int = 1, height: int = H, blank_last: bool = False,
+                     out_layout: str = "BTC", kind: str = "logits", width: int | None = None,
+                     mean: tuple[float, ...] = (0.0,), std: tuple[float, ...] = (1.0,)) -> onnx.ModelProto:
+    """The tiny CTC recogniser in another export layout: image axes ``layout``, ``channels`` (averaged),
+    line ``height``, the blank as the last class, output axes ``out_layout`` (BTC/TBC), output ``kind``
+    (logits / log_probs / probs), a fixed input ``width``. ``mean``/``std``: the per-channel normalisation
+    the card applies, undone first, so every variant reads the same ink x per 4-pixel column block."""
+    order = [1, 2, 0] if blank_last else [0, 1, 2]
+    w = np.array([[0.0, 10.0, 20.0]], np.float32)[:, order]
+    b = np.array([0.0, -2.0, -9.0], np.float32)[order]
+    nodes, img = [], "image"
+    if layout == "NHWC":
+        nodes.append(helper.make_node("Transpose", [img], ["nchw"], perm=[0, 3, 1, 2]))
+        img = "nchw"
+    c_shape = [1, channels, 1, 1]
+    nodes += [helper.make_node("Mul", [img, "std"], ["unstd"]), helper.make_node("Add", ["unstd", "mean"], ["raw"]),
+              helper.make_node("ReduceMean", ["raw"], ["grey"], axes=[1], keepdims=1),
+              helper.make_node("AveragePool", ["grey"], ["pooled"], kernel_shape=[height, 4], strides=[height, 4]),
+              helper.make_node("Reshape", ["pooled", "shape_bt1"], ["x"]),
+              helper.make_node("MatMul", ["x", "w"], ["xw"]), helper.make_node("Add", ["xw", "b"], ["scores"])]
+    last = "scores"
+    if kind != "logits":
+        nodes.append(helper.make_node("LogSoftmax" if kind == "log_probs" else "Softmax", [last], ["norm"], axis=-1))
+        last = "norm"
+    if out_layout == "TBC":
+        nodes.append(helper.make_node("Transpose", [last], ["tbc"], perm=[1, 0, 2]))
+        last = "tbc"
+    nodes.append(helper.make_node("Identity", [last], ["output"]))
+    W = width or "width"
+    in_shape = ["batch", channels, height, W] if layout == "NCHW" else ["batch", height, W, channels]
+    out_shape = ["batch", "frames", 3] if out_layout == "BTC" else ["frames", "batch", 3]
+    inits = [_init("shape_bt1", np.array([0, -1, 1], np.int64)), _init("w", w), _init("b", b),
+             _init("axis1", np.array([1], np.int64)),
+             _init("std", np.broadcast_to(np.asarray(std, np.float32), (channels,)).reshape(c_shape).copy()),
+             _init("mean", np.broadcast_to(np.asarray(mean, np.float32), (channels,)).reshape(c_shape).copy())]
+    g = helper.make_graph(nodes, "tiny_ctc_layout", [helper.make_tensor_value_info("image", TensorProto.FLOAT, in_shape)],
+                          [helper.make_tensor_value_info("output", TensorProto.FLOAT, out_shape)], inits)
+    m = helper.make_model(g, opset_imports=[helper.make_opsetid("", OPSET)])
+    return m
+
+
+def write_ctc_layout(folder: Path, card_extra: str = "", ctc_extra: str = "", **kw) -> Path:
+    """A card folder for :func:`ctc_layout_model` (``card_extra``: more [input] lines; ``ctc_extra``: [ctc])."""
+    folder.mkdir(parents=True, exist_ok=True)
+    _save(ctc_layout_model(**kw), folder / "model.onnx")
+    classes = CTC_CLASSES[1:] + CTC_CLASSES[:1] if kw.get("blank_last") else CTC_CLASSES
+    write_symbols(folder / "alphabet.txt", classes)
+    (folder / "card.toml").write_text(
+        f'name = "{folder.name}"\nkind = "ctc"\n\n[input]\nheight = {kw.get("height", H)}\nwidth_multiple = 4\n'
+        f'min_width = 8\n{card_extra}\n[ctc]\nmodel = "model.onnx"\ninput = "image"\noutput = "output"\n'
+        f'frames_per_pixel = 0.25\nalphabet = "alphabet.txt"\nblank_index = {2 if kw.get("blank_last") else 0}\n'
+        f'{ctc_extra}', encoding="utf-8")
+    return folder

@@ -24,7 +24,7 @@ from ocrbench.pages.segment import split_at_gaps
 from ocrbench.recognisers.preprocess import InputSpec
 
 __all__ = ["BATCH_MODES", "DECODINGS", "GRAPH_LEVELS", "BatchTiming", "Clock", "EngineOptions", "LineResult",
-           "PreparedBatch", "Recogniser", "make_session", "onnx_dtype", "resolve_providers", "share_time",
+           "NONFINITE", "PreparedBatch", "Recogniser", "nonfinite_failure", "make_session", "onnx_dtype", "resolve_providers", "share_time",
            "valid_frames", "warm_up_lines"]
 
 @dataclass
@@ -34,8 +34,10 @@ class LineResult:
     ``confidence`` is the geometric mean of the probabilities of the decisions
     that made the line (CTC: the best-path frame posteriors over the line's
     frames; seq: the chosen tokens, end token included), so 1 means every
-    decision was certain. ``steps``: seq = decoder steps (tokens + end token);
-    CTC = the line's frames.
+    decision was certain; a line cut by the max-tokens guard (``truncated``) or
+    failed (``failure``) has confidence 0, so it never reads as certain and heads
+    any queue ordered by confidence. ``steps``: seq = decoder steps (tokens + end
+    token); CTC = the line's frames.
     """
 
     text: str
@@ -45,8 +47,30 @@ class LineResult:
     width_px: int
     batch_no: int
     tokens: int = 0                  # emitted symbols (CTC: characters after collapse)
-    truncated: bool = False          # seq: stopped by the max-tokens guard
+    truncated: bool = False          # seq: stopped by the max-tokens guard (its text is incomplete)
     t_line: float = 0.0              # the line's share of its batch's model + decode time
+    failure: str | None = None       # set when the line could not be read (e.g. NaN model output); text is ""
+
+    @property
+    def failed(self) -> bool:
+        return self.failure is not None
+
+
+#: The reason given for lines whose model scores hold NaN or +/-Inf.
+NONFINITE = "the model's scores for this line hold NaN or infinite values"
+
+
+def nonfinite_failure(log_probs: np.ndarray) -> str | None:
+    """:data:`NONFINITE` when a line's (steps, classes) log-probabilities cannot be decoded, else None.
+
+    NaN anywhere, or a step whose best score is not finite (+Inf, or every class at -Inf), makes the line
+    unreadable; -Inf for some classes is a legitimate log-probability of 0.
+    """
+    if log_probs.size == 0:
+        return None
+    if np.isnan(log_probs).any() or not np.isfinite(log_probs.max(axis=-1)).all():
+        return NONFINITE
+    return None
 
 
 class Recogniser:
@@ -112,11 +136,14 @@ class Recogniser:
             steps = sum(r.steps for r in rs)
             # geometric mean over every decision of every piece
             logc = sum(r.steps * float(np.log(max(r.confidence, 1e-12))) for r in rs)
-            merged[i] = LineResult(text=text, confidence=float(np.exp(logc / max(1, steps))),
-                                   char_confidences=chars, steps=steps,
+            failure = next((r.failure for r in rs if r.failure), None)
+            truncated = any(r.truncated for r in rs)
+            conf = 0.0 if failure or truncated else float(np.exp(logc / max(1, steps)))
+            merged[i] = LineResult(text="" if failure else text, confidence=conf,
+                                   char_confidences=[] if failure else chars, steps=steps,
                                    width_px=sum(r.width_px for r in rs), batch_no=rs[0].batch_no,
-                                   tokens=sum(r.tokens for r in rs), truncated=any(r.truncated for r in rs),
-                                   t_line=sum(r.t_line for r in rs))
+                                   tokens=sum(r.tokens for r in rs), truncated=truncated,
+                                   t_line=sum(r.t_line for r in rs), failure=failure)
         return merged, timings  # type: ignore[return-value]
 
     def _recognise_whole(self, crops, *, clock):

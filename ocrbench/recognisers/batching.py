@@ -27,6 +27,11 @@ class PreparedBatch:
     tensor: np.ndarray               # (B, 1, H, W) float32 (or the card's layout)
     widths: np.ndarray               # resized width of each line before padding
     t_preprocess: float
+    width_axis: int = 3              # axis of the width in ``tensor`` (3: NCHW, 2: NHWC)
+
+    @property
+    def padded_width(self) -> int:
+        return int(self.tensor.shape[self.width_axis])
 
 
 def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: int, max_pad_ratio: float, *,
@@ -46,7 +51,7 @@ def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: in
         t0 = clock()
         tensor, widths = make_batch([resized[i] for i in idx], spec)
         t = clock() - t0 + sum(t_resize[i] for i in idx)
-        out.append(PreparedBatch(b, idx, tensor, widths, t))
+        out.append(PreparedBatch(b, idx, tensor, widths, t, spec.width_axis))
     return out
 
 

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,12 +25,14 @@ from typing import Any
 
 from ocrbench.errors import CardError, ConfigError
 from ocrbench.io.config import Key, check_table
-from ocrbench.recognisers.graphs import GraphInfo, TensorInfo, class_count, need_tensor, read_graph
-from ocrbench.recognisers.preprocess import InputSpec
+from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
+                                        need_dtype, need_tensor, read_graph)
+from ocrbench.recognisers.preprocess import FILTERS, LAYOUTS, RESIZE_MODES, InputSpec, make_batch, resize_line
 
 CARD_FILE = "card.toml"
 KINDS = ("ctc", "seq")
 CTC_LAYOUTS = ("BTC", "TBC")
+OUTPUT_KINDS = ("logits", "log_probs", "probs")
 DEFAULT_MASK_VALID = 0.0
 DEFAULT_MASK_PADDED = -1e9
 
@@ -44,11 +47,15 @@ class CtcSpec:
     input: str
     output: str
     layout: str                      # "BTC" or "TBC"
-    output_is_log_probs: bool
+    output_kind: str                 # "logits" | "log_probs" | "probs"
     frames_per_pixel: float | None   # valid frames = ceil(width * this); None: proportional to the padded width
     blank_index: int
     symbols: tuple[str, ...]         # class index -> text ("" for the blank)
     graph: GraphInfo = field(repr=False, compare=False)
+
+    @property
+    def output_is_log_probs(self) -> bool:
+        return self.output_kind == "log_probs"
 
 
 @dataclass(frozen=True)
@@ -173,6 +180,17 @@ def _layout_key(default: Any, letters: str) -> Key:
     return Key((str,), default, required=default is None, check=check)
 
 
+def _channel_values(positive: bool):
+    def check(v) -> str | None:
+        vals = v if isinstance(v, list) else [v]
+        if not vals:
+            return "must be a number or a non-empty list of numbers (one per channel)"
+        if positive and any(x <= 0 for x in vals):
+            return "must be greater than 0 (every channel)"
+        return None
+    return check
+
+
 _D = InputSpec()
 INPUT_SCHEMA = {
     "height": _pos_int(_D.height),
@@ -181,9 +199,14 @@ INPUT_SCHEMA = {
     "max_width": _pos_int(_D.max_width),
     "invert": Key((bool,), _D.invert),
     "scale": Key((float,), _D.scale, check=lambda v: None if v != 0 else "must be a non-zero number"),
-    "mean": Key((float,), _D.mean),
-    "std": Key((float,), _D.std, low=0, low_open=True),
+    "mean": Key((float, list), _D.mean, items=(float,), check=_channel_values(False)),
+    "std": Key((float, list), _D.std, items=(float,), low=0, low_open=True, check=_channel_values(True)),
     "split_gap": Key((float,), _D.split_gap, low=0),
+    "channels": Key((int,), _D.channels, choices=(1, 3)),
+    "layout": _str(_D.layout, choices=LAYOUTS),
+    "width": Key((int,), None, low=1),
+    "resize": _str(_D.resize, choices=RESIZE_MODES),
+    "filter": _str(_D.filter, choices=tuple(FILTERS)),
 }
 TOP_SCHEMA = {
     "name": _str(),
@@ -199,7 +222,8 @@ CTC_SCHEMA = {
     "input": _str("image"),
     "output": _str("logits"),
     "layout": _str("BTC", choices=CTC_LAYOUTS),
-    "output_is_log_probs": Key((bool,), False),
+    "output_kind": _str(None, choices=OUTPUT_KINDS),
+    "output_is_log_probs": Key((bool,), None),
     "frames_per_pixel": Key((float,), None, low=0, low_open=True),
     "blank_index": Key((int,), 0, low=0),
     "alphabet": _str(required=True),
@@ -297,16 +321,24 @@ def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
 
 
 def _check_input_image(card: Path, role: str, g: GraphInfo, name: str, key: str, spec: InputSpec) -> None:
+    """The image input: rank 4, float32, and every fixed axis equal to what the card's [input] makes."""
     t = need_tensor(card, role, g, name, output=False, rank=4, key=key)
+    need_dtype(card, g, t, FLOAT32, key, "ocrbench feeds line images as")
     if t.rank is None:
         return
-    c, h = t.static(1), t.static(2)
-    if c is not None and c != 1:
-        raise CardError(card, f"field '{key}': input '{name}' of {g.path.name} has {c} channels; "
-                              "ocrbench feeds grey lines as (batch, 1, height, width)")
+    axes = {"channels": 1, "height": 2, "width": 3} if spec.layout == "NCHW" else {"height": 1, "width": 2, "channels": 3}
+    where = f"input '{name}' of {g.path.name} (shape {list(t.shape)}, read as {spec.layout})"
+    c, h, w = (t.static(axes[k]) for k in ("channels", "height", "width"))
+    if c is not None and c != spec.channels:
+        hint = "; is input.layout right?" if c not in (1, 3) else ""
+        raise CardError(card, f"field 'input.channels' is {spec.channels} but {where} has {c} channels{hint}")
     if h is not None and h != spec.height:
-        raise CardError(card, f"field 'input.height' is {spec.height} but input '{name}' of {g.path.name} "
-                              f"wants height {h}")
+        raise CardError(card, f"field 'input.height' is {spec.height} but {where} wants height {h}")
+    if w is not None and spec.width is None:
+        raise CardError(card, f"field 'input.width' is not set but {where} has a fixed width of {w}: "
+                              f"set input.width = {w}")
+    if w is not None and w != spec.width:
+        raise CardError(card, f"field 'input.width' is {spec.width} but {where} wants width {w}")
 
 
 def _check_rank(p: Path, key: str, layout: str, rank: int | None) -> str:
@@ -316,18 +348,57 @@ def _check_rank(p: Path, key: str, layout: str, rank: int | None) -> str:
 
 
 class _Files:
-    """The files a card names, resolved against its folder, with the role each plays (hashed together)."""
+    """The files a card names, resolved against its folder, with the role each plays (hashed together).
 
-    def __init__(self, card: Path, folder: Path):
-        self.card, self.folder = card, folder
+    A path must stay inside the card's folder once resolved (``..``, absolute paths and symbolic links
+    included): the card format says paths are relative to the card's folder, and a card must not make
+    ocrbench read elsewhere unless the user allowed it (``allow_outside``).
+    """
+
+    def __init__(self, card: Path, folder: Path, allow_outside: bool):
+        self.card, self.folder, self.allow_outside = card, folder, allow_outside
         self.paths: dict[str, Path] = {}
 
     def __call__(self, rel: str, key: str, role: str) -> Path:
         f = (self.folder / rel).resolve()
+        if not self.allow_outside and not f.is_relative_to(self.folder):
+            raise CardError(self.card, f"field '{key}': {rel!r} leads outside the card's folder {self.folder} "
+                                       "(paths are relative to the card's folder; allow other places explicitly "
+                                       "with --allow-outside-paths)")
         if not f.is_file():
             raise CardError(self.card, f"field '{key}': file not found: {f}")
         self.paths[role] = f
         return f
+
+    def external(self, g: GraphInfo, key: str, role: str) -> None:
+        """Add a model's external data files (resolved beside the model, ONNX external data format)."""
+        for loc in g.external:
+            f = (g.path.parent / loc).resolve()
+            if not self.allow_outside and not f.is_relative_to(self.folder):
+                raise CardError(self.card, f"field '{key}': {g.path.name} keeps weights in {loc!r}, outside the "
+                                           f"card's folder {self.folder}")
+            if not f.is_file():
+                raise CardError(self.card, f"field '{key}': {g.path.name} keeps weights in {loc!r}, "
+                                           f"which is not there ({f})")
+            self.paths[f"{role}:{loc}"] = f
+
+    def graph(self, rel: str, key: str, role: str) -> GraphInfo:
+        """Read the model a field names; its external data files become part of the card's files."""
+        g = read_graph(self.card, role, self(rel, key, role))
+        self.external(g, key, role)
+        return g
+
+
+#: Card names become folder and file names of outputs: letters and digits (any script), then also
+#: space ``_ - . + ( )``; no path separators, no control characters, not ``.`` or ``..``.
+NAME_PATTERN = re.compile(r"[^\W_](?:[\w .+()-]{0,79})", re.UNICODE)
+
+
+def check_name(p: Path, name: str) -> str:
+    if not NAME_PATTERN.fullmatch(name) or name != name.strip():
+        raise CardError(p, f"field 'name': {name!r} is not a safe name (start with a letter or digit, then "
+                           "letters, digits, space, _ - . + ( ); at most 80 characters)")
+    return name
 
 
 # --------------------------------------------------------------------------- loader
@@ -346,19 +417,29 @@ def _read_card(p: Path) -> tuple[bytes, dict]:
 
 
 def _input_spec(p: Path, t: dict) -> InputSpec:
+    t = dict(t)
+    for key in ("mean", "std"):
+        if isinstance(t[key], list):
+            if len(t[key]) not in (1, t["channels"]):
+                raise CardError(p, f"field 'input.{key}': has {len(t[key])} values but input.channels is "
+                                   f"{t['channels']} (give one value, or one per channel)")
+            t[key] = tuple(float(x) for x in t[key]) if len(t[key]) > 1 else float(t[key][0])
     spec = InputSpec(**t)
     if spec.min_width > spec.max_width:
         raise CardError(p, f"field 'input.min_width': {spec.min_width} is larger than max_width {spec.max_width}")
+    if spec.resize == "stretch" and spec.width is None:
+        raise CardError(p, "field 'input.resize': \"stretch\" needs a fixed input.width")
     return spec
 
 
-def load_card(path: Path | str) -> Card:
+def load_card(path: Path | str, *, allow_outside: bool = False) -> Card:
     """Load and validate a recogniser card (``card.toml`` or the folder holding it).
 
     Checks that every file exists, that tensor names exist in the graphs with
     the expected ranks, and that the symbol table has exactly as many entries as
     the model scores (from the graph's static shape, else by one dry run with
     onnxruntime). Raises CardError naming the file and field on any problem.
+    ``allow_outside``: let file paths lead outside the card's folder.
     """
     p = Path(path)
     if p.is_dir():
@@ -369,13 +450,9 @@ def load_card(path: Path | str) -> Card:
         raise CardError(p, f"field 'kind': unknown kind {data['kind']!r}; use one of {', '.join(KINDS)}")
     top = checked(p, data, TOP_SCHEMA)
     kind = top["kind"]
-    name = top["name"] if top["name"] is not None else folder.name
-    if not name.strip():
-        raise CardError(p, "field 'name': must not be empty")
-    if any(c in name for c in "/\\:\0"):
-        raise CardError(p, f"field 'name': must not contain path separators: {name!r}")
+    name = check_name(p, top["name"] if top["name"] is not None else folder.name)
     spec = _input_spec(p, top["input"])
-    files = _Files(p, folder)
+    files = _Files(p, folder, allow_outside)
     other = "seq" if kind == "ctc" else "ctc"
     if top[other] is not None:
         raise CardError(p, f"table [{other}]: a {kind} card has no [{other}] table")
@@ -393,8 +470,8 @@ def load_card(path: Path | str) -> Card:
 
 
 def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
-    model = files(t["model"], "ctc.model", "model")
-    g = read_graph(p, "ctc", model)
+    g = files.graph(t["model"], "ctc.model", "model")
+    model = g.path
     inp, out, blank = t["input"], t["output"], t["blank_index"]
     sym_path = files(t["alphabet"], "ctc.alphabet", "alphabet")
     _check_input_image(p, "ctc", g, inp, "ctc.input", spec)
@@ -410,7 +487,12 @@ def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
                            f"but the model scores {n_out} classes per frame")
     syms = list(symbols)
     syms[blank] = ""
-    return CtcSpec(model=model, input=inp, output=out, layout=t["layout"], output_is_log_probs=t["output_is_log_probs"],
+    kind, is_log = t["output_kind"], t["output_is_log_probs"]
+    if kind is not None and is_log is not None and (kind == "log_probs") != is_log:
+        raise CardError(p, f"field 'ctc.output_is_log_probs': {str(is_log).lower()} contradicts ctc.output_kind "
+                           f"{kind!r} (give output_kind alone)")
+    kind = kind or ("log_probs" if is_log else "logits")
+    return CtcSpec(model=model, input=inp, output=out, layout=t["layout"], output_kind=kind,
                    frames_per_pixel=t["frames_per_pixel"], blank_index=blank, symbols=tuple(syms), graph=g)
 
 
@@ -449,8 +531,8 @@ def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
 
 
 def _load_encoder(p: Path, et: dict, spec: InputSpec, files: _Files) -> tuple[EncoderSpec, int | None]:
-    emodel = files(et["model"], "seq.encoder.model", "encoder")
-    eg = read_graph(p, "encoder", emodel)
+    eg = files.graph(et["model"], "seq.encoder.model", "encoder")
+    emodel = eg.path
     einp = et["input"]
     eouts = _names_of(p, et["outputs"], "seq.encoder.outputs")
     _check_input_image(p, "encoder", eg, einp, "seq.encoder.input", spec)
@@ -470,13 +552,14 @@ def _memory_inputs(p: Path, role: str, g: GraphInfo, t: dict, enc: EncoderSpec, 
         need_tensor(p, role, g, x, output=False, rank=rank, key=f"seq.{role}.memory")
     mmask = t["memory_mask"] or None
     if mmask:
-        need_tensor(p, role, g, mmask, output=False, rank=2, key=f"seq.{role}.memory_mask")
+        tm = need_tensor(p, role, g, mmask, output=False, rank=2, key=f"seq.{role}.memory_mask")
+        need_dtype(p, g, tm, MASK_TYPES, f"seq.{role}.memory_mask", "the memory mask is fed as")
     return memory, mmask
 
 
 def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderStepSpec:
-    smodel = files(st["model"], "seq.decoder_step.model", "decoder_step")
-    sg = read_graph(p, "decoder_step", smodel)
+    sg = files.graph(st["model"], "seq.decoder_step.model", "decoder_step")
+    smodel = sg.path
     tok, step = st["tokens"], st["step"] or None
     past = _names_of(p, st["past"], "seq.decoder_step.past")
     present = _names_of(p, st["present"], "seq.decoder_step.present")
@@ -484,9 +567,11 @@ def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Fi
         raise CardError(p, f"field 'seq.decoder_step.present': lists {len(present)} tensors but 'past' lists "
                            f"{len(past)}; they pair by position")
     memory, mmask = _memory_inputs(p, "decoder_step", sg, st, enc, rank)
-    need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
+    tt = need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
+    need_dtype(p, sg, tt, INT_TYPES, "seq.decoder_step.tokens", "token ids are fed as")
     if step:
-        need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
+        ts = need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
+        need_dtype(p, sg, ts, INT_TYPES, "seq.decoder_step.step", "the step is fed as")
     prank = {need_tensor(p, "decoder_step", sg, x, output=False, rank=None, key="seq.decoder_step.past").rank
              for x in past}
     cl = _check_rank(p, "seq.decoder_step.cache_layout", st["cache_layout"],
@@ -508,10 +593,11 @@ def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Fi
 
 
 def _load_full(p: Path, ft: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderFullSpec:
-    fmodel = files(ft["model"], "seq.decoder_full.model", "decoder_full")
-    fg = read_graph(p, "decoder_full", fmodel)
+    fg = files.graph(ft["model"], "seq.decoder_full.model", "decoder_full")
+    fmodel = fg.path
     memory, mmask = _memory_inputs(p, "decoder_full", fg, ft, enc, rank)
-    need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
+    tt = need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
+    need_dtype(p, fg, tt, INT_TYPES, "seq.decoder_full.tokens", "token ids are fed as")
     need_tensor(p, "decoder_full", fg, ft["log_probs"], output=True, rank=2, key="seq.decoder_full.log_probs")
     return DecoderFullSpec(model=fmodel, tokens=ft["tokens"], memory=memory, memory_mask=mmask,
                            log_probs=ft["log_probs"], graph=fg)
@@ -530,10 +616,16 @@ def _dry_run_classes(p: Path, model: Path, feeds: dict[str, str], out: str, spec
     import onnxruntime as ort
 
     w = max(spec.min_width, 8 * spec.width_multiple)
-    img = np.zeros((1, 1, spec.height, w), np.float32)
+    img = make_batch([resize_line(np.full((spec.height, w), 255, np.uint8), spec)], spec)[0]
     try:
         sess = ort.InferenceSession(str(model), providers=["CPUExecutionProvider"])
         y = sess.run([out], {name: img for name in feeds})[0]
     except Exception as e:
-        raise CardError(model, f"dry run on a blank line failed: {type(e).__name__}: {e}") from e
+        raise CardError(model, f"dry run on a blank line failed: {type(e).__name__}: {first_line(e)}") from e
     return int(y.shape[axis])
+
+
+def first_line(e: BaseException, limit: int = 300) -> str:
+    """The first line of an exception's message, cut to ``limit`` characters (onnxruntime's run a page)."""
+    text = str(e).strip().splitlines()
+    return (text[0] if text else "")[:limit]

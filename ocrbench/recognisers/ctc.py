@@ -28,9 +28,10 @@ from typing import Sequence
 
 import numpy as np
 
-from ocrbench.recognisers.base import LineResult, Recogniser
+from ocrbench.recognisers.base import LineResult, Recogniser, nonfinite_failure
 from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, share_time
+from ocrbench.errors import CardError
 from ocrbench.recognisers.card import Card
 
 NEG_INF = float("-inf")
@@ -121,12 +122,18 @@ def prefix_beam_search(logp: np.ndarray, *, blank: int = 0, beam_width: int = 8,
 
 
 def forced_alignment(logp: np.ndarray, labels: Sequence[int], blank: int = 0) -> np.ndarray:
-    """The most probable frame path (class per frame) that collapses to ``labels`` (Viterbi)."""
+    """The most probable frame path (class per frame) that collapses to ``labels`` (Viterbi).
+
+    An empty labelling (a blank line) aligns to blanks only: the extended label
+    sequence then has one state, and the one- and two-state moves do not exist.
+    """
     T = logp.shape[0]
     ext = [blank]
     for c in labels:
         ext += [c, blank]
     S = len(ext)
+    if T == 0:
+        return np.empty(0, np.int64)
     ext_a = np.array(ext)
     emit = logp[:, ext_a]                       # (T, S)
     # allowed skip s-2 -> s when ext[s] is a label different from ext[s-2]
@@ -138,11 +145,12 @@ def forced_alignment(logp: np.ndarray, labels: Sequence[int], blank: int = 0) ->
         score[1] = emit[0, 1]
     back = np.zeros((T, S), np.int64)
     idx = np.arange(S)
+    step1 = np.full(S, NEG_INF)
+    step2 = np.full(S, NEG_INF)
     for t in range(1, T):
-        stay = score
-        step1 = np.concatenate(([NEG_INF], score[:-1]))
-        step2 = np.where(skip, np.concatenate(([NEG_INF, NEG_INF], score[:-2])), NEG_INF)
-        choice = np.stack([stay, step1, step2])
+        step1[1:] = score[:-1]
+        step2[2:] = score[:-2]
+        choice = np.stack([score, step1, np.where(skip, step2, NEG_INF)])
         arg = np.argmax(choice, axis=0)
         score = choice[arg, idx] + emit[t]
         back[t] = idx - arg
@@ -188,7 +196,12 @@ class CtcRecogniser(Recogniser):
         if self.c.layout == "TBC":
             y = np.transpose(y, (1, 0, 2))
         y = y.astype(np.float32, copy=False)
-        return y if self.c.output_is_log_probs else log_softmax(y, axis=-1)
+        if self.c.output_kind == "log_probs":
+            return y
+        if self.c.output_kind == "probs":
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return np.log(np.maximum(y, 0.0))
+        return log_softmax(y, axis=-1)
 
     def decode_line(self, logp: np.ndarray) -> tuple[list[int], float, list[float]]:
         """Labelling, line confidence and character confidences of one line's (T, C) log-posteriors."""
@@ -209,17 +222,23 @@ class CtcRecogniser(Recogniser):
         t1 = clock()
         logp = self.to_log_probs(y)
         B, T, _ = logp.shape
-        valid = valid_frames(pb.widths, pb.tensor.shape[-1], T, self.c.frames_per_pixel)
+        valid = valid_frames(pb.widths, pb.padded_width, T, self.c.frames_per_pixel)
         sym = self.c.symbols
         results = []
         for b in range(B):
-            labels, conf, chars = self.decode_line(logp[b, : valid[b]])
+            lp = logp[b, : valid[b]]
+            failure = nonfinite_failure(lp)
+            if failure:
+                results.append(LineResult(text="", confidence=0.0, char_confidences=[], steps=int(valid[b]),
+                                          width_px=int(pb.widths[b]), batch_no=pb.batch_no, failure=failure))
+                continue
+            labels, conf, chars = self.decode_line(lp)
             text = "".join(sym[k] for k in labels)
             results.append(LineResult(text=text, confidence=conf, char_confidences=chars, steps=int(valid[b]),
                                       width_px=int(pb.widths[b]), batch_no=pb.batch_no, tokens=len(labels)))
         t2 = clock()
         n_tok = [r.tokens for r in results]
-        timing = BatchTiming(batch_no=pb.batch_no, n_lines=B, padded_width=int(pb.tensor.shape[-1]),
+        timing = BatchTiming(batch_no=pb.batch_no, n_lines=B, padded_width=pb.padded_width,
                              sum_width=int(np.sum(pb.widths)), frames=int(T), steps_max=int(valid.max(initial=0)),
                              tokens_sum=int(sum(n_tok)), tokens_sq_sum=int(sum(n * n for n in n_tok)),
                              t_preprocess=pb.t_preprocess, t_encode=t1 - t0, t_steps=0.0, t_collapse=t2 - t1)
@@ -231,5 +250,47 @@ class CtcRecogniser(Recogniser):
     def warm_up(self) -> None:
         w = max(self.spec.min_width, 32 * self.spec.width_multiple)
         blank = np.full((self.spec.height, w), 255, np.uint8)
+        pb = self.prepare(warm_up_lines(self.spec, self.options.batch_size))[0]
+        check_output_kind(self.card.path, self.session.run([self.c.output], {self.c.input: pb.tensor})[0],
+                          self.c.output_kind)
         self.recognise([blank, blank[:, : w // 2]])
         self.recognise(warm_up_lines(self.spec, self.options.batch_size))
+
+
+#: Tolerances of the warm-up output check: float32 rounding of a softmax sum over a few hundred classes
+#: stays far inside 1e-2 (common practice for float32 normalisation checks).
+SUM_TOLERANCE = 1e-2
+
+
+def check_output_kind(card_path, y: np.ndarray, kind: str) -> None:
+    """A CardError when the raw class scores of a warm-up batch do not fit ``ctc.output_kind``.
+
+    NaN is never right; log-probabilities are <= 0 and their exponentials sum to 1 over the classes;
+    probabilities lie in [0, 1] and sum to 1. (Logits may be anything finite.)
+    """
+    y = np.asarray(y, np.float64)
+    if np.isnan(y).any():
+        raise CardError(card_path, "field 'ctc.output': the model's scores for blank warm-up lines hold NaN")
+    if kind == "log_probs":
+        top = float(y.max(initial=-np.inf))
+        sums = np.exp(log_softmax_sum(y))
+        if top > 1e-3 or np.abs(sums - 1.0).max(initial=0.0) > SUM_TOLERANCE:
+            raise CardError(card_path, f"field 'ctc.output_kind' is \"log_probs\" but the output is not: its largest "
+                                       f"value is {top:.3g} and its exponentials sum to {float(sums.max()):.3g} per "
+                                       "frame (log-probabilities are <= 0 and sum to 1); try \"logits\" or \"probs\"")
+    elif kind == "probs":
+        lo, hi = float(y.min(initial=0.0)), float(y.max(initial=0.0))
+        sums = y.sum(axis=-1)
+        if lo < -1e-6 or hi > 1 + 1e-6 or np.abs(sums - 1.0).max(initial=0.0) > SUM_TOLERANCE:
+            raise CardError(card_path, f"field 'ctc.output_kind' is \"probs\" but the output is not: its values span "
+                                       f"{lo:.3g}..{hi:.3g} (probabilities lie in [0, 1] and sum to 1 per frame); "
+                                       "try \"logits\" or \"log_probs\"")
+    elif not np.isfinite(y).all() and np.isposinf(y).any():
+        raise CardError(card_path, "field 'ctc.output': the model's scores for blank warm-up lines hold +Inf")
+
+
+def log_softmax_sum(y: np.ndarray) -> np.ndarray:
+    """log(sum(exp(y))) over the last axis, computed stably."""
+    m = np.max(y, axis=-1, keepdims=True)
+    m = np.where(np.isfinite(m), m, 0.0)
+    return (m + np.log(np.sum(np.exp(y - m), axis=-1, keepdims=True)))[..., 0]

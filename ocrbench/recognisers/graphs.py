@@ -18,6 +18,11 @@ ELEM_NAMES = {1: "float32", 2: "uint8", 3: "int8", 5: "int16", 6: "int32", 7: "i
               10: "float16", 11: "float64 (double)", 16: "bfloat16"}
 
 
+FLOAT32 = (1,)
+INT_TYPES = (6, 7)              # int32, int64
+MASK_TYPES = (1, 9, 10, 11)     # float32, bool, float16, double: the mask is built in the input's own type
+
+
 def elem_name(elem_type: int) -> str:
     return ELEM_NAMES.get(elem_type, f"ONNX type {elem_type}")
 

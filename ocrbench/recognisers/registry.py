@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from ocrbench.errors import CardError
 from ocrbench.recognisers.base import EngineOptions, Recogniser
-from ocrbench.recognisers.card import Card
+from ocrbench.recognisers.card import Card, first_line
 from ocrbench.recognisers.ctc import CtcRecogniser
 from ocrbench.recognisers.seq import SeqRecogniser
 
@@ -22,5 +22,11 @@ def open_recogniser(card: Card, *, options: EngineOptions | None = None, warm_up
         raise CardError(card.path, f"unknown kind {card.kind!r}")
     rec = engine(card, options)
     if warm_up:
-        rec.warm_up()
+        try:
+            rec.warm_up()
+        except CardError:
+            raise
+        except Exception as e:  # onnxruntime's own errors, shape errors: the card does not fit the model
+            raise CardError(card.path, f"warm-up on blank lines failed ({type(e).__name__}: {first_line(e)}); "
+                                       "check the card's [input] table and tensor names against the model") from e
     return rec

@@ -31,7 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
-from ocrbench.recognisers.base import LineResult, Recogniser
+from ocrbench.recognisers.base import NONFINITE, LineResult, Recogniser
 from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, onnx_dtype, share_time
 from ocrbench.recognisers.card import Card
@@ -43,11 +43,62 @@ class Decoded:
 
     tokens: list[int]                # emitted tokens, end token excluded
     log_probs: list[float]           # log-probability of each decision (end token included when ended)
-    ended: bool                      # False: stopped by the max-tokens guard
+    ended: bool                      # False: stopped by the max-tokens guard (or failed)
+    failure: str | None = None       # the decoder's scores for this line were not finite
 
     @property
     def steps(self) -> int:
         return len(self.tokens) + (1 if self.ended else 0)
+
+
+def _bad_rows(lp: np.ndarray) -> np.ndarray:
+    """Rows of (R, V) decoder log-probabilities that cannot be decoded (NaN, or no finite best score)."""
+    return np.isnan(lp).any(axis=1) | ~np.isfinite(lp.max(axis=1, initial=-np.inf))
+
+
+def _beam_line(hyps, r: int, r_end: int, lp: np.ndarray, top: np.ndarray, K: int, eos: int, last: bool,
+               finished: list) -> list[tuple[tuple, int, int]]:
+    """One line's beam step over its hypotheses ``hyps[r:r_end]``: finished ones go to ``finished``;
+    returns the surviving (new hypothesis, parent row, token) triples, best first."""
+    line = hyps[r][0]
+    cands = []
+    for rr in range(r, r_end):
+        score = hyps[rr][1]
+        for tok in sorted(top[rr].tolist()):
+            cands.append((score + float(lp[rr, tok]), rr, tok))
+    cands.sort(key=lambda c: -c[0])      # stable: ties keep row, then token order
+    alive = []
+    for score, rr, tok in cands:
+        _, _, toks, lps = hyps[rr]
+        if tok == eos:
+            finished.append((score, toks, lps + [float(lp[rr, tok])], True))
+        else:
+            alive.append((score, rr, tok))
+            if len(alive) == K:
+                break
+    if last:
+        for score, rr, tok in alive:
+            _, _, toks, lps = hyps[rr]
+            finished.append((score, toks + [tok], lps + [float(lp[rr, tok])], False))
+        alive = []
+    best_fin = max((f[0] for f in finished), default=None)
+    out = []
+    if alive and (best_fin is None or alive[0][0] > best_fin):
+        for score, rr, tok in alive:
+            _, _, toks, lps = hyps[rr]
+            out.append(((line, score, toks + [tok], lps + [float(lp[rr, tok])]), rr, tok))
+    return out
+
+
+def _beam_result(finished: list, failed: bool) -> Decoded:
+    """A line's best finished hypothesis (the earliest among equal scores)."""
+    if failed:
+        return Decoded([], [], False, NONFINITE)
+    if not finished:
+        return Decoded([], [], False)
+    best = max(range(len(finished)), key=lambda i: (finished[i][0], -i))
+    score, toks, lps, ended = finished[best]
+    return Decoded(list(toks), list(lps), ended)
 
 
 class _Timer:
@@ -103,16 +154,17 @@ class SeqRecogniser(Recogniser):
         page or batch it comes in. Otherwise the padded batch is encoded at once.
         """
         e = self.s.encoder
-        fa, ba = e.frames_axis, e.batch_axis
+        fa, ba, wa = e.frames_axis, e.batch_axis, self.spec.width_axis
         if not self.options.encoder_per_line or tensor.shape[0] == 1:
             memory = self.encoder.run(list(e.outputs), {e.input: tensor})
             S = memory[0].shape[fa]
-            return memory, self._mask(valid_frames(widths, tensor.shape[-1], S, self.s.frames_per_pixel), S)
+            return memory, self._mask(valid_frames(widths, tensor.shape[wa], S, self.s.frames_per_pixel), S)
         m = self.spec.width_multiple
         parts, valid = [], []
         for i, w in enumerate(widths):
-            W_i = -(-int(w) // m) * m
-            out = self.encoder.run(list(e.outputs), {e.input: np.ascontiguousarray(tensor[i:i + 1, :, :, :W_i])})
+            W_i = self.spec.width or -(-int(w) // m) * m
+            line = np.take(tensor[i:i + 1], np.arange(W_i), axis=wa)
+            out = self.encoder.run(list(e.outputs), {e.input: line})
             parts.append(out)
             valid.append(int(valid_frames([w], W_i, out[0].shape[fa], self.s.frames_per_pixel)[0]))
         S = max(p[0].shape[fa] for p in parts)
@@ -209,9 +261,13 @@ class SeqRecogniser(Recogniser):
             lp, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
             nxt = np.argmax(lp, axis=1)
             best = lp[np.arange(len(nxt)), nxt]
-            fin = nxt == s.eos_index
+            bad = _bad_rows(lp)
+            fin = (nxt == s.eos_index) | bad
             for r in (range(len(rows)) if mode == "drop" else np.flatnonzero(active)):
                 d = out[rows[r]]
+                if bad[r]:
+                    d.failure = NONFINITE
+                    continue
                 d.log_probs.append(float(best[r]))
                 if fin[r]:
                     d.ended = True
@@ -249,10 +305,13 @@ class SeqRecogniser(Recogniser):
         finished: list[list[tuple[float, list[int], list[float], bool]]] = [[] for _ in range(B)]
         hist = np.full((B, 1), s.bos_index, np.int64)
         cache = self._init_cache(B) if self.cached else None
+        failed: set[int] = set()                # lines whose decoder scores were not finite
         row_lines = np.arange(B)
         mem_rows, mask_rows = memory, mask
         for step in range(max_tokens):
             lp, new_cache = self.decoder(hist, cache, mem_rows, mask_rows, step, timer)
+            for rr in np.flatnonzero(_bad_rows(lp)):
+                failed.add(hyps[rr][0])
             V = lp.shape[1]
             n_top = min(V, K + 1)
             top = np.argpartition(-lp, n_top - 1, axis=1)[:, :n_top] if n_top < V else np.tile(np.arange(V), (len(lp), 1))
@@ -264,33 +323,13 @@ class SeqRecogniser(Recogniser):
                 r_end = r
                 while r_end < len(hyps) and hyps[r_end][0] == line:
                     r_end += 1
-                cands = []
-                for rr in range(r, r_end):
-                    _, score, toks, lps = hyps[rr]
-                    for tok in sorted(top[rr].tolist()):
-                        cands.append((score + float(lp[rr, tok]), rr, tok))
-                cands.sort(key=lambda c: -c[0])      # stable: ties keep row, then token order
-                alive = []
-                for score, rr, tok in cands:
-                    _, _, toks, lps = hyps[rr]
-                    if tok == eos:
-                        finished[line].append((score, toks, lps + [float(lp[rr, tok])], True))
-                    else:
-                        alive.append((score, rr, tok))
-                        if len(alive) == K:
-                            break
-                if last:
-                    for score, rr, tok in alive:
-                        _, _, toks, lps = hyps[rr]
-                        finished[line].append((score, toks + [tok], lps + [float(lp[rr, tok])], False))
-                    alive = []
-                best_fin = max((f[0] for f in finished[line]), default=None)
-                if alive and (best_fin is None or alive[0][0] > best_fin):
-                    for score, rr, tok in alive:
-                        _, _, toks, lps = hyps[rr]
-                        new_hyps.append((line, score, toks + [tok], lps + [float(lp[rr, tok])]))
-                        parents.append(rr)
-                        next_tok.append(tok)
+                if line in failed:
+                    r = r_end
+                    continue
+                for hyp, rr, tok in _beam_line(hyps, r, r_end, lp, top, K, eos, last, finished[line]):
+                    new_hyps.append(hyp)
+                    parents.append(rr)
+                    next_tok.append(tok)
                 r = r_end
             if not new_hyps:
                 break
@@ -304,15 +343,7 @@ class SeqRecogniser(Recogniser):
                 row_lines = lines
                 mem_rows, mask_rows, _ = self._take_rows(memory, mask, None, row_lines)
             hyps = new_hyps
-        out = []
-        for b in range(B):
-            if not finished[b]:
-                out.append(Decoded([], [], False))
-                continue
-            best = max(range(len(finished[b])), key=lambda i: (finished[b][i][0], -i))
-            score, toks, lps, ended = finished[b][best]
-            out.append(Decoded(list(toks), list(lps), ended))
-        return out
+        return [_beam_result(finished[b], b in failed) for b in range(B)]
 
     # ------------------------------------------------------------------ batch
 
@@ -325,6 +356,8 @@ class SeqRecogniser(Recogniser):
             text.append(piece)
             chars += [float(np.exp(lp))] * len(piece)
         conf = float(np.exp(np.mean(d.log_probs))) if d.log_probs else 1.0
+        if not d.ended:
+            conf = 0.0      # cut by the guard (or failed): the text is incomplete, never "certain"
         return "".join(text), conf, chars
 
     def run_batch(self, pb: PreparedBatch, *, clock: Clock = time.perf_counter,
@@ -340,14 +373,16 @@ class SeqRecogniser(Recogniser):
         results = []
         for b, d in enumerate(decoded):
             text, conf, chars = self.detokenise(d)
+            if d.failure:
+                text, chars = "", []
             results.append(LineResult(text=text, confidence=conf, char_confidences=chars, steps=d.steps,
                                       width_px=int(pb.widths[b]), batch_no=pb.batch_no, tokens=len(d.tokens),
-                                      truncated=not d.ended))
+                                      truncated=not d.ended and d.failure is None, failure=d.failure))
         t2 = clock()
         frames = int(memory[0].shape[self.s.encoder.frames_axis])
         n_steps = [r.steps for r in results]
         n_tok = [r.tokens for r in results]
-        timing = BatchTiming(batch_no=pb.batch_no, n_lines=len(results), padded_width=int(pb.tensor.shape[-1]),
+        timing = BatchTiming(batch_no=pb.batch_no, n_lines=len(results), padded_width=pb.padded_width,
                              sum_width=int(np.sum(pb.widths)), frames=frames, steps_max=max(n_steps, default=0),
                              tokens_sum=int(sum(n_tok)), tokens_sq_sum=int(sum(n * n for n in n_tok)),
                              t_preprocess=pb.t_preprocess, t_encode=t1 - t0, t_steps=timer.t,
