@@ -126,6 +126,7 @@ def _score_peak_rss(truth: Path, hyp: Path, *extra: str) -> tuple[int, int, str]
     return rss, p.returncode, p.stderr
 
 
+@pytest.mark.slow
 def test_scoring_a_5mb_truth_line_keeps_memory_bounded(tmp_path):
     truth, hyp = tmp_path / "t", tmp_path / "h"
     truth.mkdir()

@@ -24,7 +24,6 @@ from ocrbench import synth  # noqa: E402
 from ocrbench.planning import inputs as planio  # noqa: E402
 from ocrbench.cli.app import app  # noqa: E402
 
-pytest.importorskip("onnxruntime")
 from _tiny_models import write_ctc, write_seq  # noqa: E402
 
 cli = CliRunner()
@@ -109,7 +108,6 @@ def test_plan_json_from_a_run_store(calibrated):
 
 
 def test_plan_with_ground_truth_gives_cer_and_sample_size(calibrated):
-    pytest.importorskip("ocrbench.io.text")
     d, _ = calibrated
     res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
                            "--pages", "1000", "--truth", str(d / "pages"), "--draws", "100", "--json"])

@@ -101,6 +101,7 @@ def test_prefetch_changes_nothing_but_speed(with_bad_page, cards, tmp_path):
     assert texts[0] == texts[1]
 
 
+@pytest.mark.slow
 def test_rerun_resumes_and_fresh_starts_again(pages, cards, tmp_path):
     db = tmp_path / "s.sqlite"
     first = run_pages(pages, cards, store=db)
@@ -154,6 +155,7 @@ run_pages(sys.argv[1], [sys.argv[2], sys.argv[3]], store=sys.argv[5], progress=s
 """
 
 
+@pytest.mark.slow
 def test_killed_run_resumes_with_every_page_once(pages, cards, tmp_path):
     # SIGKILL ends the process at once, mid-page (signal(7)); the rerun must complete without duplicates.
     db = tmp_path / "s.sqlite"
