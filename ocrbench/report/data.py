@@ -132,7 +132,7 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
     """Least-squares seconds per extra character of a line (t_line on n_chars), bootstrap over pages."""
     d = lines.dropna(subset=["n_chars", "t_line"])
     out = {"line_seconds_mean": None, "seconds_per_char": None, "seconds_per_char_low": None,
-           "seconds_per_char_high": None, "line_seconds_at_0": None}
+           "seconds_per_char_high": None, "line_seconds_at_0": None, "seconds_per_char_clipped": False}
     if len(d) < 3 or d["n_chars"].nunique() < 2:
         return out
     y = d["t_line"].to_numpy(float)
@@ -157,6 +157,13 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
         ci = percentile_interval(bb, 0.95)
         if ci is not None:
             out.update(seconds_per_char_low=ci[0], seconds_per_char_high=ci[1])
+    # A longer line cannot take less model time: a bound (or estimate) below zero is sampling noise of a
+    # flat slope, so it is clipped at 0 and the clipping recorded (the report says so).
+    below = [k for k in ("seconds_per_char", "seconds_per_char_low", "seconds_per_char_high")
+             if out[k] is not None and out[k] < 0]
+    for k in below:
+        out[k] = 0.0
+    out["seconds_per_char_clipped"] = bool(below)
     return out
 
 
@@ -168,10 +175,15 @@ def _balance(lines: pd.DataFrame, column: str) -> dict | None:
     frame = balance_lines_frame(lines[["page_id", "line_no", column]].rename(columns={column: "text"}))
     counts = frame["status"].value_counts()
     est = estimate_misreads(list(frame["balance"]))
-    return {"pages": int(len(frame)), "balanced": int(counts.get("balanced", 0)),
-            "unbalanced": int(counts.get("unbalanced", 0)), "not_checkable": int(counts.get("not checkable", 0)),
-            "misread_rate": est.per_amount_rate, "misread_low": est.per_amount_low,
-            "misread_high": est.per_amount_high, "amounts": est.amounts, "model": est.model}
+    balanced, unbalanced = int(counts.get("balanced", 0)), int(counts.get("unbalanced", 0))
+    # The misread rate is shown only where the check could judge a page: pages counted as failed only
+    # because an amount was unreadable would otherwise give "100 %" for text nobody could check.
+    checkable = balanced + unbalanced > 0
+    return {"pages": int(len(frame)), "balanced": balanced, "unbalanced": unbalanced,
+            "not_checkable": int(counts.get("not checkable", 0)), "checkable": checkable,
+            "misread_rate": est.per_amount_rate if checkable else None,
+            "misread_low": est.per_amount_low if checkable else None,
+            "misread_high": est.per_amount_high if checkable else None, "amounts": est.amounts, "model": est.model}
 
 
 # --------------------------------------------------------------------------- accuracy
@@ -369,7 +381,8 @@ def _add_accuracy(data: ReportData, store: Path, truth_dir: Path, frames: Mappin
             for w in worst for ln in w["lines"]])
 
 
-_PAIRED_KEYS = ("a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value",
+_PAIRED_KEYS = ("a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value", "p_floor",
+                "p_at_floor",
                 "winner", "method", "level", "n_boot", "seed")
 
 
