@@ -66,9 +66,9 @@ def test_line_edits_match_editdistance():
     texts = ["Jan 9 L. Tarnby soap 521.32", "Total 16,215.46", "", "ﬁne"]
     truths = ["Jan 9 L. Tarnby soap 527.32", "Tota1 16,215.46", "abc", "fine"]
     # reference: the editdistance package (Levenshtein distance)
-    assert line_edits(texts, truths).tolist() == [editdistance.eval(a, b) for a, b in zip(texts, truths)]
+    assert line_edits(truths, texts).tolist() == [editdistance.eval(a, b) for a, b in zip(texts, truths)]
     with pytest.raises(ValueError):
-        line_edits(["a"], [])
+        line_edits([], ["a"])
 
 
 def test_error_by_decile():
@@ -96,7 +96,7 @@ def test_calibration_on_lines_with_truth():
         truths.append(t)
         confs.append(c)
         pages.append(i // 20)
-    cal = calibration(texts, confs, truths, page_ids=pages, n_boot=300)
+    cal = calibration(truths, texts, confs, page_ids=pages, n_boot=300)
     assert cal.lines == 200 and 20 < cal.error_lines < 140
     assert cal.auroc == pytest.approx(pairwise_auc([a != b for a, b in zip(texts, truths)], [1 - c for c in confs]))
     assert 0.5 < cal.auroc_low < cal.auroc < cal.auroc_high

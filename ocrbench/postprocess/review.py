@@ -239,13 +239,13 @@ def auroc_interval(y_true: Sequence[bool] | np.ndarray, score: Sequence[float] |
     return bootstrap_statistic(lambda idx: auroc(y[idx], s[idx]), members, n_boot=n_boot, level=level, seed=seed)
 
 
-def line_edits(texts: Sequence[str], truths: Sequence[str], *,
+def line_edits(truths: Sequence[str], texts: Sequence[str], *,
                normalise: Callable[[str], str] | None = None) -> np.ndarray:
-    """Character edits (Levenshtein distance) of each recognised line against its truth."""
+    """Character edits (Levenshtein distance) of each recognised line against its truth (truth first)."""
     if len(texts) != len(truths):
-        raise ValueError(f"{len(texts)} recognised lines but {len(truths)} truth lines")
+        raise ValueError(f"{len(truths)} truth lines but {len(texts)} recognised lines")
     f = normalise or (lambda t: t)
-    return np.array([Levenshtein.distance(f(h), f(r)) for h, r in zip(texts, truths)], dtype=np.int64)
+    return np.array([Levenshtein.distance(f(r), f(h)) for r, h in zip(truths, texts)], dtype=np.int64)
 
 
 def error_by_decile(confidences: Sequence[float], edits: Sequence[int], ref_chars: Sequence[int], *,
@@ -298,17 +298,17 @@ class Calibration:
                 "deciles": self.deciles.to_dict(orient="records")}
 
 
-def calibration(texts: Sequence[str], confidences: Sequence[float], truths: Sequence[str], *,
+def calibration(truths: Sequence[str], texts: Sequence[str], confidences: Sequence[float], *,
                 page_ids: Sequence[Any] | None = None, normalise: Callable[[str], str] | None = None,
                 n_bins: int = 10, n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> Calibration:
-    """Calibration figures on lines with ground truth (aligned lists, one entry per line).
+    """Calibration figures on lines with ground truth (aligned lists, one entry per line; truth first).
 
     A line "holds errors" when its edit distance to the truth (after
     ``normalise``, e.g. the accuracy module's profile) is above zero. Lines with
     no confidence are left out.
     """
     conf = np.asarray(confidences, dtype=float)
-    edits = line_edits(texts, truths, normalise=normalise)
+    edits = line_edits(truths, texts, normalise=normalise)
     f = normalise or (lambda t: t)
     ref = np.array([len(f(t)) for t in truths], dtype=np.int64)
     keep = ~np.isnan(conf)
@@ -385,13 +385,13 @@ def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequenc
                             f"recognised lines on {pid}; left out of the calibration")
             continue
         hyp = g["text"].fillna("").tolist()
-        for no, k in zip(g["line_no"], line_edits(hyp, ref, normalise=normalise)):
+        for no, k in zip(g["line_no"], line_edits(ref, hyp, normalise=normalise)):
             edits[(pid, int(no))] = int(k)
         texts += hyp
         confs += pd.to_numeric(g["confidence"], errors="coerce").astype(float).tolist()
         truths += ref
         groups += [pid] * len(ref)
-    cal = calibration(texts, confs, truths, page_ids=groups, normalise=normalise, seed=seed) if texts else None
+    cal = calibration(truths, texts, confs, page_ids=groups, normalise=normalise, seed=seed) if texts else None
     return TruthCalibration(cal, edits, problems)
 
 
