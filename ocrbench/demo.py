@@ -34,6 +34,7 @@ from pathlib import Path
 from typing import Callable
 
 from ocrbench.errors import InputError, OcrbenchError
+from ocrbench.io.files import atomic_write_lines
 from ocrbench.report import ReportFiles, fmt, write_report
 from ocrbench.planning.service import PlanRequest
 
@@ -299,7 +300,7 @@ def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans
         say(f"  {line}")
 
     words = firm_words()
-    (out / "firm_words.txt").write_text("".join(w + "\n" for w in words), encoding="utf-8")
+    atomic_write_lines(out / "firm_words.txt", words)
     pipeline = demo_pipeline(words)
     store = out / "demo.sqlite"
     with RunStore(store) as st:

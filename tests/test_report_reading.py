@@ -139,3 +139,24 @@ def test_pages_per_hour_is_not_negative(tmp_path):
     run = build_report_data(db, n_boot=200).summary["recognisers"][0]
     assert run["pages_per_hour_low"] > 0 and run["pages_per_hour_low"] <= run["pages_per_hour"]
     assert np.isfinite(run["pages_per_hour_high"])
+
+
+def test_pages_per_hour_comes_from_an_ordinary_run_not_a_measuring_one(tmp_path):
+    from ocrbench.planning.inputs import SCALING_COLUMNS, save_scaling   # noqa: PLC0415
+
+    db, truth = _store(tmp_path)
+    with RunStore(db) as st:     # a later run of the same recogniser, written by measure-scaling
+        rid = st.start_run(recogniser="ledger-ctc", kind="ctc", card_path="/m/card.toml", card_hash="c" * 64,
+                           settings={"batch_size": 1}, input_dir="/pages", host={"hostname": "h"}, engine="test")
+        st.write_page(rid, PageRecord(page_id="p1.png", path="/pages/p1.png", content_hash="x", status="done",
+                                      n_lines=0, t_total=9.0), [])
+        st.finish_run(rid)
+    row = dict.fromkeys(SCALING_COLUMNS, None) | {"recogniser": "ledger-ctc", "workers": 1, "run_id": rid,
+                                                 "measured_at": "2026-01-01T00:00:00+00:00"}
+    save_scaling(db, pd.DataFrame([row]))
+    run = build_report_data(db, n_boot=200).summary["recognisers"][0]
+    assert run["run_id"] == 1 and run["purpose"] == "run"
+    # asked for by id, the measuring run is shown, and said to be one
+    data = build_report_data(db, run_ids=[rid], n_boot=200)
+    assert data.summary["recognisers"][0]["purpose"] == "measure-scaling"
+    assert "measure-scaling run" in render_html(data.summary, {})

@@ -97,7 +97,13 @@ def _now() -> str:
 # --------------------------------------------------------------------------- runs
 
 
-def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFrame:
+def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None,
+                 measuring: set[int] = frozenset()) -> pd.DataFrame:
+    """The runs to show: those asked for, else the latest ordinary run of each recogniser.
+
+    ``measuring``: runs that ``measure-scaling`` wrote. They are passed over while the recogniser has
+    an ordinary run, so every recogniser's pages per hour comes from the same kind of run.
+    """
     if runs.empty:
         raise StoreError("the store holds no runs: run 'ocrbench run' first")
     if run_ids is not None:
@@ -106,8 +112,18 @@ def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFr
         if missing:
             raise StoreError(f"the store holds no run {missing[0]}")
         return sel.sort_values("run_id")
-    latest = runs.sort_values("run_id").groupby("recogniser", sort=False).tail(1)
-    return latest.sort_values("run_id")
+    ordered = runs.assign(_measuring=runs["run_id"].astype(int).isin(measuring)).sort_values(
+        ["_measuring", "run_id"], ascending=[False, True])
+    latest = ordered.groupby("recogniser", sort=False).tail(1)    # an ordinary run sorts last, so it wins
+    return latest.drop(columns="_measuring").sort_values("run_id")
+
+
+def _measuring_runs(store: Path) -> set[int]:
+    """Run ids that ``measure-scaling`` timed (its ``scaling`` table); none in a store without one."""
+    from ocrbench.planning.inputs import load_scaling
+
+    ids = load_scaling(store)["run_id"].dropna()
+    return {int(r) for r in ids}
 
 
 def _json(text: Any) -> dict:
@@ -252,9 +268,10 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     prof = get_profile(profile)
     with RunStore(store, read_only=True) as st:
         frames = st.read_frames()
-        sel = _select_runs(frames["runs"], run_ids)
+        measuring = _measuring_runs(store)
+        sel = _select_runs(frames["runs"], run_ids, measuring)
         recipes = {int(r): st.post_recipe(int(r)) for r in sel["run_id"]}
-    runs, line_times, page_rows = _gather_runs(sel, frames, recipes, n_boot, seed)
+    runs, line_times, page_rows = _gather_runs(sel, frames, recipes, n_boot, seed, measuring)
     summary: dict[str, Any] = {
         "format": FORMAT_VERSION, "title": title or f"Recogniser comparison: {store.name}",
         "generated_at": _now(), "ocrbench_version": __version__, "store": str(store),
@@ -288,7 +305,8 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
 
 
 def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes: Mapping[int, str | None],
-                 n_boot: int, seed: int) -> tuple[list[dict], list[pd.DataFrame], list[pd.DataFrame]]:
+                 n_boot: int, seed: int, measuring: set[int] = frozenset()
+                 ) -> tuple[list[dict], list[pd.DataFrame], list[pd.DataFrame]]:
     """Per selected run: its summary entry (counts, throughput, slope, balance), line times and page rows."""
     pages_f, lines_f = frames["pages"], frames["lines"]
     runs, line_times, page_rows = [], [], []
@@ -299,6 +317,7 @@ def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes:
         ln = lines_f[(lines_f["run_id"] == rid) & lines_f["page_id"].isin(done["page_id"])]
         run = {
             "name": r.recogniser, "kind": r.kind, "run_id": rid, "card_hash": r.card_hash,
+            "purpose": "measure-scaling" if rid in measuring else "run",
             "card_path": r.card_path, "input_dir": r.input_dir, "engine": r.engine,
             "ocrbench_version": r.ocrbench_version, "started_at": r.started_at, "finished_at": r.finished_at,
             "host": _json(r.host_json), "settings": _json(r.settings_json),

@@ -270,6 +270,10 @@ def _side_by_side(s: Mapping) -> str:
     body = "".join(f'<tr><th scope="row">{_e(label)}</th>{"".join(f"<td class=n>{c}</td>" for c in cells)}</tr>'
                    for label, cells in rows)
     note = ""
+    measured = [r["name"] for r in runs if r.get("purpose") == "measure-scaling"]
+    if measured:
+        note += (f'<p class="note">Pages per hour of {_e(", ".join(measured))} come from a measure-scaling run '
+                 "(the store holds no ordinary run of it); the others' from ordinary runs.</p>")
     if any(r.get("seconds_per_char_clipped") for r in runs):
         note += ('<p class="note">Time per extra character: a bound below zero was clipped at 0 (a longer line '
                  "cannot take less time; a negative bound is the noise of a nearly flat slope).</p>")
