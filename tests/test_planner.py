@@ -329,6 +329,7 @@ def test_plan_beyond_measured_range_warns():
                for w in plan.attrs["warnings"])
 
 
+@pytest.mark.slow
 def test_plan_in_range_has_no_range_warning_and_needs_measured_scaling():
     frames = calibrate(noise=0.02)
     m = P.fit_cost_model(frames, "demo-ctc", n_boot=20)
@@ -373,6 +374,7 @@ def test_crossover_solves_the_fitted_models():
 # --------------------------------------------------------------------------- the mechanics, fake clock
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("kind", ["ctc", "seq"])
 def test_fake_clock_validation_mechanics(kind):
     """Calibrate on 10 pages, predict 60 held-out pages with twice the lines, run them, compare.

@@ -81,6 +81,7 @@ def setup(tmp_path_factory):
     return {"tmp": tmp, "pages": pages, "raw": raw, "words": wl, "config": cfg, "truth": truth}
 
 
+@pytest.mark.slow
 def test_run_stores_post_processed_text_beside_the_raw_text(setup):
     tmp = setup["tmp"]
     db, out = tmp / "runs" / "post.sqlite", tmp / "texts"          # the store's folder does not exist yet

@@ -121,6 +121,7 @@ class Stop(Exception):
     pass
 
 
+@pytest.mark.slow
 def test_interrupted_run_resumes_with_every_page_once(pages, cards, tmp_path):
     clean = tmp_path / "clean.sqlite"
     run_pages(pages, cards, store=clean)
@@ -292,6 +293,7 @@ def test_text_out_names_follow_the_ground_truth_pairing():
     assert text_stem("book.tif") == "book"
 
 
+@pytest.mark.slow
 def test_run_command_beam_decoding(pages, cards, tmp_path):
     res = CliRunner().invoke(app, ["run", str(pages), "-r", str(cards[0].folder), "-r", str(cards[1].folder),
                                    "--store", str(tmp_path / "s.sqlite"), "--decoding", "beam", "--beam-width", "3",
