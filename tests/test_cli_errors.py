@@ -183,3 +183,23 @@ def test_every_command_is_guarded():
 
     for info in app_module.app.registered_commands:
         assert getattr(info.callback, "__wrapped__", None) is not None, info.name
+
+
+def test_review_of_lines_without_confidence_and_text(tmp_path):
+    # a model that emitted NaN: pages stored with empty text and no confidence must still be ranked
+    db = tmp_path / "nan.sqlite"
+    with RunStore(db) as st:
+        rid = st.start_run(recogniser="x", kind="ctc", card_path="/c", card_hash="d" * 64, settings={},
+                           input_dir="/p", host={}, engine="test")
+        lines = [LineRecord(line_no=1, x0=0, y0=0, x1=1, y1=1, width_px=1, text="", text_post=None,
+                            confidence=float("nan")),
+                 LineRecord(line_no=2, x0=0, y0=0, x1=1, y1=1, width_px=1, text="", text_post=None, confidence=None)]
+        st.write_page(rid, PageRecord(page_id="a.png", path="/p/a.png", content_hash="x", status="done", n_lines=2),
+                      lines)
+        st.finish_run(rid)
+    r = runner.invoke(app, ["review", str(db), "--json"])
+    _no_traceback(r.output)
+    assert r.exit_code == 0, r.output
+    [res] = json.loads(r.stdout)["runs"]
+    assert [q["confidence"] for q in res["queue"]] == [None, None]
+    assert all("confidence unknown" in q["reasons"] for q in res["queue"])

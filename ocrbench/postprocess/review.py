@@ -413,7 +413,7 @@ class RunReview:
             "lines": int(len(self.queue.table)), "head": self.queue.minutes(**self.select),
             "all": self.queue.minutes(),
             "queue": [{"page_id": r.page_id, "line_no": int(r.line_no), "doubt": round(float(r.doubt), 4),
-                       "confidence": None if r.confidence != r.confidence else float(r.confidence),
+                       "confidence": None if pd.isna(r.confidence) else float(r.confidence),
                        "reasons": r.reasons, "text": r.text} for r in self.head.itertuples()]}
         if self.truth is not None:
             cal = self.truth.calibration
