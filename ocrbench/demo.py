@@ -212,9 +212,10 @@ def headline_lines(summary: dict) -> list[str]:
         if p.get("error") or p.get("text") != "raw":
             continue
         verdict = f"{p['winner']} reads more accurately" if p.get("winner") else "no difference shown"
+        pv = f"p < {fmt(p.get('p_floor'), 'p')}" if p.get("p_at_floor") else f"p = {fmt(p.get('p_value'), 'p')}"
         out.append(f"paired comparison (raw text, {fmt(p.get('pages'), 'int')} pages): CER {p['a']} − {p['b']} = "
                    f"{fmt(p.get('diff'), 'pct')} [{fmt(p.get('low'), 'pct')} – {fmt(p.get('high'), 'pct')}], "
-                   f"p = {fmt(p.get('p_value'), 'p')}: {verdict}")
+                   f"{pv}: {verdict}")
     plan = summary.get("plan") or {}
     if (plan.get("recommendation") or {}).get("text"):
         out.append(f"plan: {plan['recommendation']['text']}")
