@@ -34,6 +34,7 @@ from pathlib import Path
 from typing import Callable
 
 from ocrbench.errors import InputError, OcrbenchError
+from ocrbench.io.files import atomic_write_lines
 from ocrbench.report import ReportFiles, fmt, write_report
 from ocrbench.planning.service import PlanRequest
 
@@ -211,9 +212,10 @@ def headline_lines(summary: dict) -> list[str]:
         if p.get("error") or p.get("text") != "raw":
             continue
         verdict = f"{p['winner']} reads more accurately" if p.get("winner") else "no difference shown"
+        pv = f"p < {fmt(p.get('p_floor'), 'p')}" if p.get("p_at_floor") else f"p = {fmt(p.get('p_value'), 'p')}"
         out.append(f"paired comparison (raw text, {fmt(p.get('pages'), 'int')} pages): CER {p['a']} − {p['b']} = "
                    f"{fmt(p.get('diff'), 'pct')} [{fmt(p.get('low'), 'pct')} – {fmt(p.get('high'), 'pct')}], "
-                   f"p = {fmt(p.get('p_value'), 'p')}: {verdict}")
+                   f"{pv}: {verdict}")
     plan = summary.get("plan") or {}
     if (plan.get("recommendation") or {}).get("text"):
         out.append(f"plan: {plan['recommendation']['text']}")
@@ -299,7 +301,7 @@ def run_demo(*, out_dir: Path | str, models_dir: Path | str | None = None, scans
         say(f"  {line}")
 
     words = firm_words()
-    (out / "firm_words.txt").write_text("".join(w + "\n" for w in words), encoding="utf-8")
+    atomic_write_lines(out / "firm_words.txt", words)
     pipeline = demo_pipeline(words)
     store = out / "demo.sqlite"
     with RunStore(store) as st:

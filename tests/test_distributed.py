@@ -203,6 +203,7 @@ def test_run_command_cluster_options_need_a_cluster(pages, cards, tmp_path):
     assert not (tmp_path / "o.sqlite").exists()                  # refused before anything was opened
 
 
+@pytest.mark.slow
 def test_workers_keep_page_buffers_on_the_heap(pages, cards, cluster, tmp_path):
     """Dask starts workers with MALLOC_TRIM_THRESHOLD_=65536 (its distributed.yaml, pre-spawn-environ), which
     makes every page-sized numpy temporary an mmap/munmap: segmentation ran ~2x slower. On an existing cluster

@@ -25,8 +25,8 @@ MODELS = ROOT / "models"
 CTC = MODELS / "ledger-ctc"
 SEQ = MODELS / "ledger-seq"
 
-onnx = pytest.importorskip("onnx")
-ort = pytest.importorskip("onnxruntime")
+import onnx  # noqa: E402
+import onnxruntime as ort  # noqa: E402
 
 
 def _build_module():
@@ -146,6 +146,7 @@ def heldout():
     return build.heldout_lines(300, kinds=build.TEXT_KINDS)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("folder,target", [(CTC, 0.01), (SEQ, 0.03)], ids=["ctc", "seq"])
 def test_heldout_line_cer_targets(folder, target, heldout):
     """Accuracy (not timing): greedy decoding of 300 held-out lines (unseen seeds,

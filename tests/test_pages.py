@@ -128,6 +128,7 @@ def _check_components(mask: np.ndarray) -> None:
 ANGLES = [-3.0, -2.35, -1.6, -0.8, -0.3, 0.45, 1.2, 1.9, 2.6, 3.0]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("degrade", [False, True])
 def test_skew_of_generated_pages_rotated_by_known_angles(degrade):
     for i, angle in enumerate(ANGLES):
@@ -140,6 +141,7 @@ def test_skew_of_generated_pages_rotated_by_known_angles(degrade):
         assert abs(est - angle) <= 0.3, (angle, est)
 
 
+@pytest.mark.slow
 def test_skew_of_pages_from_other_renderers():
     for i, angle in enumerate([-2.8, -1.1, 0.7, 2.4]):
         g, _ = other_renderer_page(seed=i, rotation=angle, specks=40)

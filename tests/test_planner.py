@@ -167,7 +167,8 @@ def calibrate(noise=0.0, n=10, width_noise=12, kinds=("ctc", "seq"), seed=1):
 
 
 def test_nnls_agrees_with_scipy_and_recovers_known_coefficients():
-    scipy_opt = pytest.importorskip("scipy.optimize")
+    import scipy.optimize as scipy_opt   # reference only (the test extra installs scipy)
+
     rng = np.random.default_rng(3)
     for trial in range(20):
         A = rng.uniform(0, 1, size=(60, 6)) * rng.uniform(1e-3, 1e3, size=6)   # very different column scales
@@ -316,6 +317,7 @@ def test_cost_arithmetic_hand_worked():
 # --------------------------------------------------------------------------- extrapolation
 
 
+@pytest.mark.slow
 def test_plan_beyond_measured_range_warns():
     frames = calibrate(noise=0.02)
     models = list(fit_cost_models(frames, n_boot=20).values())
@@ -331,6 +333,7 @@ def test_plan_beyond_measured_range_warns():
                for w in plan.attrs["warnings"])
 
 
+@pytest.mark.slow
 def test_plan_in_range_has_no_range_warning_and_needs_measured_scaling():
     frames = calibrate(noise=0.02)
     m = fit_cost_model(frames, "demo-ctc", n_boot=20)
@@ -375,6 +378,7 @@ def test_crossover_solves_the_fitted_models():
 # --------------------------------------------------------------------------- the mechanics, fake clock
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("kind", ["ctc", "seq"])
 def test_fake_clock_validation_mechanics(kind):
     """Calibrate on 10 pages, predict 60 held-out pages with twice the lines, run them, compare.
@@ -402,6 +406,7 @@ def test_fake_clock_validation_mechanics(kind):
     assert any("lines per page" in w for w in plan.attrs["warnings"])
 
 
+@pytest.mark.slow
 def test_interleaved_runs_and_whole_second_timestamps_are_not_misread():
     """Recognisers taking turns page by page share each page's loading: no gap is attributed, and a note says so.
 
@@ -531,6 +536,7 @@ def test_bad_inputs_raise_plan_errors():
         AccuracyInput(0.1, 0.2, 0.3)
 
 
+@pytest.mark.slow
 def test_default_speed_drift_widens_the_band_as_a_normal_factor():
     """Without a measured session spread, the default drift (coefficient of variation 0.08) still widens the
     band: P10-P90 of a normal factor with sd 0.08 spans 2 x 1.2816 x 0.08 = 0.205 of the median (normal

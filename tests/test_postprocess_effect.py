@@ -73,7 +73,6 @@ def _corrupt(line: str, rng: random.Random) -> str:
 
 
 def test_cer_before_after_by_class(truth_pages):
-    pytest.importorskip("ocrbench.accuracy.score", reason="accuracy module not available yet")
     rng = random.Random(5)
     truth = list(truth_pages.values())
     raw = [[_corrupt(t, rng) for t in page] for page in truth]
@@ -100,7 +99,6 @@ def test_cer_before_after_by_class(truth_pages):
 
 
 def test_cer_check_flags_a_class_made_worse(truth_pages):
-    pytest.importorskip("ocrbench.accuracy.score", reason="accuracy module not available yet")
     truth = list(truth_pages.values())
     # a harmful "post-processing" that turns every 0 into O: digits must be flagged as raised
     harmed = [[t.replace("0", "O") for t in page] for page in truth]

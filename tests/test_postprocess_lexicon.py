@@ -51,6 +51,7 @@ def _perturb(rng: random.Random, w: str, n: int) -> str:
     return "".join(s)
 
 
+@pytest.mark.slow
 def test_rapidfuzz_nearest_agrees_with_brute_force_search():
     lex = Lexicon.from_words(WORDS)
     keys = [w.casefold() for w in WORDS]

@@ -81,6 +81,7 @@ def setup(tmp_path_factory):
     return {"tmp": tmp, "pages": pages, "raw": raw, "words": wl, "config": cfg, "truth": truth}
 
 
+@pytest.mark.slow
 def test_run_stores_post_processed_text_beside_the_raw_text(setup):
     tmp = setup["tmp"]
     db, out = tmp / "runs" / "post.sqlite", tmp / "texts"          # the store's folder does not exist yet
@@ -102,6 +103,7 @@ def test_run_stores_post_processed_text_beside_the_raw_text(setup):
             "".join(t + "\n" for t in texts)
 
 
+@pytest.mark.slow
 def test_rerun_with_another_recipe_resumes_and_refills(setup):
     tmp = setup["tmp"]
     db = tmp / "again.sqlite"
@@ -117,6 +119,7 @@ def test_rerun_with_another_recipe_resumes_and_refills(setup):
     assert _recipe(db, again["run_id"]) == pipeline.recipe == again["post_recipe"]
 
 
+@pytest.mark.slow
 def test_postprocess_command_reapplies_to_a_store(setup):
     tmp = setup["tmp"]
     db = tmp / "later.sqlite"
@@ -153,6 +156,7 @@ def test_postprocess_command_reapplies_to_a_store(setup):
     assert _invoke("postprocess", setup["words"]).exit_code == 2                          # a text needs OUT
 
 
+@pytest.mark.slow
 def test_pages_added_without_post_processing_are_flagged_and_refilled(setup, tmp_path):
     pages = tmp_path / "pages"
     pages.mkdir()

@@ -182,6 +182,7 @@ def test_corpus_cer_is_total_edits_over_total_reference_characters(pages, classe
         assert s["cer_low"] <= s["cer"] <= s["cer_high"]
 
 
+@pytest.mark.slow
 @FAST
 @given(pages=st.lists(page, min_size=2, max_size=6), cut=st.integers(1, 5), data=st.data())
 def test_scores_add_up_over_any_split_and_ignore_page_order(pages, cut, data):

@@ -101,6 +101,7 @@ def test_prefetch_changes_nothing_but_speed(with_bad_page, cards, tmp_path):
     assert texts[0] == texts[1]
 
 
+@pytest.mark.slow
 def test_rerun_resumes_and_fresh_starts_again(pages, cards, tmp_path):
     db = tmp_path / "s.sqlite"
     first = run_pages(pages, cards, store=db)
@@ -120,6 +121,7 @@ class Stop(Exception):
     pass
 
 
+@pytest.mark.slow
 def test_interrupted_run_resumes_with_every_page_once(pages, cards, tmp_path):
     clean = tmp_path / "clean.sqlite"
     run_pages(pages, cards, store=clean)
@@ -154,6 +156,7 @@ run_pages(sys.argv[1], [sys.argv[2], sys.argv[3]], store=sys.argv[5], progress=s
 """
 
 
+@pytest.mark.slow
 def test_killed_run_resumes_with_every_page_once(pages, cards, tmp_path):
     # SIGKILL ends the process at once, mid-page (signal(7)); the rerun must complete without duplicates.
     db = tmp_path / "s.sqlite"
@@ -290,6 +293,7 @@ def test_text_out_names_follow_the_ground_truth_pairing():
     assert text_stem("book.tif") == "book"
 
 
+@pytest.mark.slow
 def test_run_command_beam_decoding(pages, cards, tmp_path):
     res = CliRunner().invoke(app, ["run", str(pages), "-r", str(cards[0].folder), "-r", str(cards[1].folder),
                                    "--store", str(tmp_path / "s.sqlite"), "--decoding", "beam", "--beam-width", "3",

@@ -1,10 +1,11 @@
 """Accuracy of recognised text against ground truth (pure: no model runtime, no CLI).
 
 Modules: :mod:`normalise` (named profiles), :mod:`align` (Levenshtein distance,
-edit scripts, character classes), :mod:`amounts` (ledger amounts),
-:mod:`score` (CER/WER tables and summary), :mod:`stats` (page bootstrap, paired
-comparison, ground-truth sample size), :mod:`recipe` (what produced a figure),
-:mod:`textio` (reading text files and pairing folders; the only file I/O here).
+edit scripts, character classes), :mod:`score` (CER/WER tables and summary),
+:mod:`stats` (every interval: page bootstrap, Wilson, paired comparison,
+ground-truth sample size), :mod:`recipe` (what produced a figure),
+:mod:`evaluate` (run store or hypothesis folder + truth folder -> scores; the
+only module here that reads files, through :mod:`ocrbench.io.text` and the store).
 """
 
 from ocrbench.accuracy.normalise import PROFILES, apply, get_profile

@@ -20,7 +20,7 @@ from typing import Any, Callable, Sequence
 
 import pandas as pd
 
-from ocrbench.accuracy.score import Scores, score_pages
+from ocrbench.accuracy.score import MAX_ALIGN_CHARS, Scores, score_pages
 from ocrbench.accuracy.stats import paired_comparison
 from ocrbench.errors import StoreError, TextFileError
 from ocrbench.io.text import Pairing, pair_folders, pair_store_pages, read_text_lines
@@ -225,7 +225,13 @@ def score_systems(systems: Sequence[System], *, profile: Any = "nfc", classes: b
         if progress is not None:
             progress(f"scoring {s.name}", 0)
         s.scores = score_pages(pages, profile=profile, classes=classes, recogniser_hash=s.rec_hash,
-                               top=top, n_boot=n_boot, seed=seed)
+                               top=top, n_boot=n_boot, seed=seed, too_long="skip")
+        truth_of = {key: tpath for key, tpath, _ in s.pairing.pairs}
+        for key in s.scores.summary.get("too_long_to_align", []):
+            s.unreadable.append({"path": str(truth_of.get(key, key)),
+                                 "error": f"page {key}: a line too long for the character alignment (over "
+                                          f"{MAX_ALIGN_CHARS:,} characters, truth and recognised together); "
+                                          "page left out: score it with --no-classes (distances only)"})
 
 
 def compare(a: System, b: System, *, n_boot: int = 2000, seed: int = 0) -> dict:

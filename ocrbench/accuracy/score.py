@@ -41,13 +41,14 @@ import pandas as pd
 from rapidfuzz.distance import Levenshtein
 
 from ocrbench import __version__
+from ocrbench.errors import InputError
 from ocrbench.ledger import amounts as _amounts
 from ocrbench.accuracy.align import CLASSES, class_codes_of
 from ocrbench.accuracy.normalise import DEFAULT_PROFILE, Profile, get_profile
 from ocrbench.accuracy.recipe import Recipe, ci_tag, rec_tag
 from ocrbench.accuracy.stats import bootstrap_ratio_cis
 
-__all__ = ["Scores", "score_pages", "PageInput"]
+__all__ = ["Scores", "score_pages", "PageInput", "MAX_ALIGN_CHARS"]
 
 PageInput = tuple[str, "Sequence[str] | str", "Sequence[str] | str"]
 
@@ -116,10 +117,17 @@ def _int_array(values: np.ndarray, missing: np.ndarray | None = None) -> pd.arra
     return pd.arrays.IntegerArray(np.asarray(values, dtype=np.int64), mask)
 
 
+#: Longest unit (reference + hypothesis code points) the full alignment takes. Its edit script
+#: costs about 300 bytes per character (measured: 1.5 GB for one 5,000,000-character line against
+#: a short one), so this bounds one unit's alignment near 60 MB. Distances alone (``classes=False``)
+#: need memory linear in the line and have no such limit.
+MAX_ALIGN_CHARS = 200_000
+
+
 def score_pages(pages: Sequence[PageInput], *, profile: str | Profile = DEFAULT_PROFILE,
                 classes: bool = True, amounts: bool | None = None,
                 recogniser_hash: str | None = None, top: int = 20, n_boot: int = 2000,
-                level: float = 0.95, seed: int = 0) -> Scores:
+                level: float = 0.95, seed: int = 0, too_long: str = "raise") -> Scores:
     """Score pages given as ``(page_id, reference, hypothesis)``; each text a string or a list of lines.
 
     ``profile``: normalisation profile name (see :mod:`ocrbench.accuracy.normalise`).
@@ -132,55 +140,77 @@ def score_pages(pages: Sequence[PageInput], *, profile: str | Profile = DEFAULT_
     with fewer than 2 pages there is no interval (None). An interval that misses
     its own estimate (possible with few, very unequal pages) is widened to
     include it.
+
+    Memory: with the alignment, a unit longer than :data:`MAX_ALIGN_CHARS` raises
+    InputError naming the page (``too_long="raise"``), or its page is left out and
+    listed in the summary's ``too_long_to_align`` (``too_long="skip"``).
     """
+    if too_long not in ("raise", "skip"):
+        raise ValueError(f"too_long must be 'raise' or 'skip', not {too_long!r}")
     # Many short-lived lists (one per line) would wake the cyclic garbage
     # collector again and again over a large heap; nothing here makes cycles.
     was_enabled = gc.isenabled()
     gc.disable()
     try:
         return _score(pages, profile=profile, classes=classes, amounts=amounts,
-                      recogniser_hash=recogniser_hash, top=top, n_boot=n_boot, level=level, seed=seed)
+                      recogniser_hash=recogniser_hash, top=top, n_boot=n_boot, level=level, seed=seed,
+                      too_long=too_long)
     finally:
         if was_enabled:
             gc.enable()
 
 
-def _score(pages, *, profile, classes, amounts, recogniser_hash, top, n_boot, level, seed) -> Scores:
-    prof = get_profile(profile)
-    want_amounts = classes if amounts is None else amounts
-    align = classes or want_amounts
-    norm = prof.apply_text
+@dataclass
+class _Units:
+    """The aligned units of the pages: a line pair each, or a whole page when the line counts differ."""
 
-    page_ids: list[str] = []
-    ur: list[str] = []        # unit references
-    uh: list[str] = []        # unit hypotheses
-    line_no: list[int] = []   # 1-based line number, 0 for a whole-page unit
-    units_per_page: list[int] = []
-    ref_nlines: list[int] = []
-    hyp_nlines: list[int] = []
-    by_line: list[bool] = []
+    page_ids: list[str]
+    ur: list[str]             # unit references
+    uh: list[str]             # unit hypotheses
+    line_no: list[int]        # 1-based line number, 0 for a whole-page unit
+    units_per_page: list[int]
+    ref_nlines: list[int]
+    hyp_nlines: list[int]
+    by_line: list[bool]
+    too_long: list[str]       # pages left out: a unit beyond MAX_ALIGN_CHARS
+
+
+def _units(pages: Sequence[PageInput], norm, *, align: bool, too_long: str) -> _Units:
+    u = _Units([], [], [], [], [], [], [], [], [])
     for pid, ref, hyp in pages:
         r = _page_lines(ref, norm)
         h = _page_lines(hyp, norm)
-        page_ids.append(pid)
         nr, nh = len(r), len(h)
-        ref_nlines.append(nr)
-        hyp_nlines.append(nh)
-        if nr == nh:
-            ur.extend(r)
-            uh.extend(h)
-            line_no.extend(range(1, nr + 1))
-            units_per_page.append(nr)
-            by_line.append(True)
-        else:
-            ur.append("\n".join(r))
-            uh.append("\n".join(h))
-            line_no.append(0)
-            units_per_page.append(1)
-            by_line.append(False)
+        pairs = list(zip(r, h)) if nr == nh else [("\n".join(r), "\n".join(h))]
+        if align:
+            longest = max((len(a) + len(b) for a, b in pairs), default=0)
+            if longest > MAX_ALIGN_CHARS:
+                if too_long == "raise":
+                    raise InputError(pid, f"a line of {longest:,} characters (truth and recognised together) is "
+                                          f"beyond the {MAX_ALIGN_CHARS:,} the character alignment takes in bounded "
+                                          "memory; score without classes (distances only, memory linear in the "
+                                          "line) or split the line")
+                u.too_long.append(str(pid))
+                continue
+        u.page_ids.append(pid)
+        u.ref_nlines.append(nr)
+        u.hyp_nlines.append(nh)
+        u.ur.extend(a for a, _ in pairs)
+        u.uh.extend(b for _, b in pairs)
+        u.line_no.extend(range(1, nr + 1) if nr == nh else [0])
+        u.units_per_page.append(len(pairs))
+        u.by_line.append(nr == nh)
+    return u
 
+
+def _score(pages, *, profile, classes, amounts, recogniser_hash, top, n_boot, level, seed, too_long) -> Scores:
+    prof = get_profile(profile)
+    want_amounts = classes if amounts is None else amounts
+    align = classes or want_amounts
+    u = _units(pages, prof.apply_text, align=align, too_long=too_long)
+    page_ids, ur, uh, line_no = u.page_ids, u.ur, u.uh, u.line_no
     n_pages, n_units = len(page_ids), len(ur)
-    upp = np.asarray(units_per_page, dtype=np.int64)
+    upp = np.asarray(u.units_per_page, dtype=np.int64)
     unit_page = np.repeat(np.arange(n_pages), upp)
 
     # ---- distances (the cheap part, always done)
@@ -200,61 +230,64 @@ def _score(pages, *, profile, classes, amounts, recogniser_hash, top, n_boot, le
     p_words, p_wedits = per_page(ref_words), per_page(word_edits)
 
     # ---- full alignment (classes, confusions, amounts)
-    unit_sdi = None
-    page_cls = None          # (pages, classes, 3): subs, dels, ins per class
-    page_cls_ref = None      # (pages, classes): reference characters per class
-    confusions = None
-    amount_rows: list[tuple] = []
+    unit_sdi = page_cls = page_cls_ref = confusions = None   # page_cls: (pages, classes, 3) subs, dels, ins
     p_amounts = p_amounts_right = None
+    amount_rows: list[tuple] = []
     scripts: dict[int, list] = {}
     if align:
         unit_sdi, page_cls, page_cls_ref, confusions = _align_units(
             ur, uh, char_edits, ref_chars, unit_page, p_chars, n_pages, scripts)
-
     if want_amounts:
-        p_amounts = np.zeros(n_pages, dtype=np.int64)
-        p_amounts_right = np.zeros(n_pages, dtype=np.int64)
-        find, check = _amounts.find_amounts_in_lines, _amounts.check_amounts
-        first = np.concatenate([[0], np.cumsum(upp)])
-        for p in range(n_pages):
-            s0, s1 = int(first[p]), int(first[p + 1])
-            if s0 == s1:
-                continue
-            hits = find(ur[s0:s1])
-            if not hits:
-                continue
-            by_unit: dict[int, list] = {}
-            for k, am in hits:
-                by_unit.setdefault(s0 + k, []).append(am)
-            for u, found in by_unit.items():
-                script = scripts.get(u)
-                if script is None:   # unit without edits: every amount is right
-                    p_amounts[p] += len(found)
-                    p_amounts_right[p] += len(found)
-                    ln = line_no[u]
-                    amount_rows.extend((page_ids[p], ln, am.kind, am.text, am.text, True) for am in found)
-                    continue
-                for am, htext, ok in check(ur[u], uh[u], script, found):
-                    p_amounts[p] += 1
-                    p_amounts_right[p] += ok
-                    amount_rows.append((page_ids[p], line_no[u], am.kind, am.text, htext, ok))
+        p_amounts, p_amounts_right, amount_rows = _check_amounts(u, upp, scripts)
 
     # ---- tables
     lines_df = _lines_frame(page_ids, unit_page, line_no, ur, uh, ref_chars, char_edits,
                             ref_words, word_edits, unit_sdi)
-    pages_df = _pages_frame(page_ids, by_line, ref_nlines, hyp_nlines, p_chars, p_edits, p_words, p_wedits,
+    pages_df = _pages_frame(page_ids, u.by_line, u.ref_nlines, u.hyp_nlines, p_chars, p_edits, p_words, p_wedits,
                             page_cls, page_cls_ref, p_amounts, p_amounts_right)
-
     summary = _summary(pages_df, prof=prof, page_cls=page_cls, page_cls_ref=page_cls_ref,
                        p_amounts=p_amounts, p_amounts_right=p_amounts_right, confusions=confusions,
                        top=top, recogniser_hash=recogniser_hash, n_boot=n_boot, level=level, seed=seed,
                        n_units=n_units, align=align)
+    summary["too_long_to_align"] = u.too_long
     amounts_df = None
     if want_amounts:
         amounts_df = _rows_frame(amount_rows, ["page_id", "line_no", "kind", "ref", "hyp", "right"],
                                  ints=("line_no",), bools=("right",))
         amounts_df["line_no"] = amounts_df["line_no"].where(amounts_df["line_no"] > 0)
     return Scores(lines=lines_df, pages=pages_df, summary=summary, confusions=confusions, amounts=amounts_df)
+
+
+def _check_amounts(u: _Units, upp: np.ndarray, scripts: dict[int, list]):
+    """Per page: amounts found in the reference and amounts whose digits the hypothesis has right, and rows."""
+    n_pages = len(u.page_ids)
+    p_amounts = np.zeros(n_pages, dtype=np.int64)
+    p_amounts_right = np.zeros(n_pages, dtype=np.int64)
+    rows: list[tuple] = []
+    find, check = _amounts.find_amounts_in_lines, _amounts.check_amounts
+    first = np.concatenate([[0], np.cumsum(upp)])
+    for p in range(n_pages):
+        s0, s1 = int(first[p]), int(first[p + 1])
+        if s0 == s1:
+            continue
+        hits = find(u.ur[s0:s1])
+        if not hits:
+            continue
+        by_unit: dict[int, list] = {}
+        for k, am in hits:
+            by_unit.setdefault(s0 + k, []).append(am)
+        for unit, found in by_unit.items():
+            script = scripts.get(unit)
+            if script is None:   # unit without edits: every amount is right
+                p_amounts[p] += len(found)
+                p_amounts_right[p] += len(found)
+                rows.extend((u.page_ids[p], u.line_no[unit], am.kind, am.text, am.text, True) for am in found)
+                continue
+            for am, htext, ok in check(u.ur[unit], u.uh[unit], script, found):
+                p_amounts[p] += 1
+                p_amounts_right[p] += ok
+                rows.append((u.page_ids[p], u.line_no[unit], am.kind, am.text, htext, ok))
+    return p_amounts, p_amounts_right, rows
 
 
 def _rows_frame(rows: list[tuple], columns: list[str], *, ints: tuple[str, ...] = (),
@@ -455,22 +488,7 @@ def _summary(pages_df: pd.DataFrame, *, prof: Profile, page_cls, page_cls_ref, p
         s["dels"] = int(page_cls[:, :, 1].sum())
         s["ins"] = int(page_cls[:, :, 2].sum())
         s["hits"] = tot_chars - s["subs"] - s["dels"]
-        cls_out = {}
-        for c, name in enumerate(CLASSES):
-            ref_n = int(page_cls_ref[:, c].sum())
-            sub_n, del_n, ins_n = (int(page_cls[:, c, k].sum()) for k in range(3))
-            r_err = str(base.with_(metric=f"class-error/{name}"))
-            r_ins = str(base.with_(metric=f"class-insert/{name}"))
-            cls_out[name] = {
-                "ref_chars": ref_n, "subs": sub_n, "dels": del_n, "errors": sub_n + del_n,
-                "rate": (rate := _ratio(sub_n + del_n, ref_n)),
-                **dict(zip(("low", "high"), _around(rate, cis[f"err:{name}"]))),
-                "inserted": ins_n, "ins_rate": (ins_rate := _ratio(ins_n, ref_n)),
-                **dict(zip(("ins_low", "ins_high"), _around(ins_rate, cis[f"ins:{name}"]))),
-                "recipe": r_err, "ins_recipe": r_ins,
-            }
-            recipes[f"class-error/{name}"] = r_err
-            recipes[f"class-insert/{name}"] = r_ins
+        cls_out = _class_summary(page_cls, page_cls_ref, cis, base, recipes)
         s["classes"] = cls_out
         s["confusions"] = [
             {"ref": a, "hyp": b, "op": op, "count": int(n)}
@@ -485,3 +503,25 @@ def _summary(pages_df: pd.DataFrame, *, prof: Profile, page_cls, page_cls_ref, p
         s["amounts"] = {"found": found, "right": right, "share_right": share, "low": lo, "high": hi,
                         "recipe": r_am}
     return s
+
+
+def _class_summary(page_cls: np.ndarray, page_cls_ref: np.ndarray, cis: dict, base: Recipe,
+                   recipes: dict) -> dict:
+    """Per character class: truth characters, errors (subs + dels), insertions, rates with intervals."""
+    cls_out = {}
+    for c, name in enumerate(CLASSES):
+        ref_n = int(page_cls_ref[:, c].sum())
+        sub_n, del_n, ins_n = (int(page_cls[:, c, k].sum()) for k in range(3))
+        r_err = str(base.with_(metric=f"class-error/{name}"))
+        r_ins = str(base.with_(metric=f"class-insert/{name}"))
+        cls_out[name] = {
+            "ref_chars": ref_n, "subs": sub_n, "dels": del_n, "errors": sub_n + del_n,
+            "rate": (rate := _ratio(sub_n + del_n, ref_n)),
+            **dict(zip(("low", "high"), _around(rate, cis[f"err:{name}"]))),
+            "inserted": ins_n, "ins_rate": (ins_rate := _ratio(ins_n, ref_n)),
+            **dict(zip(("ins_low", "ins_high"), _around(ins_rate, cis[f"ins:{name}"]))),
+            "recipe": r_err, "ins_recipe": r_ins,
+        }
+        recipes[f"class-error/{name}"] = r_err
+        recipes[f"class-insert/{name}"] = r_ins
+    return cls_out

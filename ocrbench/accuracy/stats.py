@@ -280,8 +280,9 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
     never 0; z = Φ⁻¹(1 − g); p = 2·(1 − T_{n−1}(z / √(n/(n−1))))), ``winner``
     (the name with the lower rate, only when the interval excludes zero and the
     p-value is below 1 − level, else ``None``; on very few pages the two can
-    disagree), the two rates and the page counts. Fewer than 2 common pages give
-    no interval and no winner.
+    disagree), ``p_floor`` (the smallest p-value ``n_boot`` resamples can give) and
+    ``p_at_floor`` (p is that floor: read it as "p < floor", not as exact), the two
+    rates and the page counts. Fewer than 2 common pages give no interval and no winner.
     """
     if metric not in _METRIC_COLUMNS:
         raise ValueError(f"metric must be one of {sorted(_METRIC_COLUMNS)}, got {metric!r}")
@@ -306,24 +307,29 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
         "method": "paired percentile bootstrap over pages",
     }
     if total <= 0:
-        result.update(value_a=None, value_b=None, diff=None, low=None, high=None, p_value=None, winner=None)
+        result.update(value_a=None, value_b=None, diff=None, low=None, high=None, p_value=None, p_floor=None,
+                      p_at_floor=False, winner=None)
         return result
     va, vb = ea.sum() / total, eb.sum() / total
     n = len(m)
     if n < 2:
         result.update(value_a=float(va), value_b=float(vb), diff=float(va - vb), low=None, high=None,
-                      p_value=None, winner=None)
+                      p_value=None, p_floor=None, p_at_floor=False, winner=None)
         return result
     sums = bootstrap_sums(np.column_stack([ea, eb, t]), n_boot=n_boot, seed=seed)
     ok = sums[:, 2] > 0
     d = (sums[ok, 0] - sums[ok, 1]) / sums[ok, 2]
     low, high = _percentiles(d, expanded_tail(level, n))
-    g = (min(np.count_nonzero(d <= 0), np.count_nonzero(d >= 0)) + 1) / (d.size + 1)
-    if g >= 0.5:
-        p = 1.0
-    else:
+    def p_of(g: float) -> float:
+        if g >= 0.5:
+            return 1.0
         z = NormalDist().inv_cdf(1 - g) / math.sqrt(n / (n - 1))
-        p = min(1.0, 2 * (1 - t_cdf(z, n - 1)))
+        return min(1.0, 2 * (1 - t_cdf(z, n - 1)))
+
+    p = p_of((min(np.count_nonzero(d <= 0), np.count_nonzero(d >= 0)) + 1) / (d.size + 1))
+    # The smallest p-value these resamples can give (no resample on the far side of zero): a p-value
+    # there only says "at most this"; more resamples would lower the floor.
+    p_floor = p_of(1 / (d.size + 1))
     winner = None
     # On very few pages the bootstrap cannot spread beyond the observed pages (two pages that both
     # improved give an interval on one side of zero), while the p-value's t correction for n - 1
@@ -334,7 +340,7 @@ def paired_comparison(pages_a: Any, pages_b: Any, *, metric: str = "cer", n_boot
         elif low > 0:
             winner = names[1]
     result.update(value_a=float(va), value_b=float(vb), diff=float(va - vb), low=low, high=high,
-                  p_value=float(p), winner=winner)
+                  p_value=float(p), p_floor=float(p_floor), p_at_floor=bool(p <= p_floor), winner=winner)
     return result
 
 

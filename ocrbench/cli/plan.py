@@ -175,7 +175,8 @@ def measure_scaling_cmd(
                                                     "table are added to it."),
     workers: int = typer.Option(1, "--workers", min=1, help="Measure 1..K worker processes."),
     threads: int = typer.Option(1, "--threads", min=1, help="Intra-op threads per worker."),
-    batch_size: int = typer.Option(16, "--batch-size", min=1),
+    batch_size: int = typer.Option(16, "--batch-size", min=1, help="Lines per model batch (as 'ocrbench run "
+                                                                  "--batch-size')."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Time a run of each recogniser on TARGET (start-up, pages/s) and, with --workers K, 2..K workers too."""

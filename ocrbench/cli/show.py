@@ -39,6 +39,15 @@ def interval(lo: float | None, hi: float | None) -> str:
     return "-" if lo is None or hi is None else f"{100 * lo:.2f}% – {100 * hi:.2f}%"
 
 
+def p_value(r: dict) -> str:
+    """A comparison's p-value; "< floor" when it sits at the smallest value the resamples can give."""
+    if r.get("p_value") is None:
+        return "-"
+    if r.get("p_at_floor"):
+        return f"< {r['p_floor']:.3g}"
+    return f"{r['p_value']:.3g}"
+
+
 def wide_console() -> Console:
     """stdout; at least 132 columns when it is not a terminal (so piped tables do not fold)."""
     con = Console()
@@ -109,8 +118,8 @@ def print_comparisons(con: Console, comparisons: list[dict]) -> None:
         if "error" in r:
             c.add_row(r["a"], r["b"], "-", "-", "-", r["error"])
             continue
-        c.add_row(r["a"], r["b"], pct(r["diff"]), interval(r["low"], r["high"]),
-                  "-" if r["p_value"] is None else f"{r['p_value']:.3g}", r["winner"] or "no clear difference")
+        c.add_row(r["a"], r["b"], pct(r["diff"]), interval(r["low"], r["high"]), p_value(r),
+                  r["winner"] or "no clear difference")
     con.print(c)
 
 

@@ -262,7 +262,7 @@ def line_edits(truths: Sequence[str], texts: Sequence[str], *,
                normalise: Callable[[str], str] | None = None) -> np.ndarray:
     """Character edits (Levenshtein distance) of each recognised line against its truth (truth first)."""
     if len(texts) != len(truths):
-        raise ValueError(f"{len(texts)} recognised lines but {len(truths)} truth lines")
+        raise ValueError(f"{len(truths)} truth lines but {len(texts)} recognised lines")
     f = normalise or (lambda t: t)
     return np.array([Levenshtein.distance(f(r), f(h)) for r, h in zip(truths, texts)], dtype=np.int64)
 
@@ -320,7 +320,7 @@ class Calibration:
 def calibration(truths: Sequence[str], texts: Sequence[str], confidences: Sequence[float | None], *,
                 page_ids: Sequence[Any] | None = None, normalise: Callable[[str], str] | None = None,
                 n_bins: int = 10, n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> Calibration:
-    """Calibration figures on lines with ground truth (aligned lists, one entry per line).
+    """Calibration figures on lines with ground truth (aligned lists, one entry per line; truth first).
 
     Truth first, then the recognised text and its confidence. A line "holds
     errors" when its edit distance to the truth (after ``normalise``, e.g. the
@@ -433,7 +433,7 @@ class RunReview:
             "lines": int(len(self.queue.table)), "head": self.queue.minutes(**self.select),
             "all": self.queue.minutes(),
             "queue": [{"page_id": r.page_id, "line_no": int(r.line_no), "doubt": round(float(r.doubt), 4),
-                       "confidence": None if r.confidence != r.confidence else float(r.confidence),
+                       "confidence": None if pd.isna(r.confidence) else float(r.confidence),
                        "reasons": r.reasons, "text": r.text} for r in self.head.itertuples()]}
         if self.truth is not None:
             cal = self.truth.calibration

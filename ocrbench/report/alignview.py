@@ -26,6 +26,7 @@ HTML-escaped before it is written.
 from __future__ import annotations
 
 import html
+import unicodedata
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -38,12 +39,18 @@ HIT, SUB, DEL, INS = "=", "S", "D", "I"
 
 #: Characters that would break a fixed-width row, shown by a visible stand-in.
 _VISIBLE = {"\n": "\u23ce", "\t": "\u2192", "\r": "\u240d", "\f": "\u240c", "\v": "\u240b"}
+#: An edited space (inserted, deleted or substituted) would be an empty mark: shown as an open box.
+SPACE_MARK = "\u2423"
+#: An edited character with no visible shape (other spaces, format and control characters).
+INVISIBLE_MARK = "\u00a4"
 
 LEGEND = (
     ("S", "substitution", "a character of the truth read as another (double underline)"),
     ("D", "deletion", "a character of the truth missing from the reading (struck through)"),
     ("I", "insertion", "a character in the reading that the truth does not have (dotted box)"),
     (GAP, "gap", "no character on this side of the alignment"),
+    (SPACE_MARK, "space", "an edited space (a plain space would leave the mark empty)"),
+    (INVISIBLE_MARK, "invisible", "an edited character with no visible shape (hover for its code point)"),
 )
 
 
@@ -107,6 +114,21 @@ def _visible(ch: str | None) -> str:
     return _VISIBLE.get(ch, ch)
 
 
+def _visible_edit(ch: str) -> str:
+    """An edited character as a visible one-column mark: spaces and invisible characters get a stand-in."""
+    if ch in _VISIBLE:
+        return _VISIBLE[ch]
+    if ch == " ":
+        return SPACE_MARK
+    if unicodedata.category(ch) in ("Zs", "Zl", "Zp", "Cf", "Cc", "Cn", "Co", "Mn", "Me"):
+        return INVISIBLE_MARK
+    return ch
+
+
+def _describe(ch: str) -> str:
+    return f"U+{ord(ch):04X} {unicodedata.name(ch, 'unnamed character')}"
+
+
 _CLASS = {SUB: "e-sub", DEL: "e-del", INS: "e-ins"}
 
 
@@ -136,7 +158,8 @@ def _row_html(cols: Sequence[Column], side: str) -> str:
         if ch is None:
             out.append(f'<span class="gap">{GAP}</span>')
         else:
-            out.append(f'<span class="{_CLASS[c.op]}">{html.escape(_visible(ch))}</span>')
+            out.append(f'<span class="{_CLASS[c.op]}" title="{html.escape(_describe(ch), quote=True)}">'
+                       f"{html.escape(_visible_edit(ch))}</span>")
     flush()
     return "".join(out)
 
@@ -154,11 +177,15 @@ def columns_html(cols: Sequence[Column], *, labels: tuple[str, str, str] = ("tru
     return '<pre class="align">' + "\n\n".join(blocks) + "</pre>"
 
 
+def _shown(ch: str | None, op: str) -> str:
+    return _visible(ch) if ch is None or op == HIT else _visible_edit(ch)
+
+
 def columns_text(cols: Sequence[Column]) -> str:
     """The same three rows as plain text (for consoles and tests)."""
     rows = []
     for row in split_rows(cols) or [[]]:
-        rows.append("truth " + "".join(_visible(c.ref) for c in row))
-        rows.append("read  " + "".join(_visible(c.hyp) for c in row))
+        rows.append("truth " + "".join(_shown(c.ref, c.op) for c in row))
+        rows.append("read  " + "".join(_shown(c.hyp, c.op) for c in row))
         rows.append("edit  " + "".join(" " if c.op == HIT else c.op for c in row))
     return "\n".join(rows)

@@ -97,7 +97,13 @@ def _now() -> str:
 # --------------------------------------------------------------------------- runs
 
 
-def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFrame:
+def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None,
+                 measuring: set[int] = frozenset()) -> pd.DataFrame:
+    """The runs to show: those asked for, else the latest ordinary run of each recogniser.
+
+    ``measuring``: runs that ``measure-scaling`` wrote. They are passed over while the recogniser has
+    an ordinary run, so every recogniser's pages per hour comes from the same kind of run.
+    """
     if runs.empty:
         raise StoreError("the store holds no runs: run 'ocrbench run' first")
     if run_ids is not None:
@@ -106,8 +112,18 @@ def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFr
         if missing:
             raise StoreError(f"the store holds no run {missing[0]}")
         return sel.sort_values("run_id")
-    latest = runs.sort_values("run_id").groupby("recogniser", sort=False).tail(1)
-    return latest.sort_values("run_id")
+    ordered = runs.assign(_measuring=runs["run_id"].astype(int).isin(measuring)).sort_values(
+        ["_measuring", "run_id"], ascending=[False, True])
+    latest = ordered.groupby("recogniser", sort=False).tail(1)    # an ordinary run sorts last, so it wins
+    return latest.drop(columns="_measuring").sort_values("run_id")
+
+
+def _measuring_runs(store: Path) -> set[int]:
+    """Run ids that ``measure-scaling`` timed (its ``scaling`` table); none in a store without one."""
+    from ocrbench.planning.inputs import load_scaling
+
+    ids = load_scaling(store)["run_id"].dropna()
+    return {int(r) for r in ids}
 
 
 def _json(text: Any) -> dict:
@@ -132,7 +148,7 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
     """Least-squares seconds per extra character of a line (t_line on n_chars), bootstrap over pages."""
     d = lines.dropna(subset=["n_chars", "t_line"])
     out = {"line_seconds_mean": None, "seconds_per_char": None, "seconds_per_char_low": None,
-           "seconds_per_char_high": None, "line_seconds_at_0": None}
+           "seconds_per_char_high": None, "line_seconds_at_0": None, "seconds_per_char_clipped": False}
     if len(d) < 3 or d["n_chars"].nunique() < 2:
         return out
     y = d["t_line"].to_numpy(float)
@@ -157,6 +173,13 @@ def _slope(lines: pd.DataFrame, n_boot: int, seed: int) -> dict:
         ci = percentile_interval(bb, 0.95)
         if ci is not None:
             out.update(seconds_per_char_low=ci[0], seconds_per_char_high=ci[1])
+    # A longer line cannot take less model time: a bound (or estimate) below zero is sampling noise of a
+    # flat slope, so it is clipped at 0 and the clipping recorded (the report says so).
+    below = [k for k in ("seconds_per_char", "seconds_per_char_low", "seconds_per_char_high")
+             if out[k] is not None and out[k] < 0]
+    for k in below:
+        out[k] = 0.0
+    out["seconds_per_char_clipped"] = bool(below)
     return out
 
 
@@ -168,10 +191,15 @@ def _balance(lines: pd.DataFrame, column: str) -> dict | None:
     frame = balance_lines_frame(lines[["page_id", "line_no", column]].rename(columns={column: "text"}))
     counts = frame["status"].value_counts()
     est = estimate_misreads(list(frame["balance"]))
-    return {"pages": int(len(frame)), "balanced": int(counts.get("balanced", 0)),
-            "unbalanced": int(counts.get("unbalanced", 0)), "not_checkable": int(counts.get("not checkable", 0)),
-            "misread_rate": est.per_amount_rate, "misread_low": est.per_amount_low,
-            "misread_high": est.per_amount_high, "amounts": est.amounts, "model": est.model}
+    balanced, unbalanced = int(counts.get("balanced", 0)), int(counts.get("unbalanced", 0))
+    # The misread rate is shown only where the check could judge a page: pages counted as failed only
+    # because an amount was unreadable would otherwise give "100 %" for text nobody could check.
+    checkable = balanced + unbalanced > 0
+    return {"pages": int(len(frame)), "balanced": balanced, "unbalanced": unbalanced,
+            "not_checkable": int(counts.get("not checkable", 0)), "checkable": checkable,
+            "misread_rate": est.per_amount_rate if checkable else None,
+            "misread_low": est.per_amount_low if checkable else None,
+            "misread_high": est.per_amount_high if checkable else None, "amounts": est.amounts, "model": est.model}
 
 
 # --------------------------------------------------------------------------- accuracy
@@ -240,9 +268,10 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     prof = get_profile(profile)
     with RunStore(store, read_only=True) as st:
         frames = st.read_frames()
-        sel = _select_runs(frames["runs"], run_ids)
+        measuring = _measuring_runs(store)
+        sel = _select_runs(frames["runs"], run_ids, measuring)
         recipes = {int(r): st.post_recipe(int(r)) for r in sel["run_id"]}
-    runs, line_times, page_rows = _gather_runs(sel, frames, recipes, n_boot, seed)
+    runs, line_times, page_rows = _gather_runs(sel, frames, recipes, n_boot, seed, measuring)
     summary: dict[str, Any] = {
         "format": FORMAT_VERSION, "title": title or f"Recogniser comparison: {store.name}",
         "generated_at": _now(), "ocrbench_version": __version__, "store": str(store),
@@ -276,7 +305,8 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
 
 
 def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes: Mapping[int, str | None],
-                 n_boot: int, seed: int) -> tuple[list[dict], list[pd.DataFrame], list[pd.DataFrame]]:
+                 n_boot: int, seed: int, measuring: set[int] = frozenset()
+                 ) -> tuple[list[dict], list[pd.DataFrame], list[pd.DataFrame]]:
     """Per selected run: its summary entry (counts, throughput, slope, balance), line times and page rows."""
     pages_f, lines_f = frames["pages"], frames["lines"]
     runs, line_times, page_rows = [], [], []
@@ -287,6 +317,7 @@ def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes:
         ln = lines_f[(lines_f["run_id"] == rid) & lines_f["page_id"].isin(done["page_id"])]
         run = {
             "name": r.recogniser, "kind": r.kind, "run_id": rid, "card_hash": r.card_hash,
+            "purpose": "measure-scaling" if rid in measuring else "run",
             "card_path": r.card_path, "input_dir": r.input_dir, "engine": r.engine,
             "ocrbench_version": r.ocrbench_version, "started_at": r.started_at, "finished_at": r.finished_at,
             "host": _json(r.host_json), "settings": _json(r.settings_json),
@@ -369,7 +400,8 @@ def _add_accuracy(data: ReportData, store: Path, truth_dir: Path, frames: Mappin
             for w in worst for ln in w["lines"]])
 
 
-_PAIRED_KEYS = ("a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value",
+_PAIRED_KEYS = ("a", "b", "metric", "pages", "value_a", "value_b", "diff", "low", "high", "p_value", "p_floor",
+                "p_at_floor",
                 "winner", "method", "level", "n_boot", "seed")
 
 

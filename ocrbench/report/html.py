@@ -37,7 +37,8 @@ h3 { font-size: 1rem; margin: 1.4rem 0 .3rem; }
 p.meta { margin: 0 0 1rem; font-size: .88rem; }
 .caution { border: 1px solid #111; border-left-width: 6px; padding: .4rem .8rem; margin: 1rem 0; }
 .caution p { margin: .3rem 0; }
-table { border-collapse: collapse; margin: .6rem 0 1rem; font-size: .86rem; }
+table { border-collapse: collapse; margin: .6rem 0 1rem; font-size: .86rem; max-width: 100%; }
+td { overflow-wrap: anywhere; }
 caption { text-align: left; font-style: italic; padding-bottom: .25rem; }
 th, td { padding: .22rem .55rem; vertical-align: top; text-align: left; }
 thead th { border-top: 1.5px solid #111; border-bottom: 1px solid #111; font-weight: bold; }
@@ -49,13 +50,17 @@ figure { margin: 1.2rem 0 1.6rem; break-inside: avoid; page-break-inside: avoid;
 figure svg { max-width: 100%; height: auto; display: block; }
 figcaption { font-size: .85rem; margin-top: .3rem; }
 code, pre, .recipe { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: .78rem; }
-.recipe { display: block; overflow-wrap: anywhere; border-top: 1px dotted #111; margin-top: .25rem; padding-top: .2rem; }
+.recipe { display: block; overflow-wrap: anywhere; white-space: normal; border-top: 1px dotted #111; margin-top: .25rem;
+          padding-top: .2rem; }
+code.hash { overflow-wrap: anywhere; word-break: break-all; }
+details.long { margin: .15rem 0 0; text-align: left; white-space: normal; max-width: 24rem; }
+.steps { white-space: normal; }
 pre.align { font-size: .82rem; line-height: 1.35; overflow-x: auto; margin: .3rem 0 .8rem;
             padding: .4rem .6rem; border: 1px solid #bbb; white-space: pre; }
 pre.align .lab { font-style: italic; }
 .e-sub { text-decoration: underline double; font-weight: bold; }
 .e-del { text-decoration: line-through; text-decoration-thickness: 2px; }
-.e-ins { outline: 1px dotted #111; outline-offset: -1px; font-weight: bold; }
+.e-ins { outline: 1.5px dotted #111; outline-offset: 0; font-weight: bold; background: #e6e6e6; }
 .gap { color: #555; }
 .e-sub-mark, .e-del-mark, .e-ins-mark { font-weight: bold; }
 dl.legend { display: grid; grid-template-columns: max-content 1fr; gap: .1rem .8rem; font-size: .85rem; }
@@ -64,6 +69,11 @@ dl.legend dd { margin: 0; }
 .note { font-size: .85rem; font-style: italic; }
 ul.warn li { font-size: .85rem; }
 .verdict { font-weight: bold; }
+section.decision { border: 2px solid #111; padding: .2rem .9rem .4rem; margin: .8rem 0 1rem; }
+section.decision h2 { margin-top: .4rem; border: none; }
+section.decision table { margin: .3rem 0 .4rem; font-size: .82rem; }
+section.decision th, section.decision td.n { white-space: normal; }
+section.decision .iv { white-space: nowrap; }
 details { font-size: .8rem; margin: -.5rem 0 .8rem; }
 p.plain code { white-space: pre-wrap; }
 @media print {
@@ -101,6 +111,11 @@ def _e(text: Any) -> str:
     return html.escape("" if text is None else str(text))
 
 
+def _plural(n: Any, word: str) -> str:
+    """``word`` as it reads after the number ``n`` (1 edit, 2 edits, 0 edits)."""
+    return word if n == 1 else word + "s"
+
+
 def _has(summary: Mapping, path: str) -> bool:
     try:
         return resolve(summary, path) is not None
@@ -109,6 +124,85 @@ def _has(summary: Mapping, path: str) -> bool:
 
 
 # --------------------------------------------------------------------------- sections
+
+
+def _best_accuracy(r: Mapping) -> tuple[str, str] | None:
+    """(summary key, label) of the accuracy a decision rests on: post-processed where stored, else raw."""
+    if r.get("accuracy_post"):
+        return "accuracy_post", "post-processed"
+    if r.get("accuracy"):
+        return "accuracy", "raw"
+    return None
+
+
+def _decision(s: Mapping) -> str:
+    """The decision in a few lines: the verdict, each option's time, cost (compute and correction) and
+    accuracy with intervals, whether the goals hold, and the warnings that matter most."""
+    runs = s["recognisers"]
+    plan = s.get("plan") or {}
+    rec = plan.get("recommendation") or {}
+    cur = _e(plan.get("currency") or "")
+    parts = ['<section id="decision" class="decision"><h2>Decision</h2>']
+    if rec.get("text"):
+        parts.append(f'<p class="verdict">{_e(rec["text"][:1].upper() + rec["text"][1:])}.</p>')
+    else:
+        winners = [p for p in s.get("paired") or [] if p.get("winner")]
+        if winners:
+            w = winners[0]
+            parts.append(f'<p class="verdict">{_e(w["winner"])} reads more accurately ({_e(w["text"])} text, '
+                         f"paired comparison on the same pages).</p>")
+        elif not plan:
+            parts.append('<p class="verdict">No plan was given, so no option is recommended; the figures below '
+                         "compare the recognisers.</p>")
+    head = ["option", "CER [95 %]", "pages / hour, one worker"]
+    has_plan = any(r.get("plan") for r in runs)
+    money = has_plan and any((r.get("plan") or {}).get("cost") is not None for r in runs)
+    if has_plan:
+        head += ["archive time P50 (P90)"]
+    if money:
+        head += [f"compute {cur}".strip(), f"correction {cur}".strip(), f"total {cur} (up to)".replace("  ", " ")]
+    if has_plan:
+        head += ["deadline", "budget"]
+    rows = []
+    for i, r in enumerate(runs):
+        acc = _best_accuracy(r)
+        a = f"recognisers.{i}.{acc[0]}" if acc else None
+        cells = [f"{_e(r['name'])}" + (" <b>(recommended)</b>" if rec.get("recogniser") == r["name"] else ""),
+                 (_interval(s, f"{a}.cer", f"{a}.cer_low", f"{a}.cer_high", "pct") + f" <span class=\"iv\">{acc[1]}"
+                  "</span>") if a else "not measured",
+                 figure(s, f"recognisers.{i}.pages_per_hour", "int")]
+        p = f"recognisers.{i}.plan"
+        if has_plan:
+            cells.append(f'{figure(s, p + ".wall_seconds_p50", "dur")} ({figure(s, p + ".wall_seconds_p90", "dur")})')
+        if money:
+            cells += [figure(s, p + ".compute_cost", "money"), figure(s, p + ".correction_cost", "money"),
+                      f'{figure(s, p + ".cost", "money")} ({figure(s, p + ".cost_high", "money")})']
+        if has_plan:
+            cells += [_holds(s, p + ".meets_deadline"), _holds(s, p + ".meets_budget")]
+        rows.append("<tr>" + "".join(f"<td{' class=n' if k else ''}>{c}</td>" for k, c in enumerate(cells))
+                    + "</tr>")
+    parts.append("<table><thead><tr>" + "".join(f'<th{" class=n" if k else ""}>{_e(h)}</th>'
+                                                for k, h in enumerate(head))
+                 + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+    if money:
+        parts.append('<p class="note">Cost = compute (machine time) + correction (people fixing the errors the '
+                     "CER implies); the plan counts both.</p>")
+    warnings = list(plan.get("warnings") or [])[:2]
+    failed = sum(int(r.get("pages_failed") or 0) for r in runs)
+    if failed:
+        warnings.append(f"{failed} page{'s' if failed != 1 else ''} failed to read (listed under Runs).")
+    if warnings:
+        parts.append('<ul class="warn">' + "".join(f"<li>{_e(w)}</li>" for w in warnings) + "</ul>")
+    parts.append("</section>")
+    return "".join(parts)
+
+
+def _holds(s: Mapping, path: str) -> str:
+    try:
+        v = resolve(s, path)
+    except (KeyError, IndexError, TypeError):
+        v = None
+    return "no goal" if v is None else figure(s, path, "bool")
 
 
 def _side_by_side(s: Mapping) -> str:
@@ -135,7 +229,7 @@ def _side_by_side(s: Mapping) -> str:
             [_interval(s, f"recognisers.{i}.accuracy.digit_error_rate", f"recognisers.{i}.accuracy.digit_low",
                        f"recognisers.{i}.accuracy.digit_high", "pct") for i in range(len(runs))])
     if has_post:
-        row("post-processing recipe", [f"<code>{_e(r.get('post_recipe') or 'none')}</code>" for r in runs])
+        row("post-processing steps", [_recipe_cell(r.get("post_recipe")) for r in runs])
         p = "accuracy_post"
         row("CER, post-processed", [_interval(s, f"recognisers.{i}.{p}.cer", f"recognisers.{i}.{p}.cer_low",
                                               f"recognisers.{i}.{p}.cer_high", "pct") for i in range(len(runs))])
@@ -176,13 +270,43 @@ def _side_by_side(s: Mapping) -> str:
     body = "".join(f'<tr><th scope="row">{_e(label)}</th>{"".join(f"<td class=n>{c}</td>" for c in cells)}</tr>'
                    for label, cells in rows)
     note = ""
+    measured = [r["name"] for r in runs if r.get("purpose") == "measure-scaling"]
+    if measured:
+        note += (f'<p class="note">Pages per hour of {_e(", ".join(measured))} come from a measure-scaling run '
+                 "(the store holds no ordinary run of it); the others' from ordinary runs.</p>")
+    if any(r.get("seconds_per_char_clipped") for r in runs):
+        note += ('<p class="note">Time per extra character: a bound below zero was clipped at 0 (a longer line '
+                 "cannot take less time; a negative bound is the noise of a nearly flat slope).</p>")
     if has_acc:
-        note = (f'<p class="note">Accuracy: profile <code>{_e(s.get("profile"))}</code> '
+        note += (f'<p class="note">Accuracy: profile <code>{_e(s.get("profile"))}</code> '
                 f'({_e(s.get("profile_summary"))}); intervals are 95 % bootstrap intervals over pages. '
                 "The digit error rate counts substitutions and deletions of truth digits per truth digit.</p>")
     return (f'<h2 id="side-by-side">Recognisers side by side</h2>'
             f'<table class="sbs"><caption>Figures with their 95 % intervals in brackets.</caption>'
             f'<thead><tr><th scope="col">measure</th>{head}</tr></thead><tbody>{body}</tbody></table>{note}')
+
+
+def recipe_steps(recipe: str | None) -> str:
+    """The step names of a post-processing recipe (``pp1|unicode(form=NFC)|whitespace`` -> ``unicode, whitespace``)."""
+    if not recipe:
+        return "none"
+    parts = [p.split("(", 1)[0] for p in recipe.split("|")[1:]]
+    return ", ".join(p for p in parts if p) or recipe
+
+
+def _recipe_cell(recipe: str | None) -> str:
+    """Short step names in the table; the whole recipe (long, unbroken) folded away below them."""
+    if not recipe:
+        return "none"
+    return (f'<span class="steps">{_e(recipe_steps(recipe))}</span><details class="long"><summary>full recipe'
+            f'</summary><code class="recipe">{_e(recipe)}</code></details>')
+
+
+def _p_value(s: Mapping, k: int) -> str:
+    """The p-value, or "< floor" where no resample fell on the far side of zero (the value is a bound)."""
+    if s["paired"][k].get("p_at_floor"):
+        return f'&lt; {figure(s, f"paired.{k}.p_floor", "p")}'
+    return figure(s, f"paired.{k}.p_value", "p")
 
 
 def _paired(s: Mapping) -> str:
@@ -200,11 +324,12 @@ def _paired(s: Mapping) -> str:
         rows.append(f"<tr><td>{_e(p['a'])} − {_e(p['b'])}</td><td>{_e(p['text'])}</td>"
                     f"<td class=n>{figure(s, f'paired.{k}.pages', 'int')}</td>"
                     f"<td class=n>{_interval(s, f'paired.{k}.diff', f'paired.{k}.low', f'paired.{k}.high', 'pct')}</td>"
-                    f"<td class=n>{figure(s, f'paired.{k}.p_value', 'p')}</td><td>{verdict}</td></tr>")
+                    f"<td class=n>{_p_value(s, k)}</td><td>{verdict}</td></tr>")
     return ('<h2 id="paired">Paired comparison</h2>'
             "<p>The same pages, both recognisers: the difference of their CERs (first minus second; negative "
             "means the first makes fewer errors), with a paired bootstrap interval over pages and a two-sided "
-            "p-value. A winner is named only when the interval excludes zero.</p>"
+            "p-value. A winner is named only when the interval excludes zero. A p-value written "
+            "\u201c&lt; x\u201d is at the smallest value the resamples can show: it is at most x.</p>"
             '<table><thead><tr><th>pair</th><th>text</th><th class="n">pages</th><th class="n">CER difference '
             '[95 % interval]</th><th class="n">p</th><th>reading</th></tr></thead><tbody>'
             + "".join(rows) + "</tbody></table>")
@@ -263,7 +388,9 @@ def _plan(s: Mapping) -> str:
         parts.append("<h3>Assumptions</h3><ul>" + "".join(f"<li>{_e(a)}</li>" for a in plan["assumptions"])
                      + "</ul>")
     if plan.get("accuracy_source"):
-        parts.append(f'<p class="note">Correction effort uses the CER of the {_e(plan["accuracy_source"])}.</p>')
+        source = str(plan["accuracy_source"])
+        source = source[4:] if source.startswith("the ") else source    # the sentence says "the" already
+        parts.append(f'<p class="note">Correction effort uses the CER of the {_e(source)}.</p>')
     if plan.get("warnings"):
         parts.append('<h3>Warnings from the planner</h3><ul class="warn">'
                      + "".join(f"<li>{_e(w)}</li>" for w in plan["warnings"]) + "</ul>")
@@ -312,21 +439,28 @@ def _worst(s: Mapping) -> str:
     for k, w in enumerate(worst):
         out.append(f"<h3>{_e(w['recogniser'])}: page <code>{_e(w['page_id'])}</code>, CER "
                    f"{figure(s, f'worst_pages.{k}.cer', 'pct')} ({figure(s, f'worst_pages.{k}.char_edits', 'int')} "
-                   f"edits in {figure(s, f'worst_pages.{k}.ref_chars', 'int')} characters; "
-                   f"{figure(s, f'worst_pages.{k}.lines_shown', 'int')} of "
-                   f"{figure(s, f'worst_pages.{k}.lines_with_edits', 'int')} lines with errors shown)</h3>")
+                   f"{_plural(w['char_edits'], 'edit')} in {figure(s, f'worst_pages.{k}.ref_chars', 'int')} "
+                   f"{_plural(w['ref_chars'], 'character')}; {figure(s, f'worst_pages.{k}.lines_shown', 'int')} of "
+                   f"{figure(s, f'worst_pages.{k}.lines_with_edits', 'int')} "
+                   f"{_plural(w['lines_with_edits'], 'line')} with errors shown)</h3>")
         if w.get("pairing") == "page":
             out.append('<p class="note">The reading has a different number of lines than the truth, so the '
                        "page was aligned as one text.</p>")
         for ln in w["lines"]:
             label = f"line {ln['line_no']}" if ln.get("line_no") is not None else "whole page"
-            out.append(f'<p class="note">{_e(label)}: {_e(ln["char_edits"])} edits in {_e(ln["ref_chars"])} '
-                       f"characters</p>")
+            out.append(f'<p class="note">{_e(label)}: {_e(ln["char_edits"])} {_plural(ln["char_edits"], "edit")} in '
+                       f'{_e(ln["ref_chars"])} {_plural(ln["ref_chars"], "character")}</p>')
             out.append(columns_html(align_columns(ln["ref"], ln["hyp"])))
             # The same two texts unbroken (for copying and for screen readers), folded away by default.
             out.append(f'<details><summary>plain text of {_e(label)}</summary><p class="plain">truth: '
                        f'<code>{_e(ln["ref"])}</code><br>read: <code>{_e(ln["hyp"])}</code></p></details>')
     return "".join(out)
+
+
+def _misread(s: Mapping, p: str, b: Mapping) -> str:
+    if not b.get("checkable", True) or b.get("misread_rate") is None:
+        return "not checkable"
+    return _interval(s, p + ".misread_rate", p + ".misread_low", p + ".misread_high", "pct")
 
 
 def _balance(s: Mapping) -> str:
@@ -345,8 +479,7 @@ def _balance(s: Mapping) -> str:
                         f"<td class=n>{figure(s, p + '.balanced', 'int')}</td>"
                         f"<td class=n>{figure(s, p + '.unbalanced', 'int')}</td>"
                         f"<td class=n>{figure(s, p + '.not_checkable', 'int')}</td>"
-                        f"<td class=n>{_interval(s, p + '.misread_rate', p + '.misread_low', p + '.misread_high', 'pct')}"
-                        "</td></tr>")
+                        f"<td class=n>{_misread(s, p, b)}</td></tr>")
     model = next((r["balance"]["raw"]["model"] for r in runs if (r.get("balance") or {}).get("raw")), "")
     return ('<h2 id="arithmetic">Ledger arithmetic (needs no ground truth)</h2>'
             "<p>Each page's amounts are checked against its total. Pages that do not balance point at misread "
@@ -363,12 +496,14 @@ def _runs(s: Mapping) -> str:
         host = r.get("host") or {}
         settings = r.get("settings") or {}
         rows = [("run", _e(r["run_id"])), ("card", f'<code>{_e(r.get("card_path"))}</code>'),
-                ("card hash", f'<code>{_e(r.get("card_hash"))}</code>'),
+                ("card hash", f'<code class="hash">{_e(r.get("card_hash"))}</code>'),
                 ("input folder", f'<code>{_e(r.get("input_dir"))}</code>'),
                 ("engine", _e(r.get("engine"))), ("ocrbench", _e(r.get("ocrbench_version"))),
                 ("started / finished", f'{_e(r.get("started_at"))} / {_e(r.get("finished_at"))}')]
         rows += [(f"host: {k}", _e(v)) for k, v in sorted(host.items())]
-        rows.append(("settings", f'<code>{_e(json.dumps(settings, sort_keys=True, ensure_ascii=False))}</code>'))
+        rows.append(("settings", f'<details class="long"><summary>{len(settings)} settings</summary><code '
+                                 f'class="recipe">{_e(json.dumps(settings, sort_keys=True, ensure_ascii=False))}'
+                                 "</code></details>"))
         rows.append(("throughput recipe", f'<code class="recipe" data-key="recognisers.{i}.throughput_recipe" '
                                           f'data-fmt="text">{_e(r.get("throughput_recipe"))}</code>'))
         if r.get("failures"):
@@ -430,6 +565,7 @@ def render_html(summary: Mapping, svgs: Mapping[str, str | None]) -> str:
         f'<p class="meta">Recognisers: {_e(names)}. Store <code>{_e(s["store"])}</code>'
         + (f'; ground truth <code>{_e(s["truth"])}</code>' if s.get("truth") else "; no ground truth")
         + f'. Written {_e(s["generated_at"])} by ocrbench {_e(s["ocrbench_version"])}.</p>',
+        _decision(s),
         _cautions(s, short=True),
         f'<nav><p class="meta">Contents: {nav}</p></nav>',
         *(html_ for _, _, html_ in sections),
