@@ -93,12 +93,15 @@ def test_plan_json_from_a_run_store(calibrated):
                   "correction_hours", "meets_deadline"):
             assert k in r
         assert r["wall_seconds_p10"] <= r["wall_seconds_p50"] <= r["wall_seconds_p90"]
-        # one worker x one thread: core-hours = wall-hours; cost = core-hours x 0.10 (by hand)
+        # one worker x one thread: core-hours = wall-hours; compute cost = core-hours x 0.10 (by hand)
         assert r["core_hours"] == pytest.approx(r["wall_seconds_p50"] / 3600, rel=1e-12)
-        assert r["cost"] == pytest.approx(r["core_hours"] * 0.10, rel=1e-12)
+        assert r["compute_cost"] == pytest.approx(r["core_hours"] * 0.10, rel=1e-12)
         assert r["deadline_seconds"] == dt.timedelta(hours=1).total_seconds()   # datetime as reference
-        assert r["meets_deadline"] == (r["wall_seconds_p90"] <= 3600)
+        assert r["recognition_meets_deadline"] == (r["wall_seconds_p90"] <= 3600)
         assert r["correction_hours"] is None          # no CER given: not guessed
+        # ... so the people's part is unknown and unpriced: no total, and the deadline not judged "yes"
+        assert r["cost"] is None and r["unknown"] and r["unpriced"]
+        assert r["meets_deadline"] in (None, False) and r["meets_deadline"] is not True
     assert any("250x the 4 calibration pages" in w for w in doc["warnings"])
     assert doc["recommendation"]["text"]
     # the Python API gives the same plan as a DataFrame

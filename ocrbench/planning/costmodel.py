@@ -26,12 +26,6 @@ from ocrbench.recognisers.preprocess import width_batches
 
 # --------------------------------------------------------------------------- constants
 
-#: Default seconds a person needs per character error (see :class:`Correction`).
-DEFAULT_SECONDS_PER_ERROR = 10.0
-
-#: Default half-width of the CER interval wanted from a ground-truth sample.
-DEFAULT_CER_MARGIN = 0.005
-
 #: The runner's defaults, used when a run's settings do not record them.
 DEFAULT_BATCH_SIZE = 16
 DEFAULT_MAX_PAD_RATIO = 1.3
@@ -327,6 +321,7 @@ class CostModel:
     speed_cv: float = 0.0              # session-to-session spread of the machine's speed (repeated timed sessions)
     split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
+    process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
 
     def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per page: batch time, page overhead, and the part of them loading ahead hides."""
@@ -688,6 +683,7 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         page_resid=page_resid, width=width, ranges=ranges, n_pages=len(cal.pages), n_lines=len(ln),
         n_batches=len(batches), quality=quality, notes=po.notes + bp.notes + w_notes, overlap=bp.overlap,
         speed_cv=bp.speed_cv, split_gap=float(split_gap or 0.0),
+        process_start_s=max(0.0, float((session or {}).get("process_start_seconds") or 0.0)),
         pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(po.lines.sum()))) if split_gap else 1.0)
 
 
