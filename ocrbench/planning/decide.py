@@ -303,6 +303,31 @@ def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
     ]
 
 
+#: Relative difference in a page figure beyond which the archive is said to look unlike the calibration pages.
+FIGURE_TOLERANCE = 0.20
+
+
+def sample_differences(models: Sequence[CostModel], archive: Archive,
+                       tolerance: float = FIGURE_TOLERANCE) -> list[str]:
+    """Warnings naming each figure (line height, characters per line, lines per page, page size) in which the
+    archive differs from the calibration (and ground-truth) pages by more than ``tolerance``, and by how much."""
+    mine = archive.figures()
+    out = []
+    for prof in dict.fromkeys(m.profile for m in models):
+        figs = [m.figures for m in models if m.profile == prof and m.figures]
+        for name, a in mine.items():
+            vals = [f[name] for f in figs if name in f]
+            if not vals or not a:
+                continue
+            c = float(np.mean(vals))
+            if c > 0 and abs(a / c - 1) > tolerance:
+                out.append(f"the archive's {name} ({a:.3g}, {archive.source}) differs from the calibration pages' "
+                           f"on {prof} ({c:.3g}) by {100 * (a / c - 1):+.0f}%: the speed and the CER measured on "
+                           "those pages may not hold for this archive; calibrate (and transcribe ground truth) on "
+                           "pages like it")
+    return out
+
+
 def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
     """The plan: one row per recogniser (per machine profile), side by side.
 
@@ -316,7 +341,7 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
     options: list[Option] = []
     for i, m in enumerate(models):
         est = estimate_serial(m, inputs.archive, draws=inputs.draws, seed=inputs.seed + i,
-                              speed_drift=inputs.speed_drift)
+                              speed_drift=inputs.speed_drift, archive_seed=inputs.seed)
         res = inputs.resources_by_profile.get(m.profile, inputs.resources)
         options.append(evaluate_option(est, res, inputs.goals, scaling=_scaling_for(inputs, m),
                                        accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction,
@@ -330,6 +355,7 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
         ctcs = [m for m in models if m.profile == prof and m.kind == "ctc"]
         cross += [crossover(s, c) for s in seqs for c in ctcs]
     warnings = list(dict.fromkeys(w for o in options for w in o.row["warnings"]))
+    warnings += sample_differences(models, inputs.archive)
     if inputs.goals.budget is not None:
         for o in options:
             if o.row["meets_budget"] is None and (o.row["unpriced"] or o.row["unknown"]):

@@ -100,7 +100,7 @@ SPEED_DRIFT = 0.08
 
 
 def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, seed: int = 0,
-                    pools: int = 20, speed_drift: float = SPEED_DRIFT) -> SerialEstimate:
+                    pools: int = 20, speed_drift: float = SPEED_DRIFT, archive_seed: int | None = None) -> SerialEstimate:
     """Monte Carlo of the archive's one-worker time for one recogniser.
 
     Each draw uses one bootstrap refit of the cost model, one simulated pool of
@@ -113,11 +113,14 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
     calibration and a run that the calibration cannot see; :data:`SPEED_DRIFT`).
     """
     rng = np.random.default_rng(seed)
+    # The archive's randomness (which pages, lines and characters) has its own stream: recognisers planned
+    # with the same archive_seed plan the same pages, so their characters and errors per CER agree.
+    prng = np.random.default_rng(seed if archive_seed is None else archive_seed)
     n_pools = max(1, min(pools, draws))
     pool_list: list[PagePool] = []
     for k in range(n_pools):
         wf = model.width if (k == 0 or model.width is None) else model.width.resampled(rng)
-        pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf))
+        pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf, page_rng=prng))
     serial = np.empty(draws)
     chars = np.empty(draws)
     lines = np.empty(draws)
@@ -129,11 +132,11 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
         C = pool.n_chars.astype(float)
         L = pool.n_lines.astype(float)
         if N <= 5000:
-            idx = rng.integers(0, len(T), size=N)
+            idx = prng.integers(0, len(T), size=N)
             s, c, l = T[idx].sum(), C[idx].sum(), L[idx].sum()
             nb = int(pool.n_batches[idx].sum())
         else:
-            z = rng.standard_normal(3)
+            z = np.array([rng.standard_normal(), *prng.standard_normal(2)])
             s = N * T.mean() + math.sqrt(N) * T.std() * z[0]
             c = N * C.mean() + math.sqrt(N) * C.std() * z[1]
             l = N * L.mean() + math.sqrt(N) * L.std() * z[2]

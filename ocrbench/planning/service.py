@@ -35,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from ocrbench.errors import InputError, PlanError
-from ocrbench.planning.archive import Archive
+from ocrbench.planning.archive import Archive, with_shared_characters
 from ocrbench.planning.costmodel import CostModel
 from ocrbench.planning.decide import PlanInputs, make_plan
 from ocrbench.planning.estimate import AccuracyInput, Goals, Resources, estimate_serial, evaluate_option
@@ -181,7 +181,8 @@ def _archive(req: PlanRequest, models: Sequence[CostModel], ctx: ReportContext |
         say(f"segmenting a sample of {req.sample}")
         archive, failures = describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
                                             seed=req.seed, split_gaps=[m.split_gap for m in models])
-        return archive, failures, None
+        archive, note = with_shared_characters(archive, models)
+        return archive, failures, note
     if req.archive_store is not None:
         return Archive.from_store_frames(read_store_frames(req.archive_store), n_pages=req.pages), [], None
     if req.pages is None:
@@ -296,7 +297,8 @@ def _curve(result: PlanResult, req: PlanRequest, max_workers: int) -> tuple[list
     inputs = result.inputs
     curve, axis = [], set()
     for i, m in enumerate(result.models):
-        est = estimate_serial(m, inputs.archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift)
+        est = estimate_serial(m, inputs.archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift,
+                              archive_seed=req.seed)
         sc = inputs.scaling.get(f"{m.profile}/{m.recogniser}") or inputs.scaling.get(m.recogniser)
         base = inputs.resources_by_profile.get(m.profile, inputs.resources)
         cores = int(m.host.get("cores") or 1) // int(base.threads or m.threads or 1)
