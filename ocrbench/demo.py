@@ -62,6 +62,7 @@ class DemoArchive:
     price_core_hour: float = 0.05
     seconds_per_error: float = 10.0
     correction_price_hour: float = 18.0
+    correctors: int = 50                  # invented: a large transcription team, each 37.5 hours a week
 
     def layout(self, workers: int | None = None, *, cores: int | None = None) -> tuple[int, int]:
         """(workers per machine, machines) for ``workers`` on machines like this one: as many per machine as
@@ -77,7 +78,7 @@ class DemoArchive:
         return PlanRequest(pages=self.pages, deadline=self.deadline, budget=self.budget, workers=per,
                            machines=machines, threads=1, price_core_hour=self.price_core_hour,
                            seconds_per_error=self.seconds_per_error, correction_price_hour=self.correction_price_hour,
-                           draws=draws, seed=seed)
+                           correctors=self.correctors, currency=self.currency, draws=draws, seed=seed)
 
 
 @dataclass

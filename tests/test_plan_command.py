@@ -93,12 +93,15 @@ def test_plan_json_from_a_run_store(calibrated):
                   "correction_hours", "meets_deadline"):
             assert k in r
         assert r["wall_seconds_p10"] <= r["wall_seconds_p50"] <= r["wall_seconds_p90"]
-        # one worker x one thread: core-hours = wall-hours; cost = core-hours x 0.10 (by hand)
+        # one worker x one thread: core-hours = wall-hours; compute cost = core-hours x 0.10 (by hand)
         assert r["core_hours"] == pytest.approx(r["wall_seconds_p50"] / 3600, rel=1e-12)
-        assert r["cost"] == pytest.approx(r["core_hours"] * 0.10, rel=1e-12)
+        assert r["compute_cost"] == pytest.approx(r["core_hours"] * 0.10, rel=1e-12)
         assert r["deadline_seconds"] == dt.timedelta(hours=1).total_seconds()   # datetime as reference
-        assert r["meets_deadline"] == (r["wall_seconds_p90"] <= 3600)
+        assert r["recognition_meets_deadline"] == (r["wall_seconds_p90"] <= 3600)
         assert r["correction_hours"] is None          # no CER given: not guessed
+        # ... so the people's part is unknown and unpriced: no total, and the deadline not judged "yes"
+        assert r["cost"] is None and r["unknown"] and r["unpriced"]
+        assert r["meets_deadline"] in (None, False) and r["meets_deadline"] is not True
     assert any("250x the 4 calibration pages" in w for w in doc["warnings"])
     assert doc["recommendation"]["text"]
     # the Python API gives the same plan as a DataFrame
@@ -274,3 +277,60 @@ def test_scaling_two_workers_on_the_real_runner(calibrated):
     fit = ScalingFit(df[["workers", "threads", "pages_per_second"]])
     s = fit.serial_fraction(1)
     assert s is not None and 0.0 <= s <= 1.0
+
+
+@pytest.mark.slow
+def test_measure_scaling_and_tune_on_the_real_runner(calibrated, tmp_path):
+    """measure-scaling: process start, intervals, no negative time; tune: the fastest of a bounded grid is kept
+    in the store and the plan then ranks its worker counts."""
+    d, _ = calibrated
+    store = tmp_path / "m.sqlite"
+    res = cli.invoke(app, ["measure-scaling", str(d / "pages"), "-r", str(d / "ctc"), "--store", str(store),
+                           "--workers", "2", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    rows = doc["scaling"]
+    assert [r["workers"] for r in rows] == [1, 2]
+    for r in rows:
+        assert r["process_start_seconds"] > 0 and r["startup_seconds"] > 0
+        assert r["idle_seconds_per_page"] >= 0 and r["overlap_seconds_per_page"] >= 0
+    assert rows[1]["speedup_low"] <= rows[1]["speedup_high"]
+    assert len(doc["explanations"]) == (rows[1]["speedup"] < 1)
+    back = planio.load_scaling(store)
+    assert json.loads(back["host_json"].iloc[0])["process_start_seconds"] == pytest.approx(
+        rows[0]["process_start_seconds"])
+
+    tuned = tmp_path / "t.sqlite"
+    res = cli.invoke(app, ["tune", str(d / "pages"), "-r", str(d / "ctc"), "--store", str(tuned), "--threads", "1",
+                           "--batch-sizes", "4,8", "--workers", "1,2", "--pages", "2", "--max-seconds", "120",
+                           "--json"])
+    assert res.exit_code == 0, res.output
+    t = json.loads(res.stdout)
+    timed = [g for g in t["grid"] if g["pages_per_second"]]
+    assert t["best"]["pages_per_second"] == max(g["pages_per_second"] for g in timed)
+    res = cli.invoke(app, ["plan", "-c", str(tuned), "--pages", "100", "--lines-per-page", "5-10",
+                           "--chars-per-line", "20-30", "--workers", "2", "--review", "none", "--draws", "100",
+                           "--json"])
+    assert res.exit_code == 0, res.output
+    plan = json.loads(res.stdout)
+    ranked = [c for c in plan["configurations"] if c["rank"]]
+    assert ranked and {c["workers"] for c in plan["configurations"]} == {1, 2}
+    assert plan["recognisers"][0]["process_start_seconds"] > 0
+
+
+def test_one_archive_description_for_every_recogniser_and_a_warning_when_unlike(calibrated, tmp_path):
+    """A sample folder gives both recognisers the same characters; pages unlike the calibration's are named."""
+    d, _ = calibrated
+    for i in range(3):       # larger type, more lines: unlike the 500-px calibration pages
+        synth.write_page(tmp_path / "s", f"s{i}", synth.PageSpec(seed=20 + i, lines_per_page=20, width=1100,
+                                                                 font_size=34), "png")
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--sample", str(tmp_path / "s"), "--pages", "500",
+                           "--review", "none", "--draws", "100", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    chars = {r["recogniser"]: r["characters"] for r in doc["recognisers"]}
+    assert len(chars) == 2 and len(set(chars.values())) == 1          # one archive, whatever the recogniser
+    assert any("estimated once for every recogniser" in a for a in doc["assumptions"])
+    unlike = [w for w in doc["warnings"] if "differs from the calibration pages'" in w]
+    assert any("line height" in w for w in unlike) and any("page size" in w for w in unlike)
+    assert all("%" in w for w in unlike)

@@ -282,8 +282,11 @@ def test_cost_arithmetic_hand_worked():
       page = 0.13340544 s; 1,000 pages = 133.40544 s on one worker.
     Two workers with a measured speed-up of 1.8: wall = 0.4 + 133.40544/1.8 = 74.5141333 s.
     Core-hours = 74.5141333/3600 * 2 = 0.0413967407; at 0.12 per core-hour: 0.00496760889.
-    Characters 1,000*24*40 = 960,000; CER 0.02 -> 19,200 errors; 10 s each -> 53.333 h;
-    at 20 per hour 1,066.6667; with compute: 1,066.6716. Upper CER 0.03 -> 80 h -> 1,600.0050.
+    Characters 1,000*24*40 = 960,000; CER 0.02 -> 19,200 errors; 10 s each -> 53.333 h of correction.
+    Full review (every line read at 4 s per line + 1 s per 10 characters, the rate of `ocrbench review`):
+    24,000 lines * 4 s + 960,000 / 10 s = 192,000 s = 53.333 h of reading. People: 106.667 h,
+    at 20 per hour 2,133.3333; with compute: 2,133.3383. Upper CER 0.03 -> 80 h + 53.333 h = 133.333 h
+    -> 2,666.6667 + 0.0049676 = 2,666.6716 (within the budget of 3,000).
     """
     frames = calibrate(noise=0.0, width_noise=0, kinds=("ctc",))
     m = fit_cost_model(frames, "demo-ctc", n_boot=10)
@@ -291,7 +294,7 @@ def test_cost_arithmetic_hand_worked():
     sc = ScalingFit(pd.DataFrame({"workers": [1, 2], "threads": [1, 1], "pages_per_second": [1.0, 1.8]}))
     inputs = PlanInputs(
         archive=archive, resources=Resources(workers=2, price_core_hour=0.12),
-        goals=Goals(deadline_s=60.0, budget=2000.0),
+        goals=Goals(deadline_s=60.0, budget=3000.0),
         correction=Correction(seconds_per_error=10.0, price_hour=20.0),
         accuracy={"demo-ctc": AccuracyInput(0.02, 0.015, 0.03)}, scaling={"demo-ctc": sc}, draws=50,
         speed_drift=0.0)                                   # exact figures: no machine drift in the draws
@@ -305,8 +308,13 @@ def test_cost_arithmetic_hand_worked():
     assert r["characters"] == 960_000
     assert r["char_errors"] == pytest.approx(19_200) and r["char_errors_high"] == pytest.approx(28_800)
     assert r["correction_hours"] == pytest.approx(53.333333, rel=1e-6)
-    assert r["cost"] == pytest.approx(1066.6716, rel=1e-6)
-    assert r["cost_high"] == pytest.approx(1600.0050, rel=1e-6)
+    assert r["review_hours"] == pytest.approx(53.333333, rel=1e-6)
+    assert r["people_hours"] == pytest.approx(106.666667, rel=1e-6)
+    assert r["cost"] == pytest.approx(2133.3383, rel=1e-6)
+    assert r["cost_high"] == pytest.approx(2666.6716, rel=1e-6)
+    # the shares of the total: compute 0.0049676 / 2133.3383, people the rest
+    assert r["compute_share"] == pytest.approx(0.00496760889 / 2133.3383, rel=1e-5)
+    assert r["people_share"] == pytest.approx(2133.3333 / 2133.3383, rel=1e-6)
     assert bool(r["meets_budget"]) is True and bool(r["meets_deadline"]) is False
     # Two workers is all 2 cores allow; the smallest change is a second machine:
     # 0.4 + 133.40544 / 3.6 = 37.457 s <= 60 s.

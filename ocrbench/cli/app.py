@@ -98,8 +98,8 @@ def guarded(fn: Callable) -> Callable:
 
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
-from ocrbench.cli import (balance, demo, export, pages, plan, postprocess,  # noqa: E402
-                          report, review, run, score)
+from ocrbench.cli import (balance, demo, export, measure, pages, plan, postprocess,  # noqa: E402
+                          report, review, run, score, tune)
 
 COMMANDS = [
     ("pages", pages.pages_command),
@@ -109,7 +109,8 @@ COMMANDS = [
     ("balance", balance.balance),
     ("plan", plan.plan),
     ("report", report.report),
-    ("measure-scaling", plan.measure_scaling_cmd),
+    ("measure-scaling", measure.measure_scaling_cmd),
+    ("tune", tune.tune_cmd),
     ("postprocess", postprocess.postprocess),
     ("export", export.export_cmd),
     ("demo", demo.demo),

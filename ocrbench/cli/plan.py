@@ -1,4 +1,4 @@
-"""``ocrbench plan``: how long, how much and how many corrections a whole archive would take, per recogniser.
+"""``ocrbench plan``: how long, how much, how many people and corrections a whole archive would take.
 
 The cost model is fitted on a calibration store (pages recognised and timed on
 this machine, or on another machine whose store is given); the archive is
@@ -8,130 +8,103 @@ numbers. The plan file format is printed by ``ocrbench plan --plan-format``.
 
 from __future__ import annotations
 
+from enum import Enum
 from pathlib import Path
 from typing import Optional
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError
 
 
-def _money(v) -> str:
-    return "-" if v is None else (f"{v:,.2f}" if abs(v) >= 0.01 or v == 0 else f"{v:.2g}")
-
-
-def _amount(v) -> str:
-    """A quantity with sensible precision: 12,345 / 123.4 / 1.23 / 0.00123."""
-    if v is None:
-        return "-"
-    a = abs(v)
-    return f"{v:,.0f}" if a >= 1000 else f"{v:.1f}" if a >= 10 else f"{v:.3g}"
-
-
-def _num(v, spec=",.0f") -> str:
-    return "-" if v is None else format(v, spec)
-
-
-def _yes(v) -> str:
-    return "-" if v is None else ("yes" if v else "NO")
+class ReviewMode(str, Enum):
+    full = "full"
+    targeted = "targeted"
+    none = "none"
 
 
 def render(table, console: Console) -> None:
     """The side-by-side table and the plan's statements, for people."""
-    from ocrbench.planning.numerics import format_duration
+    from ocrbench.planning.present import statements, table_lines
 
-    rows = table.to_dict(orient="records")
+    heads, lines = table_lines(table)
     t = Table(title="Archive plan", show_lines=False)
     t.add_column("")
-    for r in rows:
-        t.add_column(f"{r['recogniser']} ({r['kind']})\n{r['profile']}", justify="right")
-
-    def line(label, fn):
-        t.add_row(label, *[fn(r) for r in rows])
-
-    line("pages", lambda r: _num(r["pages"]))
-    line("characters (P50)", lambda r: _num(r["characters"]))
-    line("resources", lambda r: f"{r['machines']} x {r['workers']} workers x {r['threads']} threads")
-    line("wall-clock P10", lambda r: format_duration(r["wall_seconds_p10"]))
-    line("wall-clock P50", lambda r: format_duration(r["wall_seconds_p50"]))
-    line("wall-clock P90", lambda r: format_duration(r["wall_seconds_p90"]))
-    line("core-hours (P50 / P90)", lambda r: f"{_amount(r['core_hours'])} / {_amount(r['core_hours_p90'])}")
-    line("compute cost (P50 / P90)", lambda r: f"{_money(r['compute_cost'])} / {_money(r['compute_cost_p90'])}")
-    line("CER (95% interval)", lambda r: "-" if r["cer"] is None else
-         f"{100 * r['cer']:.2f}% ({100 * r['cer_low']:.2f}-{100 * r['cer_high']:.2f})")
-    line("character errors", lambda r: "-" if r["char_errors"] is None else
-         f"{r['char_errors']:,.0f} ({r['char_errors_low']:,.0f}-{r['char_errors_high']:,.0f})")
-    line("correction hours", lambda r: "-" if r["correction_hours"] is None else
-         f"{_amount(r['correction_hours'])} ({_amount(r['correction_hours_low'])}-"
-         f"{_amount(r['correction_hours_high'])})")
-    line("total cost (P50 / high)", lambda r: f"{_money(r['cost'])} / {_money(r['cost_high'])}")
-    line("meets deadline (P90)", lambda r: _yes(r["meets_deadline"]) + (
-        "" if r["p_meets_deadline"] is None else f" ({100 * r['p_meets_deadline']:.0f}%)"))
-    line("meets budget", lambda r: _yes(r["meets_budget"]))
-    line("ground truth to transcribe", lambda r: "-" if r.get("gt_sample_pages") is None else
-         f"{r['gt_sample_pages']:,} pages")
-    line("fit R² batch / page", lambda r: f"{r['fit_r2_batch']:.3f} / {r['fit_r2_page']:.3f}")
-    line("extrapolated", lambda r: "yes" if r["extrapolated"] else "no")
+    for h in heads:
+        t.add_column(escape(h), justify="right")
+    for label, cells in lines:
+        t.add_row(escape(label), *[escape(c) for c in cells])
     console.print(t)
-    rec = table.attrs.get("recommendation") or {}
-    if rec.get("text"):
-        console.print(f"[bold]Choice:[/bold] {rec['text']}")
-    for c in table.attrs.get("crossover", []):
-        console.print(f"[bold]Crossover:[/bold] {c['text']}")
-    margin = table.attrs.get("cer_margin")
-    for name, s in (table.attrs.get("sample_sizes") or {}).items():
-        if s.get("pages"):
-            console.print(f"[bold]Ground truth:[/bold] {name}: transcribe {s['pages']:,} pages"
-                          + (f" (~{s['lines']:,} lines)" if s.get("lines") else "")
-                          + f" for a CER interval of ±{100 * margin:.2g} points")
-    for w in table.attrs.get("warnings", []):
-        console.print(f"[yellow]warning:[/yellow] {w}")
-    for a in table.attrs.get("assumptions", []):
-        console.print(f"[dim]assumption: {a}[/dim]")
+    style = {"warning": "[yellow]warning:[/yellow] ", "assumption": "[dim]assumption: "}
+    for kind, text in statements(table):
+        head = style.get(kind, f"[bold]{kind}:[/bold] ")
+        console.print(head + escape(text) + ("[/dim]" if kind == "assumption" else ""))
 
 
+def _o(default, *flags, **kw):
+    return typer.Option(default, *flags, **kw)
+
+
+# Over 80 lines because the signature is the command's option list (one option per line or two, as
+# typer reads it); the body itself is about 30 lines.
 def plan(
-    calibration: list[str] = typer.Option([], "--calibration", "-c",
-                                          help="A calibration run store (repeat for other machines; "
-                                               "NAME=STORE names the machine profile)."),
-    plan_file: Optional[Path] = typer.Option(None, "--plan", help="A plan file (TOML); options given here win."),
-    plan_format: bool = typer.Option(False, "--plan-format", help="Print the plan file format and exit."),
-    recogniser: list[str] = typer.Option([], "--recogniser", "-r", help="Plan only these recognisers (names)."),
-    sample: Optional[Path] = typer.Option(None, "--sample", help="A folder of sample pages (segmented only)."),
-    sample_pages: Optional[int] = typer.Option(None, "--sample-pages", min=1,
-                                               help="Pages of the sample folder to segment (default 20)."),
-    archive_store: Optional[Path] = typer.Option(None, "--archive-store",
-                                                 help="Describe the archive by an earlier run store's pages."),
-    pages: Optional[int] = typer.Option(None, "--pages", min=1, help="Pages in the archive."),
-    lines_per_page: Optional[str] = typer.Option(None, "--lines-per-page", help="N or A-B (uniform)."),
-    chars_per_line: Optional[str] = typer.Option(None, "--chars-per-line", help="N or A-B (uniform)."),
-    page_size: Optional[str] = typer.Option(None, "--page-size", help="WIDTHxHEIGHT pixels of a page."),
-    workers: Optional[int] = typer.Option(None, "--workers", min=1, help="Worker processes per machine."),
-    threads: Optional[int] = typer.Option(None, "--threads", min=1, help="Intra-op threads per worker."),
-    machines: Optional[int] = typer.Option(None, "--machines", min=1, help="Machines of this profile."),
-    deadline: Optional[str] = typer.Option(None, "--deadline", help="e.g. 6w, 42d, 1000h."),
-    budget: Optional[float] = typer.Option(None, "--budget", min=0, help="Money available (compute + correction)."),
-    price_core_hour: Optional[float] = typer.Option(None, "--price-core-hour", min=0),
-    price_machine_hour: Optional[float] = typer.Option(None, "--price-machine-hour", min=0),
-    seconds_per_error: Optional[float] = typer.Option(None, "--seconds-per-error", min=0,
-                                                      help="Correction time per character error (default 10 s)."),
-    correction_price_hour: Optional[float] = typer.Option(None, "--price-correction-hour", min=0,
-                                                          help="Cost of an hour of correction."),
-    truth: Optional[Path] = typer.Option(None, "--truth", help="Ground truth of the calibration pages (for CER)."),
-    cer_margin: Optional[float] = typer.Option(None, "--cer-margin", min=0,
-                                               help="Wanted half-width of the CER interval (default 0.005)."),
-    draws: Optional[int] = typer.Option(None, "--draws", min=50, help="Monte Carlo draws (default 2000)."),
-    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed of the simulation."),
-    speed_drift: Optional[float] = typer.Option(None, "--speed-drift", min=0.0, max=0.99,
-                                                help="How much the machine's speed may differ between calibration "
-                                                     "and run, as a coefficient of variation (default 0.08, "
-                                                     "measured on a shared virtual machine; 0 for a dedicated one)."),
-    as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
+    calibration: list[str] = _o([], "--calibration", "-c", help="A calibration run store (repeat for other "
+                                "machines; NAME=STORE names the machine profile)."),
+    plan_file: Optional[Path] = _o(None, "--plan", help="A plan file (TOML); options given here win."),
+    plan_format: bool = _o(False, "--plan-format", help="Print the plan file format and exit."),
+    recogniser: list[str] = _o([], "--recogniser", "-r", help="Plan only these recognisers (names)."),
+    sample: Optional[Path] = _o(None, "--sample", help="A folder of sample pages (segmented only)."),
+    sample_pages: Optional[int] = _o(None, "--sample-pages", min=1, help="Pages of the sample to segment (20)."),
+    archive_store: Optional[Path] = _o(None, "--archive-store", help="Describe the archive by a run store's pages."),
+    pages: Optional[int] = _o(None, "--pages", min=1, help="Pages in the archive."),
+    lines_per_page: Optional[str] = _o(None, "--lines-per-page", help="N or A-B (uniform)."),
+    chars_per_line: Optional[str] = _o(None, "--chars-per-line", help="N or A-B (uniform)."),
+    page_size: Optional[str] = _o(None, "--page-size", help="WIDTHxHEIGHT pixels of a page."),
+    workers: Optional[int] = _o(None, "--workers", min=1, help="Worker processes per machine."),
+    threads: Optional[int] = _o(None, "--threads", min=1, help="Intra-op threads per worker."),
+    machines: Optional[int] = _o(None, "--machines", min=1, help="Machines of this profile."),
+    pages_per_job: Optional[int] = _o(None, "--pages-per-job", min=1,
+                                      help="Split the archive into jobs of this many pages (each starts anew)."),
+    deadline: Optional[str] = _o(None, "--deadline", help="e.g. 6w, 42d, 1000h."),
+    budget: Optional[float] = _o(None, "--budget", min=0, help="Money available (compute + people)."),
+    currency: Optional[str] = _o(None, "--currency", help="ISO 4217 code of every amount (e.g. GBP, EUR)."),
+    price_core_hour: Optional[float] = _o(None, "--price-core-hour", min=0),
+    price_machine_hour: Optional[float] = _o(None, "--price-machine-hour", min=0),
+    review: Optional[ReviewMode] = _o(None, "--review", help="Who reads the text: every line (full, default), "
+                                      "the queue's most doubtful lines (targeted) or nobody (none)."),
+    seconds_per_error: Optional[float] = _o(None, "--seconds-per-error", min=0,
+                                            help="Correction time per character error (default 10 s)."),
+    seconds_per_line: Optional[float] = _o(None, "--seconds-per-line", min=0,
+                                           help="Reading: seconds per line (default 4, as `ocrbench review`)."),
+    chars_per_second: Optional[float] = _o(None, "--chars-per-second", min=0.1,
+                                           help="Reading: characters compared per second (default 10)."),
+    review_share: Optional[float] = _o(None, "--review-share", min=0, max=1,
+                                       help="Targeted: share of lines read (default 0.1)."),
+    catch_rate: Optional[float] = _o(None, "--catch-rate", min=0, max=1, help="Targeted: share of errors in "
+                                     "the lines read (`ocrbench review --truth`)."),
+    correctors: Optional[int] = _o(None, "--correctors", min=1, help="People correcting (default: the plan "
+                                   "says how many the deadline needs)."),
+    corrector_hours: Optional[float] = _o(None, "--corrector-hours-per-week", min=0.1, max=168,
+                                          help="Hours each corrector corrects a week (default 37.5)."),
+    correction_price_hour: Optional[float] = _o(None, "--price-correction-hour", min=0,
+                                                help="Cost of an hour of review or correction."),
+    truth: Optional[Path] = _o(None, "--truth", help="Ground truth of the calibration pages (for CER)."),
+    cer_margin: Optional[float] = _o(None, "--cer-margin", min=0, help="Absolute half-width of the CER interval "
+                                     "wanted from ground truth (instead of the relative margin)."),
+    cer_relative: Optional[float] = _o(None, "--cer-relative-margin", min=0.001,
+                                       help="Half-width of the CER interval relative to the CER (default 0.2)."),
+    draws: Optional[int] = _o(None, "--draws", min=50, help="Monte Carlo draws (default 2000)."),
+    seed: Optional[int] = _o(None, "--seed", help="Random seed of the simulation."),
+    speed_drift: Optional[float] = _o(None, "--speed-drift", min=0.0, max=0.99,
+                                      help="Machine speed spread between calibration and run (coefficient of "
+                                           "variation; default 0.08, measured on a shared virtual machine)."),
+    as_json: bool = _o(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
-    """Plan an archive: wall-clock P10/P50/P90, core-hours, money, correction hours, deadline and budget fit."""
+    """Plan an archive: wall-clock P10/P50/P90, money, people's hours, deadline and budget fit, configurations."""
     from ocrbench.planning import inputs as planio
     from ocrbench.planning import service
 
@@ -146,10 +119,14 @@ def plan(
             "sample_pages": sample_pages, "archive_store": archive_store, "pages": pages,
             "lines_per_page": lines_per_page, "chars_per_line": chars_per_line,
             "page_size": planio.parse_page_size(page_size), "workers": workers, "threads": threads,
-            "machines": machines, "deadline": deadline, "budget": budget, "price_core_hour": price_core_hour,
-            "price_machine_hour": price_machine_hour, "seconds_per_error": seconds_per_error,
-            "correction_price_hour": correction_price_hour, "truth": truth, "cer_margin": cer_margin,
-            "draws": draws, "seed": seed, "speed_drift": speed_drift})
+            "machines": machines, "pages_per_job": pages_per_job, "deadline": deadline, "budget": budget,
+            "currency": currency, "price_core_hour": price_core_hour, "price_machine_hour": price_machine_hour,
+            "review": review.value if review else None, "seconds_per_error": seconds_per_error,
+            "seconds_per_line": seconds_per_line, "chars_per_second": chars_per_second,
+            "review_share": review_share, "catch_rate": catch_rate, "correctors": correctors,
+            "corrector_hours_per_week": corrector_hours, "correction_price_hour": correction_price_hour,
+            "truth": truth, "cer_margin": cer_margin, "cer_relative_margin": cer_relative, "draws": draws,
+            "seed": seed, "speed_drift": speed_drift})
         with err.status("planning") as status:
             result = service.plan(req, progress=lambda m: status.update(m))
     except OcrbenchError as e:
@@ -161,61 +138,8 @@ def plan(
     else:
         render(result.table, Console())
     for p, e in result.sample_failures:
-        err.print(f"ocrbench: {p}: {e}")
+        err.print(f"ocrbench: {p}: {e}", markup=False)
     if result.sample_failures:
         err.print(f"ocrbench: {len(result.sample_failures)} sample page(s) could not be segmented (listed above)")
         raise typer.Exit(EXIT_SOME_FAILED)
-    raise typer.Exit(EXIT_OK)
-
-
-def measure_scaling_cmd(
-    target: Path = typer.Argument(..., help="A folder of calibration pages."),
-    recogniser: list[Path] = typer.Option(..., "--recogniser", "-r", help="A recogniser card; repeat for more."),
-    store: Path = typer.Option(..., "--store", help="The calibration store: the timed run and the throughput "
-                                                    "table are added to it."),
-    workers: int = typer.Option(1, "--workers", min=1, help="Measure 1..K worker processes."),
-    threads: int = typer.Option(1, "--threads", min=1, help="Intra-op threads per worker."),
-    batch_size: int = typer.Option(16, "--batch-size", min=1, help="Lines per model batch (as 'ocrbench run "
-                                                                  "--batch-size')."),
-    as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
-) -> None:
-    """Time a run of each recogniser on TARGET (start-up, pages/s) and, with --workers K, 2..K workers too."""
-    import pandas as pd
-
-    from ocrbench.planning import inputs as planio
-    from ocrbench.planning.service import json_dumps
-    from ocrbench.recognisers.base import EngineOptions
-    from ocrbench.run.measure import measure_scaling, measure_session
-
-    err = Console(stderr=True)
-    rows = []
-    try:
-        for card in recogniser:
-            with err.status(f"timing {card} on one worker"):
-                one = measure_session(target, card, store=store,
-                                      options=EngineOptions(intra_threads=threads, batch_size=batch_size))
-            rows.append(one)
-            if workers > 1:
-                with err.status(f"timing {card} on 2..{workers} workers"):
-                    more = measure_scaling(target, card, workers=range(2, workers + 1), threads=threads,
-                                           batch_size=batch_size)
-                rows += more.drop(columns=["speedup"]).to_dict(orient="records")
-        df = pd.DataFrame(rows)
-        planio.save_scaling(store, df)
-    except OcrbenchError as e:
-        raise fail(str(e), EXIT_USAGE)
-    df["speedup"] = df["pages_per_second"] / df.groupby("recogniser")["pages_per_second"].transform("first")
-    cols = ["recogniser", "workers", "threads", "pages", "pages_per_second", "speedup", "startup_seconds",
-            "gap_seconds_per_page"]
-    if as_json:
-        rec = df[cols].astype(object).where(df[cols].notna(), None).to_dict(orient="records")
-        typer.echo(json_dumps({"scaling": rec}))
-        raise typer.Exit(EXIT_OK)
-    t = Table(title=f"Throughput on this machine (saved in {store})")
-    heads = ["recogniser", "workers", "threads", "pages", "pages/s", "speed-up", "start-up s", "gap s/page"]
-    for h in heads:
-        t.add_column(h, justify="left" if h == "recogniser" else "right")
-    for r in df[cols].to_dict(orient="records"):
-        t.add_row(*[f"{v:.3g}" if isinstance(v, float) else str(v) for v in r.values()])
-    Console().print(t)
     raise typer.Exit(EXIT_OK)

@@ -8,15 +8,16 @@ runner would and sums the cost model's features per page.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Mapping
+from dataclasses import dataclass, replace
+from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
 from ocrbench.errors import PlanError
 from ocrbench.planning.costmodel import (COEF_NAMES, DEFAULT_MAX_WIDTH, DEFAULT_MIN_WIDTH, N_BATCH, N_PAGE,
-                                         CostModel, WidthFit, batch_feature_matrix, page_feature_matrix)
+                                         CostModel, WidthFit, batch_feature_matrix, page_feature_matrix,
+                                         page_figures)
 from ocrbench.planning.numerics import parse_range
 from ocrbench.recognisers.preprocess import width_batches
 
@@ -87,6 +88,18 @@ class Archive:
         return cls(n_pages=n_pages or len(sp), source=f"{source} ({len(sp)} pages segmented)",
                    sample_pages=sp.reset_index(drop=True), sample_lines=lines.reset_index(drop=True))
 
+    def figures(self) -> dict[str, float]:
+        """How the archive's pages look (medians), to compare with the calibration pages."""
+        if self.sample_pages is None:
+            mid = lambda r: (r[0] + r[1]) / 2  # noqa: E731
+            px = [self.page_pixels] if self.page_pixels else None
+            return page_figures(None, [mid(self.chars_per_line)], [mid(self.lines_per_page)], px)
+        sl = self.sample_lines
+        n = sl.groupby("page_id").size().reindex(self.sample_pages["page_id"]).fillna(0)
+        heights = sl["crop_h"] if "crop_h" in sl else None
+        chars = sl["n_chars"] if "n_chars" in sl else None
+        return page_figures(heights, chars, n.to_numpy(), self.sample_pages["pixels"])
+
     def describe(self) -> dict:
         d = {"pages": self.n_pages, "source": self.source}
         if self.sample_pages is None:
@@ -129,7 +142,7 @@ def _resized(w, h, height: int) -> np.ndarray:
 
 
 def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k: int,
-                width_fit: WidthFit) -> list[tuple[np.ndarray, np.ndarray, float, list | None]]:
+                width_fit: WidthFit, page_rng: np.random.Generator | None = None) -> list[tuple[np.ndarray, np.ndarray, float, list | None]]:
     """``k`` pages of (line widths, line characters, pixels, pieces) drawn from the archive description.
 
     ``pieces``: per line, the resized widths of the pieces the card cuts it into
@@ -137,6 +150,7 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
     For a card that splits lines, line width is the sum of its pieces.
     """
     out = []
+    prng = page_rng or rng       # the archive's own randomness (which pages, how many lines): shared by recognisers
     if width_fit is None and (archive.sample_pages is None or "n_chars" not in archive.sample_lines):
         model.require_width()
     if archive.sample_pages is None:
@@ -147,14 +161,14 @@ def _page_lines(model: CostModel, archive: Archive, rng: np.random.Generator, k:
         a, b = archive.lines_per_page
         c0, c1 = archive.chars_per_line
         for _ in range(k):
-            n = int(rng.integers(a, b + 1))
-            chars = rng.integers(c0, c1 + 1, size=n)
+            n = int(prng.integers(a, b + 1))
+            chars = prng.integers(c0, c1 + 1, size=n)
             w = np.clip(np.round(width_fit.width(chars, rng)), DEFAULT_MIN_WIDTH, DEFAULT_MAX_WIDTH)
             out.append((w, chars, float(px), None))
         return out
     sl = archive.sample_lines
     groups = {pid: g for pid, g in sl.groupby("page_id", sort=False)}
-    pick = rng.integers(0, len(archive.sample_pages), size=k)
+    pick = prng.integers(0, len(archive.sample_pages), size=k)
     pcol = f"pieces_{model.split_gap:g}"
     for i in pick:
         row = archive.sample_pages.iloc[int(i)]
@@ -226,13 +240,14 @@ def _page_batch_features(widths: np.ndarray, tokens: np.ndarray | None, model: C
 
 
 def simulate_pool(model: CostModel, archive: Archive, *, rng: np.random.Generator,
-                  pages: int | None = None, width_fit: WidthFit | None = None) -> PagePool:
+                  pages: int | None = None, width_fit: WidthFit | None = None,
+                  page_rng: np.random.Generator | None = None) -> PagePool:
     """Make pages as the archive describes them, batch them as the runner would, sum their features."""
     wf = width_fit or model.width
     k = pages or (len(archive.sample_pages) if archive.sample_pages is not None else 200)
     rows, nb, nl, nc, all_w, pix = [], [], [], [], [], []
     pmax = smax = 0.0
-    for w, chars, px, pieces in _page_lines(model, archive, rng, k, wf):
+    for w, chars, px, pieces in _page_lines(model, archive, rng, k, wf, page_rng):
         v = np.zeros(len(COEF_NAMES))
         if len(w):
             uw, ut = batch_units(model, w, chars, pieces, rng)
@@ -253,3 +268,27 @@ def simulate_pool(model: CostModel, archive: Archive, *, rng: np.random.Generato
     return PagePool(X=np.array(rows), n_batches=np.array(nb), n_lines=np.array(nl), n_chars=np.array(nc),
                     max_width=float(widths.max(initial=0.0)), max_padded=pmax, max_steps=smax,
                     widths=widths, pixels=np.array(pix))
+
+
+def with_shared_characters(archive: Archive, models: Sequence[CostModel]) -> tuple[Archive, str | None]:
+    """A segmented sample's characters per line, estimated once for every recogniser.
+
+    A segmented sample has line shapes but no text. Each recogniser's fit of
+    characters on its resized line width gives an estimate; their mean over the
+    recognisers is written into the sample, so every recogniser plans the same
+    characters (and the same errors per CER). Samples that already hold
+    characters (a run store) are returned as they are.
+    """
+    sl = archive.sample_lines
+    if archive.sample_pages is None or sl is None or "n_chars" in sl or not {"crop_w", "crop_h"} <= set(sl):
+        return archive, None
+    fits = [m for m in models if m.width is not None]
+    if not fits:
+        return archive, None
+    est = np.mean([m.width.chars(_resized_width(sl["crop_w"], sl["crop_h"], m.line_height)) for m in fits], axis=0)
+    lines = sl.copy()
+    lines["n_chars"] = np.maximum(1, np.round(est)).astype(np.int64)
+    names = ", ".join(sorted({m.recogniser for m in fits}))
+    note = (f"characters per line of the sample are estimated once for every recogniser from its line shapes "
+            f"(mean of the width-to-characters fits of {names}), so every recogniser plans the same archive")
+    return replace(archive, sample_lines=lines), note

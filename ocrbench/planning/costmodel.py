@@ -26,12 +26,6 @@ from ocrbench.recognisers.preprocess import width_batches
 
 # --------------------------------------------------------------------------- constants
 
-#: Default seconds a person needs per character error (see :class:`Correction`).
-DEFAULT_SECONDS_PER_ERROR = 10.0
-
-#: Default half-width of the CER interval wanted from a ground-truth sample.
-DEFAULT_CER_MARGIN = 0.005
-
 #: The runner's defaults, used when a run's settings do not record them.
 DEFAULT_BATCH_SIZE = 16
 DEFAULT_MAX_PAD_RATIO = 1.3
@@ -327,6 +321,8 @@ class CostModel:
     speed_cv: float = 0.0              # session-to-session spread of the machine's speed (repeated timed sessions)
     split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
+    process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
+    figures: dict = field(default_factory=dict)   # the calibration pages' look (medians), see page_figures
 
     def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per page: batch time, page overhead, and the part of them loading ahead hides."""
@@ -645,6 +641,25 @@ def _width_and_ranges(cal: _Calibration, po: _PageOverhead) -> tuple[WidthFit | 
     return width, ranges, ln, notes
 
 
+def page_figures(line_heights, chars_per_line, lines_per_page, page_pixels) -> dict[str, float]:
+    """How pages look, as medians: what a calibration and an archive sample are compared on."""
+    out = {}
+    for name, v in (("line height (px)", line_heights), ("characters per line", chars_per_line),
+                    ("lines per page", lines_per_page), ("page size (megapixels)", page_pixels)):
+        a = np.asarray(v if v is not None else [], dtype=float)
+        a = a[np.isfinite(a)]
+        if len(a):
+            out[name] = float(np.median(a)) / (1e6 if name.startswith("page size") else 1.0)
+    return out
+
+
+def _calibration_figures(cal: _Calibration, po: _PageOverhead) -> dict[str, float]:
+    ln = cal.lines
+    heights = (ln["y1"] - ln["y0"]).to_numpy(dtype=float) if {"y0", "y1"} <= set(ln.columns) else None
+    return page_figures(heights, ln["n_chars"].to_numpy(dtype=float) if "n_chars" in ln else None, po.lines,
+                        po.pixels)
+
+
 def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
                    run_ids: Sequence[int] | None = None, profile: str | None = None,
                    line_height: int | None = None, width_multiple: int | None = None, split_gap: float = 0.0,
@@ -688,6 +703,8 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         page_resid=page_resid, width=width, ranges=ranges, n_pages=len(cal.pages), n_lines=len(ln),
         n_batches=len(batches), quality=quality, notes=po.notes + bp.notes + w_notes, overlap=bp.overlap,
         speed_cv=bp.speed_cv, split_gap=float(split_gap or 0.0),
+        process_start_s=max(0.0, float((session or {}).get("process_start_seconds") or 0.0)),
+        figures=_calibration_figures(cal, po),
         pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(po.lines.sum()))) if split_gap else 1.0)
 
 

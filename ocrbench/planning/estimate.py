@@ -18,8 +18,9 @@ import numpy as np
 
 from ocrbench.errors import PlanError
 from ocrbench.planning.archive import Archive, PagePool, simulate_pool
-from ocrbench.planning.costmodel import DEFAULT_SECONDS_PER_ERROR, CostModel
+from ocrbench.planning.costmodel import CostModel
 from ocrbench.planning.numerics import ScalingFit
+from ocrbench.planning.people import Correction, both, budget_fit, effort, money, schedule
 
 # --------------------------------------------------------------------------- prediction
 
@@ -99,7 +100,7 @@ SPEED_DRIFT = 0.08
 
 
 def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, seed: int = 0,
-                    pools: int = 20, speed_drift: float = SPEED_DRIFT) -> SerialEstimate:
+                    pools: int = 20, speed_drift: float = SPEED_DRIFT, archive_seed: int | None = None) -> SerialEstimate:
     """Monte Carlo of the archive's one-worker time for one recogniser.
 
     Each draw uses one bootstrap refit of the cost model, one simulated pool of
@@ -112,11 +113,14 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
     calibration and a run that the calibration cannot see; :data:`SPEED_DRIFT`).
     """
     rng = np.random.default_rng(seed)
+    # The archive's randomness (which pages, lines and characters) has its own stream: recognisers planned
+    # with the same archive_seed plan the same pages, so their characters and errors per CER agree.
+    prng = np.random.default_rng(seed if archive_seed is None else archive_seed)
     n_pools = max(1, min(pools, draws))
     pool_list: list[PagePool] = []
     for k in range(n_pools):
         wf = model.width if (k == 0 or model.width is None) else model.width.resampled(rng)
-        pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf))
+        pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf, page_rng=prng))
     serial = np.empty(draws)
     chars = np.empty(draws)
     lines = np.empty(draws)
@@ -128,11 +132,11 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
         C = pool.n_chars.astype(float)
         L = pool.n_lines.astype(float)
         if N <= 5000:
-            idx = rng.integers(0, len(T), size=N)
+            idx = prng.integers(0, len(T), size=N)
             s, c, l = T[idx].sum(), C[idx].sum(), L[idx].sum()
             nb = int(pool.n_batches[idx].sum())
         else:
-            z = rng.standard_normal(3)
+            z = np.array([rng.standard_normal(), *prng.standard_normal(2)])
             s = N * T.mean() + math.sqrt(N) * T.std() * z[0]
             c = N * C.mean() + math.sqrt(N) * C.std() * z[1]
             l = N * L.mean() + math.sqrt(N) * L.std() * z[2]
@@ -164,8 +168,11 @@ class Resources:
     machines: int = 1
     price_core_hour: float | None = None
     price_machine_hour: float | None = None
+    pages_per_job: int | None = None      # None: one job per worker
 
     def __post_init__(self) -> None:
+        if self.pages_per_job is not None and self.pages_per_job < 1:
+            raise PlanError("pages per job must be at least 1")
         if self.workers < 1 or self.machines < 1 or (self.threads is not None and self.threads < 1):
             raise PlanError("workers, threads and machines must be at least 1")
         for p in (self.price_core_hour, self.price_machine_hour):
@@ -177,26 +184,6 @@ class Resources:
 class Goals:
     deadline_s: float | None = None
     budget: float | None = None
-
-
-@dataclass(frozen=True)
-class Correction:
-    """Human correction effort.
-
-    ``seconds_per_error`` defaults to :data:`DEFAULT_SECONDS_PER_ERROR` (10 s).
-    Assumption and its reasoning: the edit itself (look at the error, point,
-    click, retype a character) is about 3-4 s by the keystroke-level model's
-    operator times (mental act 1.35 s, pointing 1.1 s, homing 0.4 s, key
-    presses 0.2-0.3 s; Card, Moran & Newell 1980, from memory), and finding the
-    error by comparing the text with the scan and re-checking the line roughly
-    doubles to triples that; 10 s per error is the round figure in common
-    practice for proof-reading with the image side by side. Measure your own
-    correctors and pass their figure.
-    ``price_hour``: what an hour of correction costs (None: not priced).
-    """
-
-    seconds_per_error: float = DEFAULT_SECONDS_PER_ERROR
-    price_hour: float | None = None
 
 
 @dataclass(frozen=True)
@@ -249,6 +236,10 @@ def _speedup(model: CostModel, res: Resources, scaling: ScalingFit | None) -> tu
         s, note = scaling.speedup(w, threads)
         if note:
             notes.append(f"{model.recogniser}: {note}")
+        slower = scaling.measured_slower(w, threads)
+        if slower is not None:
+            notes.append(f"{model.recogniser}: {w} workers were measured slower than {slower} on {model.profile}; "
+                         f"planned as asked, but {slower} would be faster")
         factor *= s
     if res.machines > 1:
         notes.append(f"{model.recogniser}: {res.machines} machines assumed independent "
@@ -260,17 +251,30 @@ def _pct(a: np.ndarray, q: float) -> float:
     return float(np.percentile(a, q))
 
 
-def evaluate_option(est: SerialEstimate, res: Resources, goals: Goals, *, scaling: ScalingFit | None = None,
-                    accuracy: AccuracyInput | None = None, correction: Correction = Correction(),
-                    sample_size: Mapping | None = None) -> Option:
-    """Wall-clock, core-hours, money, errors and correction for one recogniser on ``res``."""
+def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
+    """Per-job costs outside the pages: process start, model loading and warm-up, paid by every job.
+
+    Without ``pages_per_job`` every worker runs one job (one start each, all in parallel); with it the
+    archive is ``ceil(pages / pages_per_job)`` jobs, run in waves over the workers, each wave starting anew.
+    """
+    per_job = m.process_start_s + m.startup_s
+    total_workers = res.workers * res.machines
+    jobs = math.ceil(n_pages / res.pages_per_job) if res.pages_per_job else total_workers
+    waves = math.ceil(jobs / total_workers)
+    return {"jobs": jobs, "pages_per_job": res.pages_per_job, "process_start_seconds": m.process_start_s,
+            "load_warmup_seconds": m.startup_s, "startup_seconds_per_job": per_job,
+            "startup_seconds": waves * per_job}
+
+
+def _compute_part(est: SerialEstimate, res: Resources, scaling: ScalingFit | None) -> tuple[np.ndarray, dict, list[str]]:
+    """Wall-clock draws, core-hours and compute cost on ``res``."""
     m = est.model
     speed, notes = _speedup(m, res, scaling)
-    wall = m.startup_s + est.serial_s / speed
+    whole = _whole_process(m, res, est.archive.n_pages)
+    wall = whole["startup_seconds"] + np.maximum(est.serial_s, 0.0) / speed
     threads = res.threads or m.threads
     cores = res.workers * threads * res.machines
     w10, w50, w90 = _pct(wall, 10), _pct(wall, 50), _pct(wall, 90)
-    ch50, ch90 = w50 / 3600 * cores, w90 / 3600 * cores
 
     def compute_cost(wall_s: float) -> float | None:
         if res.price_core_hour is not None:
@@ -279,48 +283,58 @@ def evaluate_option(est: SerialEstimate, res: Resources, goals: Goals, *, scalin
             return wall_s / 3600 * res.machines * res.price_machine_hour
         return None
 
-    chars50 = _pct(est.chars, 50)
     row: dict = {
         "recogniser": m.recogniser, "kind": m.kind, "profile": m.profile,
         "cpu_model": m.host.get("cpu_model"), "cores": m.host.get("cores"), "workers": res.workers,
         "threads": threads, "machines": res.machines, "pages": est.archive.n_pages,
-        "lines": _pct(est.lines, 50), "characters": chars50,
+        "lines": _pct(est.lines, 50), "characters": _pct(est.chars, 50),
         "characters_p10": _pct(est.chars, 10), "characters_p90": _pct(est.chars, 90),
-        "wall_seconds_p10": w10, "wall_seconds_p50": w50, "wall_seconds_p90": w90,
-        "core_hours": ch50, "core_hours_p90": ch90,
+        "wall_seconds_p10": w10, "wall_seconds_p50": w50, "wall_seconds_p90": w90, **whole,
+        "core_hours": w50 / 3600 * cores, "core_hours_p90": w90 / 3600 * cores,
         "compute_cost": compute_cost(w50), "compute_cost_p90": compute_cost(w90),
     }
-    if accuracy is not None:
-        errs = (accuracy.cer * chars50, accuracy.cer_low * chars50, accuracy.cer_high * chars50)
-        hours = tuple(e * correction.seconds_per_error / 3600 for e in errs)
-        row |= {"cer": accuracy.cer, "cer_low": accuracy.cer_low, "cer_high": accuracy.cer_high,
-                "char_errors": errs[0], "char_errors_low": errs[1], "char_errors_high": errs[2],
-                "correction_hours": hours[0], "correction_hours_low": hours[1], "correction_hours_high": hours[2]}
-        if correction.price_hour is not None:
-            row["correction_cost"] = hours[0] * correction.price_hour
-            row["correction_cost_high"] = hours[2] * correction.price_hour
-        else:
-            row["correction_cost"] = row["correction_cost_high"] = None
-    else:
-        row |= {k: None for k in ("cer", "cer_low", "cer_high", "char_errors", "char_errors_low",
-                                  "char_errors_high", "correction_hours", "correction_hours_low",
-                                  "correction_hours_high", "correction_cost", "correction_cost_high")}
-    row["seconds_per_error"] = correction.seconds_per_error
-    parts = [row["compute_cost"], row["correction_cost"]]
-    parts_hi = [row["compute_cost_p90"], row["correction_cost_high"]]
-    row["cost"] = None if all(p is None for p in parts) else sum(p for p in parts if p is not None)
-    row["cost_high"] = None if all(p is None for p in parts_hi) else sum(p for p in parts_hi if p is not None)
+    return wall, row, notes
+
+
+def _accuracy_part(accuracy: AccuracyInput | None, chars: float) -> tuple[dict, tuple[float, float, float] | None]:
+    if accuracy is None:
+        return {k: None for k in ("cer", "cer_low", "cer_high", "char_errors", "char_errors_low",
+                                  "char_errors_high")}, None
+    errs = (accuracy.cer * chars, accuracy.cer_low * chars, accuracy.cer_high * chars)
+    return {"cer": accuracy.cer, "cer_low": accuracy.cer_low, "cer_high": accuracy.cer_high,
+            "char_errors": errs[0], "char_errors_low": errs[1], "char_errors_high": errs[2]}, errs
+
+
+def _goals_part(row: dict, wall: np.ndarray, goals: Goals) -> dict:
+    """Deadline (recognition and correction both) and budget."""
+    out: dict = {"deadline_seconds": goals.deadline_s, "budget": goals.budget}
     if goals.deadline_s is not None:
-        row["deadline_seconds"] = goals.deadline_s
-        row["meets_deadline"] = bool(w90 <= goals.deadline_s)
-        row["p_meets_deadline"] = float((wall <= goals.deadline_s).mean())
+        rec_ok = bool(row["wall_seconds_p90"] <= goals.deadline_s)
+        people_ok = row["correction_meets_deadline"]
+        out["recognition_meets_deadline"] = rec_ok
+        out["meets_deadline"] = both(rec_ok, people_ok)
+        p = float((wall <= goals.deadline_s).mean())
+        out["p_meets_deadline"] = p if people_ok is True else (0.0 if people_ok is False else None)
+        out["p_recognition_meets_deadline"] = p
     else:
-        row["deadline_seconds"] = row["meets_deadline"] = row["p_meets_deadline"] = None
-    if goals.budget is not None:
-        row["budget"] = goals.budget
-        row["meets_budget"] = None if row["cost_high"] is None else bool(row["cost_high"] <= goals.budget)
-    else:
-        row["budget"] = row["meets_budget"] = None
+        out |= {k: None for k in ("recognition_meets_deadline", "meets_deadline", "p_meets_deadline",
+                                  "p_recognition_meets_deadline")}
+    out["meets_budget"] = budget_fit(row, goals.budget)
+    return out
+
+
+def evaluate_option(est: SerialEstimate, res: Resources, goals: Goals, *, scaling: ScalingFit | None = None,
+                    accuracy: AccuracyInput | None = None, correction: Correction = Correction(),
+                    sample_size: Mapping | None = None) -> Option:
+    """Wall-clock, core-hours, money, errors, people's hours and the goals for one recogniser on ``res``."""
+    m = est.model
+    wall, row, notes = _compute_part(est, res, scaling)
+    acc, errs = _accuracy_part(accuracy, row["characters"])
+    row |= acc
+    row |= effort(correction, row["lines"], row["characters"], errs)
+    row |= schedule(correction, row["people_hours_high"], goals.deadline_s)
+    row |= money((row["compute_cost"], row["compute_cost_p90"]), row, correction.price_hour)
+    row |= _goals_part(row, wall, goals)
     q = m.batch_quality()
     row |= {"fit_r2_batch": q["r2"], "fit_resid_sd_batch": q["resid_sd"], "fit_r2_page": q["page_r2"],
             "calibration_pages": m.n_pages}

@@ -15,7 +15,9 @@ it needs from disk and hands it over:
 
 from __future__ import annotations
 
+import json
 import math
+import re
 import sqlite3
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -26,16 +28,22 @@ import pandas as pd
 
 from ocrbench.io.config import Key, check_table, read_toml
 from ocrbench.planning.archive import Archive
-from ocrbench.planning.costmodel import DEFAULT_CER_MARGIN, DEFAULT_SECONDS_PER_ERROR, CostModel, fit_cost_model
+from ocrbench.planning.costmodel import CostModel, fit_cost_model
+from ocrbench.planning.people import (DEFAULT_CHARS_PER_SECOND, DEFAULT_HOURS_PER_WEEK, DEFAULT_REVIEW_SHARE,
+                                      DEFAULT_SECONDS_PER_ERROR, DEFAULT_SECONDS_PER_LINE, REVIEW_MODES)
 from ocrbench.planning.estimate import SPEED_DRIFT, AccuracyInput
 from ocrbench.planning.numerics import ScalingFit
 from ocrbench.errors import ConfigError, InputError, OcrbenchError, PlanError, StoreError
+
+#: Default half-width of the CER interval wanted from a ground-truth sample, relative to the CER (±20 %).
+DEFAULT_CER_RELATIVE_MARGIN = 0.2
 
 PLAN_FILE_FORMAT = """\
 # An ocrbench plan file (TOML). Paths are relative to this file. Every key is optional
 # except calibration and one way of describing the archive; command-line options win.
 calibration = ["calibration.sqlite"]       # run stores; "NAME=path" names the machine profile
 recognisers = ["ledger-ctc", "ledger-seq"] # only these (default: every recogniser in the stores)
+currency = "GBP"                           # ISO 4217 code of every amount below and in the plan
 
 [archive]                                  # one of: numbers, sample, store
 pages = 180000
@@ -52,16 +60,27 @@ threads = 1                                # intra-op threads per worker (defaul
 machines = 1
 price_core_hour = 0.05                     # or price_machine_hour
 # price_machine_hour = 0.40
+# pages_per_job = 5000                      # split the archive into jobs; each pays start-up and loading
 
 [goals]
 deadline = "6w"                            # s, m, h, d or w
 budget = 5000
 
 [correction]
-seconds_per_error = 10                     # default 10 (see ocrbench.planning.estimate.Correction)
-price_hour = 25                            # cost of an hour of correction (default: not priced)
+review = "full"                            # full (every line read), targeted (queue head) or none
+seconds_per_error = 10                     # default 10 (see ocrbench.planning.people.Correction)
+seconds_per_line = 4                       # reading: seconds per line (default 4, as `ocrbench review`)
+chars_per_second = 10                      # reading: characters compared per second (default 10)
+# review_share = 0.1                        # targeted: share of lines read (the most doubtful)
+# catch_rate = 0.6                          # targeted: share of errors in them (`ocrbench review --truth`)
+price_hour = 25                            # cost of an hour of review or correction (default: not priced)
 truth = "truth/"                           # ground truth of the calibration pages -> CER and sample size
-cer_margin = 0.005                         # wanted half-width of the CER interval
+cer_relative_margin = 0.2                  # wanted half-width of the CER interval, relative to the CER
+# cer_margin = 0.005                        # or an absolute half-width (wins when given)
+
+[people]
+correctors = 4                             # people correcting (default: not given; the plan says how many)
+hours_per_week = 37.5                      # hours each corrects a week
 
 [accuracy.ledger-ctc]                      # CER by hand (e.g. from `ocrbench score --json`), instead of truth
 cer = 0.021
@@ -150,6 +169,19 @@ def _card_geometry(card_path: str | None) -> tuple[int | None, int | None, float
         return None, None, 0.0
 
 
+def _process_start(host_json: pd.Series) -> float | None:
+    """The median process start-up measured with the sessions (``ocrbench measure-scaling`` notes it in host_json)."""
+    got = []
+    for h in host_json:
+        try:
+            v = json.loads(h or "{}").get("process_start_seconds")
+        except (TypeError, ValueError, AttributeError):
+            v = None
+        if isinstance(v, (int, float)) and v >= 0:
+            got.append(float(v))
+    return float(np.median(got)) if got else None
+
+
 @dataclass
 class Calibration:
     """Everything one calibration store gives the planner."""
@@ -195,7 +227,8 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
                            "startup_seconds": float(one["startup_seconds"].mean()),
                            "gap_seconds_per_page": float((one["gap_seconds_per_page"] * one["pages"]).sum()
                                                          / one["pages"].sum()),
-                           "run_id": None if rid is None or pd.isna(rid) else int(rid)}
+                           "run_id": None if rid is None or pd.isna(rid) else int(rid),
+                           "process_start_seconds": _process_start(one["host_json"])}
             scaling[n] = ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
             m = fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,
@@ -335,7 +368,17 @@ class PlanRequest:
     seconds_per_error: float = DEFAULT_SECONDS_PER_ERROR
     correction_price_hour: float | None = None
     truth: Path | None = None
-    cer_margin: float = DEFAULT_CER_MARGIN
+    cer_margin: float | None = None            # absolute half-width of the CER interval (wins when given)
+    cer_relative_margin: float = DEFAULT_CER_RELATIVE_MARGIN
+    review: str = "full"
+    seconds_per_line: float = DEFAULT_SECONDS_PER_LINE
+    chars_per_second: float = DEFAULT_CHARS_PER_SECOND
+    review_share: float = DEFAULT_REVIEW_SHARE
+    catch_rate: float | None = None
+    correctors: int | None = None
+    corrector_hours_per_week: float = DEFAULT_HOURS_PER_WEEK
+    pages_per_job: int | None = None
+    currency: str | None = None
     accuracy: dict[str, dict] = field(default_factory=dict)
     profiles: dict[str, dict] = field(default_factory=dict)
     draws: int = 2000
@@ -387,13 +430,23 @@ PLAN_FILE_SCHEMA = {
         "page_size": Key((list, str)), "sample": Key((str,)), "sample_pages": Key((int,), default=20, low=1),
         "store": Key((str,)),
     },
+    "currency": Key((str,), check=lambda v: None if re.fullmatch(r"[A-Z]{3}", v) else
+                    f"currency must be an ISO 4217 code of three capital letters (GBP, EUR, USD), not {v!r}"),
     "resources": {k: (Key((int,), default=1, low=1) if k in ("workers", "machines") else v)
-                  for k, v in PROFILE_SCHEMA.items()},
+                  for k, v in PROFILE_SCHEMA.items()} | {"pages_per_job": Key((int,), low=1)},
+    "people": {"correctors": Key((int,), low=1), "hours_per_week": Key(_NUM, default=DEFAULT_HOURS_PER_WEEK,
+                                                                         low=0, low_open=True, high=168)},
     "goals": {"deadline": Key((str,)), "budget": Key(_NUM, low=0)},
     "correction": {
         "seconds_per_error": Key(_NUM, default=DEFAULT_SECONDS_PER_ERROR, low=0),
         "price_hour": Key(_NUM, low=0), "truth": Key((str,)),
-        "cer_margin": Key(_NUM, default=DEFAULT_CER_MARGIN, low=0, low_open=True),
+        "cer_margin": Key(_NUM, low=0, low_open=True),
+        "cer_relative_margin": Key(_NUM, default=DEFAULT_CER_RELATIVE_MARGIN, low=0, low_open=True),
+        "review": Key((str,), default="full", choices=REVIEW_MODES),
+        "seconds_per_line": Key(_NUM, default=DEFAULT_SECONDS_PER_LINE, low=0),
+        "chars_per_second": Key(_NUM, default=DEFAULT_CHARS_PER_SECOND, low=0, low_open=True),
+        "review_share": Key(_NUM, default=DEFAULT_REVIEW_SHARE, low=0, high=1),
+        "catch_rate": Key(_NUM, low=0, high=1),
     },
     "accuracy": Key((dict,), default={}, free=True),
     "profiles": Key((dict,), default={}, free=True),
@@ -458,8 +511,12 @@ def load_plan_file(path: Path | str) -> PlanRequest:
         workers=r["workers"], threads=r["threads"], machines=r["machines"],
         price_core_hour=r["price_core_hour"], price_machine_hour=r["price_machine_hour"],
         deadline=g["deadline"], budget=g["budget"], seconds_per_error=float(c["seconds_per_error"]),
-        correction_price_hour=c["price_hour"], truth=rel(c["truth"]), cer_margin=float(c["cer_margin"]),
-        accuracy=accuracy, profiles=profiles, draws=s["draws"], seed=s["seed"],
+        correction_price_hour=c["price_hour"], truth=rel(c["truth"]), cer_margin=c["cer_margin"],
+        cer_relative_margin=float(c["cer_relative_margin"]), review=c["review"],
+        seconds_per_line=float(c["seconds_per_line"]), chars_per_second=float(c["chars_per_second"]),
+        review_share=float(c["review_share"]), catch_rate=c["catch_rate"], correctors=doc["people"]["correctors"],
+        corrector_hours_per_week=float(doc["people"]["hours_per_week"]), pages_per_job=r["pages_per_job"],
+        currency=doc["currency"], accuracy=accuracy, profiles=profiles, draws=s["draws"], seed=s["seed"],
         speed_drift=float(s["speed_drift"]))
 
 

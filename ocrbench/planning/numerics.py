@@ -163,6 +163,23 @@ class ScalingFit:
                     f"with serial fraction {s:.3f} (limit {amdahl_max_speedup(s):.1f}x)")
         return float(amdahl_speedup(s, workers)), note
 
+    def measured_slower(self, workers: int, threads: int) -> int | None:
+        """A smaller worker count measured faster than ``workers`` (the fastest such), else None.
+
+        ``workers`` itself may be measured or extrapolated; the comparison is with measured counts only.
+        """
+        r = self._rows(threads)
+        fewer = r[r["workers"] < workers]
+        if workers <= 1 or fewer.empty or r[r["workers"] == 1].empty:
+            return None
+        try:
+            mine, _ = self.speedup(workers, threads)
+        except PlanError:
+            return None
+        x1 = float(r.loc[r["workers"] == 1, "pages_per_second"].iloc[0])
+        best = fewer.loc[fewer["pages_per_second"].idxmax()]
+        return int(best["workers"]) if float(best["pages_per_second"]) / x1 > mine * (1 + 1e-9) else None
+
     def thread_factor(self, threads: int, calibrated_threads: int) -> float:
         """Throughput of one worker at ``threads`` relative to one at ``calibrated_threads``."""
         if threads == calibrated_threads:

@@ -35,14 +35,16 @@ import numpy as np
 import pandas as pd
 
 from ocrbench.errors import InputError, PlanError
-from ocrbench.planning.archive import Archive
+from ocrbench.planning.archive import Archive, with_shared_characters
 from ocrbench.planning.costmodel import CostModel
 from ocrbench.planning.decide import PlanInputs, make_plan
-from ocrbench.planning.estimate import AccuracyInput, Correction, Goals, Resources, estimate_serial, evaluate_option
+from ocrbench.planning.estimate import AccuracyInput, Goals, Resources, estimate_serial, evaluate_option
 from ocrbench.planning.inputs import (PROFILE_SCHEMA, Calibration, PlanRequest, describe_sample,
                                       load_plan_file as load_plan_toml, page_size_or_calibrated, read_calibration,
                                       read_store_frames, score_calibration)
 from ocrbench.planning.numerics import parse_duration
+from ocrbench.planning.people import Correction
+from ocrbench.planning.sampling import sample_size
 
 __all__ = ["PlanRequest", "PlanResult", "PlanResults", "ReportContext", "plan", "load_plan_file", "compute_plan",
            "plan_from_results", "plan_json", "json_dumps", "ROW_KEYS"]
@@ -125,7 +127,12 @@ ROW_KEYS = ("workers", "threads", "machines", "pages", "characters", "wall_secon
             "cer_low", "cer_high", "char_errors", "char_errors_low", "char_errors_high", "correction_hours",
             "correction_hours_low", "correction_hours_high", "correction_cost", "correction_cost_high", "cost",
             "cost_high", "deadline_seconds", "meets_deadline", "p_meets_deadline", "budget", "meets_budget",
-            "fit_r2_batch", "calibration_pages", "gt_sample_pages", "extrapolated")
+            "fit_r2_batch", "calibration_pages", "gt_sample_pages", "extrapolated",
+            # people, money and whole-process time (issue 18)
+            "currency", "review_mode", "review_hours", "people_hours", "people_hours_high", "errors_left",
+            "correctors", "correctors_needed", "people_seconds_high", "correction_meets_deadline",
+            "recognition_meets_deadline", "people_cost", "people_cost_high", "compute_share", "people_share",
+            "unpriced", "unknown", "jobs", "startup_seconds_per_job")
 
 
 def plan_from_results(results: PlanResults) -> dict:
@@ -174,7 +181,8 @@ def _archive(req: PlanRequest, models: Sequence[CostModel], ctx: ReportContext |
         say(f"segmenting a sample of {req.sample}")
         archive, failures = describe_sample(req.sample, n_pages=req.pages, sample_pages=req.sample_pages,
                                             seed=req.seed, split_gaps=[m.split_gap for m in models])
-        return archive, failures, None
+        archive, note = with_shared_characters(archive, models)
+        return archive, failures, note
     if req.archive_store is not None:
         return Archive.from_store_frames(read_store_frames(req.archive_store), n_pages=req.pages), [], None
     if req.pages is None:
@@ -191,8 +199,6 @@ def _archive(req: PlanRequest, models: Sequence[CostModel], ctx: ReportContext |
 def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext | None, n_pages: int,
               say: Callable[[str], None]) -> tuple[dict[str, AccuracyInput], dict[str, dict]]:
     """CER per recogniser (request's tables, then truth, then the report's scores) and ground-truth sample sizes."""
-    from ocrbench.accuracy.stats import sample_size_for_cer
-
     accuracy: dict[str, AccuracyInput] = {}
     for n, d in (req.accuracy or {}).items():
         try:
@@ -216,7 +222,8 @@ def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext 
     sizes: dict[str, dict] = {}
     for n, df in page_scores.items():
         try:
-            sizes[n] = sample_size_for_cer(df, half_width=req.cer_margin, population=n_pages)
+            sizes[n] = sample_size(df, relative=req.cer_relative_margin, absolute=req.cer_margin,
+                                   population=n_pages)
         except (PlanError, ValueError) as e:
             sizes[n] = {"pages": None, "notes": [str(e)]}
     return accuracy, sizes
@@ -225,7 +232,8 @@ def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext 
 def resources_of(req: PlanRequest) -> tuple[Resources, dict[str, Resources]]:
     """The request's resources, and those of each machine profile its ``profiles`` table overrides."""
     res = Resources(workers=req.workers, threads=req.threads, machines=req.machines,
-                    price_core_hour=req.price_core_hour, price_machine_hour=req.price_machine_hour)
+                    price_core_hour=req.price_core_hour, price_machine_hour=req.price_machine_hour,
+                    pages_per_job=req.pages_per_job)
     by_profile = {}
     for name, over in (req.profiles or {}).items():
         bad = sorted(set(over) - set(PROFILE_SCHEMA))
@@ -233,6 +241,15 @@ def resources_of(req: PlanRequest) -> tuple[Resources, dict[str, Resources]]:
             raise PlanError(f"profile {name}: unknown key(s) {', '.join(bad)}; valid: {', '.join(PROFILE_SCHEMA)}")
         by_profile[name] = dataclasses.replace(res, **dict(over))
     return res, by_profile
+
+
+def correction_of(req: PlanRequest) -> Correction:
+    """The people part of the request: review mode, rates, correctors, price."""
+    return Correction(seconds_per_error=req.seconds_per_error, price_hour=req.correction_price_hour,
+                      review=req.review, seconds_per_line=req.seconds_per_line,
+                      chars_per_second=req.chars_per_second, review_share=req.review_share,
+                      catch_rate=req.catch_rate, correctors=req.correctors,
+                      hours_per_week=req.corrector_hours_per_week)
 
 
 def plan(req: PlanRequest, *, context: ReportContext | None = None,
@@ -248,14 +265,15 @@ def plan(req: PlanRequest, *, context: ReportContext | None = None,
     inputs = PlanInputs(archive=archive, resources=res,
                         goals=Goals(deadline_s=parse_duration(req.deadline) if req.deadline else None,
                                     budget=req.budget),
-                        correction=Correction(seconds_per_error=req.seconds_per_error,
-                                              price_hour=req.correction_price_hour),
+                        correction=correction_of(req),
                         accuracy=accuracy, sample_sizes=sizes, scaling={k: v for c in cals for k, v in c.scaling.items()},
-                        resources_by_profile=by_profile, draws=req.draws, seed=req.seed, speed_drift=req.speed_drift)
+                        resources_by_profile=by_profile, draws=req.draws, seed=req.seed, speed_drift=req.speed_drift,
+                        currency=req.currency)
     say("simulating the archive")
     table = make_plan(models, inputs)
     table.attrs["sample_sizes"] = sizes
     table.attrs["cer_margin"] = req.cer_margin
+    table.attrs["cer_relative_margin"] = None if req.cer_margin is not None else req.cer_relative_margin
     if described_by:
         table.attrs["assumptions"] = list(table.attrs.get("assumptions", [])) + [described_by]
     return PlanResult(table=table, sample_failures=failures, models=models, inputs=inputs, calibration=specs,
@@ -279,7 +297,8 @@ def _curve(result: PlanResult, req: PlanRequest, max_workers: int) -> tuple[list
     inputs = result.inputs
     curve, axis = [], set()
     for i, m in enumerate(result.models):
-        est = estimate_serial(m, inputs.archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift)
+        est = estimate_serial(m, inputs.archive, draws=req.draws, seed=req.seed + i, speed_drift=req.speed_drift,
+                              archive_seed=req.seed)
         sc = inputs.scaling.get(f"{m.profile}/{m.recogniser}") or inputs.scaling.get(m.recogniser)
         base = inputs.resources_by_profile.get(m.profile, inputs.resources)
         cores = int(m.host.get("cores") or 1) // int(base.threads or m.threads or 1)
@@ -320,7 +339,8 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
     spec["calibration"] = [str(c) for c in result.calibration]
     return _clean({
         "source": "computed by the planner" + ("" if req.calibration else " on this store"),
-        "spec": spec, "rows": rows, "archive": table.attrs.get("archive"),
+        "spec": spec, "rows": rows, "archive": table.attrs.get("archive"), "currency": table.attrs.get("currency"),
+        "configurations": table.attrs.get("configurations", []),
         "assumptions": list(table.attrs.get("assumptions", [])),
         "recommendation": table.attrs.get("recommendation"), "crossover": list(table.attrs.get("crossover", [])),
         "warnings": list(table.attrs.get("warnings", [])), "sample_sizes": table.attrs.get("sample_sizes", {}),
@@ -348,7 +368,9 @@ def plan_json(table: pd.DataFrame) -> dict:
     fits = table.attrs.get("fits")
     return _clean({
         "recognisers": rows,
+        "currency": table.attrs.get("currency"),
         "recommendation": table.attrs.get("recommendation"),
+        "configurations": table.attrs.get("configurations", []),
         "crossover": table.attrs.get("crossover", []),
         "warnings": table.attrs.get("warnings", []),
         "assumptions": table.attrs.get("assumptions", []),

@@ -448,7 +448,7 @@ def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
                                        curve_max_workers=curve_max_workers)
         summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
                                               if accuracy else None)
-    summary["plan"]["currency"] = currency
+    summary["plan"]["currency"] = currency or summary["plan"].get("currency")
     for run in runs:
         run["plan"] = summary["plan"]["rows"].get(run["name"])
     if summary["plan"]["curve"]:

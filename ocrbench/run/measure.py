@@ -84,7 +84,8 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
     rs = summary.recognisers[0]
     with RunStore(store, read_only=True) as st:
         info = st.run_info(rs.run_id)
-        busy = float(sum(st.run_totals(rs.run_id)["t_total"]))
+        page_seconds = [float(t) for t in st.run_totals(rs.run_id)["t_total"]]
+        busy = float(sum(page_seconds))
     n = len(tl.page_ends)
     if n == 0 or tl.t_begin is None:
         raise PlanError(f"{pages}: no page was processed, nothing to time")
@@ -99,6 +100,7 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
         "startup_seconds": tl.t_begin - tl.t_call, "busy_seconds": busy,
         # negative when the runner overlaps work (e.g. loads the next page while recognising this one)
         "gap_seconds_per_page": (span - busy) / n, "run_id": rs.run_id,
+        "page_seconds": page_seconds,       # each page's own time (not stored; for intervals of the speed-up)
     }
 
 
@@ -163,7 +165,7 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
                 "startup_seconds": max(r["startup_seconds"] for r in got),
                 "busy_seconds": sum(r["busy_seconds"] for r in got),
                 "gap_seconds_per_page": sum(r["gap_seconds_per_page"] for r in got) / w,
-                "run_id": None,
+                "run_id": None, "page_seconds": [t for r in got for t in r["page_seconds"]],
             })
             if progress:
                 progress(k + 1, len(ws))
@@ -171,3 +173,24 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
     base = df.loc[df["workers"] == df["workers"].min(), "pages_per_second"].iloc[0]
     df["speedup"] = df["pages_per_second"] / base
     return df
+
+
+def measure_process_start(repeats: int = 3, *, timeout: float = 120.0) -> float:
+    """Seconds a new worker process takes before it can run: the interpreter, ocrbench and onnxruntime imported.
+
+    The median of ``repeats`` fresh processes (what every job of a split archive pays before its
+    sessions open; the sessions' loading and warm-up are timed by :func:`measure_session`).
+    """
+    import statistics
+    import subprocess
+    import sys
+
+    times = []
+    for _ in range(max(1, repeats)):
+        t0 = time.perf_counter()
+        done = subprocess.run([sys.executable, "-c", "import ocrbench.run.engine, onnxruntime"],
+                              capture_output=True, timeout=timeout, check=False)
+        if done.returncode != 0:
+            raise PlanError(f"a fresh process could not import the runner: {done.stderr.decode(errors='replace')[-300:]}")
+        times.append(time.perf_counter() - t0)
+    return float(statistics.median(times))

@@ -1,0 +1,187 @@
+"""What a throughput measurement means: speed-up with an interval, and why it is below 1 when it is.
+
+``ocrbench measure-scaling`` times one worker, then k workers side by side on the
+same pages. Each page's own time is known at every count, so the speed-up
+k x (mean page time at 1 worker) / (mean page time at k workers) gets a
+bootstrap interval over pages (Efron & Tibshirani 1993, percentile interval).
+When k workers are slower than one, the page times say why: each page took
+longer because the workers shared the machine's cores (k x threads asked for
+more than it has) or its memory and caches.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import TYPE_CHECKING, Sequence
+
+import numpy as np
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+
+def speedup_interval(one: Sequence[float], many: Sequence[float], workers: int, *, n_boot: int = 2000,
+                     seed: int = 0, level: float = 0.95) -> tuple[float, float, float]:
+    """Speed-up of ``workers`` workers from page times (1-worker pages, k-worker pages): (value, low, high)."""
+    a, b = np.asarray(one, dtype=float), np.asarray(many, dtype=float)
+    if len(a) == 0 or len(b) == 0 or b.mean() <= 0:
+        return math.nan, math.nan, math.nan
+    value = workers * a.mean() / b.mean()
+    rng = np.random.default_rng(seed)
+    ma = a[rng.integers(0, len(a), size=(n_boot, len(a)))].mean(axis=1)
+    mb = b[rng.integers(0, len(b), size=(n_boot, len(b)))].mean(axis=1)
+    boot = workers * ma / np.maximum(mb, 1e-12)
+    q = (1 - level) / 2
+    return float(value), float(np.quantile(boot, q)), float(np.quantile(boot, 1 - q))
+
+
+def explain(row: dict, base: dict, cores: int | None) -> str | None:
+    """Why ``row`` (k workers) delivers less than ``base`` (1 worker), or None when it does not."""
+    k, t = int(row["workers"]), int(row["threads"])
+    s = row["pages_per_second"] / base["pages_per_second"] if base["pages_per_second"] else math.nan
+    if not s < 1:
+        return None
+    a = base["busy_seconds"] / base["pages"]
+    b = row["busy_seconds"] / row["pages"]
+    why = (f"{k} workers x {t} thread(s) ask for {k * t} cores and this machine has {cores}: they took turns"
+           if cores and k * t > cores else
+           "the workers shared the machine's memory bandwidth and caches (or other load ran meanwhile)")
+    return (f"{k} workers: speed-up {s:.3f} < 1 — each page took {b:.3g} s instead of {a:.3g} s at 1 worker "
+            f"(x{b / a:.2f}), more than the {k} workers gain; {why}. Plan with fewer workers on this machine.")
+
+
+def between_pages(gap_seconds_per_page: float) -> tuple[float, float]:
+    """(idle time between pages, time hidden by overlapping pages) per page; both >= 0.
+
+    A negative measured gap means the runner overlapped pages (loading the next while recognising
+    this one): the overlap is shown as its own positive figure rather than as a negative time.
+    """
+    g = float(gap_seconds_per_page)
+    return max(0.0, g), max(0.0, -g)
+
+
+def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, batch_size: int = 16,
+                  progress=None) -> tuple["pd.DataFrame", list[str]]:
+    """Time each card on ``target`` at 1..``workers`` workers, save the rows to ``store``'s scaling table.
+
+    Returns the rows with speed-up intervals and the positive idle/overlap figures, and the
+    explanations of every speed-up below 1. The process start-up is measured too and noted in the
+    rows' host description (the planner reads it from there).
+    """
+    import pandas as pd
+
+    from ocrbench.planning.inputs import save_scaling
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session
+
+    say = progress or (lambda _m: None)
+    say("timing a fresh process start")
+    proc = measure_process_start()
+    rows = []
+    for card in cards:
+        say(f"timing {card} on one worker")
+        rows.append(measure_session(target, card, store=store,
+                                    options=EngineOptions(intra_threads=threads, batch_size=batch_size)))
+        if workers > 1:
+            say(f"timing {card} on 2..{workers} workers")
+            more = measure_scaling(target, card, workers=range(2, workers + 1), threads=threads,
+                                   batch_size=batch_size)
+            rows += more.drop(columns=["speedup"]).to_dict(orient="records")
+    df = pd.DataFrame(rows)
+    df["host_json"] = [json.dumps(json.loads(h or "{}") | {"process_start_seconds": proc}, sort_keys=True)
+                       for h in df["host_json"]]
+    df["process_start_seconds"] = proc
+    save_scaling(store, df)
+    return describe_rows(df)
+
+
+def describe_rows(df: "pd.DataFrame") -> tuple["pd.DataFrame", list[str]]:
+    """Speed-up with its interval, idle and overlapped time per page (both >= 0), and explanations."""
+    df = df.copy()
+    notes: list[str] = []
+    for c in ("speedup", "speedup_low", "speedup_high", "idle_seconds_per_page", "overlap_seconds_per_page"):
+        df[c] = math.nan
+    for name, g in df.groupby("recogniser", sort=False):
+        base = g.iloc[0].to_dict()
+        cores = json.loads(base.get("host_json") or "{}").get("cores")
+        for i, r in g.iterrows():
+            r = r.to_dict()
+            k = int(r["workers"])
+            s, lo, hi = (1.0, 1.0, 1.0) if i == g.index[0] else \
+                speedup_interval(base.get("page_seconds") or [], r.get("page_seconds") or [], k, seed=k)
+            df.loc[i, ["speedup_low", "speedup_high"]] = [lo, hi]
+            df.loc[i, "speedup"] = r["pages_per_second"] / base["pages_per_second"]
+            df.loc[i, ["idle_seconds_per_page", "overlap_seconds_per_page"]] = between_pages(r["gap_seconds_per_page"])
+            why = None if i == g.index[0] else explain(r, base, cores)
+            if why:
+                notes.append(f"{name}: {why}")
+    return df, notes
+
+
+def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: Sequence[int] = (8, 16, 32),
+         workers: Sequence[int] = (1, 2), pages: int = 6, max_seconds: float = 300.0, cores: int | None = None,
+         progress=None, work_dir=None) -> dict:
+    """Measure a small grid (threads x batch size x workers) on ``pages`` sample pages, within ``max_seconds``.
+
+    Configurations asking for more cores than the machine has are skipped. Each is timed with
+    the real runner (k workers side by side, as ``measure-scaling`` does) into a scratch store;
+    the fastest (pages per second of the whole machine) is then timed once more into ``store``,
+    with its throughput rows at each worker count, so ``ocrbench plan`` calibrates on it and
+    ranks its worker counts. Returns ``grid`` (every configuration measured or why not), ``best``.
+    """
+    import os
+    import shutil
+    import tempfile
+    import time
+    from pathlib import Path
+
+    import pandas as pd
+
+    from ocrbench.pages import list_pages
+    from ocrbench.planning.inputs import save_scaling
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session
+
+    say = progress or (lambda _m: None)
+    cores = int(cores or os.cpu_count() or 1)
+    refs = list_pages(target)[:max(1, pages)]
+    grid, t0 = [], time.perf_counter()
+    with tempfile.TemporaryDirectory(prefix="ocrbench-tune-", dir=work_dir) as tmp:
+        subset = Path(tmp) / "pages"
+        subset.mkdir()
+        for ref in refs:
+            shutil.copy2(ref.path, subset / Path(ref.path).name)
+        for t in sorted(set(threads)):
+            for b in sorted(set(batch_sizes)):
+                for w in sorted(set(workers)):
+                    cfg = {"threads": t, "batch_size": b, "workers": w}
+                    if w * t > cores:
+                        grid.append(cfg | {"pages_per_second": None, "skipped": f"{w * t} cores > {cores}"})
+                        continue
+                    if time.perf_counter() - t0 > max_seconds:
+                        grid.append(cfg | {"pages_per_second": None, "skipped": "time limit reached"})
+                        continue
+                    say(f"timing threads={t} batch={b} workers={w}")
+                    df = measure_scaling(subset, card, workers=[w], threads=t, batch_size=b, work_dir=tmp)
+                    grid.append(cfg | {"pages_per_second": float(df["pages_per_second"].iloc[0]), "skipped": None})
+        done = [g for g in grid if g["pages_per_second"]]
+        if not done:
+            from ocrbench.errors import PlanError
+            raise PlanError(f"{target}: no configuration could be timed within {max_seconds:g} s")
+        best = max(done, key=lambda g: g["pages_per_second"])
+        say("timing the chosen configuration into the calibration store")
+        opts = EngineOptions(intra_threads=best["threads"], batch_size=best["batch_size"])
+        rows = [measure_session(subset, card, store=store, options=opts)]
+        more = [w for w in sorted(set(workers)) if w > 1 and w * best["threads"] <= cores]
+        if more:
+            rows += measure_scaling(subset, card, workers=more, threads=best["threads"],
+                                    batch_size=best["batch_size"], work_dir=tmp).drop(columns=["speedup"]) \
+                .to_dict(orient="records")
+    out = pd.DataFrame(rows)
+    proc = measure_process_start()
+    out["host_json"] = [json.dumps(json.loads(h or "{}") | {"process_start_seconds": proc}, sort_keys=True)
+                        for h in out["host_json"]]
+    save_scaling(store, out)
+    return {"grid": grid, "best": best, "cores": cores, "pages": len(refs),
+            "seconds": time.perf_counter() - t0, "process_start_seconds": proc}
