@@ -47,6 +47,7 @@ def _root(version: bool = typer.Option(False, "--version", callback=_version, is
 # only parses, calls the library and prints; none of them imports this one.
 from ocrbench.cli import (balance, demo, export, pages, plan, postprocess,  # noqa: E402
                           report, review, run, score)
+from ocrbench.cli import variant  # noqa: E402
 
 COMMANDS = [
     ("pages", pages.pages_command),
@@ -60,6 +61,7 @@ COMMANDS = [
     ("postprocess", postprocess.postprocess),
     ("export", export.export_cmd),
     ("demo", demo.demo),
+    ("variant", variant.variant),
 ]
 for _name, _fn in COMMANDS:
     app.command(_name)(_fn)

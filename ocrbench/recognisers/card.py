@@ -167,6 +167,7 @@ class Card:
     input: InputSpec
     ctc: CtcSpec | None = None
     seq: SeqSpec | None = None
+    variant: dict | None = None      # [variant]: provenance of a quantised copy (recognisers/variant.py)
 
     @property
     def symbols(self) -> tuple[str, ...]:
@@ -424,6 +425,7 @@ def load_card(path: Path | str) -> Card:
         if top.has("ctc"):
             raise top.err("ctc", "a seq card has no [ctc] table")
         seq = _load_seq(p, top.table("seq"), spec, file_of)
+    variant = _load_variant(top.table("variant", required=False))
     top.finish()
 
     hashes = {role: sha256_file(f) for role, f in files.items()}
@@ -432,7 +434,21 @@ def load_card(path: Path | str) -> Card:
         h.update(f"\n{role}={hashes[role]}".encode())
     return Card(name=name, kind=kind, description=description, version=version, path=p.resolve(),
                 folder=folder, card_hash=h.hexdigest(), files=files, file_hashes=hashes, input=spec,
-                ctc=ctc, seq=seq)
+                ctc=ctc, seq=seq, variant=variant)
+
+
+#: [variant] fields (written by recognisers/variant.py, documented in models/README.md) -> type
+VARIANT_FIELDS = {"source_name": str, "source_card_hash": str, "source_card": str, "method": str,
+                  "operators": list, "tool": str, "onnxruntime": str, "calibration_lines": int}
+
+
+def _load_variant(t: _Table | None) -> dict | None:
+    if t is None:
+        return None
+    out = {k: t.get(k, typ, None) for k, typ in VARIANT_FIELDS.items()}
+    t.get("source_card_hash", str)  # required: what the copy was made from
+    t.finish()
+    return out
 
 
 def _load_ctc(p: Path, t: _Table, spec: InputSpec, file_of) -> CtcSpec:
