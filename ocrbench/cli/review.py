@@ -59,11 +59,15 @@ def review(
                                            help="Review rate: characters compared per second (assumed 10)."),
     profile: str = typer.Option("nfc", "--profile", help="With --truth: normalisation before comparing."),
     out: Optional[Path] = typer.Option(None, "--out", help="Write each run's whole queue as CSV here."),
+    agreement: bool = typer.Option(True, "--agreement/--no-agreement",
+                                   help="Weigh where another recogniser's run over the same pages read a line "
+                                        "differently (and, with --truth, measure how well that predicts errors)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Rank recognised lines by doubt, time the review, and measure how well confidence predicts errors."""
     from ocrbench.accuracy.normalise import PROFILES, get_profile
     from ocrbench.io.text import pair_store_pages, read_text_lines
+    from ocrbench.postprocess import agreement as agree
     from ocrbench.postprocess.lexicon import read_word_list
     from ocrbench.postprocess.review import ReviewRate, calibration, line_edits, review_queue
     from ocrbench.store import RunStore
@@ -83,19 +87,32 @@ def review(
             if missing:
                 raise fail(f"{store}: no run {', '.join(map(str, missing))} in this store "
                            f"(runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
-            frames = st.read_frames(run or have)
+            frames = st.read_frames(have if agreement else (run or have))
+            refs = [agree.RunRef(i, st.run_info(i).recogniser, st.run_info(i).input_dir) for i in have]
+            pg = frames["pages"]
+            done_of = {i: set(pg.loc[(pg["run_id"] == i) & (pg["status"] == "done"), "page_id"]) for i in have}
+
+            def run_lines(rid):
+                ln = frames["lines"][frames["lines"]["run_id"] == rid]
+                ln = ln[ln["page_id"].isin(done_of[rid])].copy()
+                if post and st.post_recipe(rid) is not None:
+                    ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
+                return ln
             for rid in run or have:
                 info = st.run_info(rid)
-                ln = frames["lines"][frames["lines"]["run_id"] == rid].copy()
-                done = set(frames["pages"].query("run_id == @rid and status == 'done'")["page_id"])
-                ln = ln[ln["page_id"].isin(done)]
+                done = done_of[rid]
+                ln = run_lines(rid)
                 use_post = post and st.post_recipe(rid) is not None
-                if use_post:
-                    ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
-                q = review_queue(ln[["page_id", "line_no", "text", "confidence"]], lexicon=lexicon, rate=rate)
+                partner = agree.partner_run(refs, rid, done_of) if agreement else None
+                cols = ["page_id", "line_no", "text", "confidence"]
+                if partner is not None:
+                    ln = agree.with_partner(ln, run_lines(partner))
+                    cols.append("agree_part")
+                q = review_queue(ln[cols], lexicon=lexicon, rate=rate)
                 select = {"max_minutes": minutes} if minutes is not None else {"max_lines": lines}
                 head = q.take(**select)
                 res = {"run_id": rid, "recogniser": info.recogniser, "text": "post-processed" if use_post else "raw",
+                       "partner_run": partner,
                        "lines": int(len(q.table)), "head": q.minutes(**select),
                        "all": q.minutes(),
                        "queue": [{"page_id": r.page_id, "line_no": int(r.line_no), "doubt": round(float(r.doubt), 4),
@@ -110,7 +127,7 @@ def review(
                         raise TextFileError(out, f"cannot write the queue ({e.strerror or e})") from e
                     res["csv"] = str(path)
                 if truth is not None:
-                    texts, confs, truths, groups = [], [], [], []
+                    texts, confs, truths, groups, disagree = [], [], [], [], []
                     edits: dict[tuple[str, int], int] = {}
                     pairing = pair_store_pages(truth, sorted(done))
                     by_page = {pid: g.sort_values("line_no") for pid, g in ln.groupby("page_id")}
@@ -131,12 +148,17 @@ def review(
                             edits[(str(pid), int(no))] = int(k)
                         texts += hyp
                         confs += g["confidence"].astype(float).tolist()
+                        disagree += g["disagreement"].astype(float).tolist() if partner is not None else []
                         truths += ref
                         groups += [str(pid)] * len(ref)
                     if texts:
                         cal = calibration(texts, confs, truths, page_ids=groups, normalise=norm)
                         res["calibration"] = cal.to_dict()
                         res["head_catch"] = _head_catch(edits, {(r.page_id, int(r.line_no)) for r in head.itertuples()})
+                        if partner is not None:
+                            res["agreement"] = agree.agreement_calibration(
+                                line_edits(texts, truths, normalise=norm) > 0, confs, disagree, groups=groups)
+                            res["agreement"]["partner"] = f"{st.run_info(partner).recogniser} (run {partner})"
                     else:
                         res["calibration"] = None
                         problems.append(f"{truth}: no page of run {rid} has usable ground truth")
@@ -184,6 +206,9 @@ def review(
                               f"{row['error_line_share']:.1%} [{row['share_low']:.1%}-{row['share_high']:.1%}]",
                               f"{row['cer']:.2%}")
                 con.print(d)
+                if res.get("agreement"):
+                    for line in agree.describe(res["agreement"], res["agreement"]["partner"]):
+                        con.print(line, markup=False, highlight=False, soft_wrap=True)
                 hc = res.get("head_catch")
                 if hc and hc["share_of_error_lines_caught"] is not None:
                     con.print(f"  the head of the queue holds {hc['error_lines_in_head']} of the "

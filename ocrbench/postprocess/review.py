@@ -11,6 +11,7 @@ Doubt score of a line (documented formula, all parts within 0..1)::
     doubt = w_conf  * (1 - confidence)            # unknown confidence counts as 0
           + w_sums  * ledger_part
           + w_words * unknown_word_share
+          + w_agree * agree_part                    # only with a second reader (postprocess/agreement.py)
 
 * ``ledger_part`` is 1.0 for a line whose amount cannot be read, or for a line
   on an unbalanced page in which changing one digit of the amount would
@@ -44,6 +45,7 @@ class DoubtWeights:
     confidence: float = 1.0
     arithmetic: float = 1.0
     unknown_words: float = 0.5
+    agreement: float = 1.0           # a second reader's disagreement (postprocess/agreement.py)
 
 
 @dataclass(frozen=True)
@@ -177,6 +179,11 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
         reasons[i].insert(0, "confidence unknown" if pd.isna(c) else f"confidence {c:.2f}")
     df["doubt"] = (weights.confidence * df["conf_part"] + weights.arithmetic * df["ledger_part"]
                    + weights.unknown_words * df["word_part"])
+    if "agree_part" in df.columns:  # hook: two readers' disagreement, 0..1 (postprocess/agreement.py)
+        df["agree_part"] = pd.to_numeric(df["agree_part"], errors="coerce").fillna(0.0).clip(0.0, 1.0)
+        df["doubt"] += weights.agreement * df["agree_part"]
+        for i in np.flatnonzero(df["agree_part"].to_numpy() > 0):
+            reasons[i].append("another recogniser read it differently")
     df["reasons"] = ["; ".join(r) for r in reasons]
     df["seconds"] = rate.seconds(df["text"].str.len().to_numpy())
     df = df.sort_values("doubt", ascending=False, kind="stable").reset_index(drop=True)
