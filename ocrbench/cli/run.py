@@ -82,6 +82,10 @@ def run(
                                                     "word_list)."),
     word_list: Optional[Path] = typer.Option(None, "--word-list",
                                              help="Word list for post-processing: one entry per line, # comments."),
+    route: Optional[str] = typer.Option(None, "--route",
+                                        help="'FAST -> SLOW if doubt > X': FAST reads every line, SLOW re-reads the "
+                                             "lines whose review doubt is above X; both readings and the kept one "
+                                             "are stored (two of the --recogniser cards, by name or path)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
@@ -96,6 +100,10 @@ def run(
                    EXIT_USAGE)
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
+    if route is not None and (workers is not None or scheduler is not None or postprocess_on or post_steps
+                              or post_config is not None or word_list is not None or len(recogniser) != 2):
+        raise fail("--route takes exactly two --recogniser cards and runs here, without post-processing "
+                   "(not with --workers, --scheduler or --post...)", EXIT_USAGE)
     err = Console(stderr=True)
     pipeline = None
     if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
@@ -118,7 +126,14 @@ def run(
                           TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
                           console=err, transient=False) as bar:
                 task = bar.add_task("loading recognisers", total=None, lps="-")
-                if workers is None and scheduler is None:
+                if route is not None:
+                    from ocrbench.run.route import parse_route
+                    from ocrbench.run.routed import run_routed
+
+                    summary = run_routed(target, recogniser, parse_route(route), store=st,
+                                         options=RunOptions(engine=engine), progress=RunProgress(bar, task),
+                                         fresh=fresh)
+                elif workers is None and scheduler is None:
                     summary = run_pages(target, recogniser, store=st, options=RunOptions(engine=engine),
                                         progress=RunProgress(bar, task), fresh=fresh, postprocess=pipeline)
                 else:
