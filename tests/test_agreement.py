@@ -47,6 +47,9 @@ def test_partner_run():
     assert partner_run(runs, 1) == 4                  # without page sets: the latest
     assert partner_run(runs, 3) is None               # no other recogniser over /other
     assert partner_run(runs, 2, done) == 1
+    # a routed run's re-reading (some lines only) and kept text are never partners
+    routed = runs + [RunRef(5, "seq", "/p", "slow"), RunRef(6, "ctc->seq", "/p", "kept")]
+    assert partner_run(routed, 1) == 4
 
 
 def test_queue_weighs_disagreement():

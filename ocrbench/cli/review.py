@@ -88,7 +88,8 @@ def review(
                 raise fail(f"{store}: no run {', '.join(map(str, missing))} in this store "
                            f"(runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
             frames = st.read_frames(have if agreement else (run or have))
-            refs = [agree.RunRef(i, st.run_info(i).recogniser, st.run_info(i).input_dir) for i in have]
+            refs = [agree.RunRef(i, x.recogniser, x.input_dir, x.settings.get("route_role"))
+                    for i in have for x in [st.run_info(i)]]
             pg = frames["pages"]
             done_of = {i: set(pg.loc[(pg["run_id"] == i) & (pg["status"] == "done"), "page_id"]) for i in have}
 

@@ -51,18 +51,22 @@ class RunRef:
     run_id: int
     recogniser: str
     input_dir: str
+    route_role: str | None = None    # settings["route_role"] of a routed run's parts (ocrbench/run/routed.py)
 
 
 def partner_run(runs: Sequence[RunRef], run_id: int, done: dict[int, set[str]] | None = None) -> int | None:
     """The other reader for ``run_id``: a run of another recogniser over the same input folder.
 
     Among several, the one sharing the most done pages (``done``: run -> page
-    ids), then the latest. None when the store holds no such run.
+    ids), then the latest. The re-reading and the kept text of a routed run are
+    never partners (the first holds only some lines, the second partly the
+    very reading it would be compared with). None when there is no such run.
     """
     me = next((r for r in runs if r.run_id == run_id), None)
     if me is None:
         return None
-    cands = [r for r in runs if r.recogniser != me.recogniser and r.input_dir == me.input_dir]
+    cands = [r for r in runs if r.recogniser != me.recogniser and r.input_dir == me.input_dir
+             and r.route_role in (None, "fast")]
     if not cands:
         return None
     mine = (done or {}).get(run_id, set())
