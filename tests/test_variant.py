@@ -175,6 +175,19 @@ def test_variant_command_then_run(source, tmp_path):
     assert r.exit_code == 2 and "unknown variant action" in r.stderr
 
 
+def test_variant_command_static_calibration_folder(source, tmp_path):
+    cal = tmp_path / "cal"
+    synth.write_archive(cal, synth.ArchiveSpec(n_pages=2, lines_per_page=(3, 4), seed=7))
+    (cal / "page_000_broken.png").write_bytes(b"\x89PNG\r\n\x1a\n truncated")
+    r = CliRunner().invoke(app, ["variant", "quantise", str(source.folder), "--out", str(tmp_path / "q"),
+                                 "--calibration", str(cal), "--calibration-lines", "5", "--json"])
+    assert r.exit_code == 0, r.output
+    assert "page_000_broken.png" in r.stderr and "left out of the calibration" in r.stderr
+    doc = json.loads(r.stdout)
+    assert doc["method"] == "static" and doc["calibration_lines"] == 5
+    assert load_card(tmp_path / "q").variant["method"] == "static int8"
+
+
 @pytest.mark.slow
 def test_demo_ctc_variant_against_reference_evaluator(tmp_path):
     """The demo CTC model's dynamic int8 copy (LSTM, MatMul) on one batch of two real demo lines against the

@@ -26,5 +26,8 @@ def page_line_crops(target: Path | str, *, limit: int = 256) -> tuple[list[np.nd
         except InputError as e:
             problems.append(str(e))
             continue
+        except ValueError as e:  # an image the line finder cannot work with
+            problems.append(f"{ref.display()}: {e}")
+            continue
         crops.extend(lb.crop for lb in layout.lines[: limit - len(crops)])
     return crops, problems

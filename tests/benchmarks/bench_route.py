@@ -64,7 +64,7 @@ def main(argv=None) -> dict:
     from ocrbench.accuracy.score import score_pages
     from ocrbench.io.text import pair_store_pages, read_text_lines
     from ocrbench.run.engine import RunOptions, run_pages
-    from ocrbench.run.route import Route, line_doubts, threshold_for_share
+    from ocrbench.run.route import Route, RouteCost, expected_cost, line_doubts, threshold_for_share
     from ocrbench.run.routed import run_routed
     from ocrbench.store import RunStore
 
@@ -105,14 +105,25 @@ def main(argv=None) -> dict:
                     routed = len(st.read_frames([sl.run_id])["lines"])
                     c, lo, hi = cer(st.page_texts(r.run_id))
                 sec = f.model_seconds + sl.model_seconds
-                slower = max(single[fast][0], single[slow][0])
+                slower_name = max(single, key=lambda k: single[k][0])
+                slower = single[slower_name][0]
+                # the machine's speed drifts between runs (other work on it): the route's FAST part, read in
+                # the routed run itself, rescaled by the SLOW/FAST ratio measured side by side in the plain
+                # run, gives each recogniser alone at the routed run's speed
+                scale = f.model_seconds / single[fast][0]
+                slower_now = slower * scale
+                got = RouteCost(lines=f.lines, routed=routed, fast_seconds=f.model_seconds,
+                                slow_seconds=sl.model_seconds)
+                predicted = expected_cost(single[fast][0], single[slow][0], got.share) / slower
                 better_hi = min(single[fast][3], single[slow][3])
-                rows.append({"route": str(route), "share": routed / max(1, f.lines), "seconds": sec,
-                             "vs_slower": sec / slower, "cer": c, "low": lo, "high": hi,
-                             "meets": c <= better_hi and sec / slower <= 0.5, "fast": fast, "x": x, "want": share})
-                say(f"  {str(route):42s}: {routed / max(1, f.lines):6.1%} of lines routed, model {sec:7.2f} s = "
-                    f"{sec / slower:.2f} x the slower alone, CER {c:.3%} [{lo:.3%}-{hi:.3%}] "
-                    f"(better alone, upper bound {better_hi:.3%})")
+                rows.append({"route": str(route), "share": got.share, "seconds": sec, "vs_slower_raw": sec / slower,
+                             "vs_slower": got.vs_slow_alone(slower_now), "predicted": predicted, "cer": c,
+                             "low": lo, "high": hi, "fast": fast, "x": x, "want": share,
+                             "meets": c <= better_hi and got.vs_slow_alone(slower_now) <= 0.5})
+                say(f"  {str(route):42s}: {got.share:6.1%} of lines routed, model {sec:7.2f} s = "
+                    f"{got.vs_slow_alone(slower_now):.2f} x {slower_name} alone at this run's speed "
+                    f"({sec / slower:.2f} x uncorrected; fast all + share x slow all predicts {predicted:.2f}), "
+                    f"CER {c:.3%} [{lo:.3%}-{hi:.3%}] (better alone: upper bound {better_hi:.3%})")
     say("")
     for r in rows:
         tag = f"{r['fast'].split('-')[1]}_first_share{r['want']:g}"
