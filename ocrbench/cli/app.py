@@ -99,7 +99,7 @@ def guarded(fn: Callable) -> Callable:
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
 from ocrbench.cli import (balance, demo, export, measure, pages, plan, postprocess,  # noqa: E402
-                          report, review, run, score, tune)
+                          report, review, run, score, tune, variant)
 
 COMMANDS = [
     ("pages", pages.pages_command),
@@ -114,6 +114,7 @@ COMMANDS = [
     ("postprocess", postprocess.postprocess),
     ("export", export.export_cmd),
     ("demo", demo.demo),
+    ("variant", variant.variant),
 ]
 for _name, _fn in COMMANDS:
     app.command(_name)(guarded(_fn))

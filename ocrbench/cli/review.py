@@ -44,20 +44,25 @@ def review(
                                            help="Review rate: characters compared per second (assumed 10)."),
     profile: ProfileName = typer.Option("nfc", "--profile", help="With --truth: normalisation before comparing."),
     out: Optional[Path] = typer.Option(None, "--out", help="Write each run's whole queue as CSV here."),
+    agreement: bool = typer.Option(True, "--agreement/--no-agreement",
+                                   help="Weigh where another recogniser's run over the same pages read a line "
+                                        "differently (and, with --truth, measure how well that predicts errors)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Rank recognised lines by doubt, time the review, and measure how well confidence predicts errors."""
     from ocrbench.accuracy.normalise import get_profile
     from ocrbench.io.tables import json_text, write_table
     from ocrbench.postprocess.lexicon import read_word_list
-    from ocrbench.postprocess.review import ReviewRate, review_store
+    from ocrbench.postprocess.review import ReviewRate
+    from ocrbench.postprocess.store_review import review_store
 
     rate = ReviewRate(seconds_per_line=seconds_per_line, chars_per_second=chars_per_second)
     try:
         lexicon = read_word_list(word_list) if word_list is not None else None
         reviews, problems = review_store(store, run, lexicon=lexicon, rate=rate, post=post, max_lines=lines,
                                          max_minutes=minutes, truth_dir=truth,
-                                         normalise=get_profile(profile.value).line)
+                                         normalise=get_profile(profile.value).line,
+                                         agreement=agreement)
         results = []
         for rev in reviews:
             res = rev.to_dict()
@@ -100,6 +105,11 @@ def _print_run(con: Console, res: dict) -> None:
     cal = res.get("calibration")
     if cal:
         _print_calibration(con, cal, res.get("head_catch"))
+    if res.get("agreement"):
+        from ocrbench.postprocess.agreement import describe
+
+        for line in describe(res["agreement"], res["agreement"]["partner"]):
+            con.print(line, markup=False, highlight=False, soft_wrap=True)
     if res.get("csv"):
         _say(con, f"  whole queue: {res['csv']}")
 

@@ -81,6 +81,10 @@ def run(
                                                     "word_list)."),
     word_list: Optional[Path] = typer.Option(None, "--word-list",
                                              help="Word list for post-processing: one entry per line, # comments."),
+    route: Optional[str] = typer.Option(None, "--route",
+                                        help="'FAST -> SLOW if doubt > X': FAST reads every line, SLOW re-reads the "
+                                             "lines whose review doubt is above X; both readings and the kept one "
+                                             "are stored (two of the --recogniser cards, by name or path)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
@@ -93,6 +97,10 @@ def run(
                    "--scheduler", EXIT_USAGE)
     if workers is not None and scheduler is not None:
         raise fail("give --workers (a cluster started here) or --scheduler (an existing one), not both", EXIT_USAGE)
+    if route is not None and (workers is not None or scheduler is not None or postprocess_on or post_steps
+                              or post_config is not None or word_list is not None or len(recogniser) != 2):
+        raise fail("--route takes exactly two --recogniser cards and runs here, without post-processing "
+                   "(not with --workers, --scheduler or --post...)", EXIT_USAGE)
     engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
                            graph_optimisation=graph_optimisation.value, providers=tuple(provider),
                            batch_size=batch_size, decoding=decoding.value,
@@ -110,7 +118,8 @@ def run(
         pipeline = None
         if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
             pipeline = load_pipeline(steps=post_steps, config=post_config, word_list=word_list)
-        summary, written = _recognise(target, recogniser, store, engine, dask, fresh, pipeline, text_out)
+        summary, written = _recognise(target, recogniser, store, engine, dask, fresh, pipeline, text_out,
+                                      route)
     except KeyboardInterrupt:
         raise fail("interrupted; finished pages are in the store: rerun the same command to resume",
                    EXIT_INTERRUPTED)
@@ -128,7 +137,7 @@ def run(
 
 
 def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh: bool, pipeline,
-               text_out: Path | None):
+               text_out: Path | None, route: str | None = None):
     """Run the pages (here, or on Dask when ``dask`` is given) with a progress bar; write the texts."""
     from ocrbench.io.files import ensure_folder
     from ocrbench.run.engine import RunOptions, run_pages
@@ -140,7 +149,13 @@ def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh
                       TextColumn("pages"), TextColumn("{task.fields[lps]} lines/s"), TimeRemainingColumn(),
                       console=Console(stderr=True), transient=False) as bar:
             progress = RunProgress(bar, bar.add_task("loading recognisers", total=None, lps="-"))
-            if dask is None:
+            if route is not None:
+                from ocrbench.run.route import parse_route
+                from ocrbench.run.routed import run_routed
+
+                summary = run_routed(target, cards, parse_route(route), store=st, options=RunOptions(engine=engine),
+                                     progress=progress, fresh=fresh)
+            elif dask is None:
                 summary = run_pages(target, cards, store=st, options=RunOptions(engine=engine),
                                     progress=progress, fresh=fresh, postprocess=pipeline)
             else:

@@ -11,6 +11,7 @@ Doubt score of a line (documented formula, all parts within 0..1)::
     doubt = w_conf  * (1 - confidence)            # unknown confidence counts as 0
           + w_sums  * ledger_part
           + w_words * unknown_word_share
+          + w_agree * agree_part                    # only with a second reader (postprocess/agreement.py)
 
 * ``ledger_part`` is 1.0 for a line whose amount cannot be read, or for a line
   on an unbalanced page in which changing one digit of the amount would
@@ -49,6 +50,7 @@ class DoubtWeights:
     confidence: float = 1.0
     arithmetic: float = 1.0
     unknown_words: float = 0.5
+    agreement: float = 1.0           # a second reader's disagreement (postprocess/agreement.py)
 
 
 @dataclass(frozen=True)
@@ -206,6 +208,11 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
     df["incomplete"] = _incomplete(df, reasons)
     df["doubt"] = (weights.confidence * df["conf_part"] + weights.arithmetic * df["ledger_part"]
                    + weights.unknown_words * df["word_part"])
+    if "agree_part" in df.columns:  # hook: two readers' disagreement, 0..1 (postprocess/agreement.py)
+        df["agree_part"] = pd.to_numeric(df["agree_part"], errors="coerce").fillna(0.0).clip(0.0, 1.0)
+        df["doubt"] += weights.agreement * df["agree_part"]
+        for i in np.flatnonzero(df["agree_part"].to_numpy() > 0):
+            reasons[i].append("another recogniser read it differently")
     df["reasons"] = ["; ".join(r) for r in reasons]
     df["seconds"] = rate.seconds(df["text"].str.len().to_numpy())
     df = df.sort_values(["incomplete", "doubt"], ascending=[False, False], kind="stable").reset_index(drop=True)
@@ -379,6 +386,7 @@ class TruthCalibration:
     calibration: Calibration | None
     edits: dict[tuple[str, int], int]
     problems: list[str]
+    lines: pd.DataFrame | None = None   # the calibrated lines in order (page_id, line_no, edits, confidence)
 
 
 def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequence[str] | None = None,
@@ -398,6 +406,7 @@ def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequenc
     by_page = {str(pid): g.sort_values("line_no") for pid, g in lines.groupby("page_id")}
     texts, confs, truths, groups = [], [], [], []
     edits: dict[tuple[str, int], int] = {}
+    used = []
     for pid in sorted(truth):
         ref, g = truth[pid], by_page.get(pid)
         if g is None or len(g) != len(ref):
@@ -411,8 +420,9 @@ def calibrate_on_truth(lines: pd.DataFrame, truth_dir: Any, *, page_ids: Sequenc
         confs += pd.to_numeric(g["confidence"], errors="coerce").astype(float).tolist()
         truths += ref
         groups += [pid] * len(ref)
+        used.append(g.assign(page_id=pid, edits=[edits[(pid, int(no))] for no in g["line_no"]]))
     cal = calibration(truths, texts, confs, page_ids=groups, normalise=normalise, seed=seed) if texts else None
-    return TruthCalibration(cal, edits, problems)
+    return TruthCalibration(cal, edits, problems, pd.concat(used, ignore_index=True) if used else None)
 
 
 @dataclass
@@ -426,6 +436,8 @@ class RunReview:
     head: pd.DataFrame
     select: dict
     truth: TruthCalibration | None = None
+    partner_run: int | None = None          # the other reader weighed in (postprocess/agreement.py)
+    agreement: dict[str, Any] | None = None  # with truth: AUROC of confidence alone vs agreement-weighted doubt
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -441,44 +453,7 @@ class RunReview:
             if cal is not None:
                 keys = {(str(r.page_id), int(r.line_no)) for r in self.head.itertuples()}
                 out["head_catch"] = head_catch(self.truth.edits, keys)
+        out["partner_run"] = self.partner_run
+        if self.agreement is not None:
+            out["agreement"] = self.agreement
         return out
-
-
-def review_store(store_path: Any, runs: Sequence[int] = (), *, lexicon: Lexicon | None = None,
-                 rate: ReviewRate = ReviewRate(), post: bool = False, max_lines: int | None = 20,
-                 max_minutes: float | None = None, truth_dir: Any = None,
-                 normalise: Callable[[str], str] | None = None) -> tuple[list[RunReview], list[str]]:
-    """Rank the lines of a store's runs (default every run) and, with ``truth_dir``, calibrate them.
-
-    Returns the reviews and the problems (one line each, naming the file or page).
-    Raises StoreError for a missing run or an unusable store.
-    """
-    from ocrbench.errors import StoreError
-    from ocrbench.store import RunStore
-
-    select: dict = {"max_minutes": max_minutes} if max_minutes is not None else {"max_lines": max_lines}
-    out: list[RunReview] = []
-    problems: list[str] = []
-    with RunStore(store_path, read_only=True) as st:
-        have = st.run_ids()
-        missing = [r for r in runs if r not in have]
-        if missing:
-            raise StoreError(f"{store_path}: no run {', '.join(map(str, missing))} in this store "
-                             f"(runs: {', '.join(map(str, have)) or 'none'})")
-        frames = st.read_frames(list(runs) or have)
-        for rid in list(runs) or have:
-            info = st.run_info(rid)
-            use_post = post and st.post_recipe(rid) is not None
-            ln, done = run_lines(frames, rid, post=use_post)
-            q = review_queue(ln[["page_id", "line_no", "text", "confidence", "truncated", "error"]],
-                             lexicon=lexicon, rate=rate,
-                             problems=problems)
-            rev = RunReview(rid, info.recogniser, "post-processed" if use_post else "raw", q, q.take(**select),
-                            select)
-            if truth_dir is not None:
-                rev.truth = calibrate_on_truth(ln, truth_dir, page_ids=done, normalise=normalise)
-                problems += rev.truth.problems
-                if rev.truth.calibration is None:
-                    problems.append(f"{truth_dir}: no page of run {rid} has usable ground truth")
-            out.append(rev)
-    return out, problems

@@ -145,6 +145,7 @@ class Card:
     input: InputSpec
     ctc: CtcSpec | None = None
     seq: SeqSpec | None = None
+    variant: dict | None = None      # [variant]: provenance of a quantised copy (recognisers/variant.py)
 
     @property
     def symbols(self) -> tuple[str, ...]:
@@ -216,6 +217,13 @@ TOP_SCHEMA = {
     "input": INPUT_SCHEMA,
     "ctc": Key((dict,)),
     "seq": Key((dict,)),
+    "variant": Key((dict,)),
+}
+#: [variant]: written by recognisers/variant.py (documented in models/README.md); source_card_hash is required.
+VARIANT_SCHEMA = {
+    "source_name": Key((str,)), "source_card_hash": Key((str,), required=True), "source_card": Key((str,)),
+    "method": Key((str,)), "operators": Key((list,), items=(str,)), "tool": Key((str,)),
+    "onnxruntime": Key((str,)), "calibration_lines": Key((int,), low=0),
 }
 CTC_SCHEMA = {
     "model": _str(required=True),
@@ -466,7 +474,8 @@ def load_card(path: Path | str, *, allow_outside: bool = False) -> Card:
         h.update(f"\n{role}={hashes[role]}".encode())
     return Card(name=name, kind=kind, description=top["description"], version=str(top["version"]),
                 path=p.resolve(), folder=folder, card_hash=h.hexdigest(), files=files.paths, file_hashes=hashes,
-                input=spec, ctc=ctc, seq=seq)
+                input=spec, ctc=ctc, seq=seq,
+                variant=None if top["variant"] is None else checked(p, top["variant"], VARIANT_SCHEMA, "variant."))
 
 
 def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
