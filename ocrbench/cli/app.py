@@ -46,13 +46,15 @@ def _root(version: bool = typer.Option(False, "--version", callback=_version, is
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
 from ocrbench.cli import (balance, demo, export, pages, plan, postprocess,  # noqa: E402
-                          report, review, run, score)
+                          quality, report, review, run, sample, score)
 
 COMMANDS = [
     ("pages", pages.pages_command),
     ("run", run.run),
     ("score", score.score_cmd),
     ("review", review.review),
+    ("quality", quality.quality_cmd),
+    ("sample", sample.sample_cmd),
     ("balance", balance.balance),
     ("plan", plan.plan),
     ("report", report.report),
