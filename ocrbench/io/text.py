@@ -133,6 +133,10 @@ def pair_store_pages(truth_dir: str | Path, page_ids: Iterable[str]) -> Pairing:
     for pid in ids:
         base = pid.partition("#")[0]
         frames[base] = frames.get(base, 0) + 1
+    stems: dict[str, int] = {}
+    for pid in ids:
+        stem = PurePosixPath(truth_candidates(pid)[0]).stem
+        stems[stem] = stems.get(stem, 0) + 1
     used: set[Path] = set()
     out = Pairing()
     for pid in ids:
@@ -143,7 +147,10 @@ def pair_store_pages(truth_dir: str | Path, page_ids: Iterable[str]) -> Pairing:
             if path.is_file():
                 found = path
                 break
-            flat = truth.get(PurePosixPath(cand).stem)   # page in a subfolder, truth kept flat
+            # page in a subfolder, truth kept flat: only when no other page shares the stem
+            # (box1/page_001.png and box2/page_001.png must not both take page_001.txt)
+            flat = truth.get(PurePosixPath(cand).stem) if stems[PurePosixPath(truth_candidates(pid)[0]).stem] == 1 \
+                else None
             if flat is not None:
                 found = flat
                 break

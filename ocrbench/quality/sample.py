@@ -7,7 +7,8 @@ optimum allocation for a fixed budget (W. G. Cochran, *Sampling Techniques*,
 stratum's candidate pages, S_h the standard deviation of its pages' expected
 edits, and c_h the cost of keying one of its pages. With ``--pages`` every page
 costs the same and this is Neyman allocation (§5.6); with ``--lines`` a page
-costs its lines, and the budget is met as Σ n_h·c_h ≤ lines. A stratum
+costs its lines, and the budget is met as Σ n_h·c_h ≤ lines with c_h the
+stratum's mean lines a page (the chosen pages meet it on average, not exactly). A stratum
 allotted more than it holds is taken whole and the rest re-allocated among the
 others (§5.8). Whole pages come from rounding by largest remainder. When no
 stratum shows any spread, the allocation falls back to proportional (n_h ∝ N_h).
