@@ -2,9 +2,12 @@
 
 Ground truth and hypotheses pair by file stem (``page_001.txt`` with
 ``page_001.txt``; a store's ``page_001.png`` with ``page_001.txt``, a TIFF frame
-``book.tif#3`` with ``book_3.txt``). Files on one side only, unreadable files
-and pages that failed in a run are listed and make the exit status 1; the rest
-is scored.
+``book.tif#3`` with ``book_3.txt``). Pages without ground truth are counted in
+one line and skipped (partial ground truth is normal; ``--require-truth`` makes
+them an error). Ground truth without a hypothesis, unreadable files and pages
+that failed in a run are listed and make the exit status 1; the rest is scored.
+``--hyp`` takes a folder of ``.txt`` files or the folder ``run --text-out``
+writes (one subfolder per recogniser, each scored as one system).
 
 With ``--json`` stdout carries one JSON object. For one recogniser (a ``--hyp``
 folder, or a store with one run or one ``--run``) the corpus figures are
@@ -56,6 +59,8 @@ def _interval(lo: float | None, hi: float | None) -> str:
 class _System:
     """One recogniser's hypotheses: a folder, or one run of a store."""
 
+    require_truth = False   # set by --require-truth: a page without ground truth is then a problem
+
     def __init__(self, name: str, run_id: int | None, rec_hash: str | None, pairing,
                  load: Callable[[Any], list[str]], failed: list[tuple[str, str]] | None = None):
         self.name, self.run_id, self.rec_hash = name, run_id, rec_hash
@@ -64,7 +69,8 @@ class _System:
         self.scores = None
 
     def problems(self) -> bool:
-        return bool(self.pairing.hyp_only or self.pairing.truth_only or self.unreadable or self.failed)
+        return bool((self.require_truth and self.pairing.hyp_only) or self.pairing.truth_only or self.unreadable
+                    or self.failed)
 
     def report(self) -> dict:
         out = dict(self.scores.summary) if self.scores is not None else {}
@@ -198,7 +204,11 @@ def _print_system(con: Console, s: _System, top: int) -> None:
 
 def _print_problems(s: _System) -> None:
     """One plain line per problem on stderr (not wrapped, so it can be grepped)."""
-    for p in s.pairing.hyp_only:
+    if s.pairing.hyp_only and not s.require_truth:
+        miss = s.pairing.hyp_only
+        typer.echo(f"ocrbench: {s.name}: {len(miss)} page(s) have no ground truth and were not scored "
+                   f"({', '.join(map(str, miss[:3]))}{', ...' if len(miss) > 3 else ''})", err=True)
+    for p in s.pairing.hyp_only if s.require_truth else ():
         typer.echo(f"ocrbench: {s.name}: no ground truth for {p}", err=True)
     for p in s.pairing.truth_only:
         typer.echo(f"ocrbench: {s.name}: no hypothesis for {p}", err=True)
@@ -225,12 +235,14 @@ def score_cmd(
     boot: int = typer.Option(2000, "--boot", min=100, help="Bootstrap resamples for the intervals."),
     seed: int = typer.Option(0, "--seed", help="Seed of the bootstrap (same seed, same interval)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
+    require_truth: bool = typer.Option(False, "--require-truth", help="A page without ground truth is an error "
+                                                                      "(exit 1); by default it is counted and skipped."),
 ) -> None:
     """Score recognised text against ground truth: CER and WER with intervals, character classes, confusions."""
     from ocrbench.accuracy.normalise import PROFILES
     from ocrbench.accuracy.score import score_pages
     from ocrbench.accuracy.stats import paired_comparison
-    from ocrbench.io.text import pair_folders, read_text_lines
+    from ocrbench.io.text import hypothesis_folders, pair_folders, read_text_lines
 
     if (hyp is None) == (store is None):
         raise fail("give exactly one of --hyp DIR or --store FILE", EXIT_USAGE)
@@ -242,11 +254,14 @@ def score_cmd(
 
     try:
         if hyp is not None:
-            systems = [_System(hyp.name or str(hyp), None, None, pair_folders(truth, hyp), read_text_lines)]
+            systems = [_System(name, None, None, pair_folders(truth, folder), read_text_lines)
+                       for name, folder in hypothesis_folders(hyp).items()]
         else:
             systems = _store_systems(store, truth, run, post)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
+    for s in systems:
+        s.require_truth = require_truth
 
     truth_cache: dict[Path, list[str] | TextFileError] = {}
 

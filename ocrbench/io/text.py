@@ -26,7 +26,7 @@ from typing import Iterable
 from ocrbench.errors import TextFileError
 
 __all__ = ["read_text_lines", "decode_text", "Pairing", "pair_folders", "pair_store_pages",
-           "truth_candidates", "TEXT_SUFFIX"]
+           "truth_candidates", "hypothesis_folders", "TEXT_SUFFIX"]
 
 TEXT_SUFFIX = ".txt"
 
@@ -90,6 +90,18 @@ def _text_files(folder: Path, what: str) -> dict[str, Path]:
         raise TextFileError(folder, f"{what} must be a folder of .txt files")
     return {p.stem: p for p in sorted(folder.iterdir())
             if p.suffix.lower() == TEXT_SUFFIX and p.is_file()}
+
+
+def hypothesis_folders(hyp_dir: str | Path) -> dict[str, Path]:
+    """The hypothesis folders under ``hyp_dir``, by name: the folder itself when it holds ``.txt`` files,
+    else each subfolder that does (the layout ``run --text-out`` writes: one subfolder per recogniser)."""
+    root = Path(hyp_dir)
+    if _text_files(root, "hypothesis"):
+        return {root.name or str(root): root}
+    subs = {p.name: p for p in sorted(root.iterdir()) if p.is_dir() and _text_files(p, "hypothesis")}
+    if not subs:
+        raise TextFileError(root, "holds no .txt files, neither directly nor in one subfolder per recogniser")
+    return subs
 
 
 def pair_folders(truth_dir: str | Path, hyp_dir: str | Path) -> Pairing:
