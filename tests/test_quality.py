@@ -204,3 +204,19 @@ def test_quality_watch_refreshes_until_interrupted(tmp_path):
     out, _ = proc.communicate(timeout=30)
     assert len(lines) == 2 and all(json.loads(x)["systems"] for x in lines)
     assert proc.returncode == 130
+
+
+def test_no_errors_in_the_keyed_sample_still_gives_an_upper_bound(tmp_path):
+    from ocrbench.quality.estimate import redraw
+
+    db, truth, _ = build_store(tmp_path, {"boxA": (20, (1.0, 1.0)), "boxB": (20, (0.9, 1.0))}, keyed={"boxA": 3})
+    [s] = quality(db, truth=truth, n_boot=300, permutations=99)["systems"]
+    cal = s["calibration"]
+    assert cal["edits"] == 0 and cal["cer"] == 0.0 and cal["cer_high"] > 0   # Wilson bound, not [0, 0]
+    for g in s["groups"]:
+        assert g["est_low"] is not None and g["est_high"] > 0
+    # the redrawn map stays non-decreasing
+    rng = np.random.default_rng(0)
+    fit = fit_isotonic(np.linspace(0, 1, 50), np.repeat([0.0, 0.01, 0.05, 0.2, 0.3], 10), np.full(50, 40.0))
+    for _ in range(20):
+        assert np.all(np.diff(redraw(fit, rng).y) >= 0)

@@ -14,7 +14,15 @@ Interval. Two bootstraps in one: each of ``n_boot`` rounds refits the map on
 the calibration pages resampled with replacement (the calibration's own
 uncertainty) and resamples the group's pages (its page-to-page spread); the
 interval is the expanded percentile interval of :mod:`ocrbench.accuracy.stats`
-with n = the smaller of the two page counts. A page's interval has only the
+with n = the smaller of the two page counts. A good recogniser makes few
+errors, and a keyed sample of a few pages may hold none in a doubt band (or at
+all): resampling pages cannot show the uncertainty of a count of zero. So each
+round also redraws every pooled block's rate from the Jeffreys posterior of a
+Poisson count, Gamma(E + ½) / C for E edits over C characters (Jeffreys'
+prior for a Poisson mean; common practice for rare-event rates), and pools the
+redrawn rates again so the map stays non-decreasing. The measured CER of the
+keyed sample gets the wider of its page-bootstrap interval and the Wilson
+interval of edits over characters, for the same reason. A page's interval has only the
 calibration part: it is the interval of the *expected* CER of a page with those
 doubts, not of that page's actual edits.
 
@@ -35,7 +43,7 @@ import pandas as pd
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, expanded_tail, resample_counts
 from ocrbench.ledger.balance import BALANCED, UNBALANCED, wilson_interval
 from ocrbench.quality.data import System
-from ocrbench.quality.isotonic import IsotonicMap, fit_isotonic
+from ocrbench.quality.isotonic import IsotonicMap, blocks, fit_isotonic, pav
 
 __all__ = ["RANGE_TOLERANCE", "Calibration", "calibrate", "estimate_groups", "estimate_pages", "balance_rate"]
 
@@ -100,12 +108,26 @@ def calibrate(system: System, *, level: float = 0.95, n_boot: int = 2000, seed: 
     lo_hi = bootstrap_ratio_ci(keyed["edits"].to_numpy(), keyed["ref_chars"].to_numpy(), n_boot=n_boot,
                                level=level, seed=seed) if len(keyed) else (None, None)
     ref = float(keyed["ref_chars"].sum())
+    if ref > 0:    # few or no errors: the page bootstrap alone would give a zero-width interval
+        wl = wilson_interval(int(min(keyed["edits"].sum(), ref)), int(ref), level=level)
+        if wl is not None:
+            lo_hi = (min(wl[0], lo_hi[0]) if lo_hi[0] is not None else wl[0],
+                     max(wl[1], lo_hi[1]) if lo_hi[1] is not None else wl[1])
     conf = ln["confidence"].to_numpy(np.float64)
     ok = ~np.isnan(conf)
     page = np.array([pos[p] for p in ln["page"]], dtype=np.int64)
     return Calibration(doubt, rate, w, page, [keys[p] for p in used], fit_isotonic(doubt, rate, w),
                        float(keyed["edits"].sum()) / ref if ref > 0 else None, lo_hi[0], lo_hi[1],
                        balance_rate(keyed["balance"], level), conf[ok], page[ok], level)
+
+
+def redraw(fit: IsotonicMap, rng: np.random.Generator) -> IsotonicMap:
+    """The map with each pooled block's rate redrawn from Gamma(E + 1/2) / C, pooled again (see the notes)."""
+    start, c = blocks(fit)
+    e = fit.y[start] * c
+    r = rng.gamma(e + 0.5) / c
+    r = pav(r, c)
+    return IsotonicMap(fit.x, np.repeat(r, np.diff(np.r_[start, fit.x.size])), fit.w)
 
 
 def _boot_page_edits(system: System, cal: Calibration, n_boot: int, seed: int) -> np.ndarray:
@@ -117,9 +139,10 @@ def _boot_page_edits(system: System, cal: Calibration, n_boot: int, seed: int) -
     n_pages = len(system.pages)
     out = np.empty((n_boot, n_pages), dtype=np.float32)
     row = 0
+    rng = np.random.default_rng([seed, 1])
     for block in resample_counts(cal.n_pages, n_boot, seed):
         for counts in block:
-            m = fit_isotonic(cal.doubt, cal.rate, cal.weight * counts[cal.page])
+            m = redraw(fit_isotonic(cal.doubt, cal.rate, cal.weight * counts[cal.page]), rng)
             out[row] = np.bincount(pg, weights=m(d) * ch, minlength=n_pages)
             row += 1
     keyed = system.pages["keyed"].to_numpy()

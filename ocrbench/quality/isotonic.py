@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["pav", "IsotonicMap", "fit_isotonic"]
+__all__ = ["pav", "IsotonicMap", "fit_isotonic", "blocks"]
 
 
 def pav(y: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -50,10 +50,14 @@ def pav(y: np.ndarray, w: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class IsotonicMap:
-    """A fitted non-decreasing map: ``x`` (sorted, unique) to ``y`` (fitted), linear in between."""
+    """A fitted non-decreasing map: ``x`` (sorted, unique) to ``y`` (fitted), linear in between.
+
+    ``w``: the summed weight behind each ``x`` (after pooling ties).
+    """
 
     x: np.ndarray
     y: np.ndarray
+    w: np.ndarray
 
     def __call__(self, values: np.ndarray | float) -> np.ndarray:
         return np.interp(np.asarray(values, dtype=np.float64), self.x, self.y)
@@ -88,4 +92,10 @@ def fit_isotonic(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None) -> I
     if not keep.any():
         raise ValueError("isotonic fit needs at least one point with positive weight")
     ux, uy, uw = _pool_ties(x[keep], y[keep], w[keep])
-    return IsotonicMap(ux, pav(uy, uw))
+    return IsotonicMap(ux, pav(uy, uw), uw)
+
+
+def blocks(fit: IsotonicMap) -> tuple[np.ndarray, np.ndarray]:
+    """Start index of each pooled block (a run of equal fitted values) and the block's summed weight."""
+    start = np.flatnonzero(np.r_[True, np.diff(fit.y) != 0])
+    return start, np.add.reduceat(fit.w, start)
