@@ -184,6 +184,13 @@ def test_quality_cli_json_groupings_and_refusals(tmp_path):
         assert r.exit_code == 0 and len(json.loads(r.stdout)["systems"][0]["groups"]) == n
     r = runner.invoke(app, ["quality", str(db), "--truth", str(truth), "--boot", "100"])
     assert r.exit_code == 0 and "boxC" in r.stdout and "confidence distribution differs" in r.stdout
+    csv = tmp_path / "pages.csv"
+    r = runner.invoke(app, ["quality", str(db), "--truth", str(truth), "--boot", "100", "--pages-csv", str(csv)])
+    assert r.exit_code == 0, r.output
+    import pandas as pd
+
+    pages = pd.read_csv(csv)
+    assert len(pages) == 120 and {"page_id", "group", "est_cer", "est_low", "est_high", "beyond_range"} <= set(pages)
     assert runner.invoke(app, ["quality", str(db), "--by", "week"]).exit_code == 2
     r = runner.invoke(app, ["quality", str(tmp_path / "none.sqlite")])
     assert r.exit_code == 2 and "not found" in r.output

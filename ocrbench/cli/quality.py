@@ -53,6 +53,23 @@ def _print(res: dict) -> None:
             typer.echo(f"ocrbench: {p}", err=True)
 
 
+def _write_pages(res: dict, path: Path) -> None:
+    import pandas as pd
+
+    frames = []
+    for s in res["systems"]:
+        df = s.pop("pages", None)
+        if df is not None:
+            frames.append(df.assign(recogniser=s["recogniser"]))
+    if not frames:
+        typer.echo("ocrbench: no keyed pages, so no page estimates to write (give --truth DIR)", err=True)
+        return
+    try:
+        pd.concat(frames, ignore_index=True).to_csv(path, index=False)
+    except OSError as e:
+        raise fail(f"{path}: cannot write the page estimates ({e.strerror or e})", EXIT_USAGE)
+
+
 def quality_cmd(
     store: Path = typer.Argument(..., help="A run store written by 'ocrbench run' (read-only; a run may be writing it)."),
     truth: Optional[Path] = typer.Option(None, "--truth", help="Ground truth of the keyed pages (.txt beside or "
@@ -64,6 +81,8 @@ def quality_cmd(
     profile: str = typer.Option("nfc", "--profile", help="Normalisation before comparing with the truth."),
     boot: int = typer.Option(400, "--boot", min=50, help="Bootstrap rounds for the intervals."),
     seed: int = typer.Option(0, "--seed", help="Seed of the bootstrap and permutation tests."),
+    pages_csv: Optional[Path] = typer.Option(None, "--pages-csv", help="Also write every page's estimated CER "
+                                                                      "with its interval to this CSV."),
     watch: Optional[float] = typer.Option(None, "--watch", min=0.1, metavar="SECONDS",
                                           help="Refresh every SECONDS until Ctrl-C."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
@@ -84,7 +103,9 @@ def quality_cmd(
         lexicon = read_word_list(word_list) if word_list is not None else None
         while True:
             res = quality(store, truth=truth, by=by, profile=profile, lexicon=lexicon, post=post, runs=run or None,
-                          n_boot=boot, seed=seed)
+                          n_boot=boot, seed=seed, with_pages=pages_csv is not None)
+            if pages_csv is not None:
+                _write_pages(res, pages_csv)
             if as_json:
                 typer.echo(json.dumps(res, ensure_ascii=False, default=float))
             else:

@@ -12,7 +12,8 @@ from ocrbench.accuracy.stats import bootstrap_ratio_ci
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.quality.data import DEFAULT_QUEUE_DOUBT, System, read_snapshot, systems_of
 from ocrbench.quality.drift import DEFAULT_ALPHA, holm, ks_page_permutation
-from ocrbench.quality.estimate import RANGE_TOLERANCE, Calibration, balance_rate, calibrate, estimate_groups
+from ocrbench.quality.estimate import (RANGE_TOLERANCE, Calibration, balance_rate, calibrate, estimate_groups,
+                                       estimate_pages)
 
 __all__ = ["quality", "group_rows", "drift_flags"]
 
@@ -95,8 +96,13 @@ def drift_flags(system: System, cal: Calibration, rows: list[dict[str, Any]], *,
 def quality(store: Path | str, *, truth: Path | None = None, by: str = "collection", profile: str = "nfc",
             lexicon: Lexicon | None = None, post: bool = False, runs: Sequence[int] | None = None,
             queue_doubt: float = DEFAULT_QUEUE_DOUBT, level: float = 0.95, n_boot: int = 400,
-            permutations: int = 999, alpha: float = DEFAULT_ALPHA, seed: int = 0) -> dict[str, Any]:
-    """Quality figures of a run store, per recogniser and group (see the package notes)."""
+            permutations: int = 999, alpha: float = DEFAULT_ALPHA, seed: int = 0,
+            with_pages: bool = False) -> dict[str, Any]:
+    """Quality figures of a run store, per recogniser and group (see the package notes).
+
+    ``with_pages``: each system also carries ``pages``, a DataFrame of per-page estimates
+    (:func:`ocrbench.quality.estimate.estimate_pages`; None without keyed pages) — not JSON.
+    """
     snap = read_snapshot(store, post=post)
     out: dict[str, Any] = {"store": str(store), "by": by, "level": level, "truth": None if truth is None else str(truth),
                            "queue_doubt": queue_doubt, "range_tolerance": RANGE_TOLERANCE, "alpha": alpha,
@@ -110,4 +116,7 @@ def quality(store: Path | str, *, truth: Path | None = None, by: str = "collecti
         out["systems"].append({"recogniser": system.name, "card_hash": system.card_hash, "runs": system.run_ids,
                                "calibration": None if cal is None else cal.to_dict(), "groups": rows,
                                "problems": system.problems})
+        if with_pages:
+            out["systems"][-1]["pages"] = (estimate_pages(system, cal, n_boot=n_boot, seed=seed)
+                                           if cal is not None else None)
     return out
