@@ -47,32 +47,44 @@ def group_rows(system: System, cal: Calibration | None, *, level: float = 0.95, 
     return rows
 
 
-def _confidences(system: System, group: str) -> tuple[np.ndarray, np.ndarray]:
+def _lines_of(system: System, pages: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Confidences (NaN left out) and page rows of the lines on the given page rows."""
     ln = system.lines
-    pg = system.pages["group"].to_numpy()[ln["page"].to_numpy()]
+    pg = ln["page"].to_numpy()
     c = ln["confidence"].to_numpy(np.float64)
-    keep = (pg == group) & ~np.isnan(c)
-    return c[keep], ln["page"].to_numpy()[keep]
+    keep = np.isin(pg, pages) & ~np.isnan(c)
+    return c[keep], pg[keep]
+
+
+def _reference(system: System, group: str) -> np.ndarray:
+    """Page rows of the calibrated population without ``group`` (see :mod:`ocrbench.quality.drift`)."""
+    p = system.pages
+    calibrated = set(p.loc[p["keyed"], "group"])
+    ok = (p["status"] == "done") & p["group"].isin(calibrated - {group})
+    return np.flatnonzero(ok.to_numpy())
 
 
 def drift_flags(system: System, cal: Calibration, rows: list[dict[str, Any]], *, alpha: float = DEFAULT_ALPHA,
                 permutations: int = 999, seed: int = 0) -> None:
     """Add a ``drift`` entry to each row (in place): KS on confidence with Holm, CER and balance shifts."""
-    tests = []
-    cal_median = float(np.median(cal.confidence)) if cal.confidence.size else None
+    tests, refs = [], []
+    groups = system.pages["group"].to_numpy()
     for k, row in enumerate(rows):
-        c, pg = _confidences(system, row["group"])
-        if c.size == 0 or cal.confidence.size == 0:
+        ref = _reference(system, row["group"])
+        refs.append(ref)
+        own = np.flatnonzero((groups == row["group"]) & (system.pages["status"] == "done").to_numpy())
+        a, pa = _lines_of(system, ref)
+        b, pb = _lines_of(system, own)
+        if a.size == 0 or b.size == 0:
             tests.append((None, None, None))
             continue
-        d, p = ks_page_permutation(cal.confidence, cal.conf_page, c, pg, permutations=permutations, seed=seed + k)
-        tests.append((d, p, float(np.median(c)) - cal_median if cal_median is not None else None))
+        d, p = ks_page_permutation(a, pa, b, pb, permutations=permutations, seed=seed + k)
+        tests.append((d, p, float(np.median(b)) - float(np.median(a))))
     adjusted = holm([t[1] for t in tests])
-    r, lo, hi, _ = cal.balance
-    for row, (d, p, shift), p_adj in zip(rows, tests, adjusted):
+    for row, (d, p, shift), p_adj, ref in zip(rows, tests, adjusted, refs):
         reasons = []
         if p_adj is not None and p_adj < alpha:
-            reasons.append(f"confidence distribution differs from the keyed sample's (KS D = {d:.3f}, "
+            reasons.append(f"confidence distribution differs from the calibrated collections' (KS D = {d:.3f}, "
                            f"Holm-adjusted p = {p_adj:.3g}; median confidence {shift:+.4f})")
         est = row.get("est_cer")
         cer_shift = None
@@ -82,15 +94,18 @@ def drift_flags(system: System, cal: Calibration, rows: list[dict[str, Any]], *,
                 ratio = f", {est / cal.cer:.2f}x" if cal.cer > 0 else ""
                 reasons.append(f"estimated CER {100 * est:.2f}% outside the keyed sample's "
                                f"{100 * cal.cer_low:.2f}-{100 * cal.cer_high:.2f}% ({100 * cer_shift:+.2f} points{ratio})")
-        bal = row.get("balance_rate")
+        bal, lo, hi = row.get("balance_rate"), row.get("balance_low"), row.get("balance_high")
+        r, r_lo, r_hi, _ = balance_rate(system.pages["balance"].iloc[ref]) if ref.size else (None, None, None, 0)
         bal_shift = None
         if bal is not None and r is not None:
             bal_shift = bal - r
-            if not lo <= bal <= hi:  # type: ignore[operator]
-                reasons.append(f"balance rate {100 * bal:.0f}% outside the keyed sample's "
-                               f"{100 * lo:.0f}-{100 * hi:.0f}% ({100 * bal_shift:+.0f} points)")  # type: ignore[operator]
+            if hi < r_lo or lo > r_hi:      # the two Wilson intervals do not overlap
+                reasons.append(f"balance rate {100 * bal:.0f}% [{100 * lo:.0f}-{100 * hi:.0f}] against "
+                               f"{100 * r:.0f}% [{100 * r_lo:.0f}-{100 * r_hi:.0f}] in the calibrated collections "
+                               f"({100 * bal_shift:+.0f} points)")
         row["drift"] = {"flagged": bool(reasons), "reasons": reasons, "ks_d": d, "ks_p": p, "ks_p_holm": p_adj,
-                        "median_confidence_shift": shift, "cer_shift": cer_shift, "balance_shift": bal_shift}
+                        "median_confidence_shift": shift, "cer_shift": cer_shift, "balance_shift": bal_shift,
+                        "reference_pages": int(ref.size)}
 
 
 def quality(store: Path | str, *, truth: Path | None = None, by: str = "collection", profile: str = "nfc",

@@ -11,11 +11,12 @@ Nothing is asserted; figures are printed, with ``RATIO <name> <value> <target>``
    training, degradation applied twice plus extra blur).
 2. The CTC demo recogniser reads every page into one run store (page ids ``<collection>/<page>``).
 3. ``ocrbench sample`` logic picks ≤ 5 % of the first four collections' pages (stratified by collection
-   and doubt, Neyman allocation); their ground truth is the keyed sample.
+   and doubt, Neyman allocation); their ground truth is the keyed sample. This is repeated with
+   ``--repeats`` different seeds (default 5) and the figures averaged over the repeats.
 4. ``quality`` estimates every collection's CER from the keyed sample alone; the measured CER uses the
    ground truth of every page. Reported: the share of collections whose measured CER lies inside the
    estimate's interval (target ≥ 0.8), whether ``worse`` is flagged as drifted (target 1) and whether
-   ``like_sample`` is not (target 0).
+   ``like_sample`` is not (target 0), and the median interval width relative to its estimate.
 
 Run: .venv/bin/python tests/benchmarks/bench_quality.py [--pages N] [--quick] [--keep DIR]
 """
@@ -110,12 +111,48 @@ def write_truth(folder: Path, truth: dict[str, list[str]], page_ids) -> None:
         p.write_text("".join(t + "\n" for t in truth[pid]), encoding="utf-8")
 
 
+def summarise(res: dict, measured: dict, *, verbose: bool, seconds: float, keyed_note: str) -> dict:
+    """Coverage and drift flags of one keyed sample (printed in full when ``verbose``)."""
+    [s] = res["systems"]
+    cal = s["calibration"]
+    inside, widths = {}, []
+    if verbose:
+        say(f"keyed sample: {keyed_note}")
+        say(f"calibration: {cal['pages']} pages, {cal['lines']} lines, CER {100 * cal['cer']:.2f} % "
+            f"[{100 * cal['cer_low']:.2f}-{100 * cal['cer_high']:.2f}]; quality took {seconds:.1f} s")
+        say(f"{'collection':18} {'keyed':>5} {'estimated CER [interval]':>28} {'measured':>9} in  "
+            f"{'beyond':>6} {'KS D':>5} {'p(Holm)':>7} drift")
+    for g in s["groups"]:
+        m = measured[g["group"]]["measured_cer"]
+        inside[g["group"]] = g["est_low"] is not None and g["est_low"] <= m <= g["est_high"]
+        if g["est_cer"]:
+            widths.append((g["est_high"] - g["est_low"]) / g["est_cer"])
+        d = g["drift"]
+        if verbose:
+            say(f"{g['group']:18} {g['keyed_pages']:5d} {100 * g['est_cer']:8.2f} % [{100 * g['est_low']:6.2f}-"
+                f"{100 * g['est_high']:6.2f}] {100 * m:8.2f} % {'yes' if inside[g['group']] else 'NO ':3} "
+                f"{100 * g['beyond_range']:5.1f}% {d['ks_d']:5.2f} {d['ks_p_holm']:7.3f} "
+                f"{'; '.join(d['reasons']) or 'no'}")
+    flags = {g["group"]: g["drift"]["flagged"] for g in s["groups"]}
+    not_worse = [c for c in inside if c != "worse"]
+    out = {"inside": sum(inside.values()) / len(inside),
+           "inside_not_worse": sum(inside[c] for c in not_worse) / len(not_worse),
+           "worse_flagged": float(flags["worse"]), "like_flagged": float(flags["like_sample"]),
+           "width_ratio": float(sorted(widths)[len(widths) // 2])}
+    say("  sample: " + ", ".join(f"{k} {v:.2f}" for k, v in out.items()))
+    like = next(g for g in s["groups"] if g["group"] == "like_sample")
+    if like["drift"]["flagged"]:
+        say("    like_sample flagged: " + "; ".join(like["drift"]["reasons"]))
+    return out
+
+
 def main(argv=None) -> dict:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--pages", type=int, default=40, help="pages per collection (default 40)")
     ap.add_argument("--quick", action="store_true", help="12 pages per collection")
     ap.add_argument("--share", type=float, default=0.05, help="keyed share of the first four collections")
     ap.add_argument("--seed", type=int, default=7)
+    ap.add_argument("--repeats", type=int, default=5, help="keyed samples drawn (seeds seed, seed+1, ...)")
     ap.add_argument("--models", type=Path, default=None)
     ap.add_argument("--keep", type=Path, default=None, help="keep (or reuse) pages and store in this folder")
     a = ap.parse_args(argv)
@@ -142,50 +179,37 @@ def main(argv=None) -> dict:
             say(f"rendering and reading {n} pages in each of {len(KNOWN + LATER)} collections")
             truth = build(work / "scans", store, models, n, a.seed)
             truth_file.write_text(json.dumps(truth))
-        # The keyed sample: <= share of the first four collections' pages, drawn before the later boxes arrived.
+        every = work / "truth_all"
+        shutil.rmtree(every, ignore_errors=True)
+        write_truth(every, truth, truth.keys())
+        measured = {g["group"]: g for g in quality(store, truth=every, n_boot=200, permutations=9)["systems"][0]["groups"]}
         snap = read_snapshot(store)
         known = snap.pages[snap.pages["page_id"].str.split("/").str[0].isin(KNOWN)]
         snap_known = replace(snap, pages=known, lines=snap.lines[snap.lines["page_id"].isin(set(known["page_id"]))])
         [system] = systems_of(snap_known)
         n_key = max(2, int(a.share * len(known)))
-        plan = plan_sample(snap_known, system, calibrate(system), pages=n_key, seed=a.seed)
-        keyed = work / "keyed"
-        shutil.rmtree(keyed, ignore_errors=True)
-        write_truth(keyed, truth, plan.pages["page_id"])
-        every = work / "truth_all"
-        shutil.rmtree(every, ignore_errors=True)
-        write_truth(every, truth, truth.keys())
-        say(f"keyed sample: {len(plan.pages)} of {len(known)} pages of the first four collections "
-            f"({100 * len(plan.pages) / len(known):.1f} %), {len(plan.pages) / len(truth):.1%} of all pages")
-
-        t0 = time.perf_counter()
-        res = quality(store, truth=keyed, n_boot=1000, permutations=999, seed=a.seed)
-        t_quality = time.perf_counter() - t0
-        measured = {g["group"]: g for g in quality(store, truth=every, n_boot=200, permutations=9)["systems"][0]["groups"]}
-        [s] = res["systems"]
-        cal = s["calibration"]
-        say(f"calibration: {cal['pages']} pages, {cal['lines']} lines, CER {100 * cal['cer']:.2f} % "
-            f"[{100 * cal['cer_low']:.2f}-{100 * cal['cer_high']:.2f}]; quality took {t_quality:.1f} s")
-        say(f"{'collection':18} {'keyed':>5} {'estimated CER [interval]':>28} {'measured':>9} in  "
-            f"{'beyond':>6} {'KS D':>5} {'p(Holm)':>7} drift")
-        inside = {}
-        for g in s["groups"]:
-            m = measured[g["group"]]["measured_cer"]
-            inside[g["group"]] = g["est_low"] is not None and g["est_low"] <= m <= g["est_high"]
-            d = g["drift"]
-            say(f"{g['group']:18} {g['keyed_pages']:5d} {100 * g['est_cer']:8.2f} % [{100 * g['est_low']:6.2f}-"
-                f"{100 * g['est_high']:6.2f}] {100 * m:8.2f} % {'yes' if inside[g['group']] else 'NO ':3} "
-                f"{100 * g['beyond_range']:5.1f}% {d['ks_d']:5.2f} {d['ks_p_holm']:7.3f} "
-                f"{'; '.join(d['reasons']) or 'no'}")
-        flags = {g["group"]: g["drift"]["flagged"] for g in s["groups"]}
-        share_all = sum(inside.values()) / len(inside)
-        not_worse = [c for c in inside if c != "worse"]
-        share_nw = sum(inside[c] for c in not_worse) / len(not_worse)
-        ratios = {"quality_measured_inside_interval_share": (share_all, ">=0.8"),
-                  "quality_measured_inside_interval_share_without_worse": (share_nw, "info"),
-                  "quality_worse_collection_flagged": (float(flags["worse"]), ">=1"),
-                  "quality_like_collection_flagged": (float(flags["like_sample"]), "<=0"),
-                  "quality_keyed_share_of_pages": (len(plan.pages) / len(truth), "<=0.05")}
+        runs = []
+        for rep in range(a.repeats):
+            # The keyed sample: <= share of the first four collections' pages, drawn before the later boxes arrived.
+            plan = plan_sample(snap_known, system, calibrate(system), pages=n_key, seed=a.seed + rep)
+            keyed = work / "keyed"
+            shutil.rmtree(keyed, ignore_errors=True)
+            write_truth(keyed, truth, plan.pages["page_id"])
+            t0 = time.perf_counter()
+            res = quality(store, truth=keyed, n_boot=1000, permutations=999, seed=a.seed + rep)
+            runs.append(summarise(res, measured, verbose=rep == 0, seconds=time.perf_counter() - t0,
+                                  keyed_note=f"{len(plan.pages)} of {len(known)} pages of the first four collections "
+                                             f"({100 * len(plan.pages) / len(known):.1f} %), "
+                                             f"{len(plan.pages) / len(truth):.1%} of all pages"))
+        mean = {k: sum(r[k] for r in runs) / len(runs) for k in runs[0]}
+        say(f"over {len(runs)} keyed samples (seeds {a.seed}..{a.seed + len(runs) - 1}): " + ", ".join(
+            f"{k} {v:.2f}" for k, v in mean.items()))
+        ratios = {"quality_measured_inside_interval_share": (mean["inside"], ">=0.8"),
+                  "quality_measured_inside_interval_share_without_worse": (mean["inside_not_worse"], "info"),
+                  "quality_worse_collection_flagged": (mean["worse_flagged"], ">=1"),
+                  "quality_like_collection_flagged": (mean["like_flagged"], "<=0"),
+                  "quality_median_interval_width_ratio": (mean["width_ratio"], "info"),
+                  "quality_keyed_share_of_pages": (n_key / len(truth), "<=0.05")}
         for name, (v, target) in ratios.items():
             say(f"RATIO {name} {v:.3f} {target}")
         return ratios
