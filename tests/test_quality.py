@@ -227,3 +227,14 @@ def test_no_errors_in_the_keyed_sample_still_gives_an_upper_bound(tmp_path):
     fit = fit_isotonic(np.linspace(0, 1, 50), np.repeat([0.0, 0.01, 0.05, 0.2, 0.3], 10), np.full(50, 40.0))
     for _ in range(20):
         assert np.all(np.diff(redraw(fit, rng).y) >= 0)
+
+
+def test_between_group_spread_by_moments_hand_worked():
+    from ocrbench.quality.estimate import DEFAULT_SPREAD, MIN_GROUPS, level_and_spread
+
+    # By hand: R = 30/25 = 1.2; Σ(y - Rx)² = 16 + 16 = 32; minus Σ Rx = 30 -> 2; over R²Σx² = 1.44 * 125 = 180
+    r, tau2 = level_and_spread(np.array([10, 2, 6, 6, 6.0]), np.full(5, 5.0))
+    assert MIN_GROUPS <= 5 and abs(r - 1.2) < 1e-12 and abs(tau2 - 2 / 180) < 1e-12
+    # two groups: 32 - 12 = 20 over 1.44 * 50 = 72 -> 0.278, below the floor for so few groups
+    assert level_and_spread(np.array([10, 2.0]), np.array([5, 5.0])) == (1.2, max(20 / 72, DEFAULT_SPREAD))
+    assert level_and_spread(np.array([0, 0.0]), np.array([5, 5.0]))[0] is None      # nothing measured
