@@ -139,7 +139,9 @@ def summarise(res: dict, measured: dict, *, verbose: bool, seconds: float, keyed
            "inside_not_worse": sum(inside[c] for c in not_worse) / len(not_worse),
            "worse_flagged": float(flags["worse"]), "like_flagged": float(flags["like_sample"]),
            "width_ratio": float(sorted(widths)[len(widths) // 2])}
-    say("  sample: " + ", ".join(f"{k} {v:.2f}" for k, v in out.items()))
+    say("  sample: " + ", ".join(f"{k} {v:.2f}" for k, v in out.items())
+        + "; drifted: " + (", ".join(g for g, f in flags.items() if f) or "none")
+        + "; measured outside: " + (", ".join(g for g, i in inside.items() if not i) or "none"))
     like = next(g for g in s["groups"] if g["group"] == "like_sample")
     if like["drift"]["flagged"]:
         say("    like_sample flagged: " + "; ".join(like["drift"]["reasons"]))
