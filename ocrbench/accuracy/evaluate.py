@@ -23,7 +23,7 @@ import pandas as pd
 from ocrbench.accuracy.score import MAX_ALIGN_CHARS, Scores, score_pages
 from ocrbench.accuracy.stats import paired_comparison
 from ocrbench.errors import StoreError, TextFileError
-from ocrbench.io.text import Pairing, pair_folders, pair_store_pages, read_text_lines
+from ocrbench.io.text import Pairing, hypothesis_folders, pair_folders, pair_store_pages, read_text_lines
 
 __all__ = ["PostText", "System", "TruthReader", "Evaluation", "folder_systems", "store_systems",
            "score_systems", "compare", "compare_systems", "evaluate_store", "evaluate_folders",
@@ -55,10 +55,12 @@ class System:
     recogniser: str | None = None
     unreadable: list[dict[str, str]] = field(default_factory=list)
     scores: Scores | None = None
+    require_truth: bool = False          # a page without ground truth is a problem (else counted and skipped)
 
     def problems(self) -> bool:
-        """True when some input could not be paired, read or recognised."""
-        return bool(self.pairing.hyp_only or self.pairing.truth_only or self.unreadable or self.failed)
+        """True when some input could not be paired, read or recognised (partial ground truth is normal)."""
+        return bool((self.require_truth and self.pairing.hyp_only) or self.pairing.truth_only or self.unreadable
+                    or self.failed)
 
     @property
     def scored(self) -> bool:
@@ -79,7 +81,12 @@ class System:
 
     def problem_lines(self) -> list[str]:
         """One plain line per problem (for stderr)."""
-        out = [f"{self.name}: no ground truth for {p}" for p in self.pairing.hyp_only]
+        miss = self.pairing.hyp_only
+        if self.require_truth:
+            out = [f"{self.name}: no ground truth for {p}" for p in miss]
+        else:
+            out = [f"{self.name}: {len(miss)} page(s) have no ground truth and were not scored "
+                   f"({', '.join(map(str, miss[:3]))}{', ...' if len(miss) > 3 else ''})"] if miss else []
         out += [f"{self.name}: no hypothesis for {p}" for p in self.pairing.truth_only]
         out += [f"{u['path']}: {u['error']}" for u in self.unreadable]
         out += [f"{self.name}: page {pid} failed in the run: {e}" for pid, e in self.failed]
@@ -154,9 +161,10 @@ class Evaluation:
 
 
 def folder_systems(truth_dir: Path | str, hyp_dir: Path | str) -> list[System]:
-    """The one system of a hypothesis folder, paired with the truth folder by file stem."""
-    hyp = Path(hyp_dir)
-    return [System(hyp.name or str(hyp), None, None, pair_folders(truth_dir, hyp), read_text_lines)]
+    """The systems of a hypothesis folder, paired with the truth folder by file stem: the folder itself
+    when it holds ``.txt`` files, else one system per subfolder (the layout ``run --text-out`` writes)."""
+    return [System(name, None, None, pair_folders(truth_dir, folder), read_text_lines)
+            for name, folder in hypothesis_folders(hyp_dir).items()]
 
 
 def store_systems(store_path: Path | str, truth_dir: Path | str, runs: Sequence[int] | None = None,

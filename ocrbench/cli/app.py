@@ -99,13 +99,15 @@ def guarded(fn: Callable) -> Callable:
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
 from ocrbench.cli import (balance, demo, export, measure, pages, plan, postprocess,  # noqa: E402
-                          report, review, run, score, tune, variant)
+                          quality, report, review, run, sample, score, tune, variant)
 
 COMMANDS = [
     ("pages", pages.pages_command),
     ("run", run.run),
     ("score", score.score_cmd),
     ("review", review.review),
+    ("quality", quality.quality_cmd),
+    ("sample", sample.sample_cmd),
     ("balance", balance.balance),
     ("plan", plan.plan),
     ("report", report.report),

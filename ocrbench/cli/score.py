@@ -2,9 +2,12 @@
 
 Ground truth and hypotheses pair by file stem (``page_001.txt`` with
 ``page_001.txt``; a store's ``page_001.png`` with ``page_001.txt``, a TIFF frame
-``book.tif#3`` with ``book_3.txt``). Files on one side only, unreadable files
-and pages that failed in a run are listed and make the exit status 1; the rest
-is scored (:mod:`ocrbench.accuracy.evaluate`).
+``book.tif#3`` with ``book_3.txt``). Pages without ground truth are counted in
+one line and skipped (partial ground truth is normal; ``--require-truth`` makes
+them an error). Ground truth without a hypothesis, unreadable files and pages
+that failed in a run are listed and make the exit status 1; the rest is scored
+(:mod:`ocrbench.accuracy.evaluate`). ``--hyp`` takes a folder of ``.txt`` files
+or the folder ``run --text-out`` writes (one subfolder per recogniser).
 
 With ``--json`` stdout carries one JSON object. For one recogniser (a ``--hyp``
 folder, or a store with one run or one ``--run``) the corpus figures are
@@ -46,6 +49,8 @@ def score_cmd(
                                                                 "classes, confusions or amounts (faster)."),
     boot: int = typer.Option(2000, "--boot", min=100, help="Bootstrap resamples for the intervals."),
     seed: int = typer.Option(0, "--seed", help="Seed of the bootstrap (same seed, same interval)."),
+    require_truth: bool = typer.Option(False, "--require-truth", help="A page without ground truth is an error "
+                                                                      "(exit 1); by default it is counted and skipped."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Score recognised text against ground truth: CER and WER with intervals, character classes, confusions."""
@@ -63,6 +68,8 @@ def score_cmd(
             systems, notes = folder_systems(truth, hyp), []
         else:
             systems, notes = store_systems(store, truth, run, PostText.BOTH if post else PostText.RAW)
+        for s in systems:
+            s.require_truth = require_truth
         for note in notes:
             err.print(f"ocrbench: {note}", markup=False, highlight=False, soft_wrap=True)
         with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), console=err,

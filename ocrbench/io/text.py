@@ -46,7 +46,7 @@ from ocrbench.io.tree import walk_files
 
 __all__ = ["read_text_lines", "read_text", "decode_text", "decode_utf8", "split_lines", "Pairing", "pair_folders",
            "pair_store_pages", "truth_candidates", "TEXT_SUFFIX", "ALTO_SUFFIX", "MULTI_FRAME_SUFFIXES",
-           "printable_name", "split_page_id", "text_stem", "text_names"]
+           "printable_name", "hypothesis_folders", "split_page_id", "text_stem", "text_names"]
 
 TEXT_SUFFIX = ".txt"
 ALTO_SUFFIX = ".alto.xml"
@@ -233,6 +233,18 @@ def _text_files(folder: Path, what: str, *, alto: bool = False) -> dict[str, Pat
         elif alto and low.endswith(ALTO_SUFFIX):
             found.setdefault(rel[: -len(ALTO_SUFFIX)], p)
     return found
+
+
+def hypothesis_folders(hyp_dir: str | Path) -> dict[str, Path]:
+    """The hypothesis folders under ``hyp_dir``, by name: the folder itself when it holds ``.txt`` files,
+    else each subfolder that does (the layout ``run --text-out`` writes: one subfolder per recogniser)."""
+    root = Path(hyp_dir)
+    if _text_files(root, "hypothesis"):
+        return {root.name or str(root): root}
+    subs = {p.name: p for p in sorted(root.iterdir()) if p.is_dir() and _text_files(p, "hypothesis")}
+    if not subs:
+        raise TextFileError(root, "holds no .txt files, neither directly nor in one subfolder per recogniser")
+    return subs
 
 
 def pair_folders(truth_dir: str | Path, hyp_dir: str | Path) -> Pairing:

@@ -1,0 +1,80 @@
+"""``ocrbench sample STORE --pages N | --lines N --out DIR``: which pages to key by hand next.
+
+Pages are stratified by collection and by doubt and allocated by Neyman
+(optimum) allocation; within a stratum they are drawn at random (seeded). DIR
+receives ``sample.csv`` and one keying template per page (the recognised text,
+one line per line, at ``<folder>/<stem>.txt``): correct the templates and pass
+DIR as ``--truth`` to ``quality`` or ``score``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Optional
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, fail
+from ocrbench.errors import OcrbenchError
+
+
+def sample_cmd(
+    store: Path = typer.Argument(..., help="A run store written by 'ocrbench run'."),
+    out: Path = typer.Option(..., "--out", help="Folder for sample.csv and the keying templates."),
+    pages: Optional[int] = typer.Option(None, "--pages", min=1, help="Pages to key."),
+    lines: Optional[int] = typer.Option(None, "--lines", min=1, help="Instead of --pages: a budget of lines to key."),
+    truth: Optional[Path] = typer.Option(None, "--truth", help="Ground truth keyed so far: those pages are not "
+                                                               "chosen again, and they calibrate the doubt."),
+    run: Optional[int] = typer.Option(None, "--run", help="Run whose pages and text to use (default: the one "
+                                                          "with most pages)."),
+    bands: int = typer.Option(3, "--bands", min=1, help="Doubt bands per collection."),
+    post: bool = typer.Option(False, "--post", help="Templates from the post-processed text where the run has it."),
+    seed: int = typer.Option(0, "--seed", help="Seed of the random choice within strata."),
+    as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
+) -> None:
+    """Pick pages to key next (stratified by collection and doubt) and write keying templates."""
+    from ocrbench.quality.data import read_snapshot, systems_of
+    from ocrbench.quality.estimate import calibrate
+    from ocrbench.quality.sample import plan_sample, write_sample
+
+    if (pages is None) == (lines is None):
+        raise fail("give exactly one of --pages N or --lines N", EXIT_USAGE)
+    if truth is not None and not truth.is_dir():
+        raise fail(f"{truth}: --truth must be a folder of .txt files", EXIT_USAGE)
+    try:
+        snap = read_snapshot(store, post=post)
+        have = [int(r) for r in snap.runs["run_id"]]
+        if run is not None and run not in have:
+            raise fail(f"{store}: no run {run} in this store (runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
+        systems = systems_of(snap, truth=truth, runs=[run] if run is not None else None)
+        if not systems:
+            raise fail(f"{store}: the store holds no runs", EXIT_USAGE)
+        system = max(systems, key=lambda s: int((s.pages["status"] == "done").sum()))
+        plan = plan_sample(snap, system, calibrate(system), pages=pages, lines=lines, run_id=run, bands=bands,
+                           seed=seed)
+        csv, kept = write_sample(plan, out)
+    except OcrbenchError as e:
+        raise fail(str(e), EXIT_USAGE)
+    for p in kept:
+        typer.echo(f"ocrbench: {p}: already exists; left as it is", err=True)
+    for p in system.problems:
+        typer.echo(f"ocrbench: {p}", err=True)
+    res = {"csv": str(csv), "recogniser": system.name, "pages": int(len(plan.pages)),
+           "lines": int(plan.pages["lines"].sum()), "method": plan.method,
+           "strata": plan.strata.to_dict(orient="records"), "chosen": plan.pages.to_dict(orient="records")}
+    if as_json:
+        typer.echo(json.dumps(res, ensure_ascii=False, default=float))
+        raise typer.Exit(EXIT_OK)
+    con = Console()
+    t = Table(title=f"{res['pages']} pages ({res['lines']} lines) to key, {plan.method}", title_justify="left")
+    for col in ("collection", "doubt band", "pages", "spread of expected edits", "lines a page", "chosen"):
+        t.add_column(col, justify="left" if col == "collection" else "right")
+    for r in res["strata"]:
+        t.add_row(r["collection"], str(r["band"]), str(r["N"]), f"{r['S']:.2f}", f"{r['cost']:.1f}", str(r["n"]))
+    con.print(t)
+    con.print(f"list: {csv}; templates beside it: correct them, then pass {out} as --truth", markup=False,
+              highlight=False)
+    raise typer.Exit(EXIT_OK)
