@@ -239,7 +239,8 @@ def hypothesis_folders(hyp_dir: str | Path) -> dict[str, Path]:
     """The hypothesis folders under ``hyp_dir``, by name: the folder itself when it holds ``.txt`` files,
     else each subfolder that does (the layout ``run --text-out`` writes: one subfolder per recogniser)."""
     root = Path(hyp_dir)
-    if _text_files(root, "hypothesis"):
+    _text_files(root, "hypothesis")                     # names a missing folder or a file
+    if any(p.is_file() and p.name.lower().endswith(TEXT_SUFFIX) for p in root.iterdir()):
         return {root.name or str(root): root}
     subs = {p.name: p for p in sorted(root.iterdir()) if p.is_dir() and _text_files(p, "hypothesis")}
     if not subs:

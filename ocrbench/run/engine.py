@@ -247,6 +247,10 @@ NON_FINITE = "the model gave NaN or infinite scores for this line; no text kept"
 
 
 def _finite(r: LineResult) -> bool:
+    """False when the recogniser flagged the line as unreadable (``LineResult.failure``) or its scores are not
+    finite."""
+    if r.failure:
+        return False
     return math.isfinite(r.confidence) and all(math.isfinite(c) for c in r.char_confidences)
 
 
