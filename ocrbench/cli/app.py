@@ -45,7 +45,7 @@ def _root(version: bool = typer.Option(False, "--version", callback=_version, is
 
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
-from ocrbench.cli import (balance, demo, export, pages, plan, postprocess,  # noqa: E402
+from ocrbench.cli import (balance, card, demo, export, pages, plan, postprocess,  # noqa: E402
                           report, review, run, score)
 
 COMMANDS = [
@@ -60,6 +60,7 @@ COMMANDS = [
     ("postprocess", postprocess.postprocess),
     ("export", export.export_cmd),
     ("demo", demo.demo),
+    ("card", card.card_cmd),
 ]
 for _name, _fn in COMMANDS:
     app.command(_name)(_fn)
