@@ -164,3 +164,12 @@ def test_a_card_with_both_vocab_and_tokenizer_is_refused(tmp_path):
                                              'tokenizer = "tokenizer.json"\nvocab = "vocab.txt"'))
     with pytest.raises(CardError, match=r"either 'vocab'.*or 'tokenizer'.*not both"):
         load_card(folder)
+
+
+def test_logits_declared_as_log_probs_are_a_card_error(tmp_path):
+    folder = drafted(tmp_path, "crosscache")
+    card = folder / "card.toml"
+    card.write_text(card.read_text().replace('logits = "logits"', 'log_probs = "logits"'))
+    with pytest.raises(CardError, match=r"seq\.decoder_first\.log_probs.*does not hold log-probabilities.*"
+                                        r"logits = \"logits\""):
+        open_recogniser(load_card(folder))

@@ -30,11 +30,16 @@ def card_cmd(
                                              help="check: let the card name files outside its own folder."),
     provider: list[str] = typer.Option(["CPUExecutionProvider"], "--provider",
                                        help="check: onnxruntime execution provider for the warm-up (repeat)."),
+    allow_cpu_fallback: bool = typer.Option(False, "--allow-cpu-fallback",
+                                            help="check: a requested provider that is not installed is a warning "
+                                                 "(the check runs on CPU) instead of an error."),
+    provider_option: list[str] = typer.Option([], "--provider-option",
+                                              help="check: key=value for the first --provider (repeat)."),
 ) -> None:
     """Draft a recogniser card from an export folder, or check a card including one warm-up batch."""
     if action is CardAction.draft:
         _draft(path, force)
-    _check(path, allow_outside_paths, provider)
+    _check(path, allow_outside_paths, provider, allow_cpu_fallback, provider_option)
 
 
 def _draft(folder: Path, force: bool) -> None:
@@ -58,16 +63,21 @@ def _draft(folder: Path, force: bool) -> None:
     raise typer.Exit(EXIT_OK)
 
 
-def _check(path: Path, allow_outside: bool, provider: list[str]) -> None:
+def _check(path: Path, allow_outside: bool, provider: list[str], allow_cpu_fallback: bool,
+           provider_option: list[str]) -> None:
     from ocrbench.recognisers.card import load_card
-    from ocrbench.recognisers.engine import EngineOptions
+    from ocrbench.recognisers.engine import EngineOptions, parse_provider_options
     from ocrbench.recognisers.registry import open_recogniser
 
     try:
+        options = EngineOptions(providers=tuple(provider), allow_cpu_fallback=allow_cpu_fallback,
+                                provider_options=parse_provider_options(provider_option))
         card = load_card(path, allow_outside=allow_outside)
-        rec = open_recogniser(card, options=EngineOptions(providers=tuple(provider)))
+        rec = open_recogniser(card, options=options)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
+    for w in rec.provider_warnings:
+        typer.echo(f"warning: {w}", err=True)
     typer.echo(f"{card.path}: {card.kind} recogniser '{card.name}' loads and warms up "
                f"(card hash {card.card_hash[:16]}, providers {', '.join(rec.providers)})")
     for role, f in sorted(card.files.items()):

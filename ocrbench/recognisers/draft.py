@@ -271,6 +271,23 @@ def _is_json_line(line: str) -> bool:
         return False
 
 
+#: Operators that move or rename values without changing them: looked through to find what made the scores.
+PASS_THROUGH = {"Identity", "Transpose", "Reshape", "Squeeze", "Unsqueeze", "Cast", "Flatten"}
+
+
+def _producer_op(graph, name: str) -> str:
+    """The operator that computed output ``name``, looking through layout-only operators."""
+    made = {o: n for n in graph.node for o in n.output}
+    for _ in range(len(graph.node) + 1):
+        node = made.get(name)
+        if node is None:
+            return ""
+        if node.op_type not in PASS_THROUGH or not node.input:
+            return node.op_type
+        name = node.input[0]
+    return ""
+
+
 def _draft_ctc(folder: Path, model: Path) -> str:
     import onnx
 
@@ -287,8 +304,7 @@ def _draft_ctc(folder: Path, model: Path) -> str:
     w = img.static(2 if nhwc else 3)
     tbc = isinstance(out.shape[1], str) and "batch" in out.shape[1].lower()
     classes = out.static(2)
-    last = onnx.load(str(model), load_external_data=False).graph.node[-1:]
-    op = last[0].op_type if last else ""
+    op = _producer_op(onnx.load(str(model), load_external_data=False).graph, out.name)
     kind = {"Softmax": "probs", "LogSoftmax": "log_probs"}.get(op, "logits")
     alphabet, blank, note = _ctc_alphabet(folder, classes)
     lines = [f"# Drafted by 'ocrbench card draft' from {model.name}. GUESSED marks what no file said.",

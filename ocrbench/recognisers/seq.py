@@ -427,7 +427,8 @@ class SeqRecogniser(Recogniser):
         for pb in self.prepare([blank, blank[:, : w // 2]] + warm_up_lines(self.spec, self.options.batch_size)):
             _, timing = self.run_batch(pb, max_tokens=3)
         # a vocabulary axis left free in the graph is checked here, on real output
-        memory, mask = self.encode(self.prepare([blank])[0].tensor, np.array([w]))
+        pb = self.prepare([blank])[0]
+        memory, mask = self.encode(pb.tensor, pb.widths)
         lp, _ = self.decoder(np.full((1, 1), self.s.bos_index, np.int64),
                              self._init_cache(1) if self.cached else None, memory, mask, 0, _Timer(time.perf_counter))
         n = self.s.vocab_size or len(self.s.symbols)
@@ -435,3 +436,21 @@ class SeqRecogniser(Recogniser):
             field = "seq.tokenizer" if self.s.tokenizer else "seq.vocab"
             raise CardError(self.card.path, f"field '{field}': the vocabulary has {n} entries "
                                             f"but the decoder scores {lp.shape[-1]} tokens")
+        self._check_scores(lp)
+
+    def _check_scores(self, lp: np.ndarray) -> None:
+        """The first decoder step's scores on a blank line: never NaN; declared log-probabilities must be
+        log-probabilities (<= 0, exponentials summing to 1 within float32 rounding: common practice 1e-2)."""
+        d = self.s.decoder_first if self.cached and self.s.decoder_first else (
+            self.s.decoder_step if self.cached else self.s.decoder_full)
+        role = {id(self.s.decoder_first): "decoder_first", id(self.s.decoder_step): "decoder_step"}.get(
+            id(d), "decoder_full")
+        field = f"seq.{role}.{'logits' if d.scores_are_logits else 'log_probs'}"
+        if np.isnan(lp).any():
+            raise CardError(self.card.path, f"field '{field}': the decoder's scores for a blank line hold NaN")
+        if not d.scores_are_logits:
+            lse = np.log(np.sum(np.exp(lp.astype(np.float64)), axis=-1))
+            if float(np.max(lp)) > 1e-3 or float(np.abs(lse).max()) > 1e-2:
+                raise CardError(self.card.path, f"field '{field}': output '{d.log_probs}' does not hold "
+                                                "log-probabilities (values above 0 or not summing to 1); if it "
+                                                f"holds raw scores, name it with 'logits = \"{d.log_probs}\"'")
