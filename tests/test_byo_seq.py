@@ -65,12 +65,16 @@ def decode_ids(rec, crops_: list[np.ndarray], beam: bool) -> list[list[int]]:
 
 
 @pytest.mark.parametrize("style", STYLES)
-@pytest.mark.parametrize("mode", ["greedy", "greedy-no-cache", "beam3", "greedy-merged", "beam3-merged"])
+@pytest.mark.parametrize("mode", ["greedy", "greedy-no-cache", "greedy-mask", "greedy-one-by-one", "beam3",
+                                  "greedy-merged", "beam3-merged"])
 def test_export_reads_exactly_like_generate(tmp_path, style, mode):
     folder = drafted(tmp_path, style, merged_only=mode.endswith("merged"))
     exp = expected(folder)
     beam = mode.startswith("beam")
-    opts = EngineOptions(decoding="beam" if beam else "greedy", beam_width=3, use_cache=mode != "greedy-no-cache")
+    # "mask" keeps ended lines in the batch; the default "drop" removes their cache rows (static ones included)
+    opts = EngineOptions(decoding="beam" if beam else "greedy", beam_width=3, use_cache=mode != "greedy-no-cache",
+                         batch_mode="mask" if mode == "greedy-mask" else "drop",
+                         batch_size=1 if mode == "greedy-one-by-one" else 16)
     rec = open_recogniser(load_card(folder), options=opts)
     lines = crops(folder, exp)
     key = "beam3" if beam else "greedy"
