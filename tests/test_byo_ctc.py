@@ -9,6 +9,7 @@ probabilities, a fixed input width), so the expected text of a block pattern is 
 from __future__ import annotations
 
 import itertools
+import json
 import math
 
 import numpy as np
@@ -18,13 +19,18 @@ import pytest
 from PIL import Image
 
 import _tiny_models as tm
+from typer.testing import CliRunner
+
+from ocrbench.cli.app import app
 from ocrbench.errors import CardError
 from ocrbench.recognisers.base import EngineOptions
+from ocrbench.recognisers.engine import ProviderError, parse_provider_options
 from ocrbench.recognisers.card import load_card
 from ocrbench.recognisers.ctc import log_softmax, prefix_beam_search
 from ocrbench.recognisers.registry import open_recogniser
 
 PATTERNS = ["  ab  a ", "b a b", "aa  bb a", " ", "ab"]
+runner = CliRunner()
 EXPECT = ["aba", "bab", "aba", "", "ab"]     # the tiny model reads a block of grey as "a", of ink as "b"
 
 VARIANTS = {
@@ -158,3 +164,75 @@ def test_stretch_needs_a_fixed_width(tmp_path):
     folder = tm.write_ctc_layout(tmp_path / "m", card_extra='resize = "stretch"\n')
     with pytest.raises(CardError, match=r"input\.resize.*needs a fixed input\.width"):
         load_card(folder)
+
+
+# --------------------------------------------------------------------------- execution providers
+
+
+def test_a_provider_that_is_not_installed_stops_unless_the_fallback_is_allowed(tmp_path):
+    # CUDAExecutionProvider is a name onnxruntime knows (get_all_providers) that the CPU build lacks.
+    import onnxruntime
+
+    if "CUDAExecutionProvider" in onnxruntime.get_available_providers():
+        pytest.skip("this onnxruntime has CUDA; the case needs a provider it lacks")
+    folder = tm.write_ctc(tmp_path / "m")
+    card = load_card(folder)
+    opts = dict(providers=("CUDAExecutionProvider", "CPUExecutionProvider"))
+    with pytest.raises(ProviderError, match="CUDAExecutionProvider is not installed.*--allow-cpu-fallback"):
+        open_recogniser(card, options=EngineOptions(**opts))
+    rec = open_recogniser(card, options=EngineOptions(allow_cpu_fallback=True, **opts))
+    assert rec.providers == ["CPUExecutionProvider"]
+    assert any("CUDAExecutionProvider is not installed" in w for w in rec.provider_warnings)
+    res = runner.invoke(app, ["card", "check", str(folder), "--provider", "CUDAExecutionProvider"])
+    assert res.exit_code == 2 and "not installed" in res.output
+    res = runner.invoke(app, ["card", "check", str(folder), "--provider", "CUDAExecutionProvider",
+                              "--allow-cpu-fallback"])
+    assert res.exit_code == 0 and "warning: execution provider CUDAExecutionProvider" in res.output
+
+
+def test_a_misspelt_provider_names_the_nearest_one(tmp_path):
+    card = load_card(tm.write_ctc(tmp_path / "m"))
+    for allow in (False, True):
+        with pytest.raises(ProviderError, match="'CPUExecutionProvidr' is not one onnxruntime knows "
+                                                r"\(did you mean CPUExecutionProvider\?\)"):
+            open_recogniser(card, options=EngineOptions(providers=("CPUExecutionProvidr",), allow_cpu_fallback=allow))
+
+
+def test_provider_options_are_parsed_passed_and_recorded(tmp_path):
+    # The CPU provider accepts any options and reports none back (onnxruntime 1.x), so what can be checked
+    # on a CPU-only machine is that they are parsed, recorded with the run, and do not stop the session.
+    folder = tm.write_ctc(tmp_path / "m")
+    opts = EngineOptions(provider_options=parse_provider_options(["arena_extend_strategy = kSameAsRequested"]))
+    assert opts.to_dict()["provider_options"] == {"arena_extend_strategy": "kSameAsRequested"}
+    rec = open_recogniser(load_card(folder), options=opts)
+    assert rec.recognise([tm.block_line(" ab ")])[0][0].text == "ab"
+    with pytest.raises(ProviderError, match="not key=value"):
+        parse_provider_options(["no-equals-sign"])
+    res = runner.invoke(app, ["card", "check", str(folder), "--provider-option", "no-equals-sign"])
+    assert res.exit_code == 2 and "not key=value" in res.output
+
+
+# --------------------------------------------------------------------------- card draft on CTC exports
+
+
+@pytest.mark.parametrize("variant", ["nchw-grey", "nhwc-rgb", "blank-last", "probs", "log-probs", "fixed-width"])
+def test_card_draft_writes_a_card_that_reads_like_the_direct_decode(tmp_path, variant):
+    v = VARIANTS[variant]
+    folder = tm.write_ctc_layout(tmp_path / variant, **v["kw"])
+    (folder / "card.toml").unlink()
+    # a plain symbol list, one per line, as many exports ship it
+    syms = [json.loads(line) for line in (folder / "alphabet.txt").read_text().splitlines()]
+    (folder / "alphabet.txt").unlink()
+    (folder / "classes.txt").write_text("".join(s + "\n" for s in syms), encoding="utf-8")
+    res = runner.invoke(app, ["card", "draft", str(folder)])
+    assert res.exit_code == 0, res.output
+    text = (folder / "card.toml").read_text()
+    assert "GUESSED" in text
+    card = load_card(folder)
+    assert card.input.layout == v["kw"].get("layout", "NCHW") and card.input.channels == v["kw"].get("channels", 1)
+    assert card.ctc.output_kind == v["kw"].get("kind", "logits")
+    assert card.ctc.blank_index == (2 if v["kw"].get("blank_last") else 0)
+    crops = [tm.block_line(p) for p in PATTERNS]
+    got = [r.text for r in open_recogniser(card).recognise(crops)[0]]
+    assert got == [reference_text(folder, v["kw"], c) for c in crops] == EXPECT
+    assert runner.invoke(app, ["card", "check", str(folder)]).exit_code == 0

@@ -9,6 +9,8 @@ import numpy as np
 import onnx
 import onnxruntime as ort
 import pytest
+
+from ocrbench.errors import OcrbenchError
 from onnx.reference import ReferenceEvaluator
 
 import _tiny_models as tm
@@ -239,13 +241,16 @@ def test_session_options_reach_onnxruntime(tmp_path):
     import onnxruntime as ort_
 
     card = load_card(tm.write_ctc(tmp_path / "m"))
+    lacking = next(p for p in ort_.get_all_providers() if p not in ort_.get_available_providers())
     opts = EngineOptions(intra_threads=2, inter_threads=3, graph_optimisation="basic",
-                         providers=("NoSuchExecutionProvider", "CPUExecutionProvider"))
+                         providers=(lacking, "CPUExecutionProvider"), allow_cpu_fallback=True)
     rec = open_recogniser(card, options=opts)
     so = rec.session.get_session_options()
     assert (so.intra_op_num_threads, so.inter_op_num_threads) == (2, 3)
     assert so.graph_optimization_level == ort_.GraphOptimizationLevel.ORT_ENABLE_BASIC
-    assert rec.providers == ["CPUExecutionProvider"]            # unknown providers skipped, CPU as the fallback
+    assert rec.providers == ["CPUExecutionProvider"]            # missing providers skipped (allowed), CPU as the fallback
+    with pytest.raises(OcrbenchError, match="NoSuchExecutionProvider.*not one onnxruntime knows"):
+        open_recogniser(card, options=EngineOptions(providers=("NoSuchExecutionProvider", "CPUExecutionProvider")))
     crops = [tm.block_line(" a b  aa bb ")]
     plain = open_recogniser(card, options=EngineOptions(graph_optimisation="disable")).recognise(crops)[0]
     assert [r.text for r in rec.recognise(crops)[0]] == [r.text for r in plain] == ["abab"]

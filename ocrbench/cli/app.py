@@ -98,7 +98,7 @@ def guarded(fn: Callable) -> Callable:
 
 # Explicit registration: (command name, module, function). Each module under cli/
 # only parses, calls the library and prints; none of them imports this one.
-from ocrbench.cli import (balance, demo, export, measure, pages, plan, postprocess,  # noqa: E402
+from ocrbench.cli import (balance, card, demo, export, measure, pages, plan, postprocess,  # noqa: E402
                           quality, report, review, run, sample, score, tune, variant)
 
 COMMANDS = [
@@ -117,6 +117,7 @@ COMMANDS = [
     ("export", export.export_cmd),
     ("demo", demo.demo),
     ("variant", variant.variant),
+    ("card", card.card_cmd),
 ]
 for _name, _fn in COMMANDS:
     app.command(_name)(guarded(_fn))

@@ -88,6 +88,11 @@ class Recogniser:
         return self.card.input
 
     @property
+    def provider_warnings(self) -> list[str]:
+        """Requested execution providers this onnxruntime lacks (only when the CPU fallback was allowed)."""
+        return resolve_providers(self.options.providers, self.options.allow_cpu_fallback)[1]
+
+    @property
     def providers(self) -> list[str]:
         """The execution providers the sessions actually use."""
         return list(self._sessions()[0].get_providers())

@@ -25,6 +25,7 @@ from typing import Any
 
 from ocrbench.errors import CardError, ConfigError
 from ocrbench.io.config import Key, check_table
+from ocrbench.recognisers.draft import generation_warnings
 from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
                                         need_dtype, need_tensor, read_graph)
 from ocrbench.recognisers.preprocess import FILTERS, LAYOUTS, RESIZE_MODES, InputSpec, make_batch, resize_line
@@ -86,9 +87,13 @@ class DecoderStepSpec:
     present: tuple[str, ...]
     memory: tuple[str, ...]
     memory_mask: str | None
-    log_probs: str
+    log_probs: str                   # the scores output (log-probabilities, or logits when scores_are_logits)
     cache_layout: str
     graph: GraphInfo = field(repr=False, compare=False)
+    scores_are_logits: bool = False
+    static_past: tuple[str, ...] = ()        # inputs fed once per line (cross-attention keys/values)
+    static_present: tuple[str, ...] = ()     # outputs giving them at step 0 (merged graph)
+    use_cache_branch: str | None = None      # merged graph: boolean input, false at step 0, true after
 
     @property
     def batch_axis(self) -> int:
@@ -109,6 +114,22 @@ class DecoderFullSpec:
     memory_mask: str | None
     log_probs: str
     graph: GraphInfo = field(repr=False, compare=False)
+    scores_are_logits: bool = False
+
+
+@dataclass(frozen=True)
+class DecoderFirstSpec:
+    """The graph of the first decoder step (no cache in): its outputs start the cache and the static inputs."""
+
+    model: Path
+    tokens: str
+    memory: tuple[str, ...]
+    memory_mask: str | None
+    log_probs: str
+    present: tuple[str, ...]                 # -> decoder_step.past, by position
+    static_present: tuple[str, ...]          # -> decoder_step.static_past, by position
+    graph: GraphInfo = field(repr=False, compare=False)
+    scores_are_logits: bool = False
 
 
 @dataclass(frozen=True)
@@ -127,6 +148,9 @@ class SeqSpec:
     encoder: EncoderSpec
     decoder_step: DecoderStepSpec | None
     decoder_full: DecoderFullSpec | None
+    decoder_first: DecoderFirstSpec | None = None
+    tokenizer: Path | None = None            # a tokenizer.json decoding whole sequences (else ``symbols``)
+    vocab_size: int = 0                      # entries of the symbol table or tokenizer
 
 
 @dataclass(frozen=True)
@@ -146,6 +170,7 @@ class Card:
     ctc: CtcSpec | None = None
     seq: SeqSpec | None = None
     variant: dict | None = None      # [variant]: provenance of a quantised copy (recognisers/variant.py)
+    warnings: tuple[str, ...] = ()   # settings beside the model that ocrbench does not apply (shown, not fatal)
 
     @property
     def symbols(self) -> tuple[str, ...]:
@@ -237,7 +262,8 @@ CTC_SCHEMA = {
     "alphabet": _str(required=True),
 }
 SEQ_SCHEMA = {
-    "vocab": _str(required=True),
+    "vocab": _str(),
+    "tokenizer": _str(),
     "bos_index": Key((int,), required=True, low=0),
     "eos_index": Key((int,), required=True, low=0),
     "pad_index": Key((int,), None, low=0),
@@ -254,7 +280,9 @@ SEQ_SCHEMA = {
     },
     "decoder_step": Key((dict,)),
     "decoder_full": Key((dict,)),
+    "decoder_first": Key((dict,)),
 }
+_SCORES = {"log_probs": _str(), "logits": _str()}
 STEP_SCHEMA = {
     "model": _str(required=True),
     "tokens": _str("tokens"),
@@ -263,16 +291,20 @@ STEP_SCHEMA = {
     "present": _names(required=True),
     "memory": _names(),
     "memory_mask": _str(""),
-    "log_probs": _str("log_probs"),
+    **_SCORES,
     "cache_layout": _layout_key(None, "BT"),
+    "static_past": _names(()),
+    "static_present": _names(()),
+    "use_cache_branch": _str(""),
 }
 FULL_SCHEMA = {
     "model": _str(required=True),
     "tokens": _str("tokens"),
     "memory": _names(),
     "memory_mask": _str(""),
-    "log_probs": _str("log_probs"),
+    **_SCORES,
 }
+FIRST_SCHEMA = {**FULL_SCHEMA, "present": _names(required=True), "static_present": _names(())}
 
 
 def checked(p: Path, doc: dict, schema: dict, prefix: str = "") -> dict:
@@ -472,9 +504,10 @@ def load_card(path: Path | str, *, allow_outside: bool = False) -> Card:
     h = hashlib.sha256(text)
     for role in sorted(hashes):
         h.update(f"\n{role}={hashes[role]}".encode())
+    warnings = tuple(generation_warnings(folder)) if kind == "seq" else ()
     return Card(name=name, kind=kind, description=top["description"], version=str(top["version"]),
                 path=p.resolve(), folder=folder, card_hash=h.hexdigest(), files=files.paths, file_hashes=hashes,
-                input=spec, ctc=ctc, seq=seq,
+                input=spec, ctc=ctc, seq=seq, warnings=warnings,
                 variant=None if top["variant"] is None else checked(p, top["variant"], VARIANT_SCHEMA, "variant."))
 
 
@@ -505,38 +538,74 @@ def _load_ctc(p: Path, t: dict, spec: InputSpec, files: _Files) -> CtcSpec:
                    frames_per_pixel=t["frames_per_pixel"], blank_index=blank, symbols=tuple(syms), graph=g)
 
 
+def _vocabulary(p: Path, t: dict, files: _Files) -> tuple[tuple[str, ...], Path, Path | None, frozenset[int]]:
+    """(token texts, the file, the tokenizer file or None, the tokenizer's special ids) of ``vocab``/``tokenizer``."""
+    if (t["vocab"] is None) == (t["tokenizer"] is None):
+        raise CardError(p, "table [seq]: give either 'vocab' (a symbol table) or 'tokenizer' (a tokenizer.json), "
+                           "not both" if t["vocab"] else "table [seq]: 'vocab' or 'tokenizer' is required")
+    if t["vocab"] is not None:
+        path = files(t["vocab"], "seq.vocab", "vocab")
+        return tuple(_read_symbols(p, "seq.vocab", path)), path, None, frozenset()
+    from ocrbench.recognisers.tokens import TokenizerFile
+
+    path = files(t["tokenizer"], "seq.tokenizer", "tokenizer")
+    tok = TokenizerFile(path, p)
+    return tuple(tok.token(i) or "" for i in range(len(tok))), path, path, tok.special
+
+
 def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
     t = checked(p, raw, SEQ_SCHEMA, "seq.")
-    sym_path = files(t["vocab"], "seq.vocab", "vocab")
-    symbols = _read_symbols(p, "seq.vocab", sym_path)
+    symbols, sym_path, tokenizer, tok_special = _vocabulary(p, t, files)
     n = len(symbols)
     for key in ("bos_index", "eos_index", "pad_index"):
         if t[key] is not None and t[key] >= n:
             raise CardError(p, f"field 'seq.{key}': {t[key]} is outside the vocabulary ({n} entries)")
-    bos, eos = t["bos_index"], t["eos_index"]
+    bos, eos = t["bos_index"], t["eos_index"]       # bos == eos is a common decoder-start convention
     pad = eos if t["pad_index"] is None else t["pad_index"]
     extra = t["special_indices"]
     if not all(0 <= i < n for i in extra):
         raise CardError(p, f"field 'seq.special_indices': must be a list of indices inside the vocabulary ({n} entries)")
-    if bos == eos:
-        raise CardError(p, "field 'seq.eos_index': must differ from bos_index")
     enc, rank = _load_encoder(p, t["encoder"], spec, files)
-    step_spec = full_spec = None
-    if t["decoder_step"] is not None:
-        step_spec = _load_step(p, checked(p, t["decoder_step"], STEP_SCHEMA, "seq.decoder_step."), enc, rank, files)
-        _check_vocab(p, sym_path, n, step_spec.graph.outputs[step_spec.log_probs], "decoder_step")
-    if t["decoder_full"] is not None:
-        full_spec = _load_full(p, checked(p, t["decoder_full"], FULL_SCHEMA, "seq.decoder_full."), enc, rank, files)
-        _check_vocab(p, sym_path, n, full_spec.graph.outputs[full_spec.log_probs], "decoder_full")
-    if step_spec is None and full_spec is None:
+    decs: dict[str, Any] = {}
+    for role, schema, loader in (("decoder_step", STEP_SCHEMA, _load_step), ("decoder_first", FIRST_SCHEMA, _load_first),
+                                 ("decoder_full", FULL_SCHEMA, _load_full)):
+        if t[role] is not None:
+            decs[role] = loader(p, checked(p, t[role], schema, f"seq.{role}."), enc, rank, files)
+            _check_vocab(p, sym_path, n, decs[role].graph.outputs[decs[role].log_probs], role, tokenizer is not None)
+    step, first, full = decs.get("decoder_step"), decs.get("decoder_first"), decs.get("decoder_full")
+    if step is None and full is None:
         raise CardError(p, "table [seq]: needs a [seq.decoder_step] table (cached decoder), a [seq.decoder_full] "
                            "table (uncached decoder), or both")
-    special = frozenset({bos, eos, pad, *extra})
+    _check_first_and_static(p, step, first)
+    special = frozenset({bos, eos, pad, *extra, *tok_special})
     syms = [("" if i in special else s) for i, s in enumerate(symbols)]
     return SeqSpec(symbols=tuple(syms), bos_index=bos, eos_index=eos, pad_index=pad, special=special,
                    max_tokens=t["max_tokens"], frames_per_pixel=t["frames_per_pixel"],
-                   mask_valid=t["memory_mask_valid"], mask_padded=t["memory_mask_padded"],
-                   encoder=enc, decoder_step=step_spec, decoder_full=full_spec)
+                   mask_valid=t["memory_mask_valid"], mask_padded=t["memory_mask_padded"], encoder=enc,
+                   decoder_step=step, decoder_full=full, decoder_first=first, tokenizer=tokenizer, vocab_size=n)
+
+
+def _check_first_and_static(p: Path, step: DecoderStepSpec | None, first: DecoderFirstSpec | None) -> None:
+    """The first-step graph and the static inputs must pair up with the step graph, by position."""
+    if first is not None:
+        if step is None:
+            raise CardError(p, "table [seq.decoder_first]: needs a [seq.decoder_step] table to continue from")
+        if step.use_cache_branch:
+            raise CardError(p, "table [seq.decoder_first]: not with seq.decoder_step.use_cache_branch (a merged "
+                               "graph makes its own first step)")
+        if len(first.present) != len(step.past):
+            raise CardError(p, f"field 'seq.decoder_first.present': lists {len(first.present)} tensors but "
+                               f"seq.decoder_step.past lists {len(step.past)}; they pair by position")
+        if len(first.static_present) != len(step.static_past):
+            raise CardError(p, f"field 'seq.decoder_first.static_present': lists {len(first.static_present)} "
+                               f"tensors but seq.decoder_step.static_past lists {len(step.static_past)}")
+    elif step is not None and step.static_past:
+        if not step.use_cache_branch:
+            raise CardError(p, "field 'seq.decoder_step.static_past': needs a [seq.decoder_first] graph or "
+                               "seq.decoder_step.use_cache_branch to compute them at the first step")
+        if len(step.static_present) != len(step.static_past):
+            raise CardError(p, f"field 'seq.decoder_step.static_present': lists {len(step.static_present)} tensors "
+                               f"but static_past lists {len(step.static_past)}; they pair by position")
 
 
 def _load_encoder(p: Path, et: dict, spec: InputSpec, files: _Files) -> tuple[EncoderSpec, int | None]:
@@ -553,8 +622,15 @@ def _load_encoder(p: Path, et: dict, spec: InputSpec, files: _Files) -> tuple[En
 
 def _memory_inputs(p: Path, role: str, g: GraphInfo, t: dict, enc: EncoderSpec, rank: int | None,
                    ) -> tuple[tuple[str, ...], str | None]:
-    memory = _names_of(p, t["memory"], f"seq.{role}.memory") if t["memory"] is not None else enc.outputs
-    if len(memory) != len(enc.outputs):
+    """The decoder inputs fed with the encoder's outputs (``memory = []``: none, e.g. a decoder that reads
+    cross-attention keys/values from static inputs instead) and the memory mask."""
+    if t["memory"] is None:
+        memory = enc.outputs
+    elif t["memory"] == [] or t["memory"] == ():
+        memory = ()
+    else:
+        memory = _names_of(p, t["memory"], f"seq.{role}.memory")
+    if memory and len(memory) != len(enc.outputs):
         raise CardError(p, f"field 'seq.{role}.memory': lists {len(memory)} tensors but the encoder gives "
                            f"{len(enc.outputs)}; they pair by position")
     for x in memory:
@@ -566,9 +642,30 @@ def _memory_inputs(p: Path, role: str, g: GraphInfo, t: dict, enc: EncoderSpec, 
     return memory, mmask
 
 
+def _scores(p: Path, role: str, g: GraphInfo, t: dict) -> tuple[str, bool]:
+    """The scores output: ``log_probs`` (log-probabilities) or ``logits`` (ocrbench applies log-softmax),
+    rank 2 (rows, vocabulary) or 3 (rows, positions, vocabulary: the last position is read)."""
+    if t["log_probs"] and t["logits"]:
+        raise CardError(p, f"table [seq.{role}]: give 'log_probs' or 'logits', not both")
+    name, logits = (t["logits"], True) if t["logits"] else (t["log_probs"] or "log_probs", False)
+    need_tensor(p, role, g, name, output=True, rank=(2, 3), key=f"seq.{role}.{'logits' if logits else 'log_probs'}")
+    return name, logits
+
+
+def _tokens_input(p: Path, role: str, g: GraphInfo, name: str) -> None:
+    tt = need_tensor(p, role, g, name, output=False, rank=2, key=f"seq.{role}.tokens")
+    need_dtype(p, g, tt, INT_TYPES, f"seq.{role}.tokens", "token ids are fed as")
+
+
+def _outputs(p: Path, role: str, g: GraphInfo, t: dict, key: str, rank: int | None) -> tuple[str, ...]:
+    names = () if t[key] in ((), []) else _names_of(p, t[key], f"seq.{role}.{key}")
+    for x in names:
+        need_tensor(p, role, g, x, output=True, rank=rank, key=f"seq.{role}.{key}")
+    return names
+
+
 def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderStepSpec:
     sg = files.graph(st["model"], "seq.decoder_step.model", "decoder_step")
-    smodel = sg.path
     tok, step = st["tokens"], st["step"] or None
     past = _names_of(p, st["past"], "seq.decoder_step.past")
     present = _names_of(p, st["present"], "seq.decoder_step.present")
@@ -576,47 +673,63 @@ def _load_step(p: Path, st: dict, enc: EncoderSpec, rank: int | None, files: _Fi
         raise CardError(p, f"field 'seq.decoder_step.present': lists {len(present)} tensors but 'past' lists "
                            f"{len(past)}; they pair by position")
     memory, mmask = _memory_inputs(p, "decoder_step", sg, st, enc, rank)
-    tt = need_tensor(p, "decoder_step", sg, tok, output=False, rank=2, key="seq.decoder_step.tokens")
-    need_dtype(p, sg, tt, INT_TYPES, "seq.decoder_step.tokens", "token ids are fed as")
+    _tokens_input(p, "decoder_step", sg, tok)
     if step:
         ts = need_tensor(p, "decoder_step", sg, step, output=False, rank=(0, 1), key="seq.decoder_step.step")
         need_dtype(p, sg, ts, INT_TYPES, "seq.decoder_step.step", "the step is fed as")
+    static = () if st["static_past"] in ((), []) else _names_of(p, st["static_past"], "seq.decoder_step.static_past")
     prank = {need_tensor(p, "decoder_step", sg, x, output=False, rank=None, key="seq.decoder_step.past").rank
              for x in past}
     cl = _check_rank(p, "seq.decoder_step.cache_layout", st["cache_layout"],
                      next(iter(prank)) if len(prank) == 1 else None)
-    for x in past:
-        ti = sg.inputs[x]
-        if ti.shape is not None:
-            free = [a for a, d in enumerate(ti.shape) if a not in (cl.index("B"), cl.index("T"))
+    for key, names in (("past", past), ("static_past", static)):
+        for x in names:
+            ti = need_tensor(p, "decoder_step", sg, x, output=False, rank=len(cl), key=f"seq.decoder_step.{key}")
+            free = [a for a, d in enumerate(ti.shape or ()) if a not in (cl.index("B"), cl.index("T"))
                     and not (isinstance(d, int) and d > 0)]
             if free:
-                raise CardError(p, f"field 'seq.decoder_step.past': input '{x}' of {smodel.name} must have fixed "
+                raise CardError(p, f"field 'seq.decoder_step.{key}': input '{x}' of {sg.path.name} must have fixed "
                                    f"sizes on every axis but batch and positions (cache_layout {cl!r}); "
                                    f"axis {free[0]} is free")
-    for x in present:
-        need_tensor(p, "decoder_step", sg, x, output=True, rank=len(cl), key="seq.decoder_step.present")
-    need_tensor(p, "decoder_step", sg, st["log_probs"], output=True, rank=2, key="seq.decoder_step.log_probs")
-    return DecoderStepSpec(model=smodel, tokens=tok, step=step, past=past, present=present, memory=memory,
-                           memory_mask=mmask, log_probs=st["log_probs"], cache_layout=cl, graph=sg)
+    present = _outputs(p, "decoder_step", sg, st, "present", len(cl))
+    static_present = _outputs(p, "decoder_step", sg, st, "static_present", len(cl))
+    ucb = st["use_cache_branch"] or None
+    if ucb:
+        tb = need_tensor(p, "decoder_step", sg, ucb, output=False, rank=(0, 1), key="seq.decoder_step.use_cache_branch")
+        need_dtype(p, sg, tb, (9,), "seq.decoder_step.use_cache_branch", "the branch flag is fed as")
+    scores, logits = _scores(p, "decoder_step", sg, st)
+    return DecoderStepSpec(model=sg.path, tokens=tok, step=step, past=past, present=present, memory=memory,
+                           memory_mask=mmask, log_probs=scores, cache_layout=cl, graph=sg, scores_are_logits=logits,
+                           static_past=static, static_present=static_present, use_cache_branch=ucb)
+
+
+def _load_first(p: Path, ft: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderFirstSpec:
+    fg = files.graph(ft["model"], "seq.decoder_first.model", "decoder_first")
+    memory, mmask = _memory_inputs(p, "decoder_first", fg, ft, enc, rank)
+    _tokens_input(p, "decoder_first", fg, ft["tokens"])
+    scores, logits = _scores(p, "decoder_first", fg, ft)
+    present = _outputs(p, "decoder_first", fg, ft, "present", None)
+    static_present = _outputs(p, "decoder_first", fg, ft, "static_present", None)
+    return DecoderFirstSpec(model=fg.path, tokens=ft["tokens"], memory=memory, memory_mask=mmask, log_probs=scores,
+                            present=present, static_present=static_present, graph=fg, scores_are_logits=logits)
 
 
 def _load_full(p: Path, ft: dict, enc: EncoderSpec, rank: int | None, files: _Files) -> DecoderFullSpec:
     fg = files.graph(ft["model"], "seq.decoder_full.model", "decoder_full")
-    fmodel = fg.path
     memory, mmask = _memory_inputs(p, "decoder_full", fg, ft, enc, rank)
-    tt = need_tensor(p, "decoder_full", fg, ft["tokens"], output=False, rank=2, key="seq.decoder_full.tokens")
-    need_dtype(p, fg, tt, INT_TYPES, "seq.decoder_full.tokens", "token ids are fed as")
-    need_tensor(p, "decoder_full", fg, ft["log_probs"], output=True, rank=2, key="seq.decoder_full.log_probs")
-    return DecoderFullSpec(model=fmodel, tokens=ft["tokens"], memory=memory, memory_mask=mmask,
-                           log_probs=ft["log_probs"], graph=fg)
+    _tokens_input(p, "decoder_full", fg, ft["tokens"])
+    scores, logits = _scores(p, "decoder_full", fg, ft)
+    return DecoderFullSpec(model=fg.path, tokens=ft["tokens"], memory=memory, memory_mask=mmask,
+                           log_probs=scores, graph=fg, scores_are_logits=logits)
 
 
-def _check_vocab(p: Path, sym_path: Path, n: int, lpt: TensorInfo, role: str) -> None:
-    n_out = class_count(lpt, 1)
-    if n_out is not None and n_out != n:
-        raise CardError(p, f"field 'seq.vocab': {sym_path.name} has {n} entries but {role} scores {n_out} tokens")
-    # A free vocabulary axis is checked by the recogniser's warm-up run (see seq.SeqRecogniser).
+def _check_vocab(p: Path, sym_path: Path, n: int, lpt: TensorInfo, role: str, tokenizer: bool) -> None:
+    n_out = class_count(lpt, (lpt.rank or 2) - 1)
+    if n_out is None:
+        return  # a free vocabulary axis is checked by the recogniser's warm-up run (see seq.SeqRecogniser)
+    if n_out != n and not (tokenizer and n_out > n):
+        raise CardError(p, f"field 'seq.{'tokenizer' if tokenizer else 'vocab'}': {sym_path.name} has {n} entries "
+                           f"but {role} scores {n_out} tokens")
 
 
 def _dry_run_classes(p: Path, model: Path, feeds: dict[str, str], out: str, spec: InputSpec, axis: int) -> int:

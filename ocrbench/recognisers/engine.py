@@ -46,6 +46,8 @@ class EngineOptions:
     encoder_per_line: bool = True
     max_pad_ratio: float = 1.3
     ctc_prune: float = 1e-3
+    allow_cpu_fallback: bool = False
+    provider_options: tuple[tuple[str, str], ...] = ()   # (key, value) for the first requested provider
 
     def __post_init__(self) -> None:
         if self.graph_optimisation not in GRAPH_LEVELS:
@@ -63,11 +65,28 @@ class EngineOptions:
         if self.max_pad_ratio < 1.0:
             raise OcrbenchError(f"max pad ratio must be at least 1, not {self.max_pad_ratio}")
         object.__setattr__(self, "providers", tuple(self.providers))
+        object.__setattr__(self, "provider_options", tuple((str(k), str(v)) for k, v in self.provider_options))
 
     def to_dict(self) -> dict:
         d = asdict(self)
         d["providers"] = list(self.providers)
+        d["provider_options"] = dict(self.provider_options)
         return d
+
+
+class ProviderError(OcrbenchError):
+    """An execution provider was asked for that this onnxruntime does not know or does not have."""
+
+
+def parse_provider_options(items: Sequence[str]) -> tuple[tuple[str, str], ...]:
+    """``key=value`` strings (``--provider-option``) as pairs; a malformed one is a ProviderError."""
+    out = []
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise ProviderError(f"provider option {item!r} is not key=value")
+        out.append((key.strip(), value.strip()))
+    return tuple(out)
 
 
 @dataclass
@@ -99,13 +118,33 @@ def _graph_level(name: str):
     }[name]
 
 
-def resolve_providers(requested: Sequence[str]) -> list[str]:
-    """The requested execution providers that this onnxruntime has, then CPU as the fallback."""
+def resolve_providers(requested: Sequence[str], allow_cpu_fallback: bool = False) -> tuple[list[str], list[str]]:
+    """(providers to use, warnings): the requested execution providers this onnxruntime has, then CPU.
+
+    A name onnxruntime does not know (a misspelling) is always a ProviderError naming the nearest known
+    one. A known provider this installation lacks is a ProviderError too, unless ``allow_cpu_fallback``:
+    then it is skipped with a warning, and the run goes on without it.
+    """
+    import difflib
+
     import onnxruntime as ort
 
-    have = set(ort.get_available_providers())
-    out = [p for p in requested if p in have and p != "CPUExecutionProvider"]
-    return out + ["CPUExecutionProvider"]
+    known, have = list(ort.get_all_providers()), set(ort.get_available_providers())
+    out, warnings = [], []
+    for p in requested:
+        if p not in known:
+            close = difflib.get_close_matches(p, known, n=1)
+            hint = f" (did you mean {close[0]}?)" if close else f"; known: {', '.join(known)}"
+            raise ProviderError(f"execution provider {p!r} is not one onnxruntime knows{hint}")
+        if p not in have:
+            msg = (f"execution provider {p} is not installed in this onnxruntime "
+                   f"(installed: {', '.join(sorted(have))})")
+            if not allow_cpu_fallback:
+                raise ProviderError(msg + "; pass --allow-cpu-fallback to run without it")
+            warnings.append(msg + "; running without it")
+        elif p != "CPUExecutionProvider" and p not in out:
+            out.append(p)
+    return out + ["CPUExecutionProvider"], warnings
 
 
 def make_session(path, options: EngineOptions, role: str):
@@ -117,10 +156,16 @@ def make_session(path, options: EngineOptions, role: str):
     so.inter_op_num_threads = options.inter_threads
     so.graph_optimization_level = _graph_level(options.graph_optimisation)
     so.log_severity_level = 3
+    providers, _ = resolve_providers(options.providers, options.allow_cpu_fallback)
+    if options.provider_options:   # they belong to the first requested provider (when it is there)
+        first = options.providers[0] if options.providers else "CPUExecutionProvider"
+        providers = [(p, dict(options.provider_options)) if p == first else p for p in providers]
     try:
-        return ort.InferenceSession(str(path), so, providers=resolve_providers(options.providers))
+        return ort.InferenceSession(str(path), so, providers=providers)
     except Exception as e:  # onnxruntime raises its own Fail/InvalidGraph types
-        raise CardError(path, f"{role}: onnxruntime cannot load it ({type(e).__name__}: {e})") from e
+        text = str(e).strip().splitlines()
+        raise CardError(path, f"{role}: onnxruntime cannot load it ({type(e).__name__}: "
+                              f"{(text[0] if text else '')[:300]})") from e
 
 
 def onnx_dtype(elem_type: int, default=np.float32):

@@ -35,6 +35,8 @@ from ocrbench.recognisers.base import NONFINITE, LineResult, Recogniser
 from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, onnx_dtype, share_time
 from ocrbench.recognisers.card import Card
+from ocrbench.recognisers.ctc import log_softmax
+from ocrbench.recognisers.tokens import SymbolTable, TokenizerFile
 
 
 @dataclass
@@ -49,6 +51,14 @@ class Decoded:
     @property
     def steps(self) -> int:
         return len(self.tokens) + (1 if self.ended else 0)
+
+
+def scores_to_log_probs(y: np.ndarray, logits: bool) -> np.ndarray:
+    """A decoder's scores as (rows, vocabulary) log-probabilities: of a (rows, positions, vocabulary) output
+    the last position is read (the next token, as generate() reads it); logits get a log-softmax."""
+    if y.ndim == 3:
+        y = y[:, -1, :]
+    return log_softmax(y.astype(np.float32, copy=False), axis=-1) if logits else y
 
 
 def _bad_rows(lp: np.ndarray) -> np.ndarray:
@@ -68,10 +78,13 @@ def _beam_line(hyps, r: int, r_end: int, lp: np.ndarray, top: np.ndarray, K: int
             cands.append((score + float(lp[rr, tok]), rr, tok))
     cands.sort(key=lambda c: -c[0])      # stable: ties keep row, then token order
     alive = []
-    for score, rr, tok in cands:
+    for rank, (score, rr, tok) in enumerate(cands):
         _, _, toks, lps = hyps[rr]
         if tok == eos:
-            finished.append((score, toks, lps + [float(lp[rr, tok])], True))
+            # an end among the K best candidates finishes a hypothesis; a lower-ranked one is not kept
+            # (as the Transformers library's beam search does: transformers generate(), num_beams=K)
+            if rank < K:
+                finished.append((score, toks, lps + [float(lp[rr, tok])], True))
         else:
             alive.append((score, rr, tok))
             if len(alive) == K:
@@ -121,27 +134,29 @@ class SeqRecogniser(Recogniser):
                                 "[seq.decoder_full] graph")
         self.encoder = make_session(s.encoder.model, options, "encoder")
         self.step_session = make_session(s.decoder_step.model, options, "decoder_step") if self.cached else None
+        self.first_session = (make_session(s.decoder_first.model, options, "decoder_first")
+                              if self.cached and s.decoder_first is not None else None)
         self.full_session = (make_session(s.decoder_full.model, options, "decoder_full")
                              if not self.cached else None)
         self.max_tokens = options.max_tokens or s.max_tokens
+        self.detok = TokenizerFile(s.tokenizer, card.path) if s.tokenizer else SymbolTable(s.symbols)
         d = s.decoder_step if self.cached else s.decoder_full
         g = d.graph
         self.tok_dtype = onnx_dtype(g.inputs[d.tokens].elem_type, np.int64)
-        self.mask_dtype = onnx_dtype(g.inputs[d.memory_mask].elem_type) if d.memory_mask else None
+        masked = [x for x in (d, s.decoder_first if self.cached else None) if x is not None and x.memory_mask]
+        self.mask_dtype = onnx_dtype(masked[0].graph.inputs[masked[0].memory_mask].elem_type) if masked else None
         if self.cached:
             ds = s.decoder_step
             self.step_dtype = onnx_dtype(g.inputs[ds.step].elem_type, np.int64) if ds.step else None
             self.step_rank = g.inputs[ds.step].rank if ds.step else None
-            self.cache_shapes = []
-            for name in ds.past:
-                ti = g.inputs[name]
-                self.cache_shapes.append((ti.shape, onnx_dtype(ti.elem_type)))
+            self.n_past = len(ds.past)
+            self.cache_shapes = [(g.inputs[n].shape, onnx_dtype(g.inputs[n].elem_type)) for n in ds.past + ds.static_past]
             self.fetch = [ds.log_probs, *ds.present]
         else:
             self.fetch = [s.decoder_full.log_probs]
 
     def _sessions(self) -> list:
-        return [self.encoder, self.step_session or self.full_session]
+        return [x for x in (self.encoder, self.first_session, self.step_session, self.full_session) if x is not None]
 
     # ------------------------------------------------------------------ pieces
 
@@ -205,33 +220,51 @@ class SeqRecogniser(Recogniser):
                 mask: np.ndarray | None, step: int, timer: _Timer) -> tuple[np.ndarray, list[np.ndarray] | None]:
         """One decoder call for R rows. ``hist``: (R, step+1) tokens so far (BOS first).
 
-        Returns the (R, V) log-probabilities of the next token and the new cache (cached mode).
+        Returns the (R, V) log-probabilities of the next token and the new cache (cached mode). The cache
+        list holds the self-attention cache (``past``), then the static inputs (``static_past``): computed
+        at step 0 by the first-step graph or the merged graph's no-cache branch, then fed unchanged.
         """
-        if self.cached:
-            ds = self.s.decoder_step
-            feeds = {ds.tokens: hist[:, -1:].astype(self.tok_dtype, copy=False)}
-            if ds.step:
-                feeds[ds.step] = self._step_value(step)
-            for name, c in zip(ds.past, cache):
-                feeds[name] = c
-            for name, m in zip(ds.memory, memory):
-                feeds[name] = m
-            if ds.memory_mask:
-                feeds[ds.memory_mask] = mask
-            t0 = timer.clock()
-            outs = self.step_session.run(self.fetch, feeds)
-            timer.t += timer.clock() - t0
-            return outs[0], outs[1:]
-        df = self.s.decoder_full
-        feeds = {df.tokens: hist.astype(self.tok_dtype, copy=False)}
-        for name, m in zip(df.memory, memory):
-            feeds[name] = m
-        if df.memory_mask:
-            feeds[df.memory_mask] = mask
+        if not self.cached:
+            df = self.s.decoder_full
+            feeds = self._memory_feeds(df, memory, mask)
+            feeds[df.tokens] = hist.astype(self.tok_dtype, copy=False)
+            outs = self._run(self.full_session, self.fetch, feeds, timer)
+            return scores_to_log_probs(outs[0], df.scores_are_logits), None
+        ds, first = self.s.decoder_step, self.s.decoder_first
+        tokens = hist[:, -1:].astype(self.tok_dtype, copy=False)
+        if step == 0 and first is not None:
+            feeds = self._memory_feeds(first, memory, mask)
+            feeds[first.tokens] = tokens
+            outs = self._run(self.first_session, [first.log_probs, *first.present, *first.static_present], feeds, timer)
+            return scores_to_log_probs(outs[0], first.scores_are_logits), outs[1:]
+        feeds = self._memory_feeds(ds, memory, mask)
+        feeds[ds.tokens] = tokens
+        if ds.step:
+            feeds[ds.step] = self._step_value(step)
+        for name, c in zip(ds.past + ds.static_past, cache):
+            feeds[name] = c
+        fetch = self.fetch
+        if ds.use_cache_branch:
+            feeds[ds.use_cache_branch] = np.array([step > 0], np.bool_).reshape(
+                (1,) if ds.graph.inputs[ds.use_cache_branch].rank == 1 else ())
+            if step == 0:
+                fetch = self.fetch + list(ds.static_present)
+        outs = self._run(self.step_session, fetch, feeds, timer)
+        new_cache = outs[1:] if step == 0 or not ds.static_past else outs[1:] + cache[self.n_past:]
+        return scores_to_log_probs(outs[0], ds.scores_are_logits), new_cache
+
+    def _memory_feeds(self, d, memory: list[np.ndarray], mask: np.ndarray | None) -> dict:
+        feeds = {name: m for name, m in zip(d.memory, memory)}
+        if d.memory_mask:
+            feeds[d.memory_mask] = mask
+        return feeds
+
+    @staticmethod
+    def _run(session, fetch: list[str], feeds: dict, timer: _Timer) -> list[np.ndarray]:
         t0 = timer.clock()
-        outs = self.full_session.run(self.fetch, feeds)
+        outs = session.run(fetch, feeds)
         timer.t += timer.clock() - t0
-        return outs[0], None
+        return outs
 
     def _take_rows(self, memory, mask, cache, idx: np.ndarray):
         ba = self.s.encoder.batch_axis
@@ -349,16 +382,11 @@ class SeqRecogniser(Recogniser):
 
     def detokenise(self, d: Decoded) -> tuple[str, float, list[float]]:
         """Text, line confidence (geometric mean of the decision probabilities) and per-character confidences."""
-        sym = self.s.symbols
-        text, chars = [], []
-        for tok, lp in zip(d.tokens, d.log_probs):
-            piece = sym[tok] if 0 <= tok < len(sym) else ""
-            text.append(piece)
-            chars += [float(np.exp(lp))] * len(piece)
+        text, chars = self.detok.decode(d.tokens, [float(np.exp(lp)) for lp in d.log_probs])
         conf = float(np.exp(np.mean(d.log_probs))) if d.log_probs else 1.0
         if not d.ended:
             conf = 0.0      # cut by the guard (or failed): the text is incomplete, never "certain"
-        return "".join(text), conf, chars
+        return text, conf, chars
 
     def run_batch(self, pb: PreparedBatch, *, clock: Clock = time.perf_counter,
                   max_tokens: int | None = None) -> tuple[list[LineResult], BatchTiming]:
@@ -399,9 +427,30 @@ class SeqRecogniser(Recogniser):
         for pb in self.prepare([blank, blank[:, : w // 2]] + warm_up_lines(self.spec, self.options.batch_size)):
             _, timing = self.run_batch(pb, max_tokens=3)
         # a vocabulary axis left free in the graph is checked here, on real output
-        memory, mask = self.encode(self.prepare([blank])[0].tensor, np.array([w]))
+        pb = self.prepare([blank])[0]
+        memory, mask = self.encode(pb.tensor, pb.widths)
         lp, _ = self.decoder(np.full((1, 1), self.s.bos_index, np.int64),
                              self._init_cache(1) if self.cached else None, memory, mask, 0, _Timer(time.perf_counter))
-        if lp.shape[-1] != len(self.s.symbols):
-            raise CardError(self.card.path, f"field 'seq.vocab': the vocabulary has {len(self.s.symbols)} entries "
+        n = self.s.vocab_size or len(self.s.symbols)
+        if lp.shape[-1] != n and not (self.s.tokenizer and lp.shape[-1] > n):
+            field = "seq.tokenizer" if self.s.tokenizer else "seq.vocab"
+            raise CardError(self.card.path, f"field '{field}': the vocabulary has {n} entries "
                                             f"but the decoder scores {lp.shape[-1]} tokens")
+        self._check_scores(lp)
+
+    def _check_scores(self, lp: np.ndarray) -> None:
+        """The first decoder step's scores on a blank line: never NaN; declared log-probabilities must be
+        log-probabilities (<= 0, exponentials summing to 1 within float32 rounding: common practice 1e-2)."""
+        d = self.s.decoder_first if self.cached and self.s.decoder_first else (
+            self.s.decoder_step if self.cached else self.s.decoder_full)
+        role = {id(self.s.decoder_first): "decoder_first", id(self.s.decoder_step): "decoder_step"}.get(
+            id(d), "decoder_full")
+        field = f"seq.{role}.{'logits' if d.scores_are_logits else 'log_probs'}"
+        if np.isnan(lp).any():
+            raise CardError(self.card.path, f"field '{field}': the decoder's scores for a blank line hold NaN")
+        if not d.scores_are_logits:
+            lse = np.log(np.sum(np.exp(lp.astype(np.float64)), axis=-1))
+            if float(np.max(lp)) > 1e-3 or float(np.abs(lse).max()) > 1e-2:
+                raise CardError(self.card.path, f"field '{field}': output '{d.log_probs}' does not hold "
+                                                "log-probabilities (values above 0 or not summing to 1); if it "
+                                                f"holds raw scores, name it with 'logits = \"{d.log_probs}\"'")
