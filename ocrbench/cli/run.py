@@ -22,6 +22,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
 from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, choices, fail
+from ocrbench.cli.engineopts import provider_options, warn_before_run
 from ocrbench.cli.progress import RunProgress
 from ocrbench.cli.show import print_run_problems, print_run_summary
 from ocrbench.io.tables import json_text
@@ -47,8 +48,14 @@ def run(
     graph_optimisation: GraphLevel = typer.Option("all", "--graph-optimisation",
                                                   help="onnxruntime graph optimisation level."),
     provider: list[str] = typer.Option(["CPUExecutionProvider"], "--provider",
-                                       help="onnxruntime execution provider, in order of preference (repeat); "
-                                            "those not installed are skipped, CPU is always the fallback."),
+                                       help="onnxruntime execution provider, in order of preference (repeat). "
+                                            "One this onnxruntime lacks stops the run (exit 2) unless "
+                                            "--allow-cpu-fallback; CPU is always last."),
+    allow_cpu_fallback: bool = typer.Option(False, "--allow-cpu-fallback",
+                                            help="A requested provider that is not installed is a warning "
+                                                 "(recorded with the run's settings) and the run goes on."),
+    provider_option: list[str] = typer.Option([], "--provider-option",
+                                              help="key=value for the first --provider (repeat)."),
     decoding: Decoding = typer.Option("greedy", "--decoding", help="Decoding: greedy, or beam search."),
     beam_width: int = typer.Option(8, "--beam-width", min=1, help="Hypotheses kept by beam search."),
     no_cache: bool = typer.Option(False, "--no-cache",
@@ -103,6 +110,8 @@ def run(
                    "(not with --workers, --scheduler or --post...)", EXIT_USAGE)
     engine = EngineOptions(intra_threads=threads, inter_threads=inter_threads,
                            graph_optimisation=graph_optimisation.value, providers=tuple(provider),
+                           allow_cpu_fallback=allow_cpu_fallback,
+                           provider_options=provider_options(provider_option),
                            batch_size=batch_size, decoding=decoding.value,
                            beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens)
     dask = None
@@ -114,6 +123,7 @@ def run(
                                scheduler=scheduler, pages_per_task=pages_per_task, connect_timeout=connect_timeout)
         except OcrbenchError as e:
             raise fail(str(e), EXIT_USAGE)
+    warn_before_run(recogniser, engine)
     try:
         pipeline = None
         if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
@@ -169,3 +179,4 @@ def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh
                 written[r.name] = write_texts(text_out, r.name, st.page_texts(r.run_id, post=True),
                                           input_root=target)
     return summary, written
+
