@@ -182,6 +182,18 @@ def test_turned_pages_are_flagged_and_read_upright_with_auto_rotate(demo_dir, tu
     assert _texts(rec, [ln.crop for ln in fixed.lines]) == _texts(rec, [ln.crop for ln in upright.lines])
 
 
+def test_pages_command_shows_the_turn_and_auto_rotate_reads_the_lines(tmp_path, demo_dir):
+    png = load_page(PageRef(demo_dir / DEMO_PNG[0])).gray
+    Image.fromarray(np.ascontiguousarray(np.rot90(png, -1))).save(tmp_path / "sideways.png")
+    upright = len(analyse_page(png).lines)
+    rows = json.loads(CliRunner().invoke(app, ["pages", str(tmp_path), "--json"]).stdout)["pages"]
+    assert rows[0]["flags"] == ["rotated_90"] and rows[0]["rotation"] == 90 and rows[0]["lines"] != upright
+    res = CliRunner().invoke(app, ["pages", str(tmp_path), "--auto-rotate"])
+    assert res.exit_code == 0 and "rotated_90" in res.stdout
+    rows = json.loads(CliRunner().invoke(app, ["pages", str(tmp_path), "--json", "--auto-rotate"]).stdout)["pages"]
+    assert rows[0]["lines"] == upright
+
+
 def test_every_demo_page_is_upright_and_clean(demo_dir):
     for f in sorted(demo_dir.glob("page_*.*")):
         if f.suffix in (".png", ".jpg"):
