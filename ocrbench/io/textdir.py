@@ -101,10 +101,5 @@ def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]], *,
             path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as e:
             raise TextFileError(path.parent, f"cannot create the folder ({e.strerror or e})") from e
-        tmp = path.with_name(path.name + ".part")
-        try:
-            tmp.write_text("".join(f"{ln}\n" for ln in lines), encoding="utf-8")
-            tmp.replace(path)
-        except OSError as e:
-            raise TextFileError(path, f"cannot write ({e.strerror or e})") from e
+        write_lines(path, lines)
     return len(texts)
