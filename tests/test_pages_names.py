@@ -123,6 +123,13 @@ def test_non_utf8_file_names_are_listed_loaded_and_shown_safely(tmp_path):
     assert {Path(r["path"]).name for r in json.loads(res.stdout)["pages"]} == {"a.png", "caf\\xe9.png"}
     res = CliRunner().invoke(app, ["pages", str(pages)])
     assert res.exit_code == 0 and "caf\\xe9.png" in res.stdout
+    # ground truth named in the same bytes pairs with the page
+    truth = tmp_path / "truth"
+    truth.mkdir()
+    with open(os.fsencode(truth) + b"/caf\xe9.txt", "w", encoding="utf-8") as f:
+        f.write("x\n")
+    pr = pair_store_pages(truth, [r.id for r in refs])
+    assert [k for k, _, _ in pr.pairs] == ["caf\\xe9.png"] and pr.hyp_only == ["a.png"]
 
 
 def test_run_with_a_non_utf8_page_name_stores_every_page(tmp_path):

@@ -8,7 +8,8 @@ Each flag is a plain word stored with the page and shown by ``pages``:
 * ``rotated_90`` / ``rotated_180`` / ``rotated_270`` — the text is turned clockwise by
   that angle (see :mod:`ocrbench.pages.orient`; ``auto_rotate`` turns it back);
 * ``overwide_lines`` — a line crop wider than a recogniser takes without squeezing
-  (width over height above ``max_aspect``).
+  (width over height above ``max_aspect``); :func:`~ocrbench.pages.segment.cut_overwide`
+  cuts such a line into pieces a recogniser reads one by one.
 
 Every threshold is named here, with where it comes from.
 """

@@ -307,3 +307,43 @@ def split_at_gaps(gray: np.ndarray, gap_factor: float) -> list[tuple[int, int]]:
     if len(spans) == 1:
         return [(0, w)]
     return [(max(0, a - pad), min(w, b + pad)) for a, b in spans]
+
+
+def cut_overwide(gray: np.ndarray, max_aspect: float) -> list[tuple[int, int]]:
+    """Column spans that cut a line crop wider than ``max_aspect`` x its height into pieces
+    no wider than that, so a recogniser reads each instead of squeezing the whole.
+
+    Cuts go at blank gaps first (:func:`split_at_gaps` with ever smaller gaps, down
+    to a quarter of the height: word spaces; neighbouring pieces that fit together are
+    joined again), then, for a piece still too wide, at
+    the column with least ink within the last third of the allowed width. One span
+    (the whole width) when the crop is not too wide.
+    """
+    g = np.asarray(gray)
+    h, w = g.shape
+    limit = max(2, int(max_aspect * h))
+    if w <= limit:
+        return [(0, w)]
+    spans = [(0, w)]
+    for gap in (1.0, 0.5, 0.25):
+        if all(b - a <= limit for a, b in spans):
+            break
+        spans = [(a + c, a + d) for a, b in spans
+                 for c, d in (split_at_gaps(g[:, a:b], gap) if b - a > limit else [(0, b - a)])]
+    merged: list[tuple[int, int]] = []
+    for a, b in spans:                       # neighbours join again while they fit: few, long pieces
+        if merged and b - merged[-1][0] <= limit:
+            merged[-1] = (merged[-1][0], b)
+        else:
+            merged.append((a, b))
+    lo, hi = np.percentile(g, 2), np.percentile(g, 98)
+    ink = (g < (lo + hi) / 2).sum(axis=0) if hi - lo >= 30 else np.zeros(w, dtype=np.int64)
+    out: list[tuple[int, int]] = []
+    for a, b in merged:
+        while b - a > limit:
+            window = ink[a + (2 * limit) // 3: a + limit]
+            cut = a + (2 * limit) // 3 + int(np.argmin(window))
+            out.append((a, cut))
+            a = cut
+        out.append((a, b))
+    return out

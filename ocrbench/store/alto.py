@@ -32,6 +32,7 @@ from pathlib import Path, PurePosixPath
 
 from ocrbench.errors import StoreError
 from ocrbench.io.text import split_page_id, text_names
+from ocrbench.io.textdir import text_paths, write_texts
 
 ALTO_NS = "http://www.loc.gov/standards/alto/ns-v4#"
 ALTO_SCHEMA = "http://www.loc.gov/alto/v4/alto-4-4.xsd"
@@ -194,10 +195,9 @@ def export_texts(store_path: Path | str, out_dir: Path | str, *, text: str = "ra
         folders = run_folders(infos)
         for info in infos:
             texts = st.page_texts(info.run_id, post=text == "post")
-            for pid, name in text_names(texts).items():
-                path = _out_path(out_dir, folders[info.run_id], PurePosixPath(name))
-                _write(path, "".join(f"{ln}\n" for ln in texts[pid]).encode("utf-8"))
-                written.append(path)
+            paths = text_paths(Path(out_dir), folders[info.run_id], texts.keys())
+            write_texts(Path(out_dir), folders[info.run_id], texts)
+            written.extend(paths[pid] for pid in sorted(texts))
     return written
 
 
