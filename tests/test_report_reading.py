@@ -160,3 +160,18 @@ def test_pages_per_hour_comes_from_an_ordinary_run_not_a_measuring_one(tmp_path)
     data = build_report_data(db, run_ids=[rid], n_boot=200)
     assert data.summary["recognisers"][0]["purpose"] == "measure-scaling"
     assert "measure-scaling run" in render_html(data.summary, {})
+
+
+def test_worst_lines_are_shown_as_read_with_inline_marks():
+    from ocrbench.report.alignview import inline_html   # noqa: PLC0415
+
+    out = inline_html(align_columns("Cash from bank 12.50", "Cash fr m bank  12.5O"))
+    # the text of the view is the line as read (edited spaces made visible)
+    assert "".join(collect(out).text) == f"Cash fr{SPACE_MARK}m bank {SPACE_MARK}12.5O"
+    assert '<mark class="sub" title="read O where the truth has 0">O</mark>' in out
+    assert '<mark class="sub" title="read U+0020 SPACE where the truth has o">' in out
+    assert f'<mark class="ins" title="added by the reading: U+0020 SPACE">{SPACE_MARK}</mark>' in out
+    # a truth character the reading misses is shown struck through where it belongs
+    assert inline_html(align_columns("abc", "ac")) == \
+        '<p class="al">a<del title="missing from the reading: b">b</del>c</p>'
+    assert "edit" not in out                                  # no per-position letter row
