@@ -175,3 +175,18 @@ def test_worst_lines_are_shown_as_read_with_inline_marks():
     assert inline_html(align_columns("abc", "ac")) == \
         '<p class="al">a<del title="missing from the reading: b">b</del>c</p>'
     assert "edit" not in out                                  # no per-position letter row
+
+
+@pytest.mark.parametrize("deadline_h,above", [(1000.0, True), (20.0, False)])
+def test_a_far_deadline_is_named_not_drawn(deadline_h, above):
+    from ocrbench.report.plots import plan_workers   # noqa: PLC0415
+
+    curve = [{"recogniser": "a", "workers": w, "wall_seconds_p10": 3600 * 8 / w, "wall_seconds_p50": 3600 * 10 / w,
+              "wall_seconds_p90": 3600 * 12 / w} for w in (1, 2, 4)]
+    summary = {"recognisers": [{"name": "a"}],
+               "plan": {"curve": curve, "spec": {"pages": 1000, "deadline": "x"},
+                        "rows": {"a": {"deadline_seconds": deadline_h * 3600}}}}
+    svg = plan_workers(summary)
+    # the highest P90 is 12 h: a deadline over three times that would squash the curves if drawn
+    assert ("is above this plot" in svg) is above
+    assert ("deadline (x)" in svg) is not above
