@@ -28,6 +28,7 @@ CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/ch
 HEADINGS = ("Recognisers side by side", "Paired comparison", "Plan for the archive", "Figures",
             "Accuracy against throughput", "Error rate by character class", "Distribution of CER per page",
             "Decode time per line against characters per line", "Planned wall-clock against workers",
+            "Archive cost against accuracy",
             "Worst pages, line by line", "Runs: host and settings", "Cautions")
 
 
@@ -68,7 +69,7 @@ def test_dom_holds_tables_figures_and_headings(report, tmp_path):
     assert r.returncode == 0, r.stderr[-2000:]
     dom = collect(r.stdout)
     tags = [t for t, _ in dom.tags]
-    assert tags.count("svg") == 5
+    assert tags.count("svg") == 6
     assert tags.count("table") >= 6
     assert "script" not in tags
     text = " ".join(dom.text)
@@ -130,7 +131,7 @@ def test_every_table_fits_a_1366_px_window(report, tmp_path):
     assert m["window"] == 1366
     assert m["document"] <= m["window"], m                      # no horizontal scroll
     assert m["overflowing"] == [], m["overflowing"]              # no table wider than its container
-    assert len(m["figures"]) == 5 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
+    assert len(m["figures"]) == 6 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
     assert m["decision_top"] is not None and 0 <= m["decision_top"] < m["height"] / 2   # the decision comes first
     errors = [ln for ln in log.splitlines() if "CONSOLE" in ln and ("Error" in ln or "Uncaught" in ln)]
     assert not errors, errors

@@ -418,6 +418,9 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
                        "length; a CTC recogniser reads a line in one pass.",
         "plan-workers": "The archive's planned wall-clock as workers are added: P50 line, P10-P90 band, and the "
                         "deadline (named at the top instead when it lies far above every curve).",
+        "cost-accuracy": "Each option of the plan: its archive cost (compute and correction; the bar reaches the "
+                         "cost's high end) against its CER with the 95 % interval. The filled mark is the "
+                         "recommended option; the dashed line is the budget.",
     }
     for k, f in enumerate(s["figures"]):
         svg = svgs.get(f["id"])

@@ -309,6 +309,42 @@ def plan_workers(summary: Mapping) -> str | None:
         return _to_svg(fig)
 
 
+def cost_accuracy(summary: Mapping) -> str | None:
+    """The plan's options: archive cost (point, and the bar up to its high end) against their CER interval."""
+    plan = summary.get("plan") or {}
+    rows = {k: v for k, v in (plan.get("rows") or {}).items() if v.get("cost") is not None and v.get("cer") is not None}
+    if not rows:
+        return None
+    names = [r["name"] for r in summary["recognisers"]]
+    chosen = (plan.get("recommendation") or {}).get("recogniser")
+    cur = plan.get("currency") or ""
+    plt = _plt()
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+        for name, r in rows.items():
+            st = _style(names.index(name) if name in names else 0)
+            x, y = 100 * r["cer"], float(r["cost"])
+            xerr = _err(x, None if r.get("cer_low") is None else 100 * r["cer_low"],
+                        None if r.get("cer_high") is None else 100 * r["cer_high"])
+            yerr = _err(y, None, r.get("cost_high"))
+            ax.errorbar([x], [y], xerr=xerr, yerr=yerr, fmt=st["marker"], color=st["color"], ms=7, capsize=3,
+                        mfc=st["color"] if name == chosen else "white", mec=st["color"], elinewidth=1.0,
+                        label=_label(f"{name}" + (" (recommended)" if name == chosen else "")))
+            ax.annotate(_label(name), (x, y), textcoords="offset points", xytext=(8, -10), fontsize=8)
+        budget = (plan.get("spec") or {}).get("budget")
+        if budget is not None:
+            ax.axhline(float(budget), color=INK, linestyle=(0, (6, 3)), linewidth=1.0)
+            ax.annotate("budget", (ax.get_xlim()[1], float(budget)), textcoords="offset points", xytext=(-4, 4),
+                        ha="right", fontsize=8)
+        ax.set_xlabel("CER, % (95 % interval; the text the plan's correction effort uses)")
+        ax.set_ylabel(_label(f"archive cost{', ' + cur if cur else ''} (point; bar up to the high end)"))
+        ax.set_xlim(left=0)
+        ax.set_ylim(bottom=0)
+        _legend(ax)
+        ax.set_title("Lower left is cheaper and more accurate", fontsize=9, loc="left")
+        return _to_svg(fig)
+
+
 def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
                    line_times: pd.DataFrame | None) -> dict[str, str | None]:
     """Figure id -> SVG text (None where there is nothing to draw)."""
@@ -318,4 +354,5 @@ def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
         "page-cer": page_cer(summary, page_scores),
         "decode-time": decode_time(summary, line_times),
         "plan-workers": plan_workers(summary),
+        "cost-accuracy": cost_accuracy(summary),
     }
