@@ -190,3 +190,19 @@ def test_a_far_deadline_is_named_not_drawn(deadline_h, above):
     # the highest P90 is 12 h: a deadline over three times that would squash the curves if drawn
     assert ("is above this plot" in svg) is above
     assert ("deadline (x)" in svg) is not above
+
+
+def test_a_rising_wall_clock_is_explained_in_the_caption():
+    from ocrbench.report.html import _curve_note, curve_rises   # noqa: PLC0415
+
+    curve = [{"recogniser": "a", "workers": 1, "wall_seconds_p50": 100.0},
+             {"recogniser": "a", "workers": 2, "wall_seconds_p50": 150.0},
+             {"recogniser": "a", "workers": 4, "wall_seconds_p50": 80.0},
+             {"recogniser": "b", "workers": 1, "wall_seconds_p50": 100.0},
+             {"recogniser": "b", "workers": 2, "wall_seconds_p50": 60.0}]
+    assert curve_rises(curve) == [("a", 1, 2, 1.5)]
+    note = _curve_note({"plan": {"curve": curve, "scaling_measured": ["a", "b"]}})
+    assert "a from 1 to 2 workers (×1.50)" in note and "measure-scaling" in note
+    unexplained = _curve_note({"plan": {"curve": curve}})      # no measured scaling: only the fact is said
+    assert "a from 1 to 2 workers (×1.50)" in unexplained and "measure-scaling" not in unexplained
+    assert _curve_note({"plan": {"curve": curve[3:]}}) == ""

@@ -427,10 +427,38 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
         body = (svg_inline(svg, f"f{k}", title=f["title"]) if svg else
                 f'<p class="note">Not drawn: {_e(f.get("why_not") or "nothing to draw")}.</p>')
         out.append(f'<figure id="fig-{_e(f["id"])}"><h3>{_e(f["title"])}</h3>{body}'
-                   f'<figcaption>{_e(captions.get(f["id"], ""))}'
+                   f'<figcaption>{_e(captions.get(f["id"], ""))}{_e(_curve_note(s) if f["id"] == "plan-workers" else "")}'
                    f'<code class="recipe" data-key="figures.{k}.recipe" data-fmt="text">{_e(f["recipe"])}</code>'
                    f"</figcaption></figure>")
     return "".join(out)
+
+
+def curve_rises(curve: list[Mapping]) -> list[tuple[str, int, int, float]]:
+    """(recogniser, fewer workers, more workers, ratio) wherever the planned P50 wall-clock rises with workers."""
+    out = []
+    by_name: dict[str, list[Mapping]] = {}
+    for row in curve:
+        by_name.setdefault(str(row.get("recogniser")), []).append(row)
+    for name, rows in by_name.items():
+        rows = sorted(rows, key=lambda r: r["workers"])
+        for a, b in zip(rows, rows[1:]):
+            if a.get("wall_seconds_p50") and b.get("wall_seconds_p50") and b["wall_seconds_p50"] > a["wall_seconds_p50"]:
+                out.append((name, int(a["workers"]), int(b["workers"]), b["wall_seconds_p50"] / a["wall_seconds_p50"]))
+    return out
+
+
+def _curve_note(s: Mapping) -> str:
+    rises = curve_rises((s.get("plan") or {}).get("curve") or [])
+    if not rises:
+        return ""
+    parts = [f"{name} from {a} to {b} workers (×{r:.2f})" for name, a, b, r in rises]
+    measured = set((s.get("plan") or {}).get("scaling_measured") or [])
+    if measured and all(name in measured for name, *_ in rises):
+        return (" Where the line rises as workers are added (" + "; ".join(parts) + "), the plan follows the "
+                "throughput measured at those workers on this machine (measure-scaling): more workers sharing "
+                "its cores and memory finished pages more slowly than fewer did, so adding them there would "
+                "not help.")
+    return " The planned wall-clock rises as workers are added: " + "; ".join(parts) + "."
 
 
 def _worst(s: Mapping) -> str:
