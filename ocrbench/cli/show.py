@@ -13,7 +13,7 @@ from rich.console import Console
 from rich.table import Table
 
 __all__ = ["show_char", "pct", "interval", "wide_console", "print_scores", "print_comparisons", "print_run_summary",
-           "print_run_problems"]
+           "print_run_problems", "print_postprocess_runs"]
 
 
 def show_char(ch: str) -> str:
@@ -169,3 +169,19 @@ def print_run_problems(summary, store: Path) -> None:
             say(f"{r.name}: {page_id}: {error}")
     if summary.failed_pages:
         say(f"{len(summary.failed_pages)} of {summary.pages_total} pages failed")
+
+
+def print_postprocess_runs(recipe: str, results: list[dict], folders: list[str]) -> None:
+    """What ``postprocess STORE`` did per run (stdout), then each refused page (stderr, one line each)."""
+    out, err = Console(), Console(stderr=True)
+    out.print(f"recipe: {recipe}", markup=False, highlight=False, soft_wrap=True)
+    for r in results:
+        out.print(f"run {r['run_id']} ({r['recogniser']}): {r['pages']} pages, {r['changed_lines']} of "
+                  f"{r['lines']} lines changed; post-processed text stored beside the raw text",
+                  markup=False, highlight=False)
+    for folder in folders:
+        out.print(f"texts: {folder}", markup=False, highlight=False)
+    for r in results:
+        for f in r["failed"]:
+            err.print(f"ocrbench: run {r['run_id']}: {f['page_id']}: post-processing refused this page "
+                      f"({f['error']})", markup=False, highlight=False, soft_wrap=True)

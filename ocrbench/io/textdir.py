@@ -40,3 +40,9 @@ def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]]) -> 
     for page_id, lines in texts.items():
         atomic_write_lines(folder / f"{text_stem(page_id)}.txt", lines)
     return len(texts)
+
+
+def run_folders(recognisers: dict[int, str]) -> dict[int, str]:
+    """Output folder name per run id: the recogniser's name, or ``<name>-run<id>`` where two runs share it."""
+    names = list(recognisers.values())
+    return {rid: name if names.count(name) == 1 else f"{name}-run{rid}" for rid, name in recognisers.items()}
