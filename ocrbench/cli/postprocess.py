@@ -23,7 +23,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
-from ocrbench.cli.show import print_postprocess_runs
+from ocrbench.cli.show_run import print_postprocess_runs
 from ocrbench.errors import OcrbenchError
 from ocrbench.io.files import is_sqlite_file
 from ocrbench.io.tables import json_text
