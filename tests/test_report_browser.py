@@ -2,8 +2,11 @@
 
 Checks that the rendered DOM holds the tables, the inline SVG figures and
 the section headings, that no script element exists after parsing, and that a
-screenshot is not blank (pixel variance, with Pillow). Skipped with a message
-only where chromium is not installed.
+screenshot is not blank (pixel variance, with Pillow). At 1366x768 a copy of
+the report with a measuring script added checks the laid-out page: no
+horizontal scroll, no table wider than its container, every figure drawn with
+a size, the decision block in the first screen, no console error. Skipped with
+a message only where chromium is not installed.
 """
 
 from __future__ import annotations
