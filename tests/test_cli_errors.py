@@ -203,3 +203,31 @@ def test_review_of_lines_without_confidence_and_text(tmp_path):
     [res] = json.loads(r.stdout)["runs"]
     assert [q["confidence"] for q in res["queue"]] == [None, None]
     assert all("confidence unknown" in q["reasons"] for q in res["queue"])
+
+
+@pytest.mark.slow
+def test_ctrl_c_during_run_is_one_line_and_exit_130(tmp_path, demo_dir):
+    import signal
+    import sqlite3
+    import time
+
+    db = tmp_path / "s.sqlite"
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    p = subprocess.Popen([sys.executable, "-m", "ocrbench", "run", str(demo_dir), "-r", str(ROOT / "models/ledger-seq"),
+                          "--store", str(db)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    t0, done = time.time(), 0
+    while time.time() - t0 < 240 and not done and p.poll() is None:
+        time.sleep(0.3)
+        try:
+            done = sqlite3.connect(db).execute("SELECT COUNT(*) FROM pages WHERE status='done'").fetchone()[0]
+        except sqlite3.Error:
+            continue
+    assert done, "no page was finished before the time limit"
+    p.send_signal(signal.SIGINT)          # what Ctrl-C sends
+    _, err = p.communicate(timeout=240)
+    assert p.returncode == 130, err[-2000:]
+    _no_traceback(err)
+    said = [ln for ln in err.splitlines() if ln.startswith("ocrbench:")]
+    assert len(said) == 1 and "interrupted" in said[0] and "resume" in said[0]
+    # what was finished stays in the store
+    assert sqlite3.connect(db).execute("SELECT COUNT(*) FROM pages WHERE status='done'").fetchone()[0] >= done

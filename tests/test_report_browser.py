@@ -2,8 +2,11 @@
 
 Checks that the rendered DOM holds the tables, the inline SVG figures and
 the section headings, that no script element exists after parsing, and that a
-screenshot is not blank (pixel variance, with Pillow). Skipped with a message
-only where chromium is not installed.
+screenshot is not blank (pixel variance, with Pillow). At 1366x768 a copy of
+the report with a measuring script added checks the laid-out page: no
+horizontal scroll, no table wider than its container, every figure drawn with
+a size, the decision block in the first screen, no console error. Skipped with
+a message only where chromium is not installed.
 """
 
 from __future__ import annotations
@@ -28,6 +31,7 @@ CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/ch
 HEADINGS = ("Recognisers side by side", "Paired comparison", "Plan for the archive", "Figures",
             "Accuracy against throughput", "Error rate by character class", "Distribution of CER per page",
             "Decode time per line against characters per line", "Planned wall-clock against workers",
+            "Archive cost against accuracy",
             "Worst pages, line by line", "Runs: host and settings", "Cautions")
 
 
@@ -68,7 +72,7 @@ def test_dom_holds_tables_figures_and_headings(report, tmp_path):
     assert r.returncode == 0, r.stderr[-2000:]
     dom = collect(r.stdout)
     tags = [t for t, _ in dom.tags]
-    assert tags.count("svg") == 5
+    assert tags.count("svg") == 6
     assert tags.count("table") >= 6
     assert "script" not in tags
     text = " ".join(dom.text)
@@ -130,7 +134,7 @@ def test_every_table_fits_a_1366_px_window(report, tmp_path):
     assert m["window"] == 1366
     assert m["document"] <= m["window"], m                      # no horizontal scroll
     assert m["overflowing"] == [], m["overflowing"]              # no table wider than its container
-    assert len(m["figures"]) == 5 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
+    assert len(m["figures"]) == 6 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
     assert m["decision_top"] is not None and 0 <= m["decision_top"] < m["height"] / 2   # the decision comes first
     errors = [ln for ln in log.splitlines() if "CONSOLE" in ln and ("Error" in ln or "Uncaught" in ln)]
     assert not errors, errors

@@ -160,3 +160,49 @@ def test_pages_per_hour_comes_from_an_ordinary_run_not_a_measuring_one(tmp_path)
     data = build_report_data(db, run_ids=[rid], n_boot=200)
     assert data.summary["recognisers"][0]["purpose"] == "measure-scaling"
     assert "measure-scaling run" in render_html(data.summary, {})
+
+
+def test_worst_lines_are_shown_as_read_with_inline_marks():
+    from ocrbench.report.alignview import inline_html   # noqa: PLC0415
+
+    out = inline_html(align_columns("Cash from bank 12.50", "Cash fr m bank  12.5O"))
+    # the text of the view is the line as read (edited spaces made visible)
+    assert "".join(collect(out).text) == f"Cash fr{SPACE_MARK}m bank {SPACE_MARK}12.5O"
+    assert '<mark class="sub" title="read O where the truth has 0">O</mark>' in out
+    assert '<mark class="sub" title="read U+0020 SPACE where the truth has o">' in out
+    assert f'<mark class="ins" title="added by the reading: U+0020 SPACE">{SPACE_MARK}</mark>' in out
+    # a truth character the reading misses is shown struck through where it belongs
+    assert inline_html(align_columns("abc", "ac")) == \
+        '<p class="al">a<del title="missing from the reading: b">b</del>c</p>'
+    assert "edit" not in out                                  # no per-position letter row
+
+
+@pytest.mark.parametrize("deadline_h,above", [(1000.0, True), (20.0, False)])
+def test_a_far_deadline_is_named_not_drawn(deadline_h, above):
+    from ocrbench.report.plots import plan_workers   # noqa: PLC0415
+
+    curve = [{"recogniser": "a", "workers": w, "wall_seconds_p10": 3600 * 8 / w, "wall_seconds_p50": 3600 * 10 / w,
+              "wall_seconds_p90": 3600 * 12 / w} for w in (1, 2, 4)]
+    summary = {"recognisers": [{"name": "a"}],
+               "plan": {"curve": curve, "spec": {"pages": 1000, "deadline": "x"},
+                        "rows": {"a": {"deadline_seconds": deadline_h * 3600}}}}
+    svg = plan_workers(summary)
+    # the highest P90 is 12 h: a deadline over three times that would squash the curves if drawn
+    assert ("is above this plot" in svg) is above
+    assert ("deadline (x)" in svg) is not above
+
+
+def test_a_rising_wall_clock_is_explained_in_the_caption():
+    from ocrbench.report.html import _curve_note, curve_rises   # noqa: PLC0415
+
+    curve = [{"recogniser": "a", "workers": 1, "wall_seconds_p50": 100.0},
+             {"recogniser": "a", "workers": 2, "wall_seconds_p50": 150.0},
+             {"recogniser": "a", "workers": 4, "wall_seconds_p50": 80.0},
+             {"recogniser": "b", "workers": 1, "wall_seconds_p50": 100.0},
+             {"recogniser": "b", "workers": 2, "wall_seconds_p50": 60.0}]
+    assert curve_rises(curve) == [("a", 1, 2, 1.5)]
+    note = _curve_note({"plan": {"curve": curve, "scaling_measured": ["a", "b"]}})
+    assert "a from 1 to 2 workers (×1.50)" in note and "measure-scaling" in note
+    unexplained = _curve_note({"plan": {"curve": curve}})      # no measured scaling: only the fact is said
+    assert "a from 1 to 2 workers (×1.50)" in unexplained and "measure-scaling" not in unexplained
+    assert _curve_note({"plan": {"curve": curve[3:]}}) == ""

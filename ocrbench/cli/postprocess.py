@@ -23,10 +23,11 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from ocrbench.cli.common import EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.cli.show_run import print_postprocess_runs
 from ocrbench.errors import OcrbenchError
 from ocrbench.io.files import is_sqlite_file
 from ocrbench.io.tables import json_text
-from ocrbench.io.textdir import list_text_files, write_texts
+from ocrbench.io.textdir import list_text_files, run_folders, write_texts
 from ocrbench.postprocess.config import load_pipeline
 from ocrbench.postprocess.steps import Pipeline, describe_steps
 
@@ -124,21 +125,18 @@ def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipe
                            f"(runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
             todo = runs or have
             infos = {rid: st.run_info(rid) for rid in todo}
-            names = [i.recogniser for i in infos.values()]
-            clash = {n for n in names if names.count(n) > 1}
+            folders = run_folders({rid: i.recogniser for rid, i in infos.items()})
             with Progress(TextColumn("post-processing runs"), BarColumn(), MofNCompleteColumn(), console=err,
                           transient=True, disable=len(todo) < 2) as progress:
                 task = progress.add_task("postprocess", total=len(todo))
                 for rid in todo:
-                    info = infos[rid]
                     res = apply_postprocess(st, rid, pipeline)
-                    results.append({"run_id": rid, "recogniser": info.recogniser, "pages": res.pages,
+                    results.append({"run_id": rid, "recogniser": infos[rid].recogniser, "pages": res.pages,
                                     "lines": res.lines, "changed_lines": res.changed_lines,
                                     "failed": [{"page_id": p, "error": e} for p, e in res.failures]})
                     if out_dir is not None:
-                        folder = info.recogniser if info.recogniser not in clash else f"{info.recogniser}-run{rid}"
-                        write_texts(out_dir, folder, st.page_texts(rid, post=True))
-                        written[folder] = str(out_dir / folder)
+                        write_texts(out_dir, folders[rid], st.page_texts(rid, post=True))
+                        written[folders[rid]] = str(out_dir / folders[rid])
                     progress.advance(task)
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
@@ -147,15 +145,5 @@ def _postprocess_store(source: Path, out_dir: Path | None, runs: list[int], pipe
         typer.echo(json_text({"recipe": pipeline.recipe, "store": str(source), "runs": results,
                               "text_out": written or None}))
     else:
-        out = Console()
-        out.print(f"recipe: {pipeline.recipe}", markup=False, highlight=False, soft_wrap=True)
-        for r in results:
-            out.print(f"run {r['run_id']} ({r['recogniser']}): {r['pages']} pages, {r['changed_lines']} of "
-                      f"{r['lines']} lines changed; post-processed text stored beside the raw text",
-                      markup=False, highlight=False)
-        for folder in written.values():
-            out.print(f"texts: {folder}", markup=False, highlight=False)
-        for r, f in failed:
-            err.print(f"ocrbench: run {r['run_id']}: {f['page_id']}: post-processing refused this page "
-                      f"({f['error']})", markup=False, highlight=False, soft_wrap=True)
+        print_postprocess_runs(pipeline.recipe, results, list(written.values()))
     raise typer.Exit(EXIT_SOME_FAILED if failed else EXIT_OK)

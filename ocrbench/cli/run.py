@@ -24,7 +24,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, choices, fail
 from ocrbench.cli.engineopts import provider_options, warn_before_run
 from ocrbench.cli.progress import RunProgress
-from ocrbench.cli.show import print_run_problems, print_run_summary
+from ocrbench.cli.show_run import print_run_problems, print_run_summary
 from ocrbench.io.tables import json_text
 from ocrbench.errors import OcrbenchError
 from ocrbench.io.textdir import write_texts

@@ -76,3 +76,9 @@ def write_texts(out_dir: Path, recogniser: str, texts: dict[str, list[str]], *,
         ensure_folder(path.parent)
         atomic_write_lines(path, lines)
     return len(texts)
+
+
+def run_folders(recognisers: dict[int, str]) -> dict[int, str]:
+    """Output folder name per run id: the recogniser's name, or ``<name>-run<id>`` where two runs share it."""
+    names = list(recognisers.values())
+    return {rid: name if names.count(name) == 1 else f"{name}-run{rid}" for rid, name in recognisers.items()}

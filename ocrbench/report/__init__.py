@@ -3,8 +3,9 @@
 Modules: :mod:`.data` gathers every figure into one summary (built first);
 :mod:`.display` writes a figure for people (one function for HTML and
 console); :mod:`.plots` draws the figures as SVG; :mod:`.alignview` lays out
-line alignments; :mod:`.html` writes the page; :mod:`.plan` reads or
-computes the archive plan.
+line alignments; :mod:`.html` writes the page (the decision first). Scores
+come from :mod:`ocrbench.accuracy.evaluate`, the plan from
+:mod:`ocrbench.planning.service`.
 
 :func:`write_report` is what ``ocrbench report`` and ``ocrbench demo`` call.
 """

@@ -1,21 +1,17 @@
-"""Line-level alignment of reference and hypothesis, laid out for reading (HTML and plain text).
+"""Line-level alignment of reference and hypothesis, laid out for reading.
 
-Why three rows: a reader checking a recogniser wants to see *where* it went
-wrong, not only how often. Each aligned line is written as three rows of a
-fixed-width block::
+The report shows each line **as it was read**, with the edits against the
+truth marked inline (:func:`inline_html`): a character read as another is
+bold and underlined twice, with the truth character in its title (shown on
+hover); a truth character the reading misses is shown struck through where it
+belongs; a character the reading adds is shaded in a dotted box. Marks are
+shapes, never colour alone, so the view reads the same printed in grey. An
+edited space is shown as ``\u2423`` and an edited character with no visible
+shape as ``\u00a4``, with its code point in the title. A legend in words goes
+with the view.
 
-    truth  Cash from bank   12.50
-    read   Cash fr·m bank   12.5O
-    edit          D             S
-
-The ``edit`` row names every edit with a letter, so the view reads the same
-printed in grey, photocopied, or through a screen reader: ``S``
-substitution (a truth character read as another), ``D`` deletion (a truth
-character missing from the reading), ``I`` insertion (a character in the
-reading that the truth does not have). Where one side has no character the
-column holds a gap mark ``·``. In HTML the edited characters are also marked
-by shape (substitution: double underline; deletion: struck through;
-insertion: dotted box), never by colour alone.
+:func:`columns_text` writes the same alignment as plain text for consoles
+and tests (truth row, reading row, one edit letter per position).
 
 The alignment is the accuracy module's minimal edit script
 (:func:`ocrbench.accuracy.align.edits`), so the marked edits are the ones
@@ -32,7 +28,8 @@ from typing import Sequence
 
 from ocrbench.accuracy.align import edits
 
-__all__ = ["Column", "align_columns", "split_rows", "columns_html", "columns_text", "GAP", "LEGEND"]
+__all__ = ["Column", "align_columns", "split_rows", "columns_html", "columns_text", "inline_html", "GAP", "LEGEND",
+           "INLINE_LEGEND", "SPACE_MARK", "INVISIBLE_MARK"]
 
 GAP = "\u00b7"          # middle dot: no character on this side
 HIT, SUB, DEL, INS = "=", "S", "D", "I"
@@ -189,3 +186,59 @@ def columns_text(cols: Sequence[Column]) -> str:
         rows.append("read  " + "".join(_shown(c.hyp, c.op) for c in row))
         rows.append("edit  " + "".join(" " if c.op == HIT else c.op for c in row))
     return "\n".join(rows)
+
+
+# --------------------------------------------------------------------------- the report's view: the line as read
+
+#: What the marks of :func:`inline_html` mean, in words (mark's CSS class, name, meaning).
+INLINE_LEGEND = (
+    ("sub", "read as another", "a character the recogniser read wrongly: shown as read, bold and underlined "
+                               "twice; point at it to see the truth character"),
+    ("del", "missing", "a truth character the reading leaves out: shown struck through where it belongs"),
+    ("ins", "added", "a character the reading has and the truth does not: shaded in a dotted box"),
+    ("mark", f"{SPACE_MARK} and {INVISIBLE_MARK}", "an edited space, and an edited character with no visible "
+                                                   "shape (point at it for its code point)"),
+)
+
+
+def _char_title(text: str) -> str:
+    """Characters for a title: as they are when all are visible, else each named by its code point."""
+    if all(ch.isprintable() and not ch.isspace() for ch in text):
+        return text
+    return ", ".join(_describe(ch) for ch in text)
+
+
+def inline_html(cols: Sequence[Column]) -> str:
+    """The line as read, with the edits marked inline (HTML; every character escaped).
+
+    Hits are plain text; substituted characters show as read (``<mark class="sub">``, the truth
+    characters in the title); missing truth characters show struck through where they belong
+    (``<del>``); added characters show in ``<mark class="ins">``. A run of edits of one kind is one
+    mark. Edited spaces and invisible characters get a visible one-character stand-in, with their
+    code points in the title.
+    """
+    out: list[str] = []
+    k = 0
+    while k < len(cols):
+        op = cols[k].op
+        end = k
+        while end < len(cols) and cols[end].op == op:
+            end += 1
+        run = cols[k:end]
+        k = end
+        read = "".join(c.hyp or "" for c in run)
+        truth = "".join(c.ref or "" for c in run)
+        if op == HIT:
+            out.append(html.escape("".join(_VISIBLE.get(ch, ch) for ch in read)))
+            continue
+        shown = html.escape("".join(_visible_edit(ch) for ch in (truth if op == DEL else read)))
+        if op == SUB:
+            title = f"read {_char_title(read)} where the truth has {_char_title(truth)}"
+            out.append(f'<mark class="sub" title="{html.escape(title, quote=True)}">{shown}</mark>')
+        elif op == DEL:
+            title = f"missing from the reading: {_char_title(truth)}"
+            out.append(f'<del title="{html.escape(title, quote=True)}">{shown}</del>')
+        else:
+            title = f"added by the reading: {_char_title(read)}"
+            out.append(f'<mark class="ins" title="{html.escape(title, quote=True)}">{shown}</mark>')
+    return '<p class="al">' + "".join(out) + "</p>"

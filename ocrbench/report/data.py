@@ -509,6 +509,12 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("y=archive wall-clock P50 with P10-P90 band (Monte Carlo over cost-model refits, page "
                     f"distribution and residuals);x={(plan or {}).get('curve_axis') or 'workers'};"
                     f"pages={((plan or {}).get('spec') or {}).get('pages', '-')}")},
+        {"id": "cost-accuracy", "title": "Archive cost against accuracy",
+         "shown": bool(plan and any(r.get("cost") is not None and r.get("cer") is not None
+                                    for r in (plan.get("rows") or {}).values())),
+         "why_not": ("no plan was given" if not plan else "the plan has no cost or no accuracy for its options"),
+         "recipe": ("x=cer(corpus, 95% interval, post-processed text where stored);y=archive cost P50 "
+                    "(compute + correction) with a bar up to its high end;line=budget")},
     ]
     for f in figs:
         if f["shown"]:

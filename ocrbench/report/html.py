@@ -10,8 +10,9 @@ ground truth, cards, file names or the store is escaped with ``html.escape``.
 The design is our own and deliberately plain: black on white, one serif
 text face and one fixed-width face from the reader's own system, thin rules,
 no colour carrying meaning (figures use shapes, line styles and hatching; the
-alignments use letters and text decoration), and print rules that keep a
-figure or a table row on one page.
+worst lines are shown as read, with edits marked inline by shape: struck
+through, double underline, dotted box), and print rules that keep a figure or
+a table row on one page.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ import html
 import json
 from typing import Any, Mapping
 
-from ocrbench.report.alignview import LEGEND, align_columns, columns_html
+from ocrbench.report.alignview import INLINE_LEGEND, align_columns, inline_html
 from ocrbench.report.data import resolve
 from ocrbench.report.display import fmt
 
@@ -55,14 +56,17 @@ code, pre, .recipe { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace
 code.hash { overflow-wrap: anywhere; word-break: break-all; }
 details.long { margin: .15rem 0 0; text-align: left; white-space: normal; max-width: 24rem; }
 .steps { white-space: normal; }
-pre.align { font-size: .82rem; line-height: 1.35; overflow-x: auto; margin: .3rem 0 .8rem;
-            padding: .4rem .6rem; border: 1px solid #bbb; white-space: pre; }
-pre.align .lab { font-style: italic; }
+p.al { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: .85rem; line-height: 1.7;
+       white-space: pre-wrap; overflow-wrap: anywhere; margin: .2rem 0 .8rem; padding: .1rem .7rem;
+       border-left: 3px solid #111; }
+p.al mark, p.al del { color: inherit; border-radius: 2px; }
+p.al mark.sub, .sub-key { background: none; font-weight: bold; text-decoration: underline double; }
+p.al del, .del-key { text-decoration: line-through; text-decoration-thickness: 2px; background: none; }
+p.al mark.ins, .ins-key { background: #e2e2e2; outline: 1.5px dotted #111; font-weight: bold; }
 .e-sub { text-decoration: underline double; font-weight: bold; }
 .e-del { text-decoration: line-through; text-decoration-thickness: 2px; }
 .e-ins { outline: 1.5px dotted #111; outline-offset: 0; font-weight: bold; background: #e6e6e6; }
 .gap { color: #555; }
-.e-sub-mark, .e-del-mark, .e-ins-mark { font-weight: bold; }
 dl.legend { display: grid; grid-template-columns: max-content 1fr; gap: .1rem .8rem; font-size: .85rem; }
 dl.legend dt { font-family: "DejaVu Sans Mono", monospace; font-weight: bold; }
 dl.legend dd { margin: 0; }
@@ -79,7 +83,7 @@ p.plain code { white-space: pre-wrap; }
 @media print {
   body { max-width: none; margin: 0; font-size: 10.5pt; }
   h2 { break-after: avoid; page-break-after: avoid; }
-  tr, pre.align { break-inside: avoid; page-break-inside: avoid; }
+  tr, p.al { break-inside: avoid; page-break-inside: avoid; }
 }
 """
 
@@ -403,7 +407,9 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
     out = ['<h2 id="figures">Figures</h2>']
     captions = {
         "accuracy-throughput": "Each recogniser's CER against its pages per hour on this machine; bars are 95 % "
-                               "intervals. Filled marks: raw text; open marks: post-processed text.",
+                               "intervals. Filled marks: raw text; open marks: post-processed text, drawn a "
+                               "little to the right of the raw mark (they share one throughput) so their bars "
+                               "never overlap.",
         "class-errors": "Errors per truth character in each character class (digits matter most in ledgers); "
                         "hatching tells the recognisers apart; bars are 95 % intervals.",
         "page-cer": "How CER spreads over pages: the share of pages whose CER is at or below each value.",
@@ -411,17 +417,48 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
                        "autoregressive recogniser takes one decoder step per character, so its line rises with "
                        "length; a CTC recogniser reads a line in one pass.",
         "plan-workers": "The archive's planned wall-clock as workers are added: P50 line, P10-P90 band, and the "
-                        "deadline.",
+                        "deadline (named at the top instead when it lies far above every curve).",
+        "cost-accuracy": "Each option of the plan: its archive cost (compute and correction; the bar reaches the "
+                         "cost's high end) against its CER with the 95 % interval. The filled mark is the "
+                         "recommended option; the dashed line is the budget.",
     }
     for k, f in enumerate(s["figures"]):
         svg = svgs.get(f["id"])
         body = (svg_inline(svg, f"f{k}", title=f["title"]) if svg else
                 f'<p class="note">Not drawn: {_e(f.get("why_not") or "nothing to draw")}.</p>')
         out.append(f'<figure id="fig-{_e(f["id"])}"><h3>{_e(f["title"])}</h3>{body}'
-                   f'<figcaption>{_e(captions.get(f["id"], ""))}'
+                   f'<figcaption>{_e(captions.get(f["id"], ""))}{_e(_curve_note(s) if f["id"] == "plan-workers" else "")}'
                    f'<code class="recipe" data-key="figures.{k}.recipe" data-fmt="text">{_e(f["recipe"])}</code>'
                    f"</figcaption></figure>")
     return "".join(out)
+
+
+def curve_rises(curve: list[Mapping]) -> list[tuple[str, int, int, float]]:
+    """(recogniser, fewer workers, more workers, ratio) wherever the planned P50 wall-clock rises with workers."""
+    out = []
+    by_name: dict[str, list[Mapping]] = {}
+    for row in curve:
+        by_name.setdefault(str(row.get("recogniser")), []).append(row)
+    for name, rows in by_name.items():
+        rows = sorted(rows, key=lambda r: r["workers"])
+        for a, b in zip(rows, rows[1:]):
+            if a.get("wall_seconds_p50") and b.get("wall_seconds_p50") and b["wall_seconds_p50"] > a["wall_seconds_p50"]:
+                out.append((name, int(a["workers"]), int(b["workers"]), b["wall_seconds_p50"] / a["wall_seconds_p50"]))
+    return out
+
+
+def _curve_note(s: Mapping) -> str:
+    rises = curve_rises((s.get("plan") or {}).get("curve") or [])
+    if not rises:
+        return ""
+    parts = [f"{name} from {a} to {b} workers (×{r:.2f})" for name, a, b, r in rises]
+    measured = set((s.get("plan") or {}).get("scaling_measured") or [])
+    if measured and all(name in measured for name, *_ in rises):
+        return (" Where the line rises as workers are added (" + "; ".join(parts) + "), the plan follows the "
+                "throughput measured at those workers on this machine (measure-scaling): more workers sharing "
+                "its cores and memory finished pages more slowly than fewer did, so adding them there would "
+                "not help.")
+    return " The planned wall-clock rises as workers are added: " + "; ".join(parts) + "."
 
 
 def _worst(s: Mapping) -> str:
@@ -430,11 +467,12 @@ def _worst(s: Mapping) -> str:
         if s.get("truth"):
             return '<h2 id="worst">Worst pages</h2><p>No page has an error.</p>'
         return ""
-    legend = "".join(f"<dt>{_e(mark)}</dt><dd><b>{_e(name)}</b>: {_e(what)}</dd>" for mark, name, what in LEGEND)
+    legend = "".join(f'<dt><span class="{cls}-key">{_e(name)}</span></dt><dd>{_e(what)}</dd>'
+                     for cls, name, what in INLINE_LEGEND)
     out = ['<h2 id="worst">Worst pages, line by line</h2>',
            "<p>The pages with the highest CER for each recogniser, with the lines that hold errors (at most "
-           "the worst few per page). Text is shown after the scoring profile's normalisation, as it was "
-           "scored.</p>",
+           "the worst few per page). Each line is shown as it was read, with the edits against the truth marked "
+           "in it; text is shown after the scoring profile's normalisation, as it was scored.</p>",
            f'<dl class="legend">{legend}</dl>']
     for k, w in enumerate(worst):
         out.append(f"<h3>{_e(w['recogniser'])}: page <code>{_e(w['page_id'])}</code>, CER "
@@ -450,7 +488,7 @@ def _worst(s: Mapping) -> str:
             label = f"line {ln['line_no']}" if ln.get("line_no") is not None else "whole page"
             out.append(f'<p class="note">{_e(label)}: {_e(ln["char_edits"])} {_plural(ln["char_edits"], "edit")} in '
                        f'{_e(ln["ref_chars"])} {_plural(ln["ref_chars"], "character")}</p>')
-            out.append(columns_html(align_columns(ln["ref"], ln["hyp"])))
+            out.append(inline_html(align_columns(ln["ref"], ln["hyp"])))
             # The same two texts unbroken (for copying and for screen readers), folded away by default.
             out.append(f'<details><summary>plain text of {_e(label)}</summary><p class="plain">truth: '
                        f'<code>{_e(ln["ref"])}</code><br>read: <code>{_e(ln["hyp"])}</code></p></details>')

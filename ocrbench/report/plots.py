@@ -124,6 +124,7 @@ def accuracy_throughput(summary: Mapping) -> str | None:
     if not runs:
         return None
     plt = _plt()
+    from matplotlib.transforms import ScaledTranslation
     with plt.rc_context(STYLE):
         fig, ax = plt.subplots(figsize=(6.4, 4.2), layout="constrained")
         xs = []
@@ -134,16 +135,22 @@ def accuracy_throughput(summary: Mapping) -> str | None:
             x = r["pages_per_hour"]
             xs.append(x)
             xerr = _err(x, r.get("pages_per_hour_low"), r.get("pages_per_hour_high"))
-            for key, filled, tag in (("accuracy", True, "raw"), ("accuracy_post", False, "post-processed")):
+            both = bool(r.get("accuracy_post"))
+            for key, filled, tag, dodge in (("accuracy", True, "raw", -5.0), ("accuracy_post", False,
+                                                                            "post-processed", 5.0)):
                 acc = r.get(key)
                 if not acc or acc.get("cer") is None:
                     continue
                 y = 100 * acc["cer"]
                 yerr = _err(y, None if acc["cer_low"] is None else 100 * acc["cer_low"],
                             None if acc["cer_high"] is None else 100 * acc["cer_high"])
-                ax.errorbar([x], [y], xerr=xerr, yerr=yerr, fmt=st["marker"], color=st["color"],
-                            mfc=st["color"] if filled else "white", mec=st["color"], ms=7, capsize=3,
-                            elinewidth=1.0, label=_label(f"{r['name']} ({r['kind']}, {tag})"))
+                eb = ax.errorbar([x], [y], xerr=xerr, yerr=yerr, fmt=st["marker"], color=st["color"],
+                                 mfc=st["color"] if filled else "white", mec=st["color"], ms=7, capsize=3,
+                                 elinewidth=1.0, label=_label(f"{r['name']} ({r['kind']}, {tag})"))
+                if both:   # raw and post-processed share one throughput: drawn 5 points apart, bars never overlap
+                    shift = ScaledTranslation(dodge / 72, 0, fig.dpi_scale_trans)
+                    for artist in eb.get_children():
+                        artist.set_transform(artist.get_transform() + shift)
             ax.annotate(_label(r["name"]), (x, 100 * r["accuracy"]["cer"]), textcoords="offset points",
                         xytext=(8, 6), fontsize=8)
         if xs and max(xs) / max(min(xs), 1e-9) > 20:
@@ -275,21 +282,66 @@ def plan_workers(summary: Mapping) -> str | None:
             st = _style(i)
             d = d.sort_values("workers")
             h = 1 / 3600
-            ax.fill_between(d["workers"], d["wall_seconds_p10"] * h, d["wall_seconds_p90"] * h, facecolor="none",
-                            edgecolor=st["color"], hatch=st["hatch"] or "..", linewidth=0.0, alpha=0.6)
+            # a light solid band (hatching only tells a second recogniser's band apart), edged at P10 and P90
+            ax.fill_between(d["workers"], d["wall_seconds_p10"] * h, d["wall_seconds_p90"] * h,
+                            facecolor="0.88", edgecolor="none", alpha=0.7, hatch=st["hatch"] or None)
+            for q in ("wall_seconds_p10", "wall_seconds_p90"):
+                ax.plot(d["workers"], d[q] * h, color=st["color"], linestyle=":", linewidth=0.7)
             ax.plot(d["workers"], d["wall_seconds_p50"] * h, color=st["color"], linestyle=st["linestyle"],
                     marker=st["marker"], ms=4, mfc="white", label=_label(f"{name}: P50, band P10-P90"))
         spec = plan.get("spec") or {}
         deadline = next((r.get("deadline_seconds") for r in (plan.get("rows") or {}).values()
                          if r.get("deadline_seconds")), None)
-        if deadline:
+        top = float(curve["wall_seconds_p90"].max()) / 3600
+        if deadline and deadline / 3600 <= 3 * top:
             ax.axhline(deadline / 3600, color=INK, linestyle=(0, (6, 3)), linewidth=1.0)
             ax.annotate(f"deadline ({spec.get('deadline') or ''})", (curve["workers"].max(), deadline / 3600),
                         textcoords="offset points", xytext=(-4, 4), ha="right", fontsize=8)
+        elif deadline:
+            # far above every bar: a line there would squash the curves into the bottom of the plot
+            ax.annotate(f"deadline ({spec.get('deadline') or ''}, {deadline / 3600:,.0f} h) is above this plot: "
+                        "every P90 here is under a third of it", xy=(0.99, 0.98), xycoords="axes fraction", ha="right", va="top",
+                        fontsize=8)
         ax.set_yscale("log")
         ax.set_xlabel(_label(f"workers ({plan.get('curve_axis') or 'as planned'})"))
         ax.set_ylabel(_label(f"wall-clock for {spec.get('pages', 0):,} pages, hours"))
         _legend(ax)
+        return _to_svg(fig)
+
+
+def cost_accuracy(summary: Mapping) -> str | None:
+    """The plan's options: archive cost (point, and the bar up to its high end) against their CER interval."""
+    plan = summary.get("plan") or {}
+    rows = {k: v for k, v in (plan.get("rows") or {}).items() if v.get("cost") is not None and v.get("cer") is not None}
+    if not rows:
+        return None
+    names = [r["name"] for r in summary["recognisers"]]
+    chosen = (plan.get("recommendation") or {}).get("recogniser")
+    cur = plan.get("currency") or ""
+    plt = _plt()
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+        for name, r in rows.items():
+            st = _style(names.index(name) if name in names else 0)
+            x, y = 100 * r["cer"], float(r["cost"])
+            xerr = _err(x, None if r.get("cer_low") is None else 100 * r["cer_low"],
+                        None if r.get("cer_high") is None else 100 * r["cer_high"])
+            yerr = _err(y, None, r.get("cost_high"))
+            ax.errorbar([x], [y], xerr=xerr, yerr=yerr, fmt=st["marker"], color=st["color"], ms=7, capsize=3,
+                        mfc=st["color"] if name == chosen else "white", mec=st["color"], elinewidth=1.0,
+                        label=_label(f"{name}" + (" (recommended)" if name == chosen else "")))
+            ax.annotate(_label(name), (x, y), textcoords="offset points", xytext=(8, -10), fontsize=8)
+        budget = (plan.get("spec") or {}).get("budget")
+        if budget is not None:
+            ax.axhline(float(budget), color=INK, linestyle=(0, (6, 3)), linewidth=1.0)
+            ax.annotate("budget", (ax.get_xlim()[1], float(budget)), textcoords="offset points", xytext=(-4, 4),
+                        ha="right", fontsize=8)
+        ax.set_xlabel("CER, % (95 % interval; the text the plan's correction effort uses)")
+        ax.set_ylabel(_label(f"archive cost{', ' + cur if cur else ''} (point; bar up to the high end)"))
+        ax.set_xlim(left=0)
+        ax.set_ylim(bottom=0)
+        _legend(ax)
+        ax.set_title("Lower left is cheaper and more accurate", fontsize=9, loc="left")
         return _to_svg(fig)
 
 
@@ -302,4 +354,5 @@ def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
         "page-cer": page_cer(summary, page_scores),
         "decode-time": decode_time(summary, line_times),
         "plan-workers": plan_workers(summary),
+        "cost-accuracy": cost_accuracy(summary),
     }
