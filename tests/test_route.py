@@ -157,6 +157,9 @@ def test_route_command(setup, tmp_path):
     doc = json.loads(r.stdout)
     assert [x["kind"] for x in doc["recognisers"]] == ["ctc", "ctc", "route"]
     _check_store(db, fast, slow, Route(str(fast.folder), slow.name, x))
+    # review lists the fast reading and the kept text; the re-reading (some lines only) only on request
+    r = CliRunner().invoke(app, ["review", str(db), "--json", "--lines", "1"])
+    assert [x["recogniser"] for x in json.loads(r.stdout)["runs"]] == [fast.name, f"{fast.name}->{slow.name}"]
     r = CliRunner().invoke(app, args[:-2] + ["a b c", "--json"])
     assert r.exit_code == 2 and "FAST -> SLOW if doubt > X" in r.stderr
     r = CliRunner().invoke(app, args + ["--workers", "2"])

@@ -99,7 +99,7 @@ def review(
                 if post and st.post_recipe(rid) is not None:
                     ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
                 return ln
-            for rid in run or have:
+            for rid in run or [r.run_id for r in refs if r.route_role != "slow"]:  # routed re-readings: on request
                 info = st.run_info(rid)
                 done = done_of[rid]
                 ln = run_lines(rid)

@@ -120,6 +120,8 @@ def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None) -> pd.DataFr
         if missing:
             raise StoreError(f"the store holds no run {missing[0]}")
         return sel.sort_values("run_id")
+    # a routed run's re-reading holds only the routed lines (ocrbench/run/routed.py): listed only when asked for
+    runs = runs[[_json(x).get("route_role") != "slow" for x in runs["settings_json"]]]
     latest = runs.sort_values("run_id").groupby("recogniser", sort=False).tail(1)
     return latest.sort_values("run_id")
 
