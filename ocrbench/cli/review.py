@@ -9,6 +9,10 @@ range). With ``--truth DIR`` the lines of pages with ground truth give the
 calibration figures: AUROC of doubt-by-confidence for "this line holds an
 error", with a page-resampled interval, the error rate per confidence decile,
 and the share of the lines holding errors that the head of the queue catches.
+Where the store holds another recogniser's run over the same pages, a line the
+two read differently gains doubt (:mod:`ocrbench.postprocess.agreement`), and
+with ``--truth`` the AUROC of confidence alone, of disagreement alone and of
+both together are shown with intervals (``--no-agreement`` turns it off).
 
 The queue holds text excerpts of the archive: handle its output under the
 holder's data-protection rules.
