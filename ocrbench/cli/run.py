@@ -173,6 +173,10 @@ def run(
                           _fmt(r.page_seconds_p90, ".3f"), _fmt(r.page_seconds_p99, ".3f"),
                           _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
         out.print(table)
+        if route is not None and len(summary.recognisers) == 3 and summary.recognisers[0].lines:
+            f, sl, _ = summary.recognisers
+            out.print(f"route: {sl.name} re-read {sl.lines} of {f.lines} lines ({sl.lines / f.lines:.1%}); model time "
+                      f"{f.model_seconds:.1f} s + {sl.model_seconds:.1f} s", markup=False, highlight=False)
         out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
                   f"{summary.wall_seconds:.1f} s; store: {store}")
         if text_out is not None:
