@@ -157,7 +157,26 @@ def test_route_command(setup, tmp_path):
     doc = json.loads(r.stdout)
     assert [x["kind"] for x in doc["recognisers"]] == ["ctc", "ctc", "route"]
     _check_store(db, fast, slow, Route(str(fast.folder), slow.name, x))
+    # review lists the fast reading and the kept text; the re-reading (some lines only) only on request
+    r = CliRunner().invoke(app, ["review", str(db), "--json", "--lines", "1"])
+    assert [x["recogniser"] for x in json.loads(r.stdout)["runs"]] == [fast.name, f"{fast.name}->{slow.name}"]
+    r = CliRunner().invoke(app, args[:-1])                     # human output, resumed
+    assert r.exit_code == 0 and f"route: {slow.name} re-read" in r.stdout and "resumed" in r.stdout
     r = CliRunner().invoke(app, args[:-2] + ["a b c", "--json"])
     assert r.exit_code == 2 and "FAST -> SLOW if doubt > X" in r.stderr
     r = CliRunner().invoke(app, args + ["--workers", "2"])
     assert r.exit_code == 2 and "--route takes exactly two" in r.stderr
+
+
+def test_routed_run_records_a_bad_page_in_every_run(setup, tmp_path):
+    import shutil
+
+    pages, fast, slow, x = setup
+    bad = tmp_path / "pages"
+    shutil.copytree(pages, bad)
+    (bad / "page_000_broken.png").write_bytes(b"\x89PNG\r\n\x1a\n truncated")
+    s = run_routed(bad, [fast, slow], Route(fast.name, slow.name, x), store=tmp_path / "b.sqlite",
+                   options=RunOptions(prefetch=False))
+    assert [r.pages_failed for r in s.recognisers] == [1, 1, 1]
+    assert [r.pages_done for r in s.recognisers] == [3, 3, 3]
+    assert s.failed_pages == ["page_000_broken.png"]

@@ -31,6 +31,11 @@ def print_run_summary(summary, store: Path, text_out: Path | None, written: dict
                       _fmt(r.page_seconds_p90, ".3f"), _fmt(r.page_seconds_p99, ".3f"),
                       _fmt(r.pages_per_hour, ",.0f"), _fmt(r.lines_per_second, ".1f"))
     out.print(table)
+    rs = summary.recognisers
+    if len(rs) == 3 and rs[2].kind == "route" and rs[0].lines:     # FAST, SLOW (routed lines), the kept text
+        f, sl = rs[0], rs[1]
+        out.print(f"route: {sl.name} re-read {sl.lines} of {f.lines} lines ({sl.lines / f.lines:.1%}); model time "
+                  f"{f.model_seconds:.1f} s + {sl.model_seconds:.1f} s", markup=False, highlight=False)
     out.print(f"{summary.pages_processed} pages worked on, {summary.pages_skipped} already done, "
               f"{summary.wall_seconds:.1f} s; store: {printable(store)}", markup=False, highlight=False)
     for note in summary.notes():

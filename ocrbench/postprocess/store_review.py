@@ -40,7 +40,8 @@ def review_store(store_path: Any, runs: Sequence[int] = (), *, lexicon: Lexicon 
                 for i in have for x in [st.run_info(i)]]
         pg = frames["pages"]
         done_of = {i: set(pg.loc[(pg["run_id"] == i) & (pg["status"] == "done"), "page_id"]) for i in have}
-        for rid in list(runs) or have:
+        # a routed run's re-reading holds only the routed lines (ocrbench/run/routed.py): reviewed when asked for
+        for rid in list(runs) or [r.run_id for r in refs if r.route_role != "slow"]:
             out.append(_review_run(st, frames, rid, refs, done_of, lexicon=lexicon, rate=rate, post=post,
                                    select=select, truth_dir=truth_dir, normalise=normalise, agreement=agreement,
                                    problems=problems))

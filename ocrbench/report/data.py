@@ -112,6 +112,8 @@ def _select_runs(runs: pd.DataFrame, run_ids: Sequence[int] | None,
         if missing:
             raise StoreError(f"the store holds no run {missing[0]}")
         return sel.sort_values("run_id")
+    # a routed run's re-reading holds only the routed lines (ocrbench/run/routed.py): listed only when asked for
+    runs = runs[[_json(x).get("route_role") != "slow" for x in runs["settings_json"]]]
     ordered = runs.assign(_measuring=runs["run_id"].astype(int).isin(measuring)).sort_values(
         ["_measuring", "run_id"], ascending=[False, True])
     latest = ordered.groupby("recogniser", sort=False).tail(1)    # an ordinary run sorts last, so it wins

@@ -13,6 +13,10 @@ route in its settings so none is mistaken for a plain run:
   was kept is therefore exactly "the SLOW run holds this line". Its page times
   are FAST's page time plus SLOW's recognition time, its model time the sum.
 
+Because the SLOW run holds some lines only, ``score``, ``review`` and ``report``
+leave it out of their default run lists (a run whose settings say
+``route_role = "slow"``); name it with ``--run`` to see it.
+
 Resume: the three runs are found again by card hashes, settings and input
 folder (the route run's card hash is the route's: both card hashes and X).
 A page done in all three is skipped; where FAST already read a page, its stored
