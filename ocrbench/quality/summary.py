@@ -1,5 +1,5 @@
 """``quality``: per group of pages, how good the text is — estimated and, where keyed, measured — and
-whether the group has drifted from the keyed sample. Returns one JSON-ready dict."""
+whether the group has drifted from the calibrated collections. Returns one JSON-ready dict."""
 
 from __future__ import annotations
 
@@ -41,8 +41,8 @@ def group_rows(system: System, cal: Calibration | None, *, level: float = 0.95, 
             "flagged_share": float(grp["flagged"].mean()) if len(grp) else None,
             "queued_lines": int(done["queued"].sum()),
         }
-        row.update(est.get(g, {"est_cer": None, "est_low": None, "est_high": None, "beyond_range": None,
-                                "extrapolated": False}))
+        row.update(est.get(g, {"est_cer": None, "est_low": None, "est_high": None, "factor": None,
+                                "beyond_range": None, "extrapolated": False}))
         rows.append(row)
     return rows
 
