@@ -34,7 +34,7 @@ from ocrbench.accuracy.normalise import get_profile
 from ocrbench.accuracy.score import score_pages
 from ocrbench.errors import StoreError, TextFileError
 from ocrbench.io.text import pair_store_pages, read_text_lines
-from ocrbench.ledger.balance import BALANCED, UNBALANCED, check_page
+from ocrbench.ledger.balance import BALANCED, UNBALANCED, PageBalance, check_page
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.postprocess.review import line_edits, review_queue
 from ocrbench.store import RunStore
@@ -161,6 +161,15 @@ def _keyed_edits(run_pages: list[str], lines: pd.DataFrame, truth: Path, norm: C
     return page_meas, line_edit
 
 
+def _balances(page_ids: np.ndarray, texts: np.ndarray) -> dict[str, PageBalance]:
+    """The arithmetic of every page, from lines sorted by page and line number."""
+    if page_ids.size == 0:
+        return {}
+    cuts = np.flatnonzero(page_ids[1:] != page_ids[:-1]) + 1
+    starts, ends = np.r_[0, cuts], np.r_[cuts, page_ids.size]
+    return {str(page_ids[s]): check_page(texts[s:e].tolist()) for s, e in zip(starts, ends)}
+
+
 def _page_rows(lines: pd.DataFrame, queue_doubt: float) -> pd.DataFrame:
     agg = lines.groupby(["run_id", "page_id"], sort=False).agg(
         lines=("doubt", "size"), chars=("chars", "sum"), mean_doubt=("doubt", "mean"),
@@ -183,13 +192,12 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
         done = pages[pages["status"] == "done"]
         key = pd.MultiIndex.from_frame(done[["run_id", "page_id"]])
         ln = snap.lines.set_index(["run_id", "page_id"])
-        ln = ln[ln.index.isin(key)].reset_index()
+        ln = ln[ln.index.isin(key)].reset_index().sort_values(["run_id", "page_id", "line_no"], kind="stable")
         doubt_parts, page_status = [], {}
         page_meas: dict[tuple[int, str], tuple[int, int]] = {}
         line_edit: dict[tuple[int, str, int], int] = {}
         for rid, g in ln.groupby("run_id", sort=False):
-            bal = {pid: check_page(pg.sort_values("line_no")["text"].tolist())
-                   for pid, pg in g.groupby("page_id", sort=False)}
+            bal = _balances(g["page_id"].to_numpy(), g["text"].to_numpy())
             page_status.update({(int(rid), pid): b.status for pid, b in bal.items()})
             q = review_queue(g[["page_id", "line_no", "text", "confidence"]], balances=bal, lexicon=lexicon).table
             q["run_id"] = int(rid)
