@@ -253,3 +253,20 @@ def test_pooled_ks_equals_direct_statistic():
     direct = ks_statistic(values[in_a[pages]], values[~in_a[pages]])
     assert abs(pooled_ks(pages[order], ends, in_a) - direct) < 1e-12
     assert abs(direct - scipy.stats.ks_2samp(values[in_a[pages]], values[~in_a[pages]]).statistic) < 1e-12  # scipy
+
+
+def test_unreadable_truth_is_named_and_the_rest_is_used(tmp_path):
+    db, truth, _ = _store(tmp_path, seed=6)
+    bad = truth / "boxA" / "page_000.txt"
+    bad.write_bytes(b"Cash Book\n\xff\xfe broken\n")
+    r = runner.invoke(app, ["quality", str(db), "--truth", str(truth), "--json", "--boot", "100"])
+    assert r.exit_code == 1
+    assert str(bad) in r.stderr and "UTF-8" in r.stderr and len([x for x in r.stderr.splitlines() if str(bad) in x]) == 1
+    [s] = json.loads(r.stdout)["systems"]
+    assert s["calibration"]["pages"] == 5          # the other keyed pages still calibrate
+    empty = tmp_path / "empty.sqlite"
+    from ocrbench.store import RunStore
+
+    RunStore(empty).close()
+    r = runner.invoke(app, ["quality", str(empty)])
+    assert r.exit_code == 0 and "no runs in this store yet" in r.stdout

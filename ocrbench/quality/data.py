@@ -130,11 +130,12 @@ class System:
     run_ids: list[int]
     pages: pd.DataFrame
     lines: pd.DataFrame
-    problems: list[str]
+    problems: list[str]          # inputs that could not be used (unreadable ground truth): exit status 1
+    notes: list[str]             # what was left out of the calibration, and why
 
 
 def _keyed_edits(run_pages: list[str], lines: pd.DataFrame, truth: Path, norm: Callable[[str], str],
-                 profile: str, problems: list[str]) -> tuple[dict[str, tuple[int, int]], dict[tuple[str, int], int]]:
+                 profile: str, problems: list[str], notes: list[str]) -> tuple[dict[str, tuple[int, int]], dict[tuple[str, int], int]]:
     """Measured (edits, ref chars) per keyed page and edits per line (pages whose line counts match)."""
     pairing = pair_store_pages(truth, run_pages)
     by_page = {pid: g for pid, g in lines.groupby("page_id", sort=False)}
@@ -152,7 +153,7 @@ def _keyed_edits(run_pages: list[str], lines: pd.DataFrame, truth: Path, norm: C
             for no, k in zip(g["line_no"], line_edits(hyp, ref, normalise=norm)):
                 line_edit[(str(pid), int(no))] = int(k)
         else:
-            problems.append(f"{tpath}: {len(ref)} ground-truth lines but {len(hyp)} recognised lines on {pid}; "
+            notes.append(f"{tpath}: {len(ref)} ground-truth lines but {len(hyp)} recognised lines on {pid}; "
                             "measured, but left out of the calibration")
     page_meas = {}
     if pages_in:
@@ -188,6 +189,7 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
     for (name, chash), rgrp in runs_df.groupby(["recogniser", "card_hash"], sort=False):
         ids = [int(r) for r in rgrp["run_id"]]
         problems: list[str] = []
+        notes: list[str] = []
         pages = snap.pages[snap.pages["run_id"].isin(ids)].copy()
         done = pages[pages["status"] == "done"]
         key = pd.MultiIndex.from_frame(done[["run_id", "page_id"]])
@@ -204,7 +206,7 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
             doubt_parts.append(q[["run_id", "page_id", "line_no", "text", "confidence", "doubt"]])
             if truth is not None:
                 pm, le = _keyed_edits(done.loc[done["run_id"] == rid, "page_id"].tolist(), g, truth, norm,
-                                      profile, problems)
+                                      profile, problems, notes)
                 page_meas.update({(int(rid), p): v for p, v in pm.items()})
                 line_edit.update({(int(rid), p, n): v for (p, n), v in le.items()})
         cols = ["run_id", "page_id", "line_no", "text", "confidence", "doubt"]
@@ -228,7 +230,7 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
         idx = {k: i for i, k in enumerate(zip(pr["run_id"], pr["page_id"]))}
         lines["page"] = [idx[k] for k in zip(lines["run_id"], lines["page_id"])]
         lines = lines.drop(columns=["text"])
-        out.append(System(str(name), str(chash), ids, pr, lines, problems))
+        out.append(System(str(name), str(chash), ids, pr, lines, problems, notes))
     return out
 
 

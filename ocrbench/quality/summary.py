@@ -130,7 +130,7 @@ def quality(store: Path | str, *, truth: Path | None = None, by: str = "collecti
             drift_flags(system, cal, rows, alpha=alpha, permutations=permutations, seed=seed)
         out["systems"].append({"recogniser": system.name, "card_hash": system.card_hash, "runs": system.run_ids,
                                "calibration": None if cal is None else cal.to_dict(), "groups": rows,
-                               "problems": system.problems})
+                               "problems": system.problems, "notes": system.notes})
         if with_pages:
             out["systems"][-1]["pages"] = (estimate_pages(system, cal, n_boot=n_boot, seed=seed)
                                            if cal is not None else None)
