@@ -69,8 +69,7 @@ class _System:
         self.scores = None
 
     def problems(self) -> bool:
-        return bool((self.require_truth and self.pairing.hyp_only) or self.pairing.truth_only or self.unreadable
-                    or self.failed)
+        return bool(self.pairing.incomplete(require_truth=self.require_truth) or self.unreadable or self.failed)
 
     def report(self) -> dict:
         out = dict(self.scores.summary) if self.scores is not None else {}
@@ -205,9 +204,7 @@ def _print_system(con: Console, s: _System, top: int) -> None:
 def _print_problems(s: _System) -> None:
     """One plain line per problem on stderr (not wrapped, so it can be grepped)."""
     if s.pairing.hyp_only and not s.require_truth:
-        miss = s.pairing.hyp_only
-        typer.echo(f"ocrbench: {s.name}: {len(miss)} page(s) have no ground truth and were not scored "
-                   f"({', '.join(map(str, miss[:3]))}{', ...' if len(miss) > 3 else ''})", err=True)
+        typer.echo(f"ocrbench: {s.name}: {s.pairing.missing_truth_line()}", err=True)
     for p in s.pairing.hyp_only if s.require_truth else ():
         typer.echo(f"ocrbench: {s.name}: no ground truth for {p}", err=True)
     for p in s.pairing.truth_only:
