@@ -238,3 +238,35 @@ def test_between_group_spread_by_moments_hand_worked():
     # two groups: 32 - 12 = 20 over 1.44 * 50 = 72 -> 0.278, below the floor for so few groups
     assert level_and_spread(np.array([10, 2.0]), np.array([5, 5.0])) == (1.2, max(20 / 72, DEFAULT_SPREAD))
     assert level_and_spread(np.array([0, 0.0]), np.array([5, 5.0]))[0] is None      # nothing measured
+
+
+def test_pooled_ks_equals_direct_statistic():
+    from ocrbench.quality.drift import pooled_ks   # the fast path, checked against the direct one
+
+    rng = np.random.default_rng(5)
+    values = np.round(rng.uniform(0, 1, 300), 2)            # ties on purpose
+    pages = rng.integers(0, 30, 300)
+    in_a = np.zeros(30, dtype=bool)
+    in_a[rng.choice(30, 12, replace=False)] = True
+    order = np.argsort(values, kind="stable")
+    ends = np.flatnonzero(np.r_[values[order][1:] != values[order][:-1], True])
+    direct = ks_statistic(values[in_a[pages]], values[~in_a[pages]])
+    assert abs(pooled_ks(pages[order], ends, in_a) - direct) < 1e-12
+    assert abs(direct - scipy.stats.ks_2samp(values[in_a[pages]], values[~in_a[pages]]).statistic) < 1e-12  # scipy
+
+
+def test_unreadable_truth_is_named_and_the_rest_is_used(tmp_path):
+    db, truth, _ = _store(tmp_path, seed=6)
+    bad = truth / "boxA" / "page_000.txt"
+    bad.write_bytes(b"Cash Book\n\xff\xfe broken\n")
+    r = runner.invoke(app, ["quality", str(db), "--truth", str(truth), "--json", "--boot", "100"])
+    assert r.exit_code == 1
+    assert str(bad) in r.stderr and "UTF-8" in r.stderr and len([x for x in r.stderr.splitlines() if str(bad) in x]) == 1
+    [s] = json.loads(r.stdout)["systems"]
+    assert s["calibration"]["pages"] == 5          # the other keyed pages still calibrate
+    empty = tmp_path / "empty.sqlite"
+    from ocrbench.store import RunStore
+
+    RunStore(empty).close()
+    r = runner.invoke(app, ["quality", str(empty)])
+    assert r.exit_code == 0 and "no runs in this store yet" in r.stdout

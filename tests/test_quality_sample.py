@@ -37,11 +37,11 @@ def test_neyman_allocation_hand_worked():
 
 
 def test_lines_budget_is_optimum_allocation_by_cost(tmp_path):
-    from ocrbench.quality.sample import _pages_for_lines  # noqa: PLC2701 - the formula, checked directly
+    from ocrbench.quality.sample import pages_for_lines
 
     # N = 100, 100, S = 1, 1, c = 4, 16 lines a page; budget 240 lines.
     # n = 240·(100/2 + 100/4)/(100·2 + 100·4) = 30; n_h ∝ 50 : 25 -> 20, 10; cost 20·4 + 10·16 = 240.
-    alloc = _pages_for_lines(np.array([100, 100]), np.array([1.0, 1.0]), np.array([4.0, 16.0]), 240)
+    alloc = pages_for_lines(np.array([100, 100]), np.array([1.0, 1.0]), np.array([4.0, 16.0]), 240)
     assert alloc == [20, 10]
 
 

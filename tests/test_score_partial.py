@@ -78,3 +78,14 @@ def test_store_with_partial_truth_exits_0(tmp_path):
     r = runner.invoke(app, ["score", "--truth", str(truth), "--store", str(db), "--json", "--boot", "200"])
     assert r.exit_code == 0, r.output
     assert json.loads(r.stdout)["pages"] == 1 and "2 page(s) have no ground truth" in r.stderr
+
+
+def test_pairing_policy_for_missing_truth(tmp_path):
+    from ocrbench.io.text import pair_folders
+
+    truth, text_out = _folders(tmp_path, keyed=("page_001",))
+    p = pair_folders(truth, text_out / "ctc")
+    assert not p.incomplete() and p.incomplete(require_truth=True)
+    assert p.missing_truth_line().startswith("2 page(s) have no ground truth and were not scored (")
+    (truth / "page_404.txt").write_text("x\n", encoding="utf-8")
+    assert pair_folders(truth, text_out / "ctc").incomplete()       # truth without a hypothesis: always

@@ -59,8 +59,7 @@ class System:
 
     def problems(self) -> bool:
         """True when some input could not be paired, read or recognised (partial ground truth is normal)."""
-        return bool((self.require_truth and self.pairing.hyp_only) or self.pairing.truth_only or self.unreadable
-                    or self.failed)
+        return bool(self.pairing.incomplete(require_truth=self.require_truth) or self.unreadable or self.failed)
 
     @property
     def scored(self) -> bool:
@@ -81,12 +80,11 @@ class System:
 
     def problem_lines(self) -> list[str]:
         """One plain line per problem (for stderr)."""
-        miss = self.pairing.hyp_only
         if self.require_truth:
-            out = [f"{self.name}: no ground truth for {p}" for p in miss]
+            out = [f"{self.name}: no ground truth for {p}" for p in self.pairing.hyp_only]
         else:
-            out = [f"{self.name}: {len(miss)} page(s) have no ground truth and were not scored "
-                   f"({', '.join(map(str, miss[:3]))}{', ...' if len(miss) > 3 else ''})"] if miss else []
+            miss = self.pairing.missing_truth_line()
+            out = [f"{self.name}: {miss}"] if miss else []
         out += [f"{self.name}: no hypothesis for {p}" for p in self.pairing.truth_only]
         out += [f"{u['path']}: {u['error']}" for u in self.unreadable]
         out += [f"{self.name}: page {pid} failed in the run: {e}" for pid, e in self.failed]

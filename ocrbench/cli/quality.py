@@ -5,6 +5,7 @@ that have ground truth in ``--truth``), measured CER where truth exists, ledger
 balance rate, share of flagged pages, lines in the review queue, and drift from
 the keyed sample. Reads the store read-only and never blocks a run writing it;
 ``--watch SECONDS`` refreshes until Ctrl-C (with ``--json``: one JSON object a line).
+Exit status 1 when a ground-truth file could not be read (it is named; the rest is used).
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_USAGE, fail
+from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
 from ocrbench.errors import OcrbenchError
 
 
@@ -49,8 +50,10 @@ def _print(res: dict) -> None:
                       "-" if g["flagged_share"] is None else f"{100 * g['flagged_share']:.0f}%", str(g["queued_lines"]),
                       "-" if drift is None else ("; ".join(drift["reasons"]) or "no"))
         con.print(t)
-        for p in s["problems"]:
+        for p in s["problems"] + s["notes"]:
             typer.echo(f"ocrbench: {p}", err=True)
+    if not res["systems"]:
+        con.print(f"{res['store']}: no runs in this store yet", markup=False, highlight=False)
 
 
 def _write_pages(res: dict, path: Path) -> None:
@@ -117,4 +120,8 @@ def quality_cmd(
         raise fail(str(e), EXIT_USAGE)
     except KeyboardInterrupt:
         raise typer.Exit(EXIT_INTERRUPTED)
-    raise typer.Exit(EXIT_OK)
+    if as_json:
+        for s in res["systems"]:
+            for p in s["problems"]:
+                typer.echo(f"ocrbench: {p}", err=True)
+    raise typer.Exit(EXIT_SOME_FAILED if any(s["problems"] for s in res["systems"]) else EXIT_OK)

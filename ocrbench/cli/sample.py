@@ -30,12 +30,14 @@ def sample_cmd(
                                                                "chosen again, and they calibrate the doubt."),
     run: Optional[int] = typer.Option(None, "--run", help="Run whose pages and text to use (default: the one "
                                                           "with most pages)."),
+    word_list: Optional[Path] = typer.Option(None, "--word-list", help="Word list: unlisted words add doubt."),
     bands: int = typer.Option(3, "--bands", min=1, help="Doubt bands per collection."),
     post: bool = typer.Option(False, "--post", help="Templates from the post-processed text where the run has it."),
     seed: int = typer.Option(0, "--seed", help="Seed of the random choice within strata."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Pick pages to key next (stratified by collection and doubt) and write keying templates."""
+    from ocrbench.postprocess.lexicon import read_word_list
     from ocrbench.quality.data import read_snapshot, systems_of
     from ocrbench.quality.estimate import calibrate
     from ocrbench.quality.sample import plan_sample, write_sample
@@ -49,7 +51,8 @@ def sample_cmd(
         have = [int(r) for r in snap.runs["run_id"]]
         if run is not None and run not in have:
             raise fail(f"{store}: no run {run} in this store (runs: {', '.join(map(str, have)) or 'none'})", EXIT_USAGE)
-        systems = systems_of(snap, truth=truth, runs=[run] if run is not None else None)
+        lexicon = read_word_list(word_list) if word_list is not None else None
+        systems = systems_of(snap, truth=truth, lexicon=lexicon, runs=[run] if run is not None else None)
         if not systems:
             raise fail(f"{store}: the store holds no runs", EXIT_USAGE)
         system = max(systems, key=lambda s: int((s.pages["status"] == "done").sum()))
@@ -60,7 +63,7 @@ def sample_cmd(
         raise fail(str(e), EXIT_USAGE)
     for p in kept:
         typer.echo(f"ocrbench: {p}: already exists; left as it is", err=True)
-    for p in system.problems:
+    for p in system.problems + system.notes:
         typer.echo(f"ocrbench: {p}", err=True)
     res = {"csv": str(csv), "recogniser": system.name, "pages": int(len(plan.pages)),
            "lines": int(plan.pages["lines"].sum()), "method": plan.method,

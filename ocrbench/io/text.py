@@ -214,6 +214,19 @@ class Pairing:
         """True when every file found a partner."""
         return not self.hyp_only and not self.truth_only
 
+    def incomplete(self, *, require_truth: bool = False) -> bool:
+        """Whether the unpaired files count as a failure: ground truth without a hypothesis always; a
+        hypothesis without ground truth only with ``require_truth`` (partial ground truth is normal)."""
+        return bool(self.truth_only or (require_truth and self.hyp_only))
+
+    def missing_truth_line(self, shown: int = 3) -> str | None:
+        """One line counting the hypotheses without ground truth, naming the first few (None: there are none)."""
+        miss = self.hyp_only
+        if not miss:
+            return None
+        more = ", ..." if len(miss) > shown else ""
+        return f"{len(miss)} page(s) have no ground truth and were not scored ({', '.join(miss[:shown])}{more})"
+
 
 def _text_files(folder: Path, what: str, *, alto: bool = False) -> dict[str, Path]:
     """Text files of a tree by key (relative path without suffix, as printable text).

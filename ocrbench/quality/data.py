@@ -34,7 +34,7 @@ from ocrbench.accuracy.normalise import get_profile
 from ocrbench.accuracy.score import score_pages
 from ocrbench.errors import StoreError, TextFileError
 from ocrbench.io.text import pair_store_pages, read_text_lines
-from ocrbench.ledger.balance import BALANCED, UNBALANCED, check_page
+from ocrbench.ledger.balance import BALANCED, UNBALANCED, PageBalance, check_page
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.postprocess.review import line_edits, review_queue
 from ocrbench.store import RunStore
@@ -130,11 +130,12 @@ class System:
     run_ids: list[int]
     pages: pd.DataFrame
     lines: pd.DataFrame
-    problems: list[str]
+    problems: list[str]          # inputs that could not be used (unreadable ground truth): exit status 1
+    notes: list[str]             # what was left out of the calibration, and why
 
 
 def _keyed_edits(run_pages: list[str], lines: pd.DataFrame, truth: Path, norm: Callable[[str], str],
-                 profile: str, problems: list[str]) -> tuple[dict[str, tuple[int, int]], dict[tuple[str, int], int]]:
+                 profile: str, problems: list[str], notes: list[str]) -> tuple[dict[str, tuple[int, int]], dict[tuple[str, int], int]]:
     """Measured (edits, ref chars) per keyed page and edits per line (pages whose line counts match)."""
     pairing = pair_store_pages(truth, run_pages)
     by_page = {pid: g for pid, g in lines.groupby("page_id", sort=False)}
@@ -152,13 +153,22 @@ def _keyed_edits(run_pages: list[str], lines: pd.DataFrame, truth: Path, norm: C
             for no, k in zip(g["line_no"], line_edits(hyp, ref, normalise=norm)):
                 line_edit[(str(pid), int(no))] = int(k)
         else:
-            problems.append(f"{tpath}: {len(ref)} ground-truth lines but {len(hyp)} recognised lines on {pid}; "
+            notes.append(f"{tpath}: {len(ref)} ground-truth lines but {len(hyp)} recognised lines on {pid}; "
                             "measured, but left out of the calibration")
     page_meas = {}
     if pages_in:
         sc = score_pages(pages_in, profile=profile, classes=False, n_boot=100)
         page_meas = {r.page_id: (int(r.char_edits), int(r.ref_chars)) for r in sc.pages.itertuples()}
     return page_meas, line_edit
+
+
+def _balances(page_ids: np.ndarray, texts: np.ndarray) -> dict[str, PageBalance]:
+    """The arithmetic of every page, from lines sorted by page and line number."""
+    if page_ids.size == 0:
+        return {}
+    cuts = np.flatnonzero(page_ids[1:] != page_ids[:-1]) + 1
+    starts, ends = np.r_[0, cuts], np.r_[cuts, page_ids.size]
+    return {str(page_ids[s]): check_page(texts[s:e].tolist()) for s, e in zip(starts, ends)}
 
 
 def _page_rows(lines: pd.DataFrame, queue_doubt: float) -> pd.DataFrame:
@@ -179,24 +189,24 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
     for (name, chash), rgrp in runs_df.groupby(["recogniser", "card_hash"], sort=False):
         ids = [int(r) for r in rgrp["run_id"]]
         problems: list[str] = []
+        notes: list[str] = []
         pages = snap.pages[snap.pages["run_id"].isin(ids)].copy()
         done = pages[pages["status"] == "done"]
         key = pd.MultiIndex.from_frame(done[["run_id", "page_id"]])
         ln = snap.lines.set_index(["run_id", "page_id"])
-        ln = ln[ln.index.isin(key)].reset_index()
+        ln = ln[ln.index.isin(key)].reset_index().sort_values(["run_id", "page_id", "line_no"], kind="stable")
         doubt_parts, page_status = [], {}
         page_meas: dict[tuple[int, str], tuple[int, int]] = {}
         line_edit: dict[tuple[int, str, int], int] = {}
         for rid, g in ln.groupby("run_id", sort=False):
-            bal = {pid: check_page(pg.sort_values("line_no")["text"].tolist())
-                   for pid, pg in g.groupby("page_id", sort=False)}
+            bal = _balances(g["page_id"].to_numpy(), g["text"].to_numpy())
             page_status.update({(int(rid), pid): b.status for pid, b in bal.items()})
             q = review_queue(g[["page_id", "line_no", "text", "confidence"]], balances=bal, lexicon=lexicon).table
             q["run_id"] = int(rid)
             doubt_parts.append(q[["run_id", "page_id", "line_no", "text", "confidence", "doubt"]])
             if truth is not None:
                 pm, le = _keyed_edits(done.loc[done["run_id"] == rid, "page_id"].tolist(), g, truth, norm,
-                                      profile, problems)
+                                      profile, problems, notes)
                 page_meas.update({(int(rid), p): v for p, v in pm.items()})
                 line_edit.update({(int(rid), p, n): v for (p, n), v in le.items()})
         cols = ["run_id", "page_id", "line_no", "text", "confidence", "doubt"]
@@ -220,7 +230,7 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
         idx = {k: i for i, k in enumerate(zip(pr["run_id"], pr["page_id"]))}
         lines["page"] = [idx[k] for k in zip(lines["run_id"], lines["page_id"])]
         lines = lines.drop(columns=["text"])
-        out.append(System(str(name), str(chash), ids, pr, lines, problems))
+        out.append(System(str(name), str(chash), ids, pr, lines, problems, notes))
     return out
 
 

@@ -39,7 +39,7 @@ from ocrbench.io.text import truth_candidates
 from ocrbench.quality.data import Snapshot, System, collection_of
 from ocrbench.quality.estimate import Calibration
 
-__all__ = ["neyman_allocation", "SamplePlan", "plan_sample", "write_sample", "template_path"]
+__all__ = ["neyman_allocation", "pages_for_lines", "SamplePlan", "plan_sample", "write_sample", "template_path"]
 
 
 def _round_largest_remainder(quotas: np.ndarray, total: int) -> np.ndarray:
@@ -85,7 +85,7 @@ def neyman_allocation(sizes: Sequence[int], sds: Sequence[float], n: int, *,
     return out.tolist()
 
 
-def _pages_for_lines(sizes: np.ndarray, sds: np.ndarray, costs: np.ndarray, lines: int) -> list[int]:
+def pages_for_lines(sizes: np.ndarray, sds: np.ndarray, costs: np.ndarray, lines: int) -> list[int]:
     """Cochran §5.5 with the budget in lines: n = lines · Σ(N_h S_h/√c_h) / Σ(N_h S_h √c_h)."""
     s = sds if np.any(sizes * sds > 0) else np.ones(len(sizes))
     den = float((sizes * s * np.sqrt(costs)).sum())
@@ -135,7 +135,7 @@ def plan_sample(snap: Snapshot, system: System, cal: Calibration | None, *, page
           .agg(N=("page_id", "size"), S=("expected_edits", lambda x: float(np.std(x, ddof=1)) if len(x) > 1 else 0.0),
                cost=("lines", "mean")).reset_index())
     N, S, c = st["N"].to_numpy(), st["S"].to_numpy(np.float64), st["cost"].to_numpy(np.float64)
-    st["n"] = neyman_allocation(N, S, pages) if pages is not None else _pages_for_lines(N, S, c, int(lines))
+    st["n"] = neyman_allocation(N, S, pages) if pages is not None else pages_for_lines(N, S, c, int(lines))
     rng = np.random.default_rng(seed)
     chosen = []
     for (coll, band), n in zip(zip(st["collection"], st["band"]), st["n"]):

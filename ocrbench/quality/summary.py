@@ -1,5 +1,5 @@
 """``quality``: per group of pages, how good the text is — estimated and, where keyed, measured — and
-whether the group has drifted from the keyed sample. Returns one JSON-ready dict."""
+whether the group has drifted from the calibrated collections. Returns one JSON-ready dict."""
 
 from __future__ import annotations
 
@@ -41,8 +41,8 @@ def group_rows(system: System, cal: Calibration | None, *, level: float = 0.95, 
             "flagged_share": float(grp["flagged"].mean()) if len(grp) else None,
             "queued_lines": int(done["queued"].sum()),
         }
-        row.update(est.get(g, {"est_cer": None, "est_low": None, "est_high": None, "beyond_range": None,
-                                "extrapolated": False}))
+        row.update(est.get(g, {"est_cer": None, "est_low": None, "est_high": None, "factor": None,
+                                "beyond_range": None, "extrapolated": False}))
         rows.append(row)
     return rows
 
@@ -130,7 +130,7 @@ def quality(store: Path | str, *, truth: Path | None = None, by: str = "collecti
             drift_flags(system, cal, rows, alpha=alpha, permutations=permutations, seed=seed)
         out["systems"].append({"recogniser": system.name, "card_hash": system.card_hash, "runs": system.run_ids,
                                "calibration": None if cal is None else cal.to_dict(), "groups": rows,
-                               "problems": system.problems})
+                               "problems": system.problems, "notes": system.notes})
         if with_pages:
             out["systems"][-1]["pages"] = (estimate_pages(system, cal, n_boot=n_boot, seed=seed)
                                            if cal is not None else None)

@@ -44,11 +44,12 @@ QUICK_ARGS = {
     "bench_postprocess": ["--pages", "6", "--boot", "500"],
     "bench_variant": ["--pages", "4", "--boot", "500"],
     "bench_route": ["--pages", "3", "--shares", "0.25", "--boot", "300"],
+    "bench_quality": ["--quick", "--repeats", "2"],
 }
 
 #: Benchmarks that take ``--models DIR`` (a folder with ledger-ctc/ and ledger-seq/).
 TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner", "bench_postprocess",
-                "bench_variant", "bench_route"}
+                "bench_variant", "bench_route", "bench_quality"}
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
 TARGET_RE = re.compile(r"^(>=|<=|>|<)\s*([0-9.]+)\s*x?$")
