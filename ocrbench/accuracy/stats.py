@@ -35,6 +35,7 @@ import numpy as np
 import pandas as pd
 
 from ocrbench.errors import PlanError
+from ocrbench.intervals import percentile_interval, wilson_interval
 
 __all__ = ["z_value", "t_cdf", "t_quantile", "expanded_tail", "resample_counts", "bootstrap_sums",
            "bootstrap_ratio_ci", "bootstrap_ratio_cis", "percentile_interval", "bootstrap_statistic",
@@ -212,14 +213,6 @@ def bootstrap_ratio_ci(edits: Any, totals: Any, *, n_boot: int = 2000, level: fl
     return bootstrap_ratio_cis(e, t, n_boot=n_boot, level=level, seed=seed)[0]
 
 
-def percentile_interval(samples: Any, level: float = 0.95) -> tuple[float, float] | None:
-    """Plain percentile interval of bootstrap samples (non-finite ones dropped); None when none is left."""
-    s = np.asarray(samples, dtype=np.float64)
-    s = s[np.isfinite(s)]
-    if s.size == 0:
-        return None
-    lo, hi = np.quantile(s, [(1 - level) / 2, 1 - (1 - level) / 2])
-    return float(lo), float(hi)
 
 
 def bootstrap_statistic(stat: Callable[[np.ndarray], float | None], groups: Sequence[np.ndarray], *,
@@ -240,18 +233,6 @@ def bootstrap_statistic(stat: Callable[[np.ndarray], float | None], groups: Sequ
     return percentile_interval(vals, level) if vals else None
 
 
-def wilson_interval(successes: int, n: int, *, level: float = 0.95) -> tuple[float, float] | None:
-    """Wilson score interval for a binomial proportion (Wilson 1927); None when n == 0."""
-    if n <= 0:
-        return None
-    z = NormalDist().inv_cdf(0.5 + level / 2)
-    p = successes / n
-    denom = 1 + z * z / n
-    centre = (p + z * z / (2 * n)) / denom
-    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
-    low = 0.0 if successes == 0 else max(0.0, centre - half)
-    high = 1.0 if successes == n else min(1.0, centre + half)
-    return low, high
 
 
 # --------------------------------------------------------------------------- paired comparison

@@ -45,6 +45,7 @@ from typing import Iterable, Sequence
 
 from rapidfuzz.distance import Levenshtein
 
+from ocrbench.intervals import wilson_interval
 from ocrbench.ledger.amounts import (DASH, FRACTION, POUND_SIGN, POUNDS_AFTER_MARK, POUNDS_AFTER_NUMBER,
                                      fraction_char)
 
@@ -542,18 +543,6 @@ def single_digit_fixes(balance: PageBalance) -> list[DigitFix]:
 # --------------------------------------------------------------------------- accuracy signal
 
 
-def wilson_interval(successes: int, n: int, *, level: float = 0.95) -> tuple[float, float] | None:
-    """Wilson score interval for a binomial proportion (Wilson 1927); None when n == 0."""
-    if n <= 0:
-        return None
-    z = NormalDist().inv_cdf(0.5 + level / 2)
-    p = successes / n
-    denom = 1 + z * z / n
-    centre = (p + z * z / (2 * n)) / denom
-    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
-    low = 0.0 if successes == 0 else max(0.0, centre - half)
-    high = 1.0 if successes == n else min(1.0, centre + half)
-    return low, high
 
 
 def _loglik(p: float, balanced_k: Sequence[int], failed_k: Sequence[int]) -> float:

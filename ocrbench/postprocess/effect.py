@@ -20,6 +20,7 @@ from typing import Any, Sequence
 
 import pandas as pd
 
+from ocrbench.accuracy.stats import wilson_interval
 from ocrbench.ledger import balance as _ledger
 
 
@@ -139,7 +140,7 @@ def amount_misread_detection(truth_pages: Sequence[Sequence[str]], hyp_pages: Se
         misread += len(bad)
         detected += len(bad) * flagged
         located += sum(parts.get(n, (0.0, ""))[0] >= 1.0 for n in bad)
-    ci = _ledger.wilson_interval(detected, misread, level=level)
+    ci = wilson_interval(detected, misread, level=level)
     return Detection(pages=len(hyp_pages), pages_skipped=skipped, misread_lines=misread, detected=detected,
                      located=located, detection_rate=detected / misread if misread else None,
                      detection_low=ci[0] if ci else None, detection_high=ci[1] if ci else None,

@@ -55,7 +55,8 @@ import numpy as np
 import pandas as pd
 
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, expanded_tail, resample_counts
-from ocrbench.ledger.balance import BALANCED, UNBALANCED, wilson_interval
+from ocrbench.accuracy.stats import wilson_interval
+from ocrbench.ledger.balance import BALANCED, UNBALANCED
 from ocrbench.quality.data import System
 from ocrbench.quality.isotonic import IsotonicMap, blocks, fit_isotonic, pav
 

@@ -24,6 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from ocrbench.errors import CardError, ConfigError
+from ocrbench.io.files import sha256_file
 from ocrbench.io.config import Key, check_table
 from ocrbench.recognisers.draft import generation_warnings
 from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
@@ -327,13 +328,6 @@ def _names_of(p: Path, v: Any, key: str) -> tuple[str, ...]:
 # --------------------------------------------------------------------------- helpers
 
 
-def sha256_file(path: Path) -> str:
-    """Hex sha256 of a file, read in 1 MiB chunks."""
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _read_symbols(card: Path, key: str, path: Path) -> list[str]:
