@@ -220,3 +220,22 @@ def test_no_printed_time_is_negative(ctc_model):
             assert not re.search(r"(^|[\s(/])-\d", c), (label, c)     # no minus sign before a number
     assert (p[["wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90", "startup_seconds"]] >= 0).all().all()
     assert np.isfinite(p["wall_seconds_p50"]).all() and not math.isnan(p.iloc[0]["people_hours"])
+
+
+def test_band_names_machine_drift_and_includes_the_spread_between_runs(ctc_model):
+    """A noise-free model: with 10 % machine drift almost all of the P10-P90 band is drift. Two runs of the same pages, the second 10 % slower: cv = sd(1, 1.1) / 1.05 = 0.0673."""
+    archive = Archive.from_numbers(1000, "24", "40", page_size=(1100, 1430))
+    r = make_plan([ctc_model], PlanInputs(archive=archive, correction=Correction(review="none"), draws=400,
+                                          speed_drift=0.1)).iloc[0]
+    assert 0.9 <= r["band_drift_share"] <= 1.0
+    frames = calibrate(noise=0.0, width_noise=0, kinds=("ctc",))
+    two = {k: v.copy() for k, v in frames.items()}
+    for k in ("runs", "pages", "batches", "lines"):
+        again = frames[k].copy()
+        again["run_id"] = 2
+        if k == "pages":
+            again["t_total"] = again["t_total"] * 1.1
+        two[k] = pd.concat([frames[k], again], ignore_index=True)
+    m = fit_cost_model(two, "demo-ctc", n_boot=5)
+    assert m.speed_cv == pytest.approx(np.std([1.0, 1.1], ddof=1) / 1.05, rel=1e-6)
+    assert any("across 2 runs" in n for n in m.notes)

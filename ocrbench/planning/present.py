@@ -58,6 +58,7 @@ def table_lines(table: pd.DataFrame) -> tuple[list[str], list[tuple[str, list[st
         ("recognition wall-clock P10", lambda r: _dur(r["wall_seconds_p10"])),
         ("recognition wall-clock P50", lambda r: _dur(r["wall_seconds_p50"])),
         ("recognition wall-clock P90", lambda r: _dur(r["wall_seconds_p90"])),
+        ("  of the P10-P90 band, machine drift", lambda r: _pct(r["band_drift_share"])),
         ("core-hours (P50 / P90)", lambda r: f"{_amount(r['core_hours'])} / {_amount(r['core_hours_p90'])}"),
         (f"compute cost, {unit} (P50 / P90)", lambda r: priced(r, "compute_cost", "compute_cost_p90")),
         ("CER (95% interval)", lambda r: "-" if r["cer"] is None else
