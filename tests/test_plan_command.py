@@ -334,3 +334,21 @@ def test_one_archive_description_for_every_recogniser_and_a_warning_when_unlike(
     unlike = [w for w in doc["warnings"] if "differs from the calibration pages'" in w]
     assert any("line height" in w for w in unlike) and any("page size" in w for w in unlike)
     assert all("%" in w for w in unlike)
+
+
+def test_targeted_review_measures_its_catch_rate_on_the_ground_truth(calibrated):
+    d, _ = calibrated
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "100", "--truth", str(d / "pages"), "--review", "targeted",
+                           "--review-share", "0.5", "--draws", "100", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    for r in doc["recognisers"]:
+        assert r["review_mode"] == "targeted" and 0.0 <= r["catch_rate"] <= 1.0
+        # errors left = errors x (1 - catch rate); correction = caught errors x 10 s (by hand)
+        assert r["errors_left"] == pytest.approx(r["char_errors"] * (1 - r["catch_rate"]))
+        assert r["correction_hours"] == pytest.approx(r["char_errors"] * r["catch_rate"] * 10 / 3600)
+    assert sum("measured for tiny-" in a for a in doc["assumptions"]) == 2
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "100", "--review", "targeted"])
+    assert res.exit_code == 2 and "catch" in res.output
