@@ -352,3 +352,24 @@ def test_targeted_review_measures_its_catch_rate_on_the_ground_truth(calibrated)
     res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
                            "--pages", "100", "--review", "targeted"])
     assert res.exit_code == 2 and "catch" in res.output
+
+
+def test_plan_and_review_agree_on_reading_time(calibrated):
+    """The plan's full-review reading time is priced as `ocrbench review` prices reading every line: the same
+    4 s per line + 1 s per 10 characters, on the lines and characters each counts."""
+    d, _ = calibrated
+    rev = cli.invoke(app, ["review", str(d / "cal.sqlite"), "--json"])
+    assert rev.exit_code == 0, rev.output
+    runs = json.loads(rev.stdout)
+    runs = runs["runs"] if isinstance(runs, dict) else runs
+    for run in runs:
+        a = run["all"]           # review's whole queue: its lines and characters at its rate
+        assert a["minutes"] * 60 == pytest.approx(a["lines"] * 4 + a["chars"] / 10)
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "4000", "--draws", "200", "--json"])
+    assert res.exit_code == 0, res.output
+    for r in json.loads(res.stdout)["recognisers"]:
+        assert r["review_hours"] * 3600 == pytest.approx(r["lines"] * 4 + r["characters"] / 10)
+        # and the archive's mean page is within the bootstrap's reach of the 4 pages review read
+        latest = max(runs, key=lambda x: x["run_id"])["all"]
+        assert r["review_hours"] * 60 / 4000 == pytest.approx(latest["minutes"] / 4, rel=0.25)

@@ -42,10 +42,12 @@ QUICK_ARGS = {
     "bench_planner": ["--rounds", "1", "--calib-pages", "6", "--held-pages", "20"],
     "bench_pages": ["4"],
     "bench_postprocess": ["--pages", "6", "--boot", "500"],
+    "bench_tune": ["--pages", "3", "--max-seconds", "60", "--batch-sizes", "8,16"],
 }
 
 #: Benchmarks that take ``--models DIR`` (a folder with ledger-ctc/ and ledger-seq/).
-TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner", "bench_postprocess"}
+TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner", "bench_postprocess",
+                "bench_tune"}
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
 TARGET_RE = re.compile(r"^(>=|<=|>|<)\s*([0-9.]+)\s*x?$")
