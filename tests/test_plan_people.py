@@ -239,3 +239,26 @@ def test_band_names_machine_drift_and_includes_the_spread_between_runs(ctc_model
     m = fit_cost_model(two, "demo-ctc", n_boot=5)
     assert m.speed_cv == pytest.approx(np.std([1.0, 1.1], ddof=1) / 1.05, rel=1e-6)
     assert any("across 2 runs" in n for n in m.notes)
+
+
+def test_stratified_by_collection_hand_worked():
+    """Two collections of 4 pages x 1,000 characters: A with 9, 11, 9, 11 errors, B with 29, 31, 29, 31.
+
+    Pooled: R = 0.02, d = -11, -9, -11, -9, 9, 11, 9, 11; S_d^2 = 808 / 7 = 115.43;
+    n0 = 1.959964^2 x 115.43 / ((0.2 x 0.02)^2 x 1000^2) = 27.71 -> 28 pages.
+    Stratified (Cochran, stratified sampling, combined ratio estimate, from memory): within each collection
+    d varies by +-1: S_dh^2 = 4/3; sum W_h S_dh^2 = 4/3; n0 = 3.8415 x 1.3333 / 16 = 0.320 -> at least
+    2 pages per collection = 4 pages.
+    """
+    from ocrbench.planning.sampling import stratified_sample_size
+
+    pilot = pd.DataFrame({"page_id": [f"A/p{i}.png" for i in range(4)] + [f"B/p{i}.png" for i in range(4)],
+                          "char_edits": [9, 11, 9, 11, 29, 31, 29, 31], "ref_chars": [1000] * 8})
+    pooled = sample_size(pilot, relative=0.2)
+    assert pooled["n0_pages"] == pytest.approx(1.959964 ** 2 * 808 / 7 / 16, rel=1e-5) and pooled["pages"] == 28
+    strat = stratified_sample_size(pilot, relative=0.2)
+    assert strat["n0_pages"] == pytest.approx(1.959964 ** 2 * (4 / 3) / 16, rel=1e-5)
+    assert strat["by_collection"] == {"A": 2, "B": 2} and strat["pages"] == 4
+    # one collection only: the pooled answer
+    flat = pilot.assign(page_id=[f"p{i}.png" for i in range(8)])
+    assert stratified_sample_size(flat, relative=0.2)["pages"] == 28

@@ -112,8 +112,11 @@ def statements(table: pd.DataFrame) -> list[tuple[str, str]]:
             width = (f"±{100 * s['relative_margin']:.0f}% of the CER ({100 * s['pilot_rate']:.2f}%), i.e. "
                      f"±{100 * s['half_width']:.3g} points" if s.get("margin") == "relative"
                      else f"±{100 * s['half_width']:.3g} points")
+            by = s.get("by_collection")
             out.append(("Ground truth", f"{name}: transcribe {s['pages']:,} pages"
-                        + (f" (~{s['lines']:,} lines)" if s.get("lines") else "") + f" for a CER interval of {width}"))
+                        + (f" (~{s['lines']:,} lines)" if s.get("lines") else "") + f" for a CER interval of {width}"
+                        + (" — by collection: " + ", ".join(f"{c or '(top folder)'} {k}" for c, k in by.items())
+                           if by else "")))
         for n in s.get("notes") or []:
             out.append(("Ground truth", f"{name}: {n}"))
     out += [("warning", w) for w in table.attrs.get("warnings", [])]

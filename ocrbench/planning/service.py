@@ -45,7 +45,7 @@ from ocrbench.planning.inputs import (PROFILE_SCHEMA, Calibration, PlanRequest, 
                                       read_store_frames, score_calibration)
 from ocrbench.planning.numerics import parse_duration
 from ocrbench.planning.people import Correction
-from ocrbench.planning.sampling import sample_size
+from ocrbench.planning.sampling import stratified_sample_size
 
 __all__ = ["PlanRequest", "PlanResult", "PlanResults", "ReportContext", "plan", "load_plan_file", "compute_plan",
            "plan_from_results", "plan_json", "json_dumps", "ROW_KEYS"]
@@ -223,8 +223,8 @@ def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext 
     sizes: dict[str, dict] = {}
     for n, df in page_scores.items():
         try:
-            sizes[n] = sample_size(df, relative=req.cer_relative_margin, absolute=req.cer_margin,
-                                   population=n_pages)
+            sizes[n] = stratified_sample_size(df, relative=req.cer_relative_margin, absolute=req.cer_margin,
+                                              population=n_pages)
         except (PlanError, ValueError) as e:
             sizes[n] = {"pages": None, "notes": [str(e)]}
     return accuracy, sizes
