@@ -262,3 +262,14 @@ def test_stratified_by_collection_hand_worked():
     # one collection only: the pooled answer
     flat = pilot.assign(page_id=[f"p{i}.png" for i in range(8)])
     assert stratified_sample_size(flat, relative=0.2)["pages"] == 28
+
+
+def test_tune_times_the_most_promising_configurations_first():
+    from ocrbench.planning.throughput import grid_order
+
+    order = grid_order([1, 2], [8, 16, 32], [1, 2], cores=2)
+    uses = [c["workers"] * c["threads"] for c in order]
+    # every configuration using both cores before any using one; too large ones last; middle batch first
+    assert uses == sorted(uses, key=lambda u: (u > 2, -min(u, 2)))
+    assert order[0]["batch_size"] == 16 and order[0]["workers"] * order[0]["threads"] == 2
+    assert len(order) == 12 and order[-1]["workers"] * order[-1]["threads"] == 4
