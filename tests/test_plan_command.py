@@ -334,3 +334,42 @@ def test_one_archive_description_for_every_recogniser_and_a_warning_when_unlike(
     unlike = [w for w in doc["warnings"] if "differs from the calibration pages'" in w]
     assert any("line height" in w for w in unlike) and any("page size" in w for w in unlike)
     assert all("%" in w for w in unlike)
+
+
+def test_targeted_review_measures_its_catch_rate_on_the_ground_truth(calibrated):
+    d, _ = calibrated
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "100", "--truth", str(d / "pages"), "--review", "targeted",
+                           "--review-share", "0.5", "--draws", "100", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    for r in doc["recognisers"]:
+        assert r["review_mode"] == "targeted" and 0.0 <= r["catch_rate"] <= 1.0
+        # errors left = errors x (1 - catch rate); correction = caught errors x 10 s (by hand)
+        assert r["errors_left"] == pytest.approx(r["char_errors"] * (1 - r["catch_rate"]))
+        assert r["correction_hours"] == pytest.approx(r["char_errors"] * r["catch_rate"] * 10 / 3600)
+    assert sum("measured for tiny-" in a for a in doc["assumptions"]) == 2
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "100", "--review", "targeted"])
+    assert res.exit_code == 2 and "catch" in res.output
+
+
+def test_plan_and_review_agree_on_reading_time(calibrated):
+    """The plan's full-review reading time is priced as `ocrbench review` prices reading every line: the same
+    4 s per line + 1 s per 10 characters, on the lines and characters each counts."""
+    d, _ = calibrated
+    rev = cli.invoke(app, ["review", str(d / "cal.sqlite"), "--json"])
+    assert rev.exit_code == 0, rev.output
+    runs = json.loads(rev.stdout)
+    runs = runs["runs"] if isinstance(runs, dict) else runs
+    for run in runs:
+        a = run["all"]           # review's whole queue: its lines and characters at its rate
+        assert a["minutes"] * 60 == pytest.approx(a["lines"] * 4 + a["chars"] / 10)
+    res = cli.invoke(app, ["plan", "-c", str(d / "cal.sqlite"), "--archive-store", str(d / "cal.sqlite"),
+                           "--pages", "4000", "--draws", "200", "--json"])
+    assert res.exit_code == 0, res.output
+    for r in json.loads(res.stdout)["recognisers"]:
+        assert r["review_hours"] * 3600 == pytest.approx(r["lines"] * 4 + r["characters"] / 10)
+        # and the archive's mean page is within the bootstrap's reach of the 4 pages review read
+        latest = max(runs, key=lambda x: x["run_id"])["all"]
+        assert r["review_hours"] * 60 / 4000 == pytest.approx(latest["minutes"] / 4, rel=0.25)

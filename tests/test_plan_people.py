@@ -220,3 +220,56 @@ def test_no_printed_time_is_negative(ctc_model):
             assert not re.search(r"(^|[\s(/])-\d", c), (label, c)     # no minus sign before a number
     assert (p[["wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90", "startup_seconds"]] >= 0).all().all()
     assert np.isfinite(p["wall_seconds_p50"]).all() and not math.isnan(p.iloc[0]["people_hours"])
+
+
+def test_band_names_machine_drift_and_includes_the_spread_between_runs(ctc_model):
+    """A noise-free model: with 10 % machine drift almost all of the P10-P90 band is drift. Two runs of the same pages, the second 10 % slower: cv = sd(1, 1.1) / 1.05 = 0.0673."""
+    archive = Archive.from_numbers(1000, "24", "40", page_size=(1100, 1430))
+    r = make_plan([ctc_model], PlanInputs(archive=archive, correction=Correction(review="none"), draws=400,
+                                          speed_drift=0.1)).iloc[0]
+    assert 0.9 <= r["band_drift_share"] <= 1.0
+    frames = calibrate(noise=0.0, width_noise=0, kinds=("ctc",))
+    two = {k: v.copy() for k, v in frames.items()}
+    for k in ("runs", "pages", "batches", "lines"):
+        again = frames[k].copy()
+        again["run_id"] = 2
+        if k == "pages":
+            again["t_total"] = again["t_total"] * 1.1
+        two[k] = pd.concat([frames[k], again], ignore_index=True)
+    m = fit_cost_model(two, "demo-ctc", n_boot=5)
+    assert m.speed_cv == pytest.approx(np.std([1.0, 1.1], ddof=1) / 1.05, rel=1e-6)
+    assert any("across 2 runs" in n for n in m.notes)
+
+
+def test_stratified_by_collection_hand_worked():
+    """Two collections of 4 pages x 1,000 characters: A with 9, 11, 9, 11 errors, B with 29, 31, 29, 31.
+
+    Pooled: R = 0.02, d = -11, -9, -11, -9, 9, 11, 9, 11; S_d^2 = 808 / 7 = 115.43;
+    n0 = 1.959964^2 x 115.43 / ((0.2 x 0.02)^2 x 1000^2) = 27.71 -> 28 pages.
+    Stratified (Cochran, stratified sampling, combined ratio estimate, from memory): within each collection
+    d varies by +-1: S_dh^2 = 4/3; sum W_h S_dh^2 = 4/3; n0 = 3.8415 x 1.3333 / 16 = 0.320 -> at least
+    2 pages per collection = 4 pages.
+    """
+    from ocrbench.planning.sampling import stratified_sample_size
+
+    pilot = pd.DataFrame({"page_id": [f"A/p{i}.png" for i in range(4)] + [f"B/p{i}.png" for i in range(4)],
+                          "char_edits": [9, 11, 9, 11, 29, 31, 29, 31], "ref_chars": [1000] * 8})
+    pooled = sample_size(pilot, relative=0.2)
+    assert pooled["n0_pages"] == pytest.approx(1.959964 ** 2 * 808 / 7 / 16, rel=1e-5) and pooled["pages"] == 28
+    strat = stratified_sample_size(pilot, relative=0.2)
+    assert strat["n0_pages"] == pytest.approx(1.959964 ** 2 * (4 / 3) / 16, rel=1e-5)
+    assert strat["by_collection"] == {"A": 2, "B": 2} and strat["pages"] == 4
+    # one collection only: the pooled answer
+    flat = pilot.assign(page_id=[f"p{i}.png" for i in range(8)])
+    assert stratified_sample_size(flat, relative=0.2)["pages"] == 28
+
+
+def test_tune_times_the_most_promising_configurations_first():
+    from ocrbench.planning.throughput import grid_order
+
+    order = grid_order([1, 2], [8, 16, 32], [1, 2], cores=2)
+    uses = [c["workers"] * c["threads"] for c in order]
+    # every configuration using both cores before any using one; too large ones last; middle batch first
+    assert uses == sorted(uses, key=lambda u: (u > 2, -min(u, 2)))
+    assert order[0]["batch_size"] == 16 and order[0]["workers"] * order[0]["threads"] == 2
+    assert len(order) == 12 and order[-1]["workers"] * order[-1]["threads"] == 4

@@ -562,6 +562,19 @@ def _overlap_from_session(session: Mapping, pages: pd.DataFrame, po: _PageOverhe
     return overlap, gap_mean, note
 
 
+def _runs_spread(cal: _Calibration) -> tuple[float, int]:
+    """Spread (coefficient of variation) of the time the same pages took in different runs of this
+    recogniser and settings (e.g. ``ocrbench run`` and a ``measure-scaling`` session), and the runs compared."""
+    p = cal.pages.dropna(subset=["t_total"])
+    if p["run_id"].nunique() < 2:
+        return 0.0, 1
+    common = set.intersection(*[set(g["page_id"]) for _, g in p.groupby("run_id")])
+    if len(common) < 2:
+        return 0.0, 1
+    totals = p[p["page_id"].isin(common)].groupby("run_id")["t_total"].sum().to_numpy(dtype=float)
+    return float(totals.std(ddof=1) / totals.mean()), len(totals)
+
+
 def _between_pages(frames: Mapping[str, pd.DataFrame], cal: _Calibration, po: _PageOverhead,
                    session: Mapping | None) -> _BetweenPages:
     """Start-up and the time between pages: from a timed session where given, else from the store's timestamps."""
@@ -574,6 +587,12 @@ def _between_pages(frames: Mapping[str, pd.DataFrame], cal: _Calibration, po: _P
     if session and int(session.get("sessions") or 1) >= 2:
         notes.append(f"the machine's speed varied by {100 * speed_cv:.1f}% (coefficient of variation) between "
                      f"{int(session['sessions'])} timed sessions of the same pages; the interval includes it")
+    runs_cv, n_runs = _runs_spread(cal)
+    if n_runs >= 2:
+        notes.append(f"the same pages took {100 * runs_cv:.1f}% longer or shorter (coefficient of variation) "
+                     f"across {n_runs} runs of this recogniser (e.g. `ocrbench run` and `measure-scaling`); "
+                     "the interval includes the larger of the measured spreads")
+        speed_cv = max(speed_cv, runs_cv)
     if session:
         # measured directly around a run (ocrbench.run.measure): more precise than store timestamps
         gap_mean = float(session.get("gap_seconds_per_page", gap_mean) or 0.0)

@@ -81,6 +81,7 @@ class PlanInputs:
     resources: Resources = Resources()
     goals: Goals = Goals()
     correction: Correction = Correction()
+    correction_by_recogniser: Mapping[str, Correction] = field(default_factory=dict)   # e.g. measured catch rates
     accuracy: Mapping[str, AccuracyInput] = field(default_factory=dict)
     sample_sizes: Mapping[str, Mapping] = field(default_factory=dict)
     scaling: Mapping[str, ScalingFit] = field(default_factory=dict)   # by recogniser (or profile) name
@@ -94,6 +95,9 @@ class PlanInputs:
         if not 0.0 <= self.speed_drift < 1.0:
             raise PlanError(f"speed drift must be within 0..1 (a coefficient of variation), not {self.speed_drift}")
         check_currency(self.currency)
+
+    def correction_for(self, recogniser: str) -> Correction:
+        return self.correction_by_recogniser.get(recogniser, self.correction)
 
 
 def check_currency(code: str | None) -> None:
@@ -138,7 +142,7 @@ def _key(o: Option) -> float:
 def _evaluate(o: Option, res: Resources, inputs: PlanInputs) -> Option:
     m = o.serial.model
     return evaluate_option(o.serial, res, inputs.goals, scaling=_scaling_for(inputs, m),
-                           accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction)
+                           accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction_for(m.recogniser))
 
 
 def _fit_text(r: Mapping, inputs: PlanInputs) -> str:
@@ -280,7 +284,7 @@ def rank_configurations(options: list[Option], inputs: PlanInputs) -> list[tuple
 def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
     proc = sorted({f"{m.profile}: {m.process_start_s:.2f} s" for m in models if m.process_start_s > 0})
     return [
-        inputs.correction.describe(),
+        *dict.fromkeys(inputs.correction_for(m.recogniser).describe() for m in models),
         f"correctors work {inputs.correction.hours_per_week:g} hours a week each"
         + (" (default: a full-time week; give the hours they really correct)"
            if inputs.correction.hours_per_week == DEFAULT_HOURS_PER_WEEK else " (given)"),
@@ -344,7 +348,8 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
                               speed_drift=inputs.speed_drift, archive_seed=inputs.seed)
         res = inputs.resources_by_profile.get(m.profile, inputs.resources)
         options.append(evaluate_option(est, res, inputs.goals, scaling=_scaling_for(inputs, m),
-                                       accuracy=inputs.accuracy.get(m.recogniser), correction=inputs.correction,
+                                       accuracy=inputs.accuracy.get(m.recogniser),
+                                       correction=inputs.correction_for(m.recogniser),
                                        sample_size=inputs.sample_sizes.get(m.recogniser)))
     for o in options:
         o.row["currency"] = inputs.currency

@@ -36,6 +36,7 @@ class SerialEstimate:
     lines: np.ndarray         # draws: total lines
     warnings: list[str]
     extrapolation: list[dict]
+    serial_nodrift_s: np.ndarray | None = None   # the same draws before the machine-speed factor
 
 
 def _sum_of_draws(values: np.ndarray, n: int, rng: np.random.Generator, exact_limit: int = 5000) -> float:
@@ -122,6 +123,7 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
         wf = model.width if (k == 0 or model.width is None) else model.width.resampled(rng)
         pool_list.append(simulate_pool(model, archive, rng=rng, width_fit=wf, page_rng=prng))
     serial = np.empty(draws)
+    nodrift = np.empty(draws)
     chars = np.empty(draws)
     lines = np.empty(draws)
     N = archive.n_pages
@@ -143,13 +145,15 @@ def estimate_serial(model: CostModel, archive: Archive, *, draws: int = 2000, se
             nb = int(round(N * pool.n_batches.mean()))
         s += _sum_of_draws(model.batch_resid, nb, rng) + _sum_of_draws(model.page_resid, N, rng)
         s += model.first_page_extra(pool.X, theta)        # nothing loads ahead of the first page
+        nodrift[i] = max(s, 0.0)
         cv = max(model.speed_cv, speed_drift)
         if cv > 0:   # the machine runs a little faster or slower than when it was calibrated
             s *= max(0.2, 1.0 + cv * rng.standard_normal())
         serial[i], chars[i], lines[i] = max(s, 0.0), c, l
     msgs, rows = _extrapolation(model, pool_list, archive)
     return SerialEstimate(model=model, archive=archive, serial_s=serial, chars=chars, lines=lines,
-                          warnings=msgs + [f"{model.recogniser}: {n}" for n in model.notes], extrapolation=rows)
+                          warnings=msgs + [f"{model.recogniser}: {n}" for n in model.notes], extrapolation=rows,
+                          serial_nodrift_s=nodrift)
 
 
 # --------------------------------------------------------------------------- resources, goals, money
@@ -275,6 +279,10 @@ def _compute_part(est: SerialEstimate, res: Resources, scaling: ScalingFit | Non
     threads = res.threads or m.threads
     cores = res.workers * threads * res.machines
     w10, w50, w90 = _pct(wall, 10), _pct(wall, 50), _pct(wall, 90)
+    drift_share = None
+    if est.serial_nodrift_s is not None and w90 > w10:
+        nd = est.serial_nodrift_s / speed
+        drift_share = float(np.clip(1.0 - (_pct(nd, 90) - _pct(nd, 10)) / (w90 - w10), 0.0, 1.0))
 
     def compute_cost(wall_s: float) -> float | None:
         if res.price_core_hour is not None:
@@ -290,6 +298,7 @@ def _compute_part(est: SerialEstimate, res: Resources, scaling: ScalingFit | Non
         "lines": _pct(est.lines, 50), "characters": _pct(est.chars, 50),
         "characters_p10": _pct(est.chars, 10), "characters_p90": _pct(est.chars, 90),
         "wall_seconds_p10": w10, "wall_seconds_p50": w50, "wall_seconds_p90": w90, **whole,
+        "band_drift_share": drift_share, "speed_cv": m.speed_cv,
         "core_hours": w50 / 3600 * cores, "core_hours_p90": w90 / 3600 * cores,
         "compute_cost": compute_cost(w50), "compute_cost_p90": compute_cost(w90),
     }

@@ -528,3 +528,44 @@ def merge_request(base: PlanRequest, overrides: Mapping) -> PlanRequest:
         if k in names and v is not None and v != [] and v != ():
             vals[k] = v
     return PlanRequest(**vals)
+
+
+def measure_catch_rate(store_path: Path | str, truth_dir: Path | str, recogniser: str, *,
+                       share: float) -> tuple[float, str]:
+    """Share of a recogniser's character errors that lie in the most doubtful ``share`` of its lines.
+
+    The lines of its latest calibration run are ranked as ``ocrbench review`` ranks them
+    (:func:`ocrbench.postprocess.review.review_queue`); each line's errors are its
+    character edits against the ground truth (pages whose truth has as many lines as
+    were recognised). Returns (rate, where it was measured).
+    """
+    from ocrbench.io.text import read_text_lines
+    from ocrbench.postprocess.review import line_edits, review_queue
+    from ocrbench.store import RunStore
+
+    with RunStore(store_path, read_only=True) as st:
+        frames = st.read_frames()
+        runs = frames["runs"][frames["runs"]["recogniser"] == recogniser]
+        if runs.empty:
+            raise PlanError(f"{store_path}: no run of {recogniser} to measure its review catch rate on")
+        rid = int(runs["run_id"].iloc[-1])
+    ln = frames["lines"][frames["lines"]["run_id"] == rid].copy()
+    ln["edits"] = np.nan
+    for pid, g in ln.groupby("page_id"):
+        tp = truth_path_for(Path(truth_dir), str(pid))
+        ref = read_text_lines(tp) if tp is not None else None
+        if ref is not None and len(ref) == len(g):
+            g = g.sort_values("line_no")
+            ln.loc[g.index, "edits"] = line_edits(g["text"].fillna("").tolist(), ref)
+    ln = ln.dropna(subset=["edits"])
+    total = float(ln["edits"].sum())
+    if ln.empty or total <= 0:
+        raise PlanError(f"{truth_dir}: no character errors of {recogniser} could be paired line by line with the "
+                        "ground truth; give --catch-rate")
+    q = review_queue(ln[["page_id", "line_no", "text", "confidence"]])
+    head = q.take(max_lines=max(1, int(round(share * len(q.table)))))
+    keys = set(zip(head["page_id"], head["line_no"]))
+    caught = float(sum(e for p, n, e in zip(ln["page_id"], ln["line_no"], ln["edits"]) if (p, n) in keys))
+    where = (f"measured for {recogniser}: the {len(head)} most doubtful of {len(q.table)} calibration lines hold "
+             f"{caught:.0f} of its {total:.0f} character errors")
+    return caught / total, where

@@ -58,6 +58,7 @@ def table_lines(table: pd.DataFrame) -> tuple[list[str], list[tuple[str, list[st
         ("recognition wall-clock P10", lambda r: _dur(r["wall_seconds_p10"])),
         ("recognition wall-clock P50", lambda r: _dur(r["wall_seconds_p50"])),
         ("recognition wall-clock P90", lambda r: _dur(r["wall_seconds_p90"])),
+        ("  of the P10-P90 band, machine drift", lambda r: _pct(r["band_drift_share"])),
         ("core-hours (P50 / P90)", lambda r: f"{_amount(r['core_hours'])} / {_amount(r['core_hours_p90'])}"),
         (f"compute cost, {unit} (P50 / P90)", lambda r: priced(r, "compute_cost", "compute_cost_p90")),
         ("CER (95% interval)", lambda r: "-" if r["cer"] is None else
@@ -111,8 +112,11 @@ def statements(table: pd.DataFrame) -> list[tuple[str, str]]:
             width = (f"±{100 * s['relative_margin']:.0f}% of the CER ({100 * s['pilot_rate']:.2f}%), i.e. "
                      f"±{100 * s['half_width']:.3g} points" if s.get("margin") == "relative"
                      else f"±{100 * s['half_width']:.3g} points")
+            by = s.get("by_collection")
             out.append(("Ground truth", f"{name}: transcribe {s['pages']:,} pages"
-                        + (f" (~{s['lines']:,} lines)" if s.get("lines") else "") + f" for a CER interval of {width}"))
+                        + (f" (~{s['lines']:,} lines)" if s.get("lines") else "") + f" for a CER interval of {width}"
+                        + (" — by collection: " + ", ".join(f"{c or '(top folder)'} {k}" for c, k in by.items())
+                           if by else "")))
         for n in s.get("notes") or []:
             out.append(("Ground truth", f"{name}: {n}"))
     out += [("warning", w) for w in table.attrs.get("warnings", [])]

@@ -40,11 +40,12 @@ from ocrbench.planning.costmodel import CostModel
 from ocrbench.planning.decide import PlanInputs, make_plan
 from ocrbench.planning.estimate import AccuracyInput, Goals, Resources, estimate_serial, evaluate_option
 from ocrbench.planning.inputs import (PROFILE_SCHEMA, Calibration, PlanRequest, describe_sample,
-                                      load_plan_file as load_plan_toml, page_size_or_calibrated, read_calibration,
+                                      load_plan_file as load_plan_toml, measure_catch_rate,
+                                      page_size_or_calibrated, read_calibration,
                                       read_store_frames, score_calibration)
 from ocrbench.planning.numerics import parse_duration
 from ocrbench.planning.people import Correction
-from ocrbench.planning.sampling import sample_size
+from ocrbench.planning.sampling import stratified_sample_size
 
 __all__ = ["PlanRequest", "PlanResult", "PlanResults", "ReportContext", "plan", "load_plan_file", "compute_plan",
            "plan_from_results", "plan_json", "json_dumps", "ROW_KEYS"]
@@ -222,8 +223,8 @@ def _accuracy(req: PlanRequest, cals: Sequence[Calibration], ctx: ReportContext 
     sizes: dict[str, dict] = {}
     for n, df in page_scores.items():
         try:
-            sizes[n] = sample_size(df, relative=req.cer_relative_margin, absolute=req.cer_margin,
-                                   population=n_pages)
+            sizes[n] = stratified_sample_size(df, relative=req.cer_relative_margin, absolute=req.cer_margin,
+                                              population=n_pages)
         except (PlanError, ValueError) as e:
             sizes[n] = {"pages": None, "notes": [str(e)]}
     return accuracy, sizes
@@ -243,13 +244,29 @@ def resources_of(req: PlanRequest) -> tuple[Resources, dict[str, Resources]]:
     return res, by_profile
 
 
-def correction_of(req: PlanRequest) -> Correction:
+def correction_of(req: PlanRequest, catch_rate: float | None = None, source: str = "given") -> Correction:
     """The people part of the request: review mode, rates, correctors, price."""
     return Correction(seconds_per_error=req.seconds_per_error, price_hour=req.correction_price_hour,
                       review=req.review, seconds_per_line=req.seconds_per_line,
                       chars_per_second=req.chars_per_second, review_share=req.review_share,
-                      catch_rate=req.catch_rate, correctors=req.correctors,
-                      hours_per_week=req.corrector_hours_per_week)
+                      catch_rate=req.catch_rate if catch_rate is None else catch_rate, correctors=req.correctors,
+                      hours_per_week=req.corrector_hours_per_week, catch_rate_source=source)
+
+
+def _corrections(req: PlanRequest, cals: Sequence[Calibration],
+                 say: Callable[[str], None]) -> tuple[Correction, dict[str, Correction]]:
+    """The request's correction; for targeted review without a catch rate, one measured per recogniser on the
+    calibration pages' ground truth."""
+    if req.review != "targeted" or req.catch_rate is not None or req.truth is None:
+        return correction_of(req), {}
+    say("measuring the review queue's catch rate on the ground truth")
+    by = {}
+    for c in cals:
+        for m in c.models:
+            rate, where = measure_catch_rate(c.path, req.truth, m.recogniser, share=req.review_share)
+            by[m.recogniser] = correction_of(req, rate, where)
+    mean = float(np.mean([x.catch_rate for x in by.values()]))
+    return correction_of(req, mean, "mean of the measured catch rates"), by
 
 
 def plan(req: PlanRequest, *, context: ReportContext | None = None,
@@ -262,10 +279,11 @@ def plan(req: PlanRequest, *, context: ReportContext | None = None,
     archive, failures, described_by = _archive(req, models, context, say)
     accuracy, sizes = _accuracy(req, cals, context, archive.n_pages, say)
     res, by_profile = resources_of(req)
+    correction, by_recogniser = _corrections(req, cals, say)
     inputs = PlanInputs(archive=archive, resources=res,
                         goals=Goals(deadline_s=parse_duration(req.deadline) if req.deadline else None,
                                     budget=req.budget),
-                        correction=correction_of(req),
+                        correction=correction, correction_by_recogniser=by_recogniser,
                         accuracy=accuracy, sample_sizes=sizes, scaling={k: v for c in cals for k, v in c.scaling.items()},
                         resources_by_profile=by_profile, draws=req.draws, seed=req.seed, speed_drift=req.speed_drift,
                         currency=req.currency)
@@ -306,7 +324,7 @@ def _curve(result: PlanResult, req: PlanRequest, max_workers: int) -> tuple[list
             r = dataclasses.replace(base, workers=per, machines=machines)
             try:
                 o = evaluate_option(est, r, inputs.goals, scaling=sc, accuracy=inputs.accuracy.get(m.recogniser),
-                                    correction=inputs.correction).row
+                                    correction=inputs.correction_for(m.recogniser)).row
             except PlanError:
                 continue
             curve.append({"recogniser": m.recogniser, "kind": m.kind, "workers": total, "workers_per_machine": per,

@@ -119,12 +119,28 @@ def describe_rows(df: "pd.DataFrame") -> tuple["pd.DataFrame", list[str]]:
     return df, notes
 
 
+def grid_order(threads: Sequence[int], batch_sizes: Sequence[int], workers: Sequence[int],
+               cores: int) -> list[dict]:
+    """The grid in the order it is timed, most promising first, so a time limit cuts the least promising:
+    configurations that use every core (workers x threads = cores) first, then fewer cores; within them the
+    middle batch sizes before the extremes."""
+    bs = sorted(set(batch_sizes))
+    mid = bs[len(bs) // 2]
+    cfgs = [{"threads": t, "batch_size": b, "workers": w} for t in sorted(set(threads)) for b in bs
+            for w in sorted(set(workers))]
+    return sorted(cfgs, key=lambda c: (c["workers"] * c["threads"] > cores,
+                                       -min(c["workers"] * c["threads"], cores), abs(bs.index(c["batch_size"]) -
+                                                                                    bs.index(mid)),
+                                       c["threads"], c["batch_size"]))
+
+
 def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: Sequence[int] = (8, 16, 32),
          workers: Sequence[int] = (1, 2), pages: int = 6, max_seconds: float = 300.0, cores: int | None = None,
          progress=None, work_dir=None) -> dict:
     """Measure a small grid (threads x batch size x workers) on ``pages`` sample pages, within ``max_seconds``.
 
-    Configurations asking for more cores than the machine has are skipped. Each is timed with
+    Configurations asking for more cores than the machine has are skipped; the rest are timed most
+    promising first (:func:`grid_order`) and none is started that would likely end past ``max_seconds``. Each is timed with
     the real runner (k workers side by side, as ``measure-scaling`` does) into a scratch store;
     the fastest (pages per second of the whole machine) is then timed once more into ``store``,
     with its throughput rows at each worker count, so ``ocrbench plan`` calibrates on it and
@@ -152,19 +168,20 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
         subset.mkdir()
         for ref in refs:
             shutil.copy2(ref.path, subset / Path(ref.path).name)
-        for t in sorted(set(threads)):
-            for b in sorted(set(batch_sizes)):
-                for w in sorted(set(workers)):
-                    cfg = {"threads": t, "batch_size": b, "workers": w}
-                    if w * t > cores:
-                        grid.append(cfg | {"pages_per_second": None, "skipped": f"{w * t} cores > {cores}"})
-                        continue
-                    if time.perf_counter() - t0 > max_seconds:
-                        grid.append(cfg | {"pages_per_second": None, "skipped": "time limit reached"})
-                        continue
-                    say(f"timing threads={t} batch={b} workers={w}")
-                    df = measure_scaling(subset, card, workers=[w], threads=t, batch_size=b, work_dir=tmp)
-                    grid.append(cfg | {"pages_per_second": float(df["pages_per_second"].iloc[0]), "skipped": None})
+        last = 0.0
+        for cfg in grid_order(threads, batch_sizes, workers, cores):
+            t, b, w = cfg["threads"], cfg["batch_size"], cfg["workers"]
+            if w * t > cores:
+                grid.append(cfg | {"pages_per_second": None, "skipped": f"{w * t} cores > {cores}"})
+                continue
+            if time.perf_counter() - t0 + last > max_seconds:
+                grid.append(cfg | {"pages_per_second": None, "skipped": "time limit reached"})
+                continue
+            say(f"timing threads={t} batch={b} workers={w}")
+            t1 = time.perf_counter()
+            df = measure_scaling(subset, card, workers=[w], threads=t, batch_size=b, work_dir=tmp)
+            last = time.perf_counter() - t1
+            grid.append(cfg | {"pages_per_second": float(df["pages_per_second"].iloc[0]), "skipped": None})
         done = [g for g in grid if g["pages_per_second"]]
         if not done:
             from ocrbench.errors import PlanError
