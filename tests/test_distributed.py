@@ -222,3 +222,54 @@ def test_workers_keep_page_buffers_on_the_heap(pages, cards, cluster, tmp_path):
     with connect(DaskOptions(workers=1)) as cl:
         envs = cl.client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
     assert set(envs.values()) == {os.environ.get("MALLOC_TRIM_THRESHOLD_")}   # nothing added by ocrbench
+
+
+def test_pages_per_task_by_default():
+    from ocrbench.run.distributed import auto_pages_per_task
+
+    # one thread: as many pages a task as allowed (only a task's first page is not pipelined)
+    assert [auto_pages_per_task(n, 1) for n in (1, 5, 48)] == [1, 5, 8]
+    # several threads: about four tasks each, so they stay evenly busy to the end
+    assert [auto_pages_per_task(n, 2) for n in (1, 6, 12, 48, 1000)] == [1, 1, 2, 6, 8]
+    assert auto_pages_per_task(48, 14) == 1
+
+
+@pytest.mark.parametrize("per_task", [1, 3, None])
+def test_pipelined_chunks_read_what_the_serial_runner_reads(pages, cards, serial, tmp_path, per_task):
+    db = tmp_path / "p.sqlite"
+    s = run_distributed(pages, cards, store=db, options=RunOptions(prefetch=True),
+                        dask=DaskOptions(workers=1, processes=False, pages_per_task=per_task))
+    assert s.pages_processed == N_PAGES and not s.failed_pages
+    assert texts(db) == serial["texts"]
+    assert all(len(d) == N_PAGES for d in assert_whole_pages(db).values())
+
+
+class KillOnPage:
+    """Post-processing that ends its worker process on one page (known by its recognised text)."""
+
+    def __init__(self, texts: list[str]):
+        self.texts = texts
+
+    def __call__(self, texts, confidences):
+        import os
+
+        if list(texts) == self.texts:
+            os._exit(3)                           # as a worker killed for memory would vanish
+        return list(texts)
+
+
+def test_a_page_that_kills_its_workers_fails_alone_not_its_whole_task(pages, cards, serial, tmp_path):
+    import dask
+
+    killer = "page_002.png"
+    db = tmp_path / "k.sqlite"
+    # allowed-failures 0: a task is given up after its first worker death (Dask's scheduler setting); one task in
+    # flight, so no other task shares the worker when it dies; two workers, so one is up while the other restarts
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        s = run_distributed(pages, cards[:1], store=db, postprocess=KillOnPage(serial["texts"][0][killer]),
+                            dask=DaskOptions(workers=2, pages_per_task=3, max_in_flight=1))
+    assert s.failed_pages == [killer]
+    err = dict(s.recognisers[0].failures)[killer]
+    assert "died" in err
+    with RunStore(db) as st:
+        assert set(st.done_page_ids(1)) == set(serial["texts"][0]) - {killer}   # its task's other pages are done

@@ -72,8 +72,10 @@ def run(
                                    help="With --workers: workers as separate processes (default) or threads here."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler",
                                             help="Read pages on an existing Dask cluster (tcp://HOST:PORT)."),
-    pages_per_task: int = typer.Option(1, "--pages-per-task", min=1,
-                                       help="With --workers/--scheduler: pages sent to a worker at a time."),
+    pages_per_task: Optional[int] = typer.Option(None, "--pages-per-task", min=1,
+                                                 help="With --workers/--scheduler: pages sent to a worker at a time "
+                                                      "(default: about four tasks per worker thread, at most 8 "
+                                                      "pages each)."),
     connect_timeout: float = typer.Option(10.0, "--connect-timeout", min=0.1,
                                           help="With --scheduler: seconds to reach the scheduler and find a worker."),
     postprocess_on: bool = typer.Option(False, "--postprocess",
@@ -98,7 +100,7 @@ def run(
     # Over 80 lines only because typer declares the 26 options in the signature; the body is short.
     from ocrbench.postprocess.config import load_pipeline
 
-    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task != 1
+    if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task is not None
                                                   or connect_timeout != 10.0):
         raise fail("--threads-per-worker, --no-processes, --pages-per-task and --connect-timeout need --workers or "
                    "--scheduler", EXIT_USAGE)

@@ -1,9 +1,12 @@
 """Run the runner on a Dask cluster: many pages at once, one writer, memory that stays flat.
 
-Scale-out wraps the runner and does not change it. Every page is read by
-:func:`ocrbench.run.engine.recognise_page`, the same function the serial runner
-calls, so a page's text and timings mean the same whichever engine made them.
-What differs is only where pages are read and how many at a time:
+Scale-out wraps the runner and does not change it. Every page is loaded by
+:func:`ocrbench.run.engine.load_and_segment` and read by
+:func:`ocrbench.run.engine.read_page`, pipelined by the same
+:class:`ocrbench.run.engine.Prefetcher` as in the serial runner (the next page of
+a task is loaded while this one is recognised), so a page's text and timings
+mean the same whichever engine made them. What differs is only where pages are
+read and how many at a time:
 
 * Workers (processes of a :class:`distributed.LocalCluster` on this machine, or
   an existing cluster reached at ``tcp://HOST:PORT``) read pages. Each worker
@@ -23,10 +26,10 @@ settings, input folder), and the Dask options are not settings: a run started
 by one engine is resumed by the other, and ``runs.engine`` records the engine
 that ran it last.
 
-When a worker dies mid-page, Dask gives the page to another worker; a page
-whose workers died ``distributed.scheduler.allowed-failures`` + 1 times (a page
-that exhausts memory, say) is recorded as failed with that reason, and the run
-goes on. Workers of a remote cluster need ocrbench installed and must see the
+When a worker dies mid-page, Dask gives the task to another worker; a task
+whose workers died ``distributed.scheduler.allowed-failures`` + 1 times is split
+into one task per page, and a page that still kills its workers (a page that
+exhausts memory, say) is recorded as failed with that reason, and the run goes on. Workers of a remote cluster need ocrbench installed and must see the
 cards and pages at the same paths as the client.
 """
 
@@ -41,7 +44,7 @@ import socket
 import threading
 import time
 import uuid
-from collections import Counter
+from collections import Counter, deque
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -52,7 +55,7 @@ from ocrbench.pages import PageRef, list_pages
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.run.engine import PageOutcome, RunOptions, as_run_options, input_folder, load_cards, recognise_page
+from ocrbench.run.engine import PageOutcome, Prefetcher, RunOptions, as_run_options, input_folder, load_cards, read_page
 from ocrbench.run.host import host_info
 from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummary, RunWriter, file_sha256, file_stamp,
                                  open_run)
@@ -97,6 +100,22 @@ def scheduler_endpoint(address: str) -> tuple[str, str, int]:
     return scheme.lower(), host, int(port)
 
 
+#: The most pages one task gets when the size is chosen automatically.
+MAX_AUTO_PAGES_PER_TASK = 8
+
+
+def auto_pages_per_task(pages: int, threads: int) -> int:
+    """Pages per task when none is given: 1 to 8 pages, about four tasks per worker thread.
+
+    Several pages a task let the worker pipeline them (load the next while
+    recognising this one: only a task's first page is not hidden) and keep the
+    scheduler's per-task cost small; with several threads, four tasks each keep
+    them evenly busy to the end of the run (a single thread has no one to wait for).
+    """
+    per_thread_tasks = 4 if threads > 1 else 1
+    return max(1, min(MAX_AUTO_PAGES_PER_TASK, -(-pages // (per_thread_tasks * max(1, threads)))))
+
+
 def check_local_size(workers: int, threads_per_worker: int = 1, cores: int | None = None) -> None:
     """Refuse a local cluster of more worker threads than :data:`MAX_THREADS_PER_CORE` per core."""
     cores = cores or os.cpu_count() or 1
@@ -134,16 +153,18 @@ class DaskOptions:
     of this machine); ``scheduler`` (``tcp://HOST:PORT``, checked before any
     connection) uses an existing cluster instead, reached within
     ``connect_timeout`` seconds. ``pages_per_task`` groups pages into one task
-    (1: each page is a task). ``max_in_flight`` bounds the tasks submitted and
-    not yet written (default: four times the cluster's threads, so a worker
-    never waits for the client).
+    (1: each page is a task; None: :func:`auto_pages_per_task`); within a task
+    a worker loads and segments the next page while it recognises the current
+    one, as the serial runner does. ``max_in_flight`` bounds the tasks
+    submitted and not yet written (default: four times the cluster's threads,
+    so a worker never waits for the client).
     """
 
     workers: int | None = None
     threads_per_worker: int = 1
     processes: bool = True
     scheduler: str | None = None
-    pages_per_task: int = 1
+    pages_per_task: int | None = None
     max_in_flight: int | None = None
     connect_timeout: float = DEFAULT_CONNECT_TIMEOUT
 
@@ -158,7 +179,7 @@ class DaskOptions:
             check_local_size(self.workers, self.threads_per_worker)
         if self.threads_per_worker < 1:
             raise OcrbenchError(f"threads per worker must be at least 1, not {self.threads_per_worker}")
-        if self.pages_per_task < 1:
+        if self.pages_per_task is not None and self.pages_per_task < 1:
             raise OcrbenchError(f"pages per task must be at least 1, not {self.pages_per_task}")
         if self.max_in_flight is not None and self.max_in_flight < 1:
             raise OcrbenchError(f"tasks in flight must be at least 1, not {self.max_in_flight}")
@@ -278,15 +299,20 @@ def _preflight(cards: Sequence[Card], options: RunOptions) -> tuple:
 
 def _recognise_chunk(refs: Sequence[PageRef], todo: Sequence[Sequence[int]], cards: Sequence[Card],
                      options: RunOptions, postprocess: PostProcess | None) -> tuple:
-    """The task: read a few pages; for each, the outcomes of the recognisers listed in ``todo``."""
+    """The task: read a few pages; for each, the outcomes of the recognisers listed in ``todo``.
+
+    Pages are pipelined as in the serial runner (:class:`ocrbench.run.engine.Prefetcher`): the next
+    page is loaded and segmented in a second thread while this one is recognised.
+    """
     try:
         retune_allocator()                        # a worker that joined after the preflight
         recs = [worker_recogniser(c, options) for c in cards]
     except Exception as e:  # noqa: BLE001 - a setup problem stops the run, in the client
         return _portable_error(e)
     out = []
-    for ref, idx in zip(refs, todo):
-        out.append((ref.id, recognise_page(ref, [recs[i] for i in idx], options=options, postprocess=postprocess)))
+    with Prefetcher(refs, options, time.perf_counter, prefetch=options.use_prefetch()) as pages:
+        for i, (ref, idx) in enumerate(zip(refs, todo)):
+            out.append((ref.id, read_page(pages.get(i), [recs[j] for j in idx], postprocess=postprocess)))
     return ("ok", out)
 
 
@@ -454,7 +480,9 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                                        engine=engine, host=lambda host=host, extra=extra: {**host, **extra},
                                        refs=refs))
             window = dask.max_in_flight or max(4, 4 * cl.threads)
-            return _write_as_completed(client, refs, states, card_list, st, options, dask.pages_per_task, window,
+            per_task = dask.pages_per_task or auto_pages_per_task(
+                sum(1 for r in refs if any(r.id not in s.done for s in states)), cl.threads)
+            return _write_as_completed(client, refs, states, card_list, st, options, per_task, window,
                                        clock, progress, postprocess, input_dir)
     finally:
         if own_store:
@@ -490,7 +518,12 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
         in_flight[key] = (fut, chunk[0], chunk[1], tries)
         ac.add(fut)
 
+    split: deque = deque()                       # single pages of a chunk whose workers kept dying
+
     def submit_next() -> None:
+        if split:
+            submit(split.popleft())
+            return
         try:
             chunk = next(work)
         except StopIteration:
@@ -505,7 +538,11 @@ def _write_as_completed(client, refs, states, cards, st: RunStore, options: RunO
             try:
                 res = fut.result()
             except KilledWorker as e:
-                res = ("ok", [(r.id, [_lost(r, e) for _ in idx]) for r, idx in zip(chunk_refs, chunk_todo)])
+                if len(chunk_refs) > 1:           # which page kills its workers? each page of the chunk alone
+                    split.extend(([r], [idx]) for r, idx in zip(chunk_refs, chunk_todo))
+                    submit_next()
+                    continue
+                res = ("ok", [(chunk_refs[0].id, [_lost(chunk_refs[0], e) for _ in chunk_todo[0]])])
             except Exception as e:  # noqa: BLE001 - the cluster failed, not a page
                 if tries < CLUSTER_RETRIES:
                     # A worker dying mid-task can surface as a transient error of Dask's own
