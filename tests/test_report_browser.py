@@ -63,7 +63,8 @@ def report(tmp_path_factory) -> Path:
     ctc, seq = make_models(root / "models")
     db = make_store(pages, [ctc, seq], root / "run.sqlite")
     _postprocess(db)
-    plan = PlanRequest(pages=5000, deadline="2d", budget=500.0, machines=2, price_core_hour=0.1, draws=200)
+    plan = PlanRequest(pages=5000, deadline="2d", budget=500.0, machines=2, price_core_hour=0.1, draws=200,
+                       correction_price_hour=20.0)   # people priced too, so the plan has a total cost
     return write_report(db, root / "out", truth=pages, plan=plan, n_boot=200, curve_max_workers=4).html
 
 
