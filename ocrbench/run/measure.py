@@ -29,6 +29,7 @@ from typing import Callable, Sequence
 import pandas as pd
 
 from ocrbench.errors import OcrbenchError, PlanError
+from ocrbench.run.distributed import sigint_ignored
 
 Clock = Callable[[], float]
 
@@ -142,12 +143,17 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
             procs = [ctx.Process(target=_worker, args=((str(pages), str(card_path), str(Path(tmp) / f"w{w}_{i}.sqlite"),
                                                          threads, batch_size, barrier, queue),), daemon=True)
                      for i in range(w)]
-            for p in procs:
-                p.start()
+            with sigint_ignored():                 # Ctrl-C reaches this process only; it stops the workers
+                for p in procs:
+                    p.start()
             results = []
             try:
                 for _ in procs:
                     results.append(queue.get(timeout=timeout))
+            except BaseException:
+                for p in procs:                   # interrupted or failed: stop the workers now, not after 30 s
+                    p.terminate()
+                raise
             finally:
                 for p in procs:
                     p.join(timeout=30)
