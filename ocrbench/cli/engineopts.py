@@ -6,9 +6,12 @@ from pathlib import Path
 
 from rich.console import Console
 
-from ocrbench.cli.common import EXIT_USAGE, fail
+from ocrbench.cli.common import EXIT_USAGE, choices, fail
 from ocrbench.errors import OcrbenchError
-from ocrbench.recognisers.engine import EngineOptions
+from ocrbench.recognisers.engine import DECODINGS, GRAPH_LEVELS, EngineOptions
+
+Decoding = choices("Decoding", DECODINGS)
+GraphLevel = choices("GraphLevel", GRAPH_LEVELS)
 
 
 def provider_options(items: list[str]) -> tuple[tuple[str, str], ...]:

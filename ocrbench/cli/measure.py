@@ -11,6 +11,8 @@ from rich.markup import escape
 from rich.table import Table
 
 from ocrbench.cli.common import EXIT_OK, EXIT_USAGE, fail
+from ocrbench.cli.engineopts import Decoding, GraphLevel, provider_options, warn_before_run
+from ocrbench.recognisers.base import EngineOptions
 from ocrbench.errors import OcrbenchError
 
 
@@ -23,16 +25,31 @@ def measure_scaling_cmd(
     threads: int = typer.Option(1, "--threads", min=1, help="Intra-op threads per worker."),
     batch_size: int = typer.Option(16, "--batch-size", min=1,
                                    help="Lines per model batch (as 'ocrbench run --batch-size')."),
+    inter_threads: int = typer.Option(1, "--inter-threads", min=1, help="As 'ocrbench run --inter-threads'."),
+    graph_optimisation: GraphLevel = typer.Option("all", "--graph-optimisation",
+                                                  help="As 'ocrbench run --graph-optimisation'."),
+    provider: list[str] = typer.Option(["CPUExecutionProvider"], "--provider", help="As 'ocrbench run --provider'."),
+    allow_cpu_fallback: bool = typer.Option(False, "--allow-cpu-fallback",
+                                            help="As 'ocrbench run --allow-cpu-fallback'."),
+    provider_option: list[str] = typer.Option([], "--provider-option", help="As 'ocrbench run --provider-option'."),
+    decoding: Decoding = typer.Option("greedy", "--decoding", help="As 'ocrbench run --decoding'."),
+    beam_width: int = typer.Option(8, "--beam-width", min=1, help="As 'ocrbench run --beam-width'."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Time a run of each recogniser on TARGET (process start, loading, pages/s) and, with --workers K, 2..K."""
     from ocrbench.planning.throughput import measure_table
 
+    engine = EngineOptions(inter_threads=inter_threads, graph_optimisation=graph_optimisation.value,
+                           providers=tuple(provider), allow_cpu_fallback=allow_cpu_fallback,
+                           provider_options=provider_options(provider_option), decoding=decoding.value,
+                           beam_width=beam_width)
+    warn_before_run(recogniser, engine)
     err = Console(stderr=True)
     try:
         with err.status("timing the recognisers on this machine") as status:
             df, notes = measure_table(target, recogniser, store=store, workers=workers, threads=threads,
-                                      batch_size=batch_size, progress=lambda m: status.update(m))
+                                      batch_size=batch_size, engine=engine,
+                                      progress=lambda m: status.update(m))
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)
     cols = ["recogniser", "workers", "threads", "pages", "pages_per_second", "speedup", "speedup_low",

@@ -21,17 +21,15 @@ import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
-from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, choices, fail
-from ocrbench.cli.engineopts import provider_options, warn_before_run
+from ocrbench.cli.common import EXIT_INTERRUPTED, EXIT_OK, EXIT_SOME_FAILED, EXIT_USAGE, fail
+from ocrbench.cli.engineopts import Decoding, GraphLevel, provider_options, warn_before_run
 from ocrbench.cli.progress import RunProgress
 from ocrbench.cli.show_run import print_run_problems, print_run_summary
 from ocrbench.io.tables import json_text
 from ocrbench.errors import OcrbenchError
 from ocrbench.io.textdir import write_texts
-from ocrbench.recognisers.base import DECODINGS, GRAPH_LEVELS, EngineOptions
+from ocrbench.recognisers.base import EngineOptions
 
-Decoding = choices("Decoding", DECODINGS)
-GraphLevel = choices("GraphLevel", GRAPH_LEVELS)
 
 
 def run(

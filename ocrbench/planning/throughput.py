@@ -62,7 +62,7 @@ def between_pages(gap_seconds_per_page: float) -> tuple[float, float]:
 
 
 def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, batch_size: int = 16,
-                  progress=None) -> tuple["pd.DataFrame", list[str]]:
+                  engine=None, progress=None) -> tuple["pd.DataFrame", list[str]]:
     """Time each card on ``target`` at 1..``workers`` workers, save the rows to ``store``'s scaling table.
 
     Returns the rows with speed-up intervals and the positive idle/overlap figures, and the
@@ -72,8 +72,7 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     import pandas as pd
 
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.recognisers.base import EngineOptions
-    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session
+    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session, session_options
 
     say = progress or (lambda _m: None)
     say("timing a fresh process start")
@@ -82,11 +81,11 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     for card in cards:
         say(f"timing {card} on one worker")
         rows.append(measure_session(target, card, store=store,
-                                    options=EngineOptions(intra_threads=threads, batch_size=batch_size)))
+                                    options=session_options(engine, threads, batch_size)))
         if workers > 1:
             say(f"timing {card} on 2..{workers} workers")
             more = measure_scaling(target, card, workers=range(2, workers + 1), threads=threads,
-                                   batch_size=batch_size)
+                                   batch_size=batch_size, engine=engine)
             rows += more.drop(columns=["speedup"]).to_dict(orient="records")
     df = pd.DataFrame(rows)
     df["host_json"] = [json.dumps(json.loads(h or "{}") | {"process_start_seconds": proc}, sort_keys=True)
@@ -156,8 +155,7 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
 
     from ocrbench.pages import list_pages
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.recognisers.base import EngineOptions
-    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session
+    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session, session_options
 
     say = progress or (lambda _m: None)
     cores = int(cores or os.cpu_count() or 1)

@@ -105,13 +105,21 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
     }
 
 
-def _worker(args: tuple) -> None:
-    pages, card_path, store, intra, batch_size, barrier, queue = args
-    try:
-        from ocrbench.recognisers.base import EngineOptions
+def session_options(engine, intra: int, batch_size: int):
+    """``engine`` (the options ``run`` takes; default ones when None) at ``intra`` threads and ``batch_size``."""
+    import dataclasses
 
+    from ocrbench.recognisers.base import EngineOptions
+
+    base = engine if engine is not None else EngineOptions()
+    return dataclasses.replace(base, intra_threads=intra, batch_size=batch_size)
+
+
+def _worker(args: tuple) -> None:
+    pages, card_path, store, intra, batch_size, engine, barrier, queue = args
+    try:
         row = measure_session(pages, card_path, store=store, barrier=barrier, clock=time.perf_counter,
-                              options=EngineOptions(intra_threads=intra, batch_size=batch_size))
+                              options=session_options(engine, intra, batch_size))
         queue.put(("ok", row))
     except BaseException as e:  # noqa: BLE001 - reported to the parent, which raises it
         try:
@@ -122,7 +130,7 @@ def _worker(args: tuple) -> None:
 
 
 def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequence[int] = (1, 2), threads: int = 1,
-                    batch_size: int = 16, work_dir: Path | str | None = None, timeout: float = 3600.0,
+                    batch_size: int = 16, engine=None, work_dir: Path | str | None = None, timeout: float = 3600.0,
                     progress: Callable[[int, int], None] | None = None) -> pd.DataFrame:
     """Pages per second with each number of ``workers`` (processes) at ``threads`` intra-op threads each.
 
@@ -141,7 +149,7 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
             barrier = ctx.Barrier(w)
             queue = ctx.Queue()
             procs = [ctx.Process(target=_worker, args=((str(pages), str(card_path), str(Path(tmp) / f"w{w}_{i}.sqlite"),
-                                                         threads, batch_size, barrier, queue),), daemon=True)
+                                                         threads, batch_size, engine, barrier, queue),), daemon=True)
                      for i in range(w)]
             with sigint_ignored():                 # Ctrl-C reaches this process only; it stops the workers
                 for p in procs:
