@@ -92,8 +92,8 @@ def review(
                 use_post = post and st.post_recipe(rid) is not None
                 if use_post:
                     ln["text"] = ln["text_post"].where(ln["text_post"].notna(), ln["text"])
-                q = review_queue(ln[["page_id", "line_no", "text", "confidence", "truncated", "error"]], lexicon=lexicon,
-                                 rate=rate)
+                q = review_queue(ln[["page_id", "line_no", "text", "confidence", "truncated", "error"]],
+                                 lexicon=lexicon, rate=rate)
                 select = {"max_minutes": minutes} if minutes is not None else {"max_lines": lines}
                 head = q.take(**select)
                 res = {"run_id": rid, "recogniser": info.recogniser, "text": "post-processed" if use_post else "raw",

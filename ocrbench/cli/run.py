@@ -185,8 +185,8 @@ def run(
                       highlight=False, soft_wrap=True)
     for r in summary.recognisers:
         for page_id, error in r.post_failures:
-            err.print(f"ocrbench: {r.name}: {printable(page_id)}: post-processing refused this page ({error}); its raw text "
-                      "is kept", markup=False, highlight=False, soft_wrap=True)
+            err.print(f"ocrbench: {r.name}: {printable(page_id)}: post-processing refused this page ({error}); "
+                      "its raw text is kept", markup=False, highlight=False, soft_wrap=True)
         if r.post_incomplete:
             err.print(f"ocrbench: {r.name}: run {r.run_id}: {r.lines - r.post_lines} lines have no post-processed "
                       f"text (pages added without post-processing); refill with: ocrbench postprocess {store} "
