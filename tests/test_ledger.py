@@ -119,7 +119,8 @@ def test_one_grammar_reads_pounds_written_after_the_number_the_same_everywhere()
     checked = L.find_amount(line, L.LSD_MARKED)                      # the balance check
     assert (checked.text, checked.value) == ("12l. 7s. 6d.", L.lsd_to_farthings(12, 7, 6)) == ("12l. 7s. 6d.", 11880)
     assert L.detect_form([line]) == L.LSD_MARKED
-    # and a page written that way adds up: 12l. 7s. 6d. + 3l. 12s. 6d. = 16l. 0s. 0d. (6d + 6d = 1s, 7s + 12s + 1s = £1)
+    # and a page written that way adds up: 12l. 7s. 6d. + 3l. 12s. 6d. = 16l. 0s. 0d.
+    # (6d + 6d = 1s, 7s + 12s + 1s = £1)
     page = ["Cash Book Folio 3", "Jan 2 To Kettle for coals 12l. 7s. 6d.", "Jan 9 To wages 3l. 12s. 6d.",
             "Total 16l. 0s. 0d."]
     assert L.check_page(page).status == L.BALANCED

@@ -173,7 +173,8 @@ _COLUMNS_RE = re.compile(
     rf"(?P<d>{_ZERO}|\d{{1,2}}(?P<q>{FRACTION})?|(?P<q2>{FRACTION})))\s*$")
 # Pounds (optional) as "£12" or "12l.", then shillings and pence.
 _MARKED_RE = re.compile(
-    rf"(?:^|(?<=\s))(?P<amt>(?:(?:{POUND_SIGN}\s?(?P<l>{_POUNDS}|{_ZERO})|(?P<la>{POUNDS_AFTER_NUMBER}){POUNDS_AFTER_MARK})"
+    rf"(?:^|(?<=\s))(?P<amt>(?:(?:{POUND_SIGN}\s?(?P<l>{_POUNDS}|{_ZERO})"
+    rf"|(?P<la>{POUNDS_AFTER_NUMBER}){POUNDS_AFTER_MARK})"
     rf"\s+)?(?P<s>\d{{1,2}}|{_ZERO})\s?s\.?\s+(?P<d>\d{{1,2}}|{_ZERO})?\s?(?P<q>{FRACTION})?\s?d\.?)\s*$")
 
 

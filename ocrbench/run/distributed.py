@@ -29,8 +29,9 @@ that ran it last.
 When a worker dies mid-page, Dask gives the task to another worker; a task
 whose workers died ``distributed.scheduler.allowed-failures`` + 1 times is split
 into one task per page, and a page that still kills its workers (a page that
-exhausts memory, say) is recorded as failed with that reason, and the run goes on. Workers of a remote cluster need ocrbench installed and must see the
-cards and pages at the same paths as the client.
+exhausts memory, say) is recorded as failed with that reason, and the run goes
+on. Workers of a remote cluster need ocrbench installed and must see the cards
+and pages at the same paths as the client.
 """
 
 from __future__ import annotations

@@ -143,7 +143,9 @@ class Prefetcher:
         self.ahead: dict[int, Future] = {}
 
     def _submit(self, i: int) -> Future:
-        return self.pool.submit(load_and_segment, self.work[i], options=self.options, clock=self.clock)  # type: ignore[union-attr]
+        pool = self.pool
+        assert pool is not None
+        return pool.submit(load_and_segment, self.work[i], options=self.options, clock=self.clock)
 
     def get(self, i: int) -> "LoadedPage":
         """Page ``work[i]``; when prefetching it was loaded in the background, and ``work[i + 1]`` starts now."""
