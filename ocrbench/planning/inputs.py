@@ -296,49 +296,39 @@ def describe_sample(folder: Path | str, *, n_pages: int | None = None, sample_pa
 # --------------------------------------------------------------------------- ground truth
 
 
-def truth_path_for(truth_dir: Path, page_id: str) -> Path | None:
-    """Ground truth pairs by stem: ``page_001.png`` <-> ``page_001.txt``; ``book.tif#3`` <-> ``book_3.txt``
-    (or ``book.txt`` for a single frame)."""
-    name, _, frame = page_id.partition("#")
-    stem = Path(name).stem
-    parent = truth_dir / Path(name).parent
-    cands = [parent / f"{stem}_{frame}.txt"] if frame else []
-    if not frame or frame == "1":
-        cands.append(parent / f"{stem}.txt")
-    return next((c for c in cands if c.is_file()), None)
 
 
 def score_calibration(store_path: Path | str, truth_dir: Path | str, *, recognisers: Sequence[str] | None = None,
                       profile: str = "nfc") -> dict[str, tuple[AccuracyInput, pd.DataFrame]]:
-    """Each recogniser's CER (with its interval) and per-page scores on the calibration pages that have truth."""
-    from ocrbench.accuracy.score import score_pages
-    from ocrbench.io.text import read_text_lines
+    """Each recogniser's CER (with its interval) and per-page scores on the calibration pages that have truth
+    (the latest run of each; scored by :mod:`ocrbench.accuracy.evaluate`, paired as ``score`` pairs)."""
+    from ocrbench.accuracy.evaluate import PostText, score_systems, store_systems
     from ocrbench.store import RunStore
 
     truth_dir = Path(truth_dir)
     if not truth_dir.is_dir():
         raise InputError(truth_dir, "ground-truth folder not found")
-    out = {}
     with RunStore(store_path, read_only=True) as st:
-        frames = st.read_frames()
-        runs = frames["runs"]
-        for name in (recognisers or sorted(runs["recogniser"].unique())):
-            mine = runs[runs["recogniser"] == name]
-            if mine.empty:
-                continue
-            rid = int(mine["run_id"].iloc[-1])
-            triples = []
-            for pid, hyp in st.page_texts(rid).items():
-                tp = truth_path_for(truth_dir, pid)
-                if tp is not None:
-                    triples.append((pid, read_text_lines(tp), hyp))
-            if not triples:
-                raise PlanError(f"{truth_dir}: no ground truth matches the pages of run {rid} ({name})")
-            sc = score_pages(triples, profile=profile, classes=False, recogniser_hash=str(mine["card_hash"].iloc[-1]))
-            s = sc.summary
-            if s.get("cer") is None:
-                raise PlanError(f"{truth_dir}: the ground truth of run {rid} holds no characters")
-            out[name] = (AccuracyInput(float(s["cer"]), float(s["cer_low"]), float(s["cer_high"])), sc.pages)
+        runs = st.read_frames()["runs"]
+    latest = {}
+    for name in (recognisers or sorted(runs["recogniser"].unique())):
+        mine = runs[runs["recogniser"] == name]
+        if not mine.empty:
+            latest[name] = int(mine["run_id"].iloc[-1])
+    if not latest:
+        return {}
+    systems, _ = store_systems(store_path, truth_dir, list(latest.values()), PostText.RAW)
+    score_systems(systems, profile=profile, classes=False)
+    out = {}
+    for name, rid in latest.items():
+        system = next(x for x in systems if x.run_id == rid)
+        if not system.scored:
+            raise PlanError(f"{truth_dir}: no ground truth matches the pages of run {rid} ({name})")
+        summary = system.scores.summary
+        if summary.get("cer") is None:
+            raise PlanError(f"{truth_dir}: the ground truth of run {rid} holds no characters")
+        out[name] = (AccuracyInput(float(summary["cer"]), float(summary["cer_low"]), float(summary["cer_high"])),
+                     system.scores.pages)
     return out
 
 
@@ -539,7 +529,7 @@ def measure_catch_rate(store_path: Path | str, truth_dir: Path | str, recogniser
     character edits against the ground truth (pages whose truth has as many lines as
     were recognised). Returns (rate, where it was measured).
     """
-    from ocrbench.io.text import read_text_lines
+    from ocrbench.io.text import pair_store_pages, read_text_lines
     from ocrbench.postprocess.review import line_edits, review_queue
     from ocrbench.store import RunStore
 
@@ -551,12 +541,13 @@ def measure_catch_rate(store_path: Path | str, truth_dir: Path | str, recogniser
         rid = int(runs["run_id"].iloc[-1])
     ln = frames["lines"][frames["lines"]["run_id"] == rid].copy()
     ln["edits"] = np.nan
+    truth_of = {str(pid): tp for _, tp, pid in pair_store_pages(truth_dir, ln["page_id"].astype(str).unique()).pairs}
     for pid, g in ln.groupby("page_id"):
-        tp = truth_path_for(Path(truth_dir), str(pid))
+        tp = truth_of.get(str(pid))
         ref = read_text_lines(tp) if tp is not None else None
         if ref is not None and len(ref) == len(g):
             g = g.sort_values("line_no")
-            ln.loc[g.index, "edits"] = line_edits(g["text"].fillna("").tolist(), ref)
+            ln.loc[g.index, "edits"] = line_edits(ref, g["text"].fillna("").tolist())
     ln = ln.dropna(subset=["edits"])
     total = float(ln["edits"].sum())
     if ln.empty or total <= 0:

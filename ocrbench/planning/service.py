@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
@@ -34,6 +33,7 @@ from typing import Any, Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from ocrbench.io.tables import json_ready, json_text
 from ocrbench.errors import InputError, PlanError
 from ocrbench.planning.archive import Archive, with_shared_characters
 from ocrbench.planning.costmodel import CostModel
@@ -107,19 +107,6 @@ def load_plan_file(path: Path | str) -> "PlanRequest | PlanResults":
     return PlanResults([dict(r) for r in rows], str(p), statements)
 
 
-def _clean(v: Any) -> Any:
-    """JSON-ready: numpy scalars to Python, paths to strings, NaN to None, containers recursively."""
-    if isinstance(v, Mapping):
-        return {str(k): _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    if isinstance(v, np.generic):
-        v = v.item()
-    if isinstance(v, Path):
-        return str(v)
-    if isinstance(v, float) and not math.isfinite(v):
-        return None
-    return v
 
 
 #: Columns of a plan row copied into each recogniser's entry of the report.
@@ -138,9 +125,9 @@ ROW_KEYS = ("workers", "threads", "machines", "pages", "characters", "wall_secon
 
 def plan_from_results(results: PlanResults) -> dict:
     """The report's plan section from rows computed elsewhere (no workers curve)."""
-    rows = {str(r["recogniser"]): {k: _clean(r.get(k)) for k in ROW_KEYS} for r in results.rows}
+    rows = {str(r["recogniser"]): {k: json_ready(r.get(k)) for k in ROW_KEYS} for r in results.rows}
     st = results.statements
-    return _clean({"source": results.source, "spec": None, "rows": rows, "archive": st.get("archive"),
+    return json_ready({"source": results.source, "spec": None, "rows": rows, "archive": st.get("archive"),
                    "assumptions": list(st.get("assumptions") or []), "recommendation": st.get("recommendation"),
                    "crossover": list(st.get("crossover") or []), "warnings": list(st.get("warnings") or []),
                    "curve": [], "curve_axis": None})
@@ -351,11 +338,11 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
                         page_scores=dict(page_scores or {}))
     result = plan(req, context=ctx)
     table = result.table
-    rows = {str(rec["recogniser"]): {k: _clean(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
+    rows = {str(rec["recogniser"]): {k: json_ready(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
     curve, axis = _curve(result, req, curve_max_workers)
-    spec = {k: _clean(v) for k, v in dataclasses.asdict(req).items()}
+    spec = {k: json_ready(v) for k, v in dataclasses.asdict(req).items()}
     spec["calibration"] = [str(c) for c in result.calibration]
-    return _clean({
+    return json_ready({
         "source": "computed by the planner" + ("" if req.calibration else " on this store"),
         "spec": spec, "rows": rows, "archive": table.attrs.get("archive"), "currency": table.attrs.get("currency"),
         "configurations": table.attrs.get("configurations", []),
@@ -382,9 +369,9 @@ def plan_frame(**options) -> pd.DataFrame:
 
 def plan_json(table: pd.DataFrame) -> dict:
     """The plan as a JSON-ready dict: ``recognisers`` (one object each) plus the plan's statements."""
-    rows = [_clean(r) for r in table.to_dict(orient="records")]
+    rows = [json_ready(r) for r in table.to_dict(orient="records")]
     fits = table.attrs.get("fits")
-    return _clean({
+    return json_ready({
         "recognisers": rows,
         "currency": table.attrs.get("currency"),
         "recommendation": table.attrs.get("recommendation"),
@@ -399,4 +386,5 @@ def plan_json(table: pd.DataFrame) -> dict:
 
 
 def json_dumps(obj) -> str:
-    return json.dumps(obj, indent=1, ensure_ascii=False, allow_nan=False)
+    """The plan as JSON text (one home for JSON cleaning: :func:`ocrbench.io.tables.json_text`)."""
+    return json_text(obj, indent=1)

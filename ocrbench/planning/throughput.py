@@ -186,7 +186,7 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
             raise PlanError(f"{target}: no configuration could be timed within {max_seconds:g} s")
         best = max(done, key=lambda g: g["pages_per_second"])
         say("timing the chosen configuration into the calibration store")
-        opts = EngineOptions(intra_threads=best["threads"], batch_size=best["batch_size"])
+        opts = session_options(None, best["threads"], best["batch_size"])
         rows = [measure_session(subset, card, store=store, options=opts)]
         more = [w for w in sorted(set(workers)) if w > 1 and w * best["threads"] <= cores]
         if more:

@@ -14,7 +14,6 @@ and counted (``pages_changed``).
 
 from __future__ import annotations
 
-import hashlib
 import os
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -22,6 +21,7 @@ from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
+from ocrbench.io.files import sha256_file
 from ocrbench.errors import InputError, OcrbenchError
 from ocrbench.pages import PageRef
 from ocrbench.recognisers.base import Clock, Recogniser
@@ -41,15 +41,11 @@ def failure_reason(e: BaseException) -> str:
 
 
 def file_sha256(path: Path) -> str | None:
-    """sha256 of a page file, or None when it cannot be read."""
-    h = hashlib.sha256()
+    """sha256 of a page file (:func:`ocrbench.io.files.sha256_file`), or None when it cannot be read."""
     try:
-        with open(path, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
+        return sha256_file(path)
     except OSError:
         return None
-    return h.hexdigest()
 
 
 def file_stamp(path: Path) -> tuple[int | None, int | None]:
