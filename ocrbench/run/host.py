@@ -41,5 +41,6 @@ def host_info(rec: Recogniser) -> dict:
     """The host description stored with a run (``runs.host_json``)."""
     return {"cpu_model": cpu_model(), "cores": os.cpu_count(), "physical_cores": physical_cores(),
             "os": platform.platform(), "python": platform.python_version(), "onnxruntime": ort_version(),
-            "providers": rec.providers, "intra_threads": rec.options.intra_threads,
+            "providers": rec.providers, "provider_warnings": rec.provider_warnings,
+            "intra_threads": rec.options.intra_threads,
             "inter_threads": rec.options.inter_threads, "hostname": socket.gethostname()}
