@@ -18,7 +18,11 @@ Nothing is asserted; figures are printed, with ``RATIO <name> <value> <target>``
    estimate's interval (target ≥ 0.8), whether ``worse`` is flagged as drifted (target 1) and whether
    ``like_sample`` is not (target 0), and the median interval width relative to its estimate.
 
-Run: .venv/bin/python tests/benchmarks/bench_quality.py [--pages N] [--quick] [--keep DIR]
+5. With ``--agreement`` the seq demo recogniser reads the same pages too (run 2), and each keyed sample is
+   estimated again with the seq reading's disagreement in the CTC run's doubt: coverage and the median
+   interval width with it are printed beside the figures without it.
+
+Run: .venv/bin/python tests/benchmarks/bench_quality.py [--pages N] [--quick] [--keep DIR] [--agreement]
 """
 
 from __future__ import annotations
@@ -192,8 +196,9 @@ def main(argv=None) -> dict:
         measured = {g["group"]: g for g in quality(store, truth=every, n_boot=200, permutations=9,
                                                    runs=[1])["systems"][0]["groups"]}
         snap = read_snapshot(store)
-        known = snap.pages[snap.pages["page_id"].str.split("/").str[0].isin(KNOWN)]
-        snap_known = replace(snap, pages=known, lines=snap.lines[snap.lines["page_id"].isin(set(known["page_id"]))])
+        known = snap.pages[snap.pages["page_id"].str.split("/").str[0].isin(KNOWN) & (snap.pages["run_id"] == 1)]
+        snap_known = replace(snap, pages=known, lines=snap.lines[snap.lines["page_id"].isin(set(known["page_id"]))
+                                                                 & (snap.lines["run_id"] == 1)])
         [system] = systems_of(snap_known, runs=[1])
         n_key = max(2, int(a.share * len(known)))
         runs, runs_agree = [], []
