@@ -566,12 +566,13 @@ def _quality(s: Mapping, svgs: Mapping[str, str | None]) -> str:
         head += ["balance rate [95 %]", "flagged pages", "lines in the review queue"]
         if estimated:
             head += ["drift from the calibrated collections"]
+        who = f"{_e(sq['recogniser'])} (run{'s' if len(sq['runs']) > 1 else ''} {_e(', '.join(map(str, sq['runs'])))})"
         if estimated:
-            caption = (f"{_e(sq['recogniser'])}: calibrated on {figure(s, base + '.calibration.pages', 'int')} keyed "
+            caption = (f"{who}: calibrated on {figure(s, base + '.calibration.pages', 'int')} keyed "
                        f"pages, {figure(s, base + '.calibration.lines', 'int')} lines, measured CER "
                        f"{_interval(s, base + '.calibration.cer', base + '.calibration.cer_low', base + '.calibration.cer_high', 'pct')}")
         else:
-            caption = f"{_e(sq['recogniser'])}: not calibrated"
+            caption = f"{who}: not calibrated"
         rows = [_quality_row(s, f"{base}.groups.{k}", g, estimated) for k, g in enumerate(sq["groups"])]
         out.append(f'<table class="quality"><caption>{caption}</caption><thead><tr>'
                    + "".join(f'<th{" class=n" if 0 < k < len(head) - (1 if estimated else 0) else ""}>{_e(h)}</th>'
