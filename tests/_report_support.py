@@ -8,11 +8,17 @@ and the store is a real SQLite file.
 from __future__ import annotations
 
 import html.parser
+import json
 import re
+import shutil
+import subprocess
 from pathlib import Path
 
 import _tiny_models as tm
 from ocrbench import synth
+
+#: Debian's chromium, where installed (the browser checks skip without it).
+CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
 
 #: A ground-truth line that a careless report would execute.
 SCRIPT_LINE = "Paid <script>alert(1)</script> & Co 12.50"
@@ -129,3 +135,47 @@ def parse_shown(text: str, kind: str) -> tuple[float | str | bool | None, float]
         return v * units[unit], tol * units[unit]
     v, tol = number(t)
     return v, tol
+
+
+def chromium(args: list[str], profile: Path, timeout: float = 120) -> subprocess.CompletedProcess:
+    """Run headless chromium with background networking off and its own profile folder."""
+    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+           "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}", *args]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
+
+
+# Measures the laid-out page in the browser and writes the result into the DOM that --dump-dom prints.
+# It goes into a copy of the report only: the report itself holds no script.
+MEASURE = """<script>
+addEventListener('load', () => {
+  const doc = document.documentElement;
+  const over = [];
+  for (const t of document.querySelectorAll('table')) {
+    const box = t.parentElement.clientWidth;
+    if (t.getBoundingClientRect().width > box + 1 || t.scrollWidth > box + 1) {
+      const cap = t.querySelector('caption, th');
+      over.push({table: cap ? cap.textContent.slice(0, 60) : '?', width: Math.round(t.scrollWidth), box: box});
+    }
+  }
+  const figs = [...document.querySelectorAll('figure svg')].map(e => {
+    const r = e.getBoundingClientRect(); return [Math.round(r.width), Math.round(r.height)]; });
+  const dec = document.getElementById('decision');
+  const out = {window: innerWidth, height: innerHeight, document: doc.scrollWidth, overflowing: over,
+               figures: figs, decision_top: dec ? dec.getBoundingClientRect().top : null};
+  const pre = document.createElement('pre');
+  pre.id = 'layout-result';
+  pre.textContent = JSON.stringify(out);
+  document.body.appendChild(pre);
+});
+</script>"""
+
+
+def measure_layout(report: Path, tmp_path: Path, width: int, height: int) -> tuple[dict, str]:
+    """The laid-out page measured in chromium at ``width`` x ``height`` (see MEASURE), and chromium's log."""
+    probe = tmp_path / "probe.html"
+    probe.write_text(report.read_text(encoding="utf-8").replace("</body>", MEASURE + "</body>"), encoding="utf-8")
+    r = chromium(["--dump-dom", f"--window-size={width},{height}", "--virtual-time-budget=5000",
+                  "--enable-logging=stderr", "--v=0", probe.as_uri()], tmp_path / "profile")
+    assert r.returncode == 0, r.stderr[-2000:]
+    text = r.stdout.split('<pre id="layout-result">', 1)[1].split("</pre>", 1)[0]
+    return json.loads(text.replace("&quot;", '"').replace("&amp;", "&")), r.stderr

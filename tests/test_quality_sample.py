@@ -9,9 +9,11 @@ Techniques, 3rd ed., §5.5, 5.6, 5.8, from memory); the numbers below are worked
 from __future__ import annotations
 
 import json
+import math
 
 import numpy as np
 import pandas as pd
+import pytest
 from typer.testing import CliRunner
 
 from _quality_support import build_store
@@ -107,3 +109,64 @@ def test_flat_truth_pairs_only_unambiguous_stems(tmp_path):
     p = pair_store_pages(tmp_path, ["page_001.png", "box2/page_001.png", "box2/page_007.png"])
     assert {k: v.name for k, v, _ in p.pairs} == {"page_001.png": "page_001.txt", "box2/page_007.png": "page_007.txt"}
     assert p.hyp_only == ["box2/page_001.png"]
+
+
+# --------------------------------------------------------------------------- pages for a relative margin
+
+
+def test_binomial_sample_size_hand_worked():
+    from ocrbench.quality.sample import binomial_chars, pages_for_margin
+
+    # Sample size of a proportion with absolute margin d: n = z²p(1 − p)/d² (Cochran, Sampling Techniques, §4.4,
+    # from memory); with d = m·p, n = z²(1 − p)/(m²p). The classic survey figure: p = 0.5, d = 0.05 (m = 0.1) at
+    # 95 % gives 384.1 (z = 1.96; common practice).
+    assert binomial_chars(0.5, 0.1) == pytest.approx(1.959964 ** 2 * 0.5 / (0.01 * 0.5), rel=1e-6)
+    assert round(binomial_chars(0.5, 0.1), 1) == 384.1
+    # CER 2 %, ±20 % relative: 1.959964² · 0.98 / (0.04 · 0.02) = 3.841459 · 0.98 / 0.0008 = 4705.79 characters
+    assert binomial_chars(0.02, 0.2) == pytest.approx(4705.79, abs=0.01)
+    # 400 characters a page: 11.764 pages; finite population of 100 pages: 11.764/(1 + 0.11764) = 10.53 -> 11
+    assert pages_for_margin(binomial_chars(0.02, 0.2), 400, 100) == 11
+    # 5 pages in all: 11.764/(1 + 11.764/5) = 3.51 -> 4; never more than there are
+    assert pages_for_margin(binomial_chars(0.02, 0.2), 400, 5) == 4
+    assert pages_for_margin(1e9, 400, 5) == 5
+    # 99 % instead of 95 %: z = 2.575829, n grows by (2.575829/1.959964)² = 1.7272
+    assert binomial_chars(0.02, 0.2, 0.99) / binomial_chars(0.02, 0.2) == pytest.approx(1.7272, abs=1e-4)
+
+
+def test_ratio_sample_size_hand_worked():
+    from ocrbench.quality.sample import ratio_chars
+
+    # Ratio estimate (Cochran §6.4, from memory): edits 2, 6, 4 on pages of 100, 200, 100 characters.
+    # R = 12/400 = 0.03; e − Rc = −1, 0, 1, S_d² = 2/2 = 1; x̄ = 133.33;
+    # pages = z²·S_d²/(m²R²x̄²) = 3.841459/(0.04 · 0.0009 · 17777.78) = 3.841459/0.64 = 6.0023
+    got = ratio_chars([2, 6, 4], [100, 200, 100], 0.2)
+    assert got / (400 / 3) == pytest.approx(6.0023, abs=1e-4)
+    assert ratio_chars([0, 0], [100, 100], 0.2) is None and ratio_chars([3], [100], 0.2) is None
+
+
+def test_sample_for_a_margin_per_collection(tmp_path):
+    from ocrbench.quality.sample import MIN_KEYED_FOR_SPREAD
+
+    db, truth, _ = build_store(tmp_path, {"calm": (40, (0.9, 1.0)), "rough": (40, (0.4, 0.9))},
+                               keyed={"calm": 2, "rough": MIN_KEYED_FOR_SPREAD})
+    out = tmp_path / "key"
+    r = runner.invoke(app, ["sample", str(db), "--margin", "0.2", "--out", str(out), "--truth", str(truth), "--json"])
+    assert r.exit_code == 0, r.output
+    res = json.loads(r.stdout)
+    targets = {t["collection"]: t for t in res["targets"]}
+    assert set(targets) == {"calm", "rough"}
+    z2 = 1.959964 ** 2
+    for coll, t in targets.items():
+        # the sizes follow the formulas of the module notes from the figures the JSON reports
+        binom = z2 * (1 - t["cer"]) / (0.04 * t["cer"])
+        assert t["chars_needed"] >= binom * (1 - 1e-6)
+        n0 = t["chars_needed"] / t["chars_per_page"]
+        assert t["pages_needed"] == min(40, math.ceil(n0 / (1 + n0 / 40) - 1e-9))
+        assert t["to_key"] == min(40 - t["keyed"], max(0, t["pages_needed"] - t["keyed"]))
+        assert sum(s["n"] for s in res["strata"] if s["collection"] == coll) == t["to_key"]
+    assert targets["calm"]["size_from"] == "binomial"               # 2 keyed pages: too few for their spread
+    assert targets["rough"]["cer"] > targets["calm"]["cer"]
+    assert res["pages"] == sum(t["to_key"] for t in targets.values()) == len(pd.read_csv(out / "sample.csv"))
+    # without keyed pages nothing says how good each collection is: a clear usage error
+    r = runner.invoke(app, ["sample", str(db), "--margin", "0.2", "--out", str(tmp_path / "x")])
+    assert r.exit_code == 2 and "first sample" in r.output

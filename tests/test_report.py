@@ -74,7 +74,7 @@ def test_no_network_reference_in_src_or_href(built):
 
 def test_figures_are_inline_svg_that_parse_as_xml(built):
     c = collect(built["html"])
-    assert sum(1 for t, _ in c.tags if t == "svg") == 6     # all six figures: truth and plan were given
+    assert sum(1 for t, _ in c.tags if t == "svg") == 7     # all seven figures: truth and plan were given
     html_text = built["html"]
     start = 0
     while (i := html_text.find("<svg", start)) >= 0:
@@ -117,7 +117,8 @@ def test_side_by_side_has_every_required_figure(built):
             assert f"recognisers.{i}.{k}" in keys
         assert r["accuracy"]["cer_low"] <= r["accuracy"]["cer"] <= r["accuracy"]["cer_high"]
     assert [f["id"] for f in s["figures"] if f["shown"]] == [
-        "accuracy-throughput", "class-errors", "page-cer", "decode-time", "plan-workers", "cost-accuracy"]
+        "accuracy-throughput", "class-errors", "page-cer", "decode-time", "plan-workers", "cost-accuracy",
+        "quality-cer"]
     assert all(f["recipe"] for f in s["figures"])
     assert s["paired"] and s["paired"][0]["a"] == "tiny-ctc"
 

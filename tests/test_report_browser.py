@@ -11,34 +11,24 @@ a message only where chromium is not installed.
 
 from __future__ import annotations
 
-import json
 import os
-import shutil
-import subprocess
 from pathlib import Path
 
 import numpy as np
 import pytest
 from PIL import Image
 
-from _report_support import collect, make_models, make_pages, make_store
+from _report_support import (CHROMIUM, chromium as _chromium, collect, make_models, make_pages, make_store,
+                             measure_layout)
 from ocrbench.report import PlanRequest, write_report
 
 pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
-CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
-
 HEADINGS = ("Recognisers side by side", "Paired comparison", "Plan for the archive", "Figures",
             "Accuracy against throughput", "Error rate by character class", "Distribution of CER per page",
             "Decode time per line against characters per line", "Planned wall-clock against workers",
-            "Archive cost against accuracy",
+            "Archive cost against accuracy", "Quality per collection", "Estimated CER per collection",
             "Worst pages, line by line", "Runs: host and settings", "Cautions")
-
-
-def _chromium(args: list[str], profile: Path, timeout: float = 120) -> subprocess.CompletedProcess:
-    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-           "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}", *args]
-    return subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
 
 
 def _postprocess(db: Path) -> None:
@@ -63,8 +53,8 @@ def report(tmp_path_factory) -> Path:
     ctc, seq = make_models(root / "models")
     db = make_store(pages, [ctc, seq], root / "run.sqlite")
     _postprocess(db)
-    plan = PlanRequest(pages=5000, deadline="2d", budget=500.0, machines=2, price_core_hour=0.1, draws=200,
-                       correction_price_hour=20.0)   # people priced too, so the plan has a total cost
+    plan = PlanRequest(pages=5000, deadline="2d", budget=500.0, machines=2, price_core_hour=0.1,
+                       correction_price_hour=15.0, draws=200)   # priced, so the cost-accuracy figure is drawn
     return write_report(db, root / "out", truth=pages, plan=plan, n_boot=200, curve_max_workers=4).html
 
 
@@ -73,7 +63,7 @@ def test_dom_holds_tables_figures_and_headings(report, tmp_path):
     assert r.returncode == 0, r.stderr[-2000:]
     dom = collect(r.stdout)
     tags = [t for t, _ in dom.tags]
-    assert tags.count("svg") == 6
+    assert tags.count("svg") == 7
     assert tags.count("table") >= 6
     assert "script" not in tags
     text = " ".join(dom.text)
@@ -94,48 +84,12 @@ def test_screenshot_is_not_blank(report, tmp_path):
     assert 0.005 < ink < 0.5           # some dark ink on a mostly light page (print-friendly, not inverted)
 
 
-# Measures the laid-out page in the browser and writes the result into the DOM that --dump-dom prints.
-# It goes into a copy of the report only: the report itself holds no script.
-_MEASURE = """<script>
-addEventListener('load', () => {
-  const doc = document.documentElement;
-  const over = [];
-  for (const t of document.querySelectorAll('table')) {
-    const box = t.parentElement.clientWidth;
-    if (t.getBoundingClientRect().width > box + 1 || t.scrollWidth > box + 1) {
-      const cap = t.querySelector('caption, th');
-      over.push({table: cap ? cap.textContent.slice(0, 60) : '?', width: Math.round(t.scrollWidth), box: box});
-    }
-  }
-  const figs = [...document.querySelectorAll('figure svg')].map(e => {
-    const r = e.getBoundingClientRect(); return [Math.round(r.width), Math.round(r.height)]; });
-  const dec = document.getElementById('decision');
-  const out = {window: innerWidth, height: innerHeight, document: doc.scrollWidth, overflowing: over,
-               figures: figs, decision_top: dec ? dec.getBoundingClientRect().top : null};
-  const pre = document.createElement('pre');
-  pre.id = 'layout-result';
-  pre.textContent = JSON.stringify(out);
-  document.body.appendChild(pre);
-});
-</script>"""
-
-
-def _measure(report: Path, tmp_path: Path, width: int, height: int) -> tuple[dict, str]:
-    probe = tmp_path / "probe.html"
-    probe.write_text(report.read_text(encoding="utf-8").replace("</body>", _MEASURE + "</body>"), encoding="utf-8")
-    r = _chromium(["--dump-dom", f"--window-size={width},{height}", "--virtual-time-budget=5000",
-                   "--enable-logging=stderr", "--v=0", probe.as_uri()], tmp_path / "profile")
-    assert r.returncode == 0, r.stderr[-2000:]
-    text = r.stdout.split('<pre id="layout-result">', 1)[1].split("</pre>", 1)[0]
-    return json.loads(text.replace("&quot;", '"').replace("&amp;", "&")), r.stderr
-
-
 def test_every_table_fits_a_1366_px_window(report, tmp_path):
-    m, log = _measure(report, tmp_path, 1366, 768)
+    m, log = measure_layout(report, tmp_path, 1366, 768)
     assert m["window"] == 1366
     assert m["document"] <= m["window"], m                      # no horizontal scroll
     assert m["overflowing"] == [], m["overflowing"]              # no table wider than its container
-    assert len(m["figures"]) == 6 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
+    assert len(m["figures"]) == 7 and all(w > 0 and h > 0 for w, h in m["figures"]), m["figures"]
     assert m["decision_top"] is not None and 0 <= m["decision_top"] < m["height"] / 2   # the decision comes first
     errors = [ln for ln in log.splitlines() if "CONSOLE" in ln and ("Error" in ln or "Uncaught" in ln)]
     assert not errors, errors

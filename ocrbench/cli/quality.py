@@ -81,6 +81,8 @@ def quality_cmd(
     run: list[int] = typer.Option([], "--run", help="Only these runs (repeat; default: every run)."),
     word_list: Optional[Path] = typer.Option(None, "--word-list", help="Word list: unlisted words add doubt."),
     post: bool = typer.Option(False, "--post", help="Use the post-processed text where the run has it."),
+    agreement: bool = typer.Option(False, "--agreement", help="Doubt also weighs a second recogniser's "
+                                                              "disagreement where one read the same pages."),
     profile: str = typer.Option("nfc", "--profile", help="Normalisation before comparing with the truth."),
     boot: int = typer.Option(400, "--boot", min=50, help="Bootstrap rounds for the intervals."),
     seed: int = typer.Option(0, "--seed", help="Seed of the bootstrap and permutation tests."),
@@ -106,7 +108,7 @@ def quality_cmd(
         lexicon = read_word_list(word_list) if word_list is not None else None
         while True:
             res = quality(store, truth=truth, by=by, profile=profile, lexicon=lexicon, post=post, runs=run or None,
-                          n_boot=boot, seed=seed, with_pages=pages_csv is not None)
+                          n_boot=boot, seed=seed, with_pages=pages_csv is not None, agreement=agreement)
             if pages_csv is not None:
                 _write_pages(res, pages_csv)
             if as_json:

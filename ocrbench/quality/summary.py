@@ -112,8 +112,11 @@ def quality(store: Path | str, *, truth: Path | None = None, by: str = "collecti
             lexicon: Lexicon | None = None, post: bool = False, runs: Sequence[int] | None = None,
             queue_doubt: float = DEFAULT_QUEUE_DOUBT, level: float = 0.95, n_boot: int = 400,
             permutations: int = 999, alpha: float = DEFAULT_ALPHA, seed: int = 0,
-            with_pages: bool = False) -> dict[str, Any]:
+            with_pages: bool = False, agreement: bool = False) -> dict[str, Any]:
     """Quality figures of a run store, per recogniser and group (see the package notes).
+
+    ``agreement``: line doubt also weighs two recognisers' disagreement where both read the same pages
+    (:func:`ocrbench.quality.data.systems_of`).
 
     ``with_pages``: each system also carries ``pages``, a DataFrame of per-page estimates
     (:func:`ocrbench.quality.estimate.estimate_pages`; None without keyed pages) — not JSON.
@@ -121,9 +124,9 @@ def quality(store: Path | str, *, truth: Path | None = None, by: str = "collecti
     snap = read_snapshot(store, post=post)
     out: dict[str, Any] = {"store": str(store), "by": by, "level": level, "truth": None if truth is None else str(truth),
                            "queue_doubt": queue_doubt, "range_tolerance": RANGE_TOLERANCE, "alpha": alpha,
-                           "systems": []}
+                           "agreement": agreement, "systems": []}
     for system in systems_of(snap, by=by, truth=truth, profile=profile, lexicon=lexicon, queue_doubt=queue_doubt,
-                             runs=runs):
+                             runs=runs, agreement=agreement):
         cal = calibrate(system, level=level, n_boot=n_boot, seed=seed)
         rows = group_rows(system, cal, level=level, n_boot=n_boot, seed=seed)
         if cal is not None:

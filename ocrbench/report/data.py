@@ -42,6 +42,7 @@ from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, percenti
 from ocrbench.errors import StoreError
 from ocrbench.io.tables import json_ready
 from ocrbench.planning.service import PlanRequest, PlanResults, compute_plan, plan_from_results
+from ocrbench.quality.summary import quality
 from ocrbench.store import RunStore
 
 __all__ = ["ReportData", "build_report_data", "CAUTIONS", "resolve", "FORMAT_VERSION"]
@@ -62,6 +63,11 @@ CAUTIONS = (
 #: Worst pages shown per recogniser, and lines shown per page.
 WORST_PAGES = 2
 WORST_LINES = 6
+
+#: Bootstrap rounds of the quality section at most (each refits the doubt-to-error map; ``ocrbench quality``'s
+#: own default), and the permutations of its drift test.
+QUALITY_BOOT = 400
+QUALITY_PERMUTATIONS = 999
 
 _MAX_POINTS = 3000     # line points per recogniser drawn in the decode-time figure
 
@@ -288,6 +294,8 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     else:
         for run in runs:
             run["accuracy"] = run["accuracy_post"] = None
+    _add_quality(data, store, Path(truth) if truth is not None else None, prof.name, sel["run_id"].tolist(),
+                 min(n_boot, QUALITY_BOOT), seed)
     if plan is not None:
         _add_plan(data, store, frames, plan, currency, curve_max_workers)
     else:
@@ -429,6 +437,57 @@ def _paired(systems: Sequence[System], runs: Mapping[int, dict], n_boot: int, se
     return out
 
 
+_QUALITY_KEYS = ("group", "pages", "pages_done", "pages_failed", "lines", "keyed_pages", "est_cer", "est_low",
+                 "est_high", "extrapolated", "beyond_range", "measured_cer", "measured_low", "measured_high",
+                 "balance_rate", "balance_low", "balance_high", "checkable_pages", "flagged_share", "queued_lines")
+
+
+def _add_quality(data: ReportData, store: Path, truth: Path | None, profile: str, run_ids: Sequence[int],
+                 n_boot: int, seed: int) -> None:
+    """The quality section: per recogniser and collection, estimated and measured CER, balance, flags, drift.
+
+    Figures from :func:`ocrbench.quality.summary.quality` on the shown runs; ``missing`` says in words what
+    could not be computed (no ground truth, or none of the shown pages keyed), so the page says so instead
+    of showing a column of blanks.
+    """
+    res = quality(store, truth=truth, by="collection", profile=profile, runs=run_ids, n_boot=n_boot,
+                  permutations=QUALITY_PERMUTATIONS, seed=seed)
+    systems, rows = [], []
+    for sysq in res["systems"]:
+        cal = sysq["calibration"]
+        groups = []
+        for g in sysq["groups"]:
+            row = {k: g.get(k) for k in _QUALITY_KEYS}
+            d = g.get("drift")
+            row["drift"] = None if d is None else {k: d.get(k) for k in (
+                "flagged", "reasons", "ks_d", "ks_p_holm", "median_confidence_shift", "cer_shift", "balance_shift",
+                "reference_pages")}
+            groups.append(row)
+            flat = {k: v for k, v in row.items() if k != "drift"}
+            flat.update({"drifted": None if d is None else d["flagged"],
+                         "drift_reasons": None if d is None else "; ".join(d["reasons"]),
+                         "ks_d": None if d is None else d["ks_d"], "ks_p_holm": None if d is None else d["ks_p_holm"]})
+            rows.append({"recogniser": sysq["recogniser"], "runs": ",".join(map(str, sysq["runs"])), **flat})
+        if truth is None:
+            missing = ("no ground truth was given, so no page is keyed: no estimated or measured CER and no drift "
+                       "test (give --truth with hand-keyed pages; 'ocrbench sample' picks which to key)")
+        elif cal is None:
+            missing = ("none of this recogniser's pages has usable ground truth (a keyed page with as many lines as "
+                       "were read): no estimated CER and no drift test")
+        else:
+            missing = None
+        systems.append({"recogniser": sysq["recogniser"], "runs": sysq["runs"], "groups": groups, "missing": missing,
+                        "calibration": None if cal is None else {k: cal.get(k) for k in (
+                            "pages", "lines", "edits", "cer", "cer_low", "cer_high", "doubt_range", "method")},
+                        "problems": sysq["problems"], "notes": sysq["notes"][:5],
+                        "notes_left_out": max(0, len(sysq["notes"]) - 5)})
+    data.summary["quality"] = {"by": "collection", "level": res["level"], "queue_doubt": res["queue_doubt"],
+                               "alpha": res["alpha"], "range_tolerance": res["range_tolerance"], "n_boot": n_boot,
+                               "permutations": QUALITY_PERMUTATIONS, "seed": seed, "systems": systems}
+    if rows:
+        data.tables["quality"] = pd.DataFrame(rows)
+
+
 def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
               plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int) -> None:
     """The plan section: given results as they are, or a request computed on this store."""
@@ -518,6 +577,18 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("x=cer(corpus, 95% interval, post-processed text where stored);y=archive cost P50 "
                     "(compute + correction) with a bar up to its high end;line=budget")},
     ]
+    q = summary.get("quality") or {}
+    est = any(g.get("est_cer") is not None for sq in q.get("systems") or [] for g in sq["groups"])
+    figs.append(
+        {"id": "quality-cer", "title": "Estimated CER per collection", "section": "quality", "shown": est,
+         "why_not": ("no ground truth was given, so nothing calibrates an estimate" if not summary.get("truth")
+                     else "no shown page has usable ground truth to calibrate an estimate"),
+         "recipe": (f"x=estimated CER per collection (doubt-to-error map by isotonic regression on keyed lines x "
+                    f"gamma-Poisson collection factor; keyed pages count as measured);bar={round(100 * q.get('level', 0.95))}% "
+                    f"interval (boot-pages/{q.get('n_boot')}, map and factor redrawn);marker=recogniser;"
+                    f"drifted=black triangle and the word 'drifted' beside the bar (KS on confidence with page "
+                    f"permutation, Holm; or CER or balance rate outside the calibration's);open mark=extrapolated "
+                    f"beyond the calibrated doubt range;x log-scaled above 0.1 % when the CERs span over 30x")})
     for f in figs:
         if f["shown"]:
             f["why_not"] = None

@@ -79,6 +79,12 @@ section.decision table { margin: .3rem 0 .4rem; font-size: .82rem; }
 section.decision th, section.decision td.n { white-space: normal; }
 section.decision .iv { white-space: nowrap; }
 details { font-size: .8rem; margin: -.5rem 0 .8rem; }
+table.quality td.n, table.quality th.n, table.quality tbody th { white-space: normal; }
+table.quality td.n { overflow-wrap: normal; }
+table.quality tbody th { overflow-wrap: anywhere; }
+table.quality td.n span[data-key] { white-space: nowrap; }
+table.quality td.drift { min-width: 14rem; }
+.qnote { display: block; font-size: .78rem; }
 p.plain code { white-space: pre-wrap; }
 @media print {
   body { max-width: none; margin: 0; font-size: 10.5pt; }
@@ -423,6 +429,8 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
                          "recommended option; the dashed line is the budget.",
     }
     for k, f in enumerate(s["figures"]):
+        if f.get("section"):
+            continue            # drawn in its own section (the quality plot)
         svg = svgs.get(f["id"])
         body = (svg_inline(svg, f"f{k}", title=f["title"]) if svg else
                 f'<p class="note">Not drawn: {_e(f.get("why_not") or "nothing to draw")}.</p>')
@@ -492,6 +500,101 @@ def _worst(s: Mapping) -> str:
             # The same two texts unbroken (for copying and for screen readers), folded away by default.
             out.append(f'<details><summary>plain text of {_e(label)}</summary><p class="plain">truth: '
                        f'<code>{_e(ln["ref"])}</code><br>read: <code>{_e(ln["hyp"])}</code></p></details>')
+    return "".join(out)
+
+
+_QUALITY_CAPTION = ("Each collection's estimated CER with its interval (keyed pages count as measured); one mark "
+                    "shape per recogniser. A collection flagged as drifted has a black triangle and the word "
+                    "\u201cdrifted\u201d at the end of its bar; an open mark means much of its text lies beyond "
+                    "the doubt the calibration saw, so its estimate is an extrapolation.")
+
+
+def _quality_row(s: Mapping, p: str, g: Mapping, estimated: bool) -> str:
+    """One collection's cells: pages, keyed, estimated and measured CER, balance, flagged, queue, drift."""
+    pages = figure(s, p + ".pages_done", "int") + (f' <span class="iv">(+{figure(s, p + ".pages_failed", "int")} '
+                                                  "failed)</span>" if g.get("pages_failed") else "")
+    cells = [f"<th scope=\"row\">{figure(s, p + '.group', 'text')}</th>", pages, figure(s, p + ".keyed_pages", "int")]
+    if estimated:
+        est = _interval(s, p + ".est_cer", p + ".est_low", p + ".est_high", "pct")
+        if g.get("extrapolated"):
+            est += (f' <span class="qnote">extrapolated: {figure(s, p + ".beyond_range", "pct1")} of its '
+                    "characters lie beyond the calibrated doubt</span>")
+        meas = (_interval(s, p + ".measured_cer", p + ".measured_low", p + ".measured_high", "pct")
+                if g.get("measured_cer") is not None else "no keyed page")
+        cells += [est, meas]
+    bal = ("not checkable" if g.get("balance_rate") is None else
+           f'{_interval(s, p + ".balance_rate", p + ".balance_low", p + ".balance_high", "pct1")} '
+           f'<span class="iv">of {figure(s, p + ".checkable_pages", "int")}</span>')
+    cells += [bal, figure(s, p + ".flagged_share", "pct1"), figure(s, p + ".queued_lines", "int")]
+    if estimated:
+        d = g.get("drift")
+        if d is None:
+            cells.append("not tested")
+        elif not d.get("flagged"):
+            ks = (f' <span class="iv">(KS D {figure(s, p + ".drift.ks_d", "f3")}, Holm p '
+                  f'{figure(s, p + ".drift.ks_p_holm", "p")})</span>' if d.get("ks_d") is not None else "")
+            cells.append("no" + ks)
+        else:
+            cells.append("<b>drifted</b>: " + "; ".join(figure(s, f"{p}.drift.reasons.{j}", "text")
+                                                        for j in range(len(d["reasons"]))))
+    last = len(cells) - 1
+    return ("<tr>" + cells[0] + "".join(f"<td class={'n' if k < last or not estimated else 'drift'}>{c}</td>"
+                                        for k, c in enumerate(cells[1:], 1)) + "</tr>")
+
+
+def _quality(s: Mapping, svgs: Mapping[str, str | None]) -> str:
+    """Per recogniser, a table per collection; then the plot of estimated CER per collection."""
+    from ocrbench.report.plots import svg_inline
+
+    q = s.get("quality")
+    if not q or not q.get("systems"):
+        return ""
+    out = ['<h2 id="quality">Quality per collection</h2>',
+           "<p>How good the text is in each collection (the folder a page came from), without keying every page: "
+           "line doubt (weakest-character confidence, ledger arithmetic) is mapped to an error rate on the "
+           "hand-keyed pages, and each collection gets its own factor on that map. Balance: the share of "
+           "checkable pages whose amounts add up to their total. Flagged: pages that failed, do not balance or "
+           "hold a line in the review queue. Drift: a collection whose confidences, estimated CER or balance rate "
+           "lie outside what the calibrated collections showed, with the size of the shift.</p>"]
+    for i, sq in enumerate(q["systems"]):
+        cal = sq.get("calibration")
+        estimated = cal is not None
+        base = f"quality.systems.{i}"
+        head = ["collection", "pages read", "keyed pages"]
+        if estimated:
+            head += ["estimated CER [95 %]", "measured CER [95 %]"]
+        head += ["balance rate [95 %]", "flagged pages", "lines in the review queue"]
+        if estimated:
+            head += ["drift from the calibrated collections"]
+        who = f"{_e(sq['recogniser'])} (run{'s' if len(sq['runs']) > 1 else ''} {_e(', '.join(map(str, sq['runs'])))})"
+        if estimated:
+            caption = (f"{who}: calibrated on {figure(s, base + '.calibration.pages', 'int')} keyed "
+                       f"pages, {figure(s, base + '.calibration.lines', 'int')} lines, measured CER "
+                       f"{_interval(s, base + '.calibration.cer', base + '.calibration.cer_low', base + '.calibration.cer_high', 'pct')}")
+        else:
+            caption = f"{who}: not calibrated"
+        rows = [_quality_row(s, f"{base}.groups.{k}", g, estimated) for k, g in enumerate(sq["groups"])]
+        out.append(f'<table class="quality"><caption>{caption}</caption><thead><tr>'
+                   + "".join(f'<th{" class=n" if 0 < k < len(head) - (1 if estimated else 0) else ""}>{_e(h)}</th>'
+                             for k, h in enumerate(head))
+                   + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+        if sq.get("missing"):
+            out.append(f'<p class="note">{_e(sq["recogniser"])}: {_e(sq["missing"])}.</p>')
+        notes = list(sq.get("problems") or []) + list(sq.get("notes") or [])
+        if notes:
+            more = sq.get("notes_left_out") or 0
+            out.append('<ul class="warn">' + "".join(f"<li>{_e(n)}</li>" for n in notes)
+                       + (f"<li>and {more} more like these</li>" if more else "") + "</ul>")
+    for k, f in enumerate(s.get("figures") or []):
+        if f.get("section") != "quality":
+            continue
+        svg = svgs.get(f["id"])
+        body = (svg_inline(svg, f"f{k}", title=f["title"]) if svg else
+                f'<p class="note">Not drawn: {_e(f.get("why_not") or "nothing to draw")}.</p>')
+        out.append(f'<figure id="fig-{_e(f["id"])}"><h3>{_e(f["title"])}</h3>{body}'
+                   f"<figcaption>{_e(_QUALITY_CAPTION) if svg else ''}"
+                   f'<code class="recipe" data-key="figures.{k}.recipe" data-fmt="text">{_e(f["recipe"])}</code>'
+                   f"</figcaption></figure>")
     return "".join(out)
 
 
@@ -594,7 +697,8 @@ def render_html(summary: Mapping, svgs: Mapping[str, str | None]) -> str:
     names = ", ".join(r["name"] for r in s["recognisers"])
     sections = [("side-by-side", "side by side", _side_by_side(s)), ("paired", "paired comparison", _paired(s)),
                 ("plan", "plan", _plan(s)), ("figures", "figures", _figures(s, svgs)),
-                ("worst", "worst pages", _worst(s)), ("arithmetic", "ledger arithmetic", _balance(s)),
+                ("worst", "worst pages", _worst(s)), ("quality", "quality per collection", _quality(s, svgs)),
+                ("arithmetic", "ledger arithmetic", _balance(s)),
                 ("runs", "runs", _runs(s)), ("recipes", "recipes", _recipes(s)),
                 ("cautions", "cautions", _cautions(s, short=False))]
     nav = " · ".join(f'<a href="#{a}">{_e(t)}</a>' for a, t, html_ in sections if html_)

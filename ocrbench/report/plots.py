@@ -345,6 +345,59 @@ def cost_accuracy(summary: Mapping) -> str | None:
         return _to_svg(fig)
 
 
+def quality_cer(summary: Mapping) -> str | None:
+    """Estimated CER per collection with its interval, one mark shape per recogniser; drifted ones marked."""
+    systems = [(k, sq) for k, sq in enumerate((summary.get("quality") or {}).get("systems") or [])
+               if any(g.get("est_cer") is not None for g in sq["groups"])]
+    if not systems:
+        return None
+    names = [r["name"] for r in summary["recognisers"]]
+    colls = sorted({g["group"] for _, sq in systems for g in sq["groups"] if g.get("est_cer") is not None})
+    row = {c: i for i, c in enumerate(colls)}
+    plt = _plt()
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 1.2 + 0.42 * len(colls) * max(1, len(systems)) ** 0.5),
+                               layout="constrained")
+        step = 0.7 / len(systems)
+        values = []
+        for j, (k, sq) in enumerate(systems):
+            st = _style(names.index(sq["recogniser"]) if sq["recogniser"] in names else k)
+            first = True
+            for g in sq["groups"]:
+                if g.get("est_cer") is None:
+                    continue
+                y = row[g["group"]] + (j - (len(systems) - 1) / 2) * step
+                x = 100 * g["est_cer"]
+                lo = None if g.get("est_low") is None else 100 * g["est_low"]
+                hi = None if g.get("est_high") is None else 100 * g["est_high"]
+                values += [v for v in (x, lo, hi) if v is not None]
+                open_mark = bool(g.get("extrapolated"))
+                ax.errorbar([x], [y], xerr=_err(x, lo, hi), fmt=st["marker"], color=st["color"], ms=6, capsize=3,
+                            mfc="white" if open_mark else st["color"], mec=st["color"], elinewidth=1.0,
+                            label=_label(f"{sq['recogniser']}") if first else None)
+                first = False
+                if (g.get("drift") or {}).get("flagged"):
+                    ax.plot([hi if hi is not None else x], [y], marker=">", color=INK, ms=6, linestyle="none")
+                    ax.annotate("drifted", (hi if hi is not None else x, y), textcoords="offset points",
+                                xytext=(7, -3), fontsize=8, fontweight="bold")
+        ax.set_yticks(range(len(colls)), [_label(c) for c in colls])
+        ax.set_ylim(len(colls) - 0.5, -0.5)          # first collection at the top, as in the table
+        positive = [v for v in values if v > 0]
+        if positive and max(positive) / min(positive) > 30:
+            from matplotlib.ticker import FuncFormatter
+
+            ax.set_xscale("symlog", linthresh=0.1, linscale=0.5)
+            ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        ax.set_xlim(left=0, right=max(values + [0.1]) * 1.35)
+        ax.set_xlabel(f"estimated CER, % ({round(100 * summary['quality'].get('level', 0.95))} % interval)")
+        ax.grid(axis="y", visible=False)
+        if len(systems) > 1:
+            _legend(ax)
+        else:
+            ax.set_title(_label(systems[0][1]["recogniser"]), fontsize=9, loc="left")
+        return _to_svg(fig)
+
+
 def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
                    line_times: pd.DataFrame | None) -> dict[str, str | None]:
     """Figure id -> SVG text (None where there is nothing to draw)."""
@@ -355,4 +408,5 @@ def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
         "decode-time": decode_time(summary, line_times),
         "plan-workers": plan_workers(summary),
         "cost-accuracy": cost_accuracy(summary),
+        "quality-cer": quality_cer(summary),
     }

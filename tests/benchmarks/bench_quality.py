@@ -18,7 +18,11 @@ Nothing is asserted; figures are printed, with ``RATIO <name> <value> <target>``
    estimate's interval (target ≥ 0.8), whether ``worse`` is flagged as drifted (target 1) and whether
    ``like_sample`` is not (target 0), and the median interval width relative to its estimate.
 
-Run: .venv/bin/python tests/benchmarks/bench_quality.py [--pages N] [--quick] [--keep DIR]
+5. With ``--agreement`` the seq demo recogniser reads the same pages too (run 2), and each keyed sample is
+   estimated again with the seq reading's disagreement in the CTC run's doubt: coverage and the median
+   interval width with it are printed beside the figures without it.
+
+Run: .venv/bin/python tests/benchmarks/bench_quality.py [--pages N] [--quick] [--keep DIR] [--agreement]
 """
 
 from __future__ import annotations
@@ -73,21 +77,23 @@ def page_image(coll: str, k: int, seed: int):
     return img, truth.lines
 
 
-def build(root: Path, store: Path, models: Path, n_pages: int, seed: int) -> dict[str, list[str]]:
-    """Render every collection, read it with the CTC demo recogniser into ``store``; returns truth per page id."""
+def build(root: Path, store: Path, models: Path, n_pages: int, seed: int, *, second: bool = False) -> dict[str, list[str]]:
+    """Render every collection, read it with the CTC demo recogniser into ``store`` (run 1; with ``second`` the
+    seq demo recogniser reads the same pages into run 2); returns truth per page id."""
     from ocrbench.pages import PageRef
     from ocrbench.recognisers.card import load_card
     from ocrbench.recognisers.registry import open_recogniser
     from ocrbench.run.engine import RunOptions, recognise_page
     from ocrbench.store import RunStore
 
-    card = load_card(models / "ledger-ctc" / "card.toml")
-    rec = open_recogniser(card)
+    cards = [load_card(models / m / "card.toml") for m in (("ledger-ctc", "ledger-seq") if second else ("ledger-ctc",))]
+    recs = [open_recogniser(c) for c in cards]
     options = RunOptions(prefetch=False)
     truth: dict[str, list[str]] = {}
     with RunStore(store) as st:
-        rid = st.start_run(recogniser=card.name, kind=card.kind, card_path=str(card.path), card_hash=card.card_hash,
-                           settings={"bench": "quality"}, input_dir=str(root), host={}, engine="bench")
+        rids = [st.start_run(recogniser=card.name, kind=card.kind, card_path=str(card.path), card_hash=card.card_hash,
+                             settings={"bench": "quality"}, input_dir=str(root), host={}, engine="bench")
+                for card in cards]
         for coll in KNOWN + LATER:
             (root / coll).mkdir(parents=True, exist_ok=True)
             t0 = time.perf_counter()
@@ -97,10 +103,11 @@ def build(root: Path, store: Path, models: Path, n_pages: int, seed: int) -> dic
                 img.save(path)
                 pid = f"{coll}/{path.name}"
                 truth[pid] = lines
-                [out] = recognise_page(PageRef(path), [rec], options=options)
-                st.write_page(rid, replace(out.page, page_id=pid), out.lines, out.batches)
+                for rid, out in zip(rids, recognise_page(PageRef(path), recs, options=options)):
+                    st.write_page(rid, replace(out.page, page_id=pid), out.lines, out.batches)
             say(f"  {coll}: {n_pages} pages in {time.perf_counter() - t0:.0f} s")
-        st.finish_run(rid)
+        for rid in rids:
+            st.finish_run(rid)
     return truth
 
 
@@ -157,6 +164,8 @@ def main(argv=None) -> dict:
     ap.add_argument("--repeats", type=int, default=5, help="keyed samples drawn (seeds seed, seed+1, ...)")
     ap.add_argument("--models", type=Path, default=None)
     ap.add_argument("--keep", type=Path, default=None, help="keep (or reuse) pages and store in this folder")
+    ap.add_argument("--agreement", action="store_true", help="the seq demo recogniser reads the pages too; each "
+                    "keyed sample is estimated with and without its disagreement in the CTC recogniser's doubt")
     a = ap.parse_args(argv)
     n = 12 if a.quick else a.pages
     models = find_models(a.models, "bench_quality")
@@ -179,18 +188,20 @@ def main(argv=None) -> dict:
         else:
             work.mkdir(parents=True, exist_ok=True)
             say(f"rendering and reading {n} pages in each of {len(KNOWN + LATER)} collections")
-            truth = build(work / "scans", store, models, n, a.seed)
+            truth = build(work / "scans", store, models, n, a.seed, second=a.agreement)
             truth_file.write_text(json.dumps(truth))
         every = work / "truth_all"
         shutil.rmtree(every, ignore_errors=True)
         write_truth(every, truth, truth.keys())
-        measured = {g["group"]: g for g in quality(store, truth=every, n_boot=200, permutations=9)["systems"][0]["groups"]}
+        measured = {g["group"]: g for g in quality(store, truth=every, n_boot=200, permutations=9,
+                                                   runs=[1])["systems"][0]["groups"]}
         snap = read_snapshot(store)
-        known = snap.pages[snap.pages["page_id"].str.split("/").str[0].isin(KNOWN)]
-        snap_known = replace(snap, pages=known, lines=snap.lines[snap.lines["page_id"].isin(set(known["page_id"]))])
-        [system] = systems_of(snap_known)
+        known = snap.pages[snap.pages["page_id"].str.split("/").str[0].isin(KNOWN) & (snap.pages["run_id"] == 1)]
+        snap_known = replace(snap, pages=known, lines=snap.lines[snap.lines["page_id"].isin(set(known["page_id"]))
+                                                                 & (snap.lines["run_id"] == 1)])
+        [system] = systems_of(snap_known, runs=[1])
         n_key = max(2, int(a.share * len(known)))
-        runs = []
+        runs, runs_agree = [], []
         for rep in range(a.repeats):
             # The keyed sample: <= share of the first four collections' pages, drawn before the later boxes arrived.
             plan = plan_sample(snap_known, system, calibrate(system), pages=n_key, seed=a.seed + rep)
@@ -198,12 +209,23 @@ def main(argv=None) -> dict:
             shutil.rmtree(keyed, ignore_errors=True)
             write_truth(keyed, truth, plan.pages["page_id"])
             t0 = time.perf_counter()
-            res = quality(store, truth=keyed, n_boot=1000, permutations=999, seed=a.seed + rep)
-            runs.append(summarise(res, measured, verbose=rep == 0, seconds=time.perf_counter() - t0,
-                                  keyed_note=f"{len(plan.pages)} of {len(known)} pages of the first four collections "
-                                             f"({100 * len(plan.pages) / len(known):.1f} %), "
-                                             f"{len(plan.pages) / len(truth):.1%} of all pages"))
+            res = quality(store, truth=keyed, n_boot=1000, permutations=999, seed=a.seed + rep, runs=[1])
+            note = (f"{len(plan.pages)} of {len(known)} pages of the first four collections "
+                    f"({100 * len(plan.pages) / len(known):.1f} %), {len(plan.pages) / len(truth):.1%} of all pages")
+            runs.append(summarise(res, measured, verbose=rep == 0, seconds=time.perf_counter() - t0, keyed_note=note))
+            if a.agreement:
+                t0 = time.perf_counter()
+                res = quality(store, truth=keyed, n_boot=1000, permutations=999, seed=a.seed + rep, runs=[1],
+                              agreement=True)
+                say("  with the seq recogniser's disagreement in the doubt:")
+                runs_agree.append(summarise(res, measured, verbose=rep == 0, seconds=time.perf_counter() - t0,
+                                            keyed_note=note))
         mean = {k: sum(r[k] for r in runs) / len(runs) for k in runs[0]}
+        if runs_agree:
+            agree = {k: sum(r[k] for r in runs_agree) / len(runs_agree) for k in runs_agree[0]}
+            say("with disagreement in the doubt: " + ", ".join(f"{k} {v:.2f}" for k, v in agree.items()))
+            say(f"RATIO quality_agreement_inside_interval_share {agree['inside']:.3f} info")
+            say(f"RATIO quality_agreement_width_ratio_vs_without {agree['width_ratio'] / mean['width_ratio']:.3f} info")
         say(f"over {len(runs)} keyed samples (seeds {a.seed}..{a.seed + len(runs) - 1}): " + ", ".join(
             f"{k} {v:.2f}" for k, v in mean.items()))
         ratios = {"quality_measured_inside_interval_share": (mean["inside"], ">=0.8"),
