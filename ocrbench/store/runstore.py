@@ -89,6 +89,8 @@ class PageRecord:
     finished_at: str | None = None
     file_size: int | None = None
     file_mtime_ns: int | None = None
+    collection: str | None = None    # the page's folder relative to the input root ("" at the top)
+    flags: str | None = None         # sanity flags, comma-separated ("" checked and clean, None not checked)
 
 
 @dataclass
