@@ -339,3 +339,59 @@ def test_a_tree_of_pdfs_tiffs_jp2_and_stray_files_runs_end_to_end(tmp_path, demo
     listing = scan_pages(root)
     assert [Path(p).name for p, _ in listing.skipped] == ["notes.doc"]
     assert [Path(p).name for p in listing.companions] == ["folio.txt"]
+
+
+def _tree_with_flagged_pages(tmp_path: Path, demo_dir: Path) -> Path:
+    """top.png (a demo page), box1/blank.png, box1/turned.png (the same page turned 90° clockwise, numpy's rot90),
+    box2/stray.doc (not a page)."""
+    root = tmp_path / "tree"
+    (root / "box1").mkdir(parents=True)
+    (root / "box2").mkdir()
+    png = load_page(PageRef(demo_dir / DEMO_PNG[0])).gray
+    Image.fromarray(png).save(root / "top.png")
+    Image.fromarray(np.full((1400, 1000), 250, np.uint8)).save(root / "box1" / "blank.png")
+    Image.fromarray(np.ascontiguousarray(np.rot90(png, -1))).save(root / "box1" / "turned.png")
+    (root / "box2" / "stray.doc").write_bytes(b"stray")
+    return root
+
+
+def test_run_stores_collections_and_flags_and_names_every_skipped_file(tmp_path, demo_dir):
+    import _tiny_models as tm
+    from ocrbench.store import RunStore
+
+    root = _tree_with_flagged_pages(tmp_path, demo_dir)
+    ctc = tm.write_ctc(tmp_path / "ctc")
+    db = tmp_path / "s.sqlite"
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(db), "--json"])
+    assert res.exit_code == 0, res.output
+    assert f"{root / 'box2' / 'stray.doc'}: skipped: " in res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["recognisers"][0]["flagged"] == {"box1/blank.png": ["blank"], "box1/turned.png": ["rotated_90"]}
+    assert [p for p, _ in doc["skipped_files"]] == [str(root / "box2" / "stray.doc")]
+    with RunStore(db, read_only=True) as st:
+        f = st.read_frames()
+    pages = f["pages"].set_index("page_id")
+    assert pages["collection"].to_dict() == {"box1/blank.png": "box1", "box1/turned.png": "box1", "top.png": ""}
+    assert pages["flags"].to_dict() == {"box1/blank.png": "blank", "box1/turned.png": "rotated_90", "top.png": ""}
+    assert (pages["status"] == "done").all()
+    lines = f["lines"]
+    assert set(lines["page_id"]) == {"top.png"}               # flagged pages are never stored as text
+    top = lines["text"].tolist()
+
+    # --auto-rotate: the turned page is read upright, with the same text as the page it was turned from
+    db2 = tmp_path / "s2.sqlite"
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(db2), "--auto-rotate"])
+    assert res.exit_code == 0, res.output
+    with RunStore(db2, read_only=True) as st:
+        f = st.read_frames()
+        assert f["runs"]["settings_json"].str.contains('"auto_rotate":true').all()
+    lines = f["lines"]
+    assert lines[lines["page_id"] == "box1/turned.png"]["text"].tolist() == top
+    assert f["pages"].set_index("page_id").loc["box1/turned.png", "flags"] == "rotated_90"
+
+    # --no-recurse: the subfolders are named as not read
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(tmp_path / "s3.sqlite"),
+                                   "--no-recurse", "--json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["pages_total"] == 1
+    assert all(f"{root / b}: skipped: subfolder, not read" in res.stderr for b in ("box1", "box2"))
