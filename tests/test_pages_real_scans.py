@@ -255,8 +255,12 @@ def test_over_wide_lines_are_cut_at_gaps_instead_of_squeezed(demo_dir):
     assert all(ink[a] == 0 for a, _ in spans[1:])                      # cut where no letter is
     truth = " ".join(_texts(rec, used))
     cut = " ".join(t.strip() for t in _texts(rec, [wide[:, a:b] for a, b in spans]))
-    squeezed = _texts(rec, [wide])[0]
+    squeezed_crop = np.asarray(Image.fromarray(wide).resize((int(limit * h), h), Image.BILINEAR))  # as squeezing did
+    squeezed = _texts(rec, [squeezed_crop])[0]
     assert _cer([truth], [cut]) < 0.02 and _cer([truth], [squeezed]) > 0.5
+    # the recogniser itself now cuts a line wider than its card's max_width instead of squeezing it
+    whole = _texts(rec, [wide])[0]
+    assert _cer([truth], [whole]) < 0.02, whole
     assert cut_overwide(wide[:, :1000], limit) == [(0, 1000)]
 
 
@@ -287,6 +291,36 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
     flat = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True) for c in crops]))
     both = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True, remove_rules=True) for c in crops]))
     assert plain >= before_at_least and flat <= after_at_most and both <= after_at_most, (plain, flat, both)
+
+
+def _card_with(folder: Path, tmp_path: Path, extra: str) -> Path:
+    """A copy of a demo card with ``extra`` lines added to its [input] table (a card's files stay in its folder)."""
+    import shutil
+
+    out = tmp_path / f"{folder.name}-{len(list(tmp_path.iterdir()))}"
+    out.mkdir()
+    for f in need_demo(folder).iterdir():
+        if f.is_file() and f.name != "card.toml":
+            shutil.copy(f, out / f.name)
+    text = (folder / "card.toml").read_text(encoding="utf-8").replace("[input]\n", "[input]\n" + extra, 1)
+    (out / "card.toml").write_text(text, encoding="utf-8")
+    return out
+
+
+def test_card_flatten_and_remove_rules_clean_every_crop_before_it_is_read(tmp_path):
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.recognisers.registry import open_recogniser
+
+    crops = [ln.crop for ln in analyse_page(skdata.page()).lines[1:6]]     # scikit-image's photographed page
+    plain = _recogniser(DEMO_CTC)
+    card = load_card(_card_with(DEMO_CTC, tmp_path, "flatten = true\nremove_rules = true\n"))
+    assert card.input.flatten and card.input.remove_rules and card.card_hash != plain.card.card_hash
+    cleaned = open_recogniser(card)
+    want = _texts(plain, [clean_crop(c, flatten=True, remove_rules=True) for c in crops])
+    assert _texts(cleaned, crops) == want and _texts(plain, crops) != want
+    assert _cer(PAGE_BODY, _texts(cleaned, crops)) <= 0.05
+    off = load_card(_card_with(DEMO_CTC, tmp_path, "flatten = false\n"))
+    assert _texts(open_recogniser(off), crops) == _texts(plain, crops)
 
 
 def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):

@@ -14,6 +14,7 @@ from typing import Sequence
 
 import numpy as np
 
+from ocrbench.pages.crops import clean_crop
 from ocrbench.recognisers.engine import Clock
 from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line, width_batches
 
@@ -36,12 +37,17 @@ class PreparedBatch:
 
 def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: int, max_pad_ratio: float, *,
                     clock: Clock = time.perf_counter) -> list[PreparedBatch]:
-    """Resize every crop, group by width, and stack each group into a padded tensor."""
+    """Clean every crop as the card says (``flatten``, ``remove_rules``), resize it, group by width, and
+    stack each group into a padded tensor."""
     resized, t_resize = [], []
+    clean = spec.flatten or spec.remove_rules
     for i, c in enumerate(crops):
         t0 = clock()
         try:
-            resized.append(resize_line(np.asarray(c), spec))
+            g = np.asarray(c)
+            if clean and g.ndim == 2 and g.size:
+                g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules)
+            resized.append(resize_line(g, spec))
         except ValueError as e:
             raise ValueError(f"line {i + 1}: {e}") from e
         t_resize.append(clock() - t0)
