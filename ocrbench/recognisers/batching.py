@@ -35,19 +35,24 @@ class PreparedBatch:
         return int(self.tensor.shape[self.width_axis])
 
 
+def prepare_line(crop: np.ndarray, spec: InputSpec) -> np.ndarray:
+    """One crop cleaned as the card says (``flatten``, ``remove_rules``: :func:`ocrbench.pages.crops.clean_crop`)
+    and resized to the card's height."""
+    g = np.asarray(crop)
+    if (spec.flatten or spec.remove_rules) and g.ndim == 2 and g.size:
+        g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules)
+    return resize_line(g, spec)
+
+
 def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: int, max_pad_ratio: float, *,
                     clock: Clock = time.perf_counter) -> list[PreparedBatch]:
     """Clean every crop as the card says (``flatten``, ``remove_rules``), resize it, group by width, and
     stack each group into a padded tensor."""
     resized, t_resize = [], []
-    clean = spec.flatten or spec.remove_rules
     for i, c in enumerate(crops):
         t0 = clock()
         try:
-            g = np.asarray(c)
-            if clean and g.ndim == 2 and g.size:
-                g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules)
-            resized.append(resize_line(g, spec))
+            resized.append(prepare_line(c, spec))
         except ValueError as e:
             raise ValueError(f"line {i + 1}: {e}") from e
         t_resize.append(clock() - t0)
