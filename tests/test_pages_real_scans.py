@@ -30,11 +30,17 @@ def _boxes(layout) -> list[tuple[int, int, int, int]]:
     return [(ln.x0, ln.y0, ln.x1, ln.y1) for ln in layout.lines]
 
 
-def _recogniser(folder: Path):
+def _recogniser(folder: Path, **input_fields):
+    """A demo recogniser; ``input_fields`` override its card's [input] (e.g. ``flatten=False``: crops as cut)."""
+    import dataclasses
+
     from ocrbench.recognisers.card import load_card
     from ocrbench.recognisers.registry import open_recogniser
 
-    return open_recogniser(load_card(need_demo(folder)))
+    card = load_card(need_demo(folder))
+    if input_fields:
+        card = dataclasses.replace(card, input=dataclasses.replace(card.input, **input_fields))
+    return open_recogniser(card)
 
 
 def _texts(rec, crops) -> list[str]:
@@ -286,7 +292,7 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
     # with [input] flatten; remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
-    rec = _recogniser(folder)
+    rec = _recogniser(folder, flatten=False)                           # (the demo cards flatten: off here)
     plain = _cer(PAGE_BODY, _texts(rec, crops))
     flat = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True) for c in crops]))
     both = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True, remove_rules=True) for c in crops]))
@@ -302,7 +308,9 @@ def _card_with(folder: Path, tmp_path: Path, extra: str) -> Path:
     for f in need_demo(folder).iterdir():
         if f.is_file() and f.name != "card.toml":
             shutil.copy(f, out / f.name)
-    text = (folder / "card.toml").read_text(encoding="utf-8").replace("[input]\n", "[input]\n" + extra, 1)
+    text = "".join(ln for ln in (folder / "card.toml").read_text(encoding="utf-8").splitlines(keepends=True)
+                   if not ln.startswith("flatten ="))                  # the demo cards' own setting left out
+    text = text.replace("[input]\n", "[input]\n" + extra, 1)
     (out / "card.toml").write_text(text, encoding="utf-8")
     return out
 
@@ -312,7 +320,9 @@ def test_card_flatten_and_remove_rules_clean_every_crop_before_it_is_read(tmp_pa
     from ocrbench.recognisers.registry import open_recogniser
 
     crops = [ln.crop for ln in analyse_page(skdata.page()).lines[1:6]]     # scikit-image's photographed page
-    plain = _recogniser(DEMO_CTC)
+    assert load_card(DEMO_CTC).input.flatten                           # the demo cards flatten (models/README.md)
+    plain = open_recogniser(load_card(_card_with(DEMO_CTC, tmp_path, "")))
+    assert not plain.spec.flatten and not plain.spec.remove_rules
     card = load_card(_card_with(DEMO_CTC, tmp_path, "flatten = true\nremove_rules = true\n"))
     assert card.input.flatten and card.input.remove_rules and card.card_hash != plain.card.card_hash
     cleaned = open_recogniser(card)
