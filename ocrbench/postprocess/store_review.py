@@ -66,7 +66,7 @@ def _review_run(st, frames, rid: int, refs, done_of, *, lexicon, rate, post: boo
     mine = pg[(pg["run_id"] == rid) & (pg["status"] == "done")]
     # sanity flags of the run's pages (none in stores before version 3): flagged pages head the queue
     flags = {str(p): f for p, f in zip(mine["page_id"], mine["flags"]) if isinstance(f, str) and f}
-    queue_lines = ln[cols].assign(flags=ln["page_id"].map(flags).fillna(""))
+    queue_lines = ln[cols].assign(flags=[flags.get(str(p), "") for p in ln["page_id"]])
     extra = flagged_page_rows(flags, queue_lines)
     if len(extra):
         queue_lines = pd.concat([queue_lines, extra], ignore_index=True)
