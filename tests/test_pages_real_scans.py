@@ -439,3 +439,27 @@ def test_run_stores_collections_and_flags_and_names_every_skipped_file(tmp_path,
     assert res.exit_code == 0, res.output
     assert json.loads(res.stdout)["pages_total"] == 1
     assert all(f"{root / b}: skipped: subfolder, not read" in res.stderr for b in ("box1", "box2"))
+
+
+def test_dask_engine_stores_the_same_collections_and_flags_as_the_serial_one(tmp_path, demo_dir):
+    import _tiny_models as tm
+    from ocrbench.run.distributed import DaskOptions, run_distributed
+    from ocrbench.run.engine import RunOptions, run_pages
+    from ocrbench.store import RunStore
+
+    root = _tree_with_flagged_pages(tmp_path, demo_dir)
+    ctc = tm.write_ctc(tmp_path / "ctc")
+    opts = RunOptions(auto_rotate=True, prefetch=False)
+    serial = run_pages(root, [ctc], store=tmp_path / "s.sqlite", options=opts)
+    dask = run_distributed(root, [ctc], store=tmp_path / "d.sqlite", options=opts,
+                           dask=DaskOptions(workers=1, processes=False))
+    assert dask.skipped_files == serial.skipped_files and len(serial.skipped_files) == 1
+    frames = []
+    for db in ("s.sqlite", "d.sqlite"):
+        with RunStore(tmp_path / db, read_only=True) as st:
+            f = st.read_frames()
+        frames.append((f["pages"][["page_id", "collection", "flags", "n_lines"]].reset_index(drop=True),
+                       f["lines"][["page_id", "line_no", "text"]].reset_index(drop=True)))
+    assert frames[0][0].equals(frames[1][0]) and frames[0][1].equals(frames[1][1])
+    assert frames[1][0].set_index("page_id")["flags"].to_dict() == {
+        "box1/blank.png": "blank", "box1/turned.png": "rotated_90", "top.png": ""}
