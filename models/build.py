@@ -663,6 +663,7 @@ invert = true
 scale = 0.00392156862745098
 mean = 0.0
 std = 1.0
+flatten = true          # the paper's shading divided out of each crop (measured on the demo pages: see models/README.md)
 
 [ctc]
 model = "model.onnx"
@@ -688,6 +689,7 @@ invert = true
 scale = 0.00392156862745098
 mean = 0.0
 std = 1.0
+flatten = true          # the paper's shading divided out of each crop (measured on the demo pages: see models/README.md)
 split_gap = 1.0         # lines are cut at blank gaps wider than one line height (table columns)
 
 [seq]

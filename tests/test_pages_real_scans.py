@@ -30,11 +30,17 @@ def _boxes(layout) -> list[tuple[int, int, int, int]]:
     return [(ln.x0, ln.y0, ln.x1, ln.y1) for ln in layout.lines]
 
 
-def _recogniser(folder: Path):
+def _recogniser(folder: Path, **input_fields):
+    """A demo recogniser; ``input_fields`` override its card's [input] (e.g. ``flatten=False``: crops as cut)."""
+    import dataclasses
+
     from ocrbench.recognisers.card import load_card
     from ocrbench.recognisers.registry import open_recogniser
 
-    return open_recogniser(load_card(need_demo(folder)))
+    card = load_card(need_demo(folder))
+    if input_fields:
+        card = dataclasses.replace(card, input=dataclasses.replace(card.input, **input_fields))
+    return open_recogniser(card)
 
 
 def _texts(rec, crops) -> list[str]:
@@ -255,8 +261,12 @@ def test_over_wide_lines_are_cut_at_gaps_instead_of_squeezed(demo_dir):
     assert all(ink[a] == 0 for a, _ in spans[1:])                      # cut where no letter is
     truth = " ".join(_texts(rec, used))
     cut = " ".join(t.strip() for t in _texts(rec, [wide[:, a:b] for a, b in spans]))
-    squeezed = _texts(rec, [wide])[0]
+    squeezed_crop = np.asarray(Image.fromarray(wide).resize((int(limit * h), h), Image.BILINEAR))  # as squeezing did
+    squeezed = _texts(rec, [squeezed_crop])[0]
     assert _cer([truth], [cut]) < 0.02 and _cer([truth], [squeezed]) > 0.5
+    # the recogniser itself now cuts a line wider than its card's max_width instead of squeezing it
+    whole = _texts(rec, [wide])[0]
+    assert _cer([truth], [whole]) < 0.02, whole
     assert cut_overwide(wide[:, :1000], limit) == [(0, 1000)]
 
 
@@ -282,11 +292,45 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
     # with [input] flatten; remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
-    rec = _recogniser(folder)
+    rec = _recogniser(folder, flatten=False)                           # (the demo cards flatten: off here)
     plain = _cer(PAGE_BODY, _texts(rec, crops))
     flat = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True) for c in crops]))
     both = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True, remove_rules=True) for c in crops]))
     assert plain >= before_at_least and flat <= after_at_most and both <= after_at_most, (plain, flat, both)
+
+
+def _card_with(folder: Path, tmp_path: Path, extra: str) -> Path:
+    """A copy of a demo card with ``extra`` lines added to its [input] table (a card's files stay in its folder)."""
+    import shutil
+
+    out = tmp_path / f"{folder.name}-{len(list(tmp_path.iterdir()))}"
+    out.mkdir()
+    for f in need_demo(folder).iterdir():
+        if f.is_file() and f.name != "card.toml":
+            shutil.copy(f, out / f.name)
+    text = "".join(ln for ln in (folder / "card.toml").read_text(encoding="utf-8").splitlines(keepends=True)
+                   if not ln.startswith("flatten ="))                  # the demo cards' own setting left out
+    text = text.replace("[input]\n", "[input]\n" + extra, 1)
+    (out / "card.toml").write_text(text, encoding="utf-8")
+    return out
+
+
+def test_card_flatten_and_remove_rules_clean_every_crop_before_it_is_read(tmp_path):
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.recognisers.registry import open_recogniser
+
+    crops = [ln.crop for ln in analyse_page(skdata.page()).lines[1:6]]     # scikit-image's photographed page
+    assert load_card(DEMO_CTC).input.flatten                           # the demo cards flatten (models/README.md)
+    plain = open_recogniser(load_card(_card_with(DEMO_CTC, tmp_path, "")))
+    assert not plain.spec.flatten and not plain.spec.remove_rules
+    card = load_card(_card_with(DEMO_CTC, tmp_path, "flatten = true\nremove_rules = true\n"))
+    assert card.input.flatten and card.input.remove_rules and card.card_hash != plain.card.card_hash
+    cleaned = open_recogniser(card)
+    want = _texts(plain, [clean_crop(c, flatten=True, remove_rules=True) for c in crops])
+    assert _texts(cleaned, crops) == want and _texts(plain, crops) != want
+    assert _cer(PAGE_BODY, _texts(cleaned, crops)) <= 0.05
+    off = load_card(_card_with(DEMO_CTC, tmp_path, "flatten = false\n"))
+    assert _texts(open_recogniser(off), crops) == _texts(plain, crops)
 
 
 def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):
@@ -339,3 +383,83 @@ def test_a_tree_of_pdfs_tiffs_jp2_and_stray_files_runs_end_to_end(tmp_path, demo
     listing = scan_pages(root)
     assert [Path(p).name for p, _ in listing.skipped] == ["notes.doc"]
     assert [Path(p).name for p in listing.companions] == ["folio.txt"]
+
+
+def _tree_with_flagged_pages(tmp_path: Path, demo_dir: Path) -> Path:
+    """top.png (a demo page), box1/blank.png, box1/turned.png (the same page turned 90° clockwise, numpy's rot90),
+    box2/stray.doc (not a page)."""
+    root = tmp_path / "tree"
+    (root / "box1").mkdir(parents=True)
+    (root / "box2").mkdir()
+    png = load_page(PageRef(demo_dir / DEMO_PNG[0])).gray
+    Image.fromarray(png).save(root / "top.png")
+    Image.fromarray(np.full((1400, 1000), 250, np.uint8)).save(root / "box1" / "blank.png")
+    Image.fromarray(np.ascontiguousarray(np.rot90(png, -1))).save(root / "box1" / "turned.png")
+    (root / "box2" / "stray.doc").write_bytes(b"stray")
+    return root
+
+
+def test_run_stores_collections_and_flags_and_names_every_skipped_file(tmp_path, demo_dir):
+    import _tiny_models as tm
+    from ocrbench.store import RunStore
+
+    root = _tree_with_flagged_pages(tmp_path, demo_dir)
+    ctc = tm.write_ctc(tmp_path / "ctc")
+    db = tmp_path / "s.sqlite"
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(db), "--json"])
+    assert res.exit_code == 0, res.output
+    assert f"{root / 'box2' / 'stray.doc'}: skipped: " in res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["recognisers"][0]["flagged"] == {"box1/blank.png": ["blank"], "box1/turned.png": ["rotated_90"]}
+    assert [p for p, _ in doc["skipped_files"]] == [str(root / "box2" / "stray.doc")]
+    with RunStore(db, read_only=True) as st:
+        f = st.read_frames()
+    pages = f["pages"].set_index("page_id")
+    assert pages["collection"].to_dict() == {"box1/blank.png": "box1", "box1/turned.png": "box1", "top.png": ""}
+    assert pages["flags"].to_dict() == {"box1/blank.png": "blank", "box1/turned.png": "rotated_90", "top.png": ""}
+    assert (pages["status"] == "done").all()
+    lines = f["lines"]
+    assert set(lines["page_id"]) == {"top.png"}               # flagged pages are never stored as text
+    top = lines["text"].tolist()
+
+    # --auto-rotate: the turned page is read upright, with the same text as the page it was turned from
+    db2 = tmp_path / "s2.sqlite"
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(db2), "--auto-rotate"])
+    assert res.exit_code == 0, res.output
+    with RunStore(db2, read_only=True) as st:
+        f = st.read_frames()
+        assert f["runs"]["settings_json"].str.contains('"auto_rotate":true').all()
+    lines = f["lines"]
+    assert lines[lines["page_id"] == "box1/turned.png"]["text"].tolist() == top
+    assert f["pages"].set_index("page_id").loc["box1/turned.png", "flags"] == "rotated_90"
+
+    # --no-recurse: the subfolders are named as not read
+    res = CliRunner().invoke(app, ["run", str(root), "-r", str(ctc), "--store", str(tmp_path / "s3.sqlite"),
+                                   "--no-recurse", "--json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["pages_total"] == 1
+    assert all(f"{root / b}: skipped: subfolder, not read" in res.stderr for b in ("box1", "box2"))
+
+
+def test_dask_engine_stores_the_same_collections_and_flags_as_the_serial_one(tmp_path, demo_dir):
+    import _tiny_models as tm
+    from ocrbench.run.distributed import DaskOptions, run_distributed
+    from ocrbench.run.engine import RunOptions, run_pages
+    from ocrbench.store import RunStore
+
+    root = _tree_with_flagged_pages(tmp_path, demo_dir)
+    ctc = tm.write_ctc(tmp_path / "ctc")
+    opts = RunOptions(auto_rotate=True, prefetch=False)
+    serial = run_pages(root, [ctc], store=tmp_path / "s.sqlite", options=opts)
+    dask = run_distributed(root, [ctc], store=tmp_path / "d.sqlite", options=opts,
+                           dask=DaskOptions(workers=1, processes=False))
+    assert dask.skipped_files == serial.skipped_files and len(serial.skipped_files) == 1
+    frames = []
+    for db in ("s.sqlite", "d.sqlite"):
+        with RunStore(tmp_path / db, read_only=True) as st:
+            f = st.read_frames()
+        frames.append((f["pages"][["page_id", "collection", "flags", "n_lines"]].reset_index(drop=True),
+                       f["lines"][["page_id", "line_no", "text"]].reset_index(drop=True)))
+    assert frames[0][0].equals(frames[1][0]) and frames[0][1].equals(frames[1][1])
+    assert frames[1][0].set_index("page_id")["flags"].to_dict() == {
+        "box1/blank.png": "blank", "box1/turned.png": "rotated_90", "top.png": ""}

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+import sqlite3
 import subprocess
 import sys
 import time
@@ -84,6 +85,32 @@ def test_collection_of():
     assert collection_of("box3/page_001.png") == "box3"
     assert collection_of("1890/box3/book.tif#4") == "1890/box3"
     assert collection_of("box3\\page.png") == "box3"
+    # the store's pages.collection (schema version 3) decides when present; "" is the top folder
+    assert collection_of("box3/page_001.png", "vol1/box3") == "vol1/box3"
+    assert collection_of("page_001.png", "") == "."
+    assert collection_of("box3/page_001.png", None) == "box3"
+
+
+def test_quality_groups_by_the_stored_collection_and_counts_sanity_flags(tmp_path):
+    from ocrbench.quality.data import group_labels
+    from ocrbench.store import PageRecord, RunStore
+
+    db, _, _ = _store(tmp_path)
+    assert set(group_labels(read_snapshot(db).pages, "collection")) == {"boxA", "boxB", "boxC"}   # no column values
+    con = sqlite3.connect(db)            # stored collections (here one level deeper than the page ids say) decide
+    con.execute("UPDATE pages SET collection = 'vol1/' || substr(page_id, 1, instr(page_id, '/') - 1)")
+    con.commit()
+    con.close()
+    snap = read_snapshot(db)
+    assert set(group_labels(snap.pages, "collection")) == {"vol1/boxA", "vol1/boxB", "vol1/boxC"}
+    [s] = quality(db, n_boot=50, permutations=19)["systems"]
+    assert {g["group"] for g in s["groups"]} == {"vol1/boxA", "vol1/boxB", "vol1/boxC"}
+    with RunStore(db) as st:
+        st.write_page(int(snap.runs["run_id"].iloc[0]),
+                      PageRecord(page_id="boxC/blank.png", path="x", content_hash="c", status="done", n_lines=0,
+                                 collection="boxC", flags="blank"))
+    [sys_] = systems_of(read_snapshot(db))
+    assert bool(sys_.pages.set_index("page_id").loc["boxC/blank.png", "flagged"])
 
 
 def _store(tmp_path, seed=0):

@@ -282,3 +282,22 @@ def test_report_command_usage_errors(tmp_path):
     r = CliRunner().invoke(app, ["report", str(tmp_path / "missing.sqlite"), "--out", str(tmp_path / "o"),
                                  "--profile", "bogus"])
     assert r.exit_code == 2 and "--profile" in r.output
+
+
+def test_flagged_pages_are_listed_with_their_flags(built, tmp_path):
+    import shutil
+
+    import numpy as np
+    from PIL import Image
+
+    pages = tmp_path / "pages"
+    shutil.copytree(built["pages"], pages)
+    Image.fromarray(np.full((900, 700), 250, np.uint8)).save(pages / "zz_blank.png")
+    db = make_store(pages, [built["models"][0]], tmp_path / "flags.sqlite")
+    files = write_report(db, tmp_path / "out", n_boot=100)
+    s = json.loads(files.summary.read_text(encoding="utf-8"))
+    assert s["recognisers"][0]["flagged"] == [{"page_id": "zz_blank.png", "flags": ["blank"]}]
+    text = files.html.read_text(encoding="utf-8")
+    assert "flagged pages" in text and "<code>zz_blank.png</code>: blank" in text
+    table = files.data.tables["pages"].set_index("page_id")
+    assert table.loc["zz_blank.png", "flags"] == "blank" and table.loc["zz_blank.png", "collection"] == ""

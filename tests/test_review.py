@@ -152,3 +152,45 @@ def test_unknown_confidence_and_custom_weights():
     assert "confidence unknown" in q.table.iloc[0]["reasons"]
     with pytest.raises(ValueError, match="page_id"):
         review_queue([{"text": "x"}])
+
+
+def test_lines_of_flagged_pages_head_the_queue_with_the_flags_as_reason():
+    from ocrbench.postprocess.review import flagged_page_rows
+
+    rows = pd.DataFrame(_rows("a", PAGE, [0.5] * len(PAGE)) + _rows("b", PAGE, [0.99] * len(PAGE)))
+    rows["flags"] = np.where(rows["page_id"] == "b", "rotated_180", "")
+    rows = pd.concat([rows, flagged_page_rows({"b": "rotated_180", "c": "blank", "a": ""}, rows)],
+                     ignore_index=True)
+    assert rows["page_id"].tolist().count("c") == 1                   # one row for the page stored without lines
+    q = review_queue(rows)
+    t = q.table
+    # every line of the flagged pages comes first, though page a's lines are far less confident
+    assert set(t.head(len(PAGE) + 1)["page_id"]) == {"b", "c"} and t.head(len(PAGE) + 1)["flagged"].all()
+    assert not t.iloc[len(PAGE) + 1:]["flagged"].any()
+    assert t[t.page_id == "b"]["reasons"].str.startswith("page flagged: rotated_180").all()
+    assert t[t.page_id == "c"]["reasons"].iloc[0].startswith("page flagged: blank; no line of it was read")
+    assert len(q.take(min_doubt=10)) == len(PAGE) + 1                 # the flagged head is kept by any doubt cut
+    # without a flags column nothing changes
+    assert not review_queue(_rows("a", PAGE, [0.5] * len(PAGE))).table["flagged"].any()
+
+
+def test_store_review_puts_flagged_pages_first(tmp_path):
+    from ocrbench.postprocess.store_review import review_store
+    from ocrbench.store import LineRecord, PageRecord, RunStore
+
+    db = tmp_path / "s.sqlite"
+    with RunStore(db) as st:
+        rid = st.start_run(recogniser="r", kind="ctc", card_path="/c.toml", card_hash="h", settings={},
+                           input_dir="/p", host={}, engine="x")
+        for pid, flags, conf in (("box1/a.png", "", 0.4), ("box1/b.png", "rotated_90", 0.99)):
+            lines = [LineRecord(line_no=i + 1, x0=0, y0=0, x1=9, y1=9, width_px=9, text=t, text_post=None,
+                                confidence=conf, n_chars=len(t)) for i, t in enumerate(PAGE)]
+            st.write_page(rid, PageRecord(page_id=pid, path=pid, content_hash="c", status="done",
+                                          n_lines=len(PAGE), collection="box1", flags=flags), lines)
+        st.write_page(rid, PageRecord(page_id="box2/blank.png", path="x", content_hash="c", status="done", n_lines=0,
+                                      collection="box2", flags="blank"))
+    [rev], problems = review_store(db, max_lines=None)
+    t = rev.queue.table
+    assert set(t.head(len(PAGE) + 1)["page_id"]) == {"box1/b.png", "box2/blank.png"}
+    assert t[t.page_id == "box2/blank.png"]["line_no"].tolist() == [0]
+    assert rev.to_dict()["queue"][0]["reasons"].startswith("page flagged: ")

@@ -252,11 +252,12 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
             texts.append("".join(vocab[t] for t in toks[1:] if t > 2))
         direct[ref.id] = texts
     with RunStore(tmp_path / "s.sqlite") as st:
-        # The direct path reads whole lines, so the runner does too here (the card's split_gap off).
+        # The direct path reads whole lines as cut, so the runner does too here (the card's split_gap and
+        # flatten off).
         import dataclasses
         from ocrbench.recognisers.card import load_card
         card = load_card(folder)
-        card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0))
+        card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0, flatten=False))
         summary = run_pages(pages, [card], store=st, options=EngineOptions(batch_size=1, use_cache=False))
         got = st.page_texts(summary.recognisers[0].run_id)
     assert got == direct

@@ -25,7 +25,7 @@ CONTRACT = {
              "engine", "ocrbench_version", "started_at", "finished_at"],
     "pages": ["run_id", "page_id", "path", "content_hash", "status", "error", "width", "height", "n_lines",
               "skew_degrees", "t_load", "t_segment", "t_preprocess", "t_encode", "t_steps", "t_collapse",
-              "t_postprocess", "t_total", "finished_at", "file_size", "file_mtime_ns"],
+              "t_postprocess", "t_total", "finished_at", "file_size", "file_mtime_ns", "collection", "flags"],
     "lines": ["run_id", "page_id", "line_no", "x0", "y0", "x1", "y1", "width_px", "text", "text_post", "confidence",
               "char_conf_json", "n_chars", "steps", "batch_no", "t_line", "truncated", "error"],
     "batches": ["run_id", "page_id", "batch_no", "n_lines", "padded_width", "sum_width", "frames", "steps_max",
@@ -311,6 +311,42 @@ def test_old_whole_second_store_is_read_as_it_is_and_migrated_when_written(tmp_p
     stamps = [r[0] for r in con.execute("SELECT finished_at FROM pages ORDER BY page_id")]
     con.close()
     assert stamps[0] == "2026-01-05T10:00:04+00:00" and "." in stamps[1]
+
+
+# What version 2 added to version 1 (copied from the version-2 source); a version-2 store is V1_DDL plus these.
+V2_ADDITIONS = """
+CREATE TABLE postprocessing(run_id INTEGER PRIMARY KEY, recipe TEXT NOT NULL, applied_at TEXT);
+CREATE TABLE scaling(measured_at TEXT, recogniser TEXT, kind TEXT, card_hash TEXT, host_json TEXT, workers INTEGER,
+    threads INTEGER, pages INTEGER, wall_seconds REAL, pages_per_second REAL, startup_seconds REAL,
+    busy_seconds REAL, gap_seconds_per_page REAL, run_id INTEGER);
+ALTER TABLE lines ADD COLUMN truncated INTEGER NOT NULL DEFAULT 0;
+ALTER TABLE lines ADD COLUMN error TEXT;
+ALTER TABLE pages ADD COLUMN file_size INTEGER;
+ALTER TABLE pages ADD COLUMN file_mtime_ns INTEGER;
+UPDATE meta SET value='2' WHERE key='schema_version';
+"""
+
+
+def test_version_2_store_is_read_without_collections_and_flags_and_migrated_when_written(tmp_path):
+    db = old_store(tmp_path / "v2.sqlite")
+    con = sqlite3.connect(db)
+    con.executescript(V2_ADDITIONS)
+    con.close()
+    with RunStore(db, read_only=True) as ro:          # read as it is: the version-3 columns filled with NULL
+        assert ro.schema_version == 2
+        pages = ro.read_frames()["pages"]
+        assert pages["collection"].isna().all() and pages["flags"].isna().all()
+    with RunStore(db) as st:                           # written to: migrated, earlier rows kept
+        assert st.schema_version == SCHEMA_VERSION == 3
+        st.write_page(1, PageRecord(page_id="box1/b.png", path="/pages/box1/b.png", content_hash="d",
+                                    status="done", n_lines=0, collection="box1", flags="blank"))
+        pages = st.read_frames()["pages"].set_index("page_id")
+    assert pages.loc["box1/b.png", "collection"] == "box1" and pages.loc["box1/b.png", "flags"] == "blank"
+    assert pd.isna(pages.loc["a.png", "collection"]) and pd.isna(pages.loc["a.png", "flags"])
+    con = sqlite3.connect(db)
+    assert [r[1] for r in con.execute("PRAGMA table_info(pages)")] == CONTRACT["pages"]
+    assert con.execute("SELECT value FROM meta WHERE key='migrated_from_2_at'").fetchone() is not None
+    con.close()
 
 
 def test_older_and_newer_versions_than_known_are_refused(tmp_path):

@@ -28,12 +28,14 @@ from ocrbench.cli.show_run import print_run_problems, print_run_summary
 from ocrbench.io.tables import json_text
 from ocrbench.errors import OcrbenchError
 from ocrbench.io.textdir import write_texts
+from ocrbench.pages import DEFAULT_PDF_DPI
 from ocrbench.recognisers.base import EngineOptions
 
 
 
 def run(
-    target: Path = typer.Argument(..., help="A folder of page images (PNG, JPEG, TIFF), or one image."),
+    target: Path = typer.Argument(..., help="A folder of page images (PNG, JPEG, TIFF, JPEG 2000, WebP, BMP, GIF, "
+                                            "PDF), read with its subfolders (collections); or one file."),
     recogniser: list[Path] = typer.Option(..., "--recogniser", "-r",
                                           help="A recogniser card (card.toml or its folder); repeat to compare."),
     store: Path = typer.Option(..., "--store", help="The run store (SQLite file; created if missing)."),
@@ -92,10 +94,15 @@ def run(
                                         help="'FAST -> SLOW if doubt > X': FAST reads every line, SLOW re-reads the "
                                              "lines whose review doubt is above X; both readings and the kept one "
                                              "are stored (two of the --recogniser cards, by name or path)."),
+    recurse: bool = typer.Option(True, "--recurse/--no-recurse", help="Read subfolders (collections) too."),
+    pdf_dpi: float = typer.Option(DEFAULT_PDF_DPI, "--pdf-dpi", min=30, max=1200,
+                                  help="Resolution for PDF pages that are not one scanned image."),
+    auto_rotate: bool = typer.Option(False, "--auto-rotate", help="Turn pages whose text is turned 90/180/270° "
+                                     "upright and read them (else they are flagged and stored without text)."),
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
-    # Over 80 lines only because typer declares the 26 options in the signature; the body is short.
+    # Over 80 lines only because typer declares the 29 options in the signature; the body is short.
     from ocrbench.postprocess.config import load_pipeline
 
     if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task is not None
@@ -128,7 +135,10 @@ def run(
         pipeline = None
         if postprocess_on or post_steps is not None or post_config is not None or word_list is not None:
             pipeline = load_pipeline(steps=post_steps, config=post_config, word_list=word_list)
-        summary, written = _recognise(target, recogniser, store, engine, dask, fresh, pipeline, text_out,
+        from ocrbench.run.engine import RunOptions
+
+        options = RunOptions(engine=engine, pdf_dpi=pdf_dpi, auto_rotate=auto_rotate, recurse=recurse)
+        summary, written = _recognise(target, recogniser, store, options, dask, fresh, pipeline, text_out,
                                       route)
     except KeyboardInterrupt:
         raise fail("interrupted; finished pages are in the store: rerun the same command to resume",
@@ -146,11 +156,11 @@ def run(
     raise typer.Exit(EXIT_SOME_FAILED if summary.failed_pages else EXIT_OK)
 
 
-def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh: bool, pipeline,
+def _recognise(target: Path, cards: list[Path], store: Path, options, dask, fresh: bool, pipeline,
                text_out: Path | None, route: str | None = None):
     """Run the pages (here, or on Dask when ``dask`` is given) with a progress bar; write the texts."""
     from ocrbench.io.files import ensure_folder
-    from ocrbench.run.engine import RunOptions, run_pages
+    from ocrbench.run.engine import run_pages
     from ocrbench.store import RunStore
 
     ensure_folder(store.parent)
@@ -163,15 +173,15 @@ def _recognise(target: Path, cards: list[Path], store: Path, engine, dask, fresh
                 from ocrbench.run.route import parse_route
                 from ocrbench.run.routed import run_routed
 
-                summary = run_routed(target, cards, parse_route(route), store=st, options=RunOptions(engine=engine),
+                summary = run_routed(target, cards, parse_route(route), store=st, options=options,
                                      progress=progress, fresh=fresh)
             elif dask is None:
-                summary = run_pages(target, cards, store=st, options=RunOptions(engine=engine),
+                summary = run_pages(target, cards, store=st, options=options,
                                     progress=progress, fresh=fresh, postprocess=pipeline)
             else:
                 from ocrbench.run.distributed import run_distributed
 
-                summary = run_distributed(target, cards, store=st, options=RunOptions(engine=engine), dask=dask,
+                summary = run_distributed(target, cards, store=st, options=options, dask=dask,
                                           progress=progress, fresh=fresh, postprocess=pipeline)
         written = {}
         if text_out is not None:

@@ -55,6 +55,10 @@ def print_run_problems(summary, store: Path) -> None:
     def say(text: str) -> None:
         err.print(f"ocrbench: {text}", markup=False, highlight=False, soft_wrap=True)
 
+    for path, note in summary.page_notes:
+        say(f"{path}: {note}")
+    for path, why in summary.skipped_files:          # every file of the input not read as a page, with why
+        say(f"{path}: skipped: {why}")
     for r in summary.recognisers:
         for page_id, error in r.post_failures:
             say(f"{r.name}: {printable(page_id)}: post-processing refused this page ({error}); its raw text is kept")

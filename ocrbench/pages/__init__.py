@@ -56,7 +56,7 @@ from ocrbench.pages.load import DEFAULT_MAX_PIXELS, Page, load_page
 from ocrbench.pages.orient import detect_rotation, turn_upright
 from ocrbench.pages.pdf import DEFAULT_PDF_DPI
 from ocrbench.pages.sanity import PageCheck, check_page
-from ocrbench.pages.survey import survey_page
+from ocrbench.pages.survey import inspect_page, survey_page
 from ocrbench.pages.segment import MIN_LINE_HEIGHT, cut_overwide, find_line_boxes, remove_rules, split_at_gaps
 from ocrbench.pages.skew import MIN_DESKEW_DEGREES, deskew, estimate_skew, skew_from_ink
 
@@ -64,7 +64,7 @@ __all__ = [
     "COMPANION_SUFFIXES", "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS",
     "DEFAULT_PDF_DPI", "IMAGE_SUFFIXES", "Listing", "PAGE_SUFFIXES", "PDF_SUFFIXES", "scan_pages",
     "PageCheck", "check_page", "detect_rotation", "turn_upright", "clean_crop", "flatten_crop", "remove_crop_rules",
-    "survey_page", "cut_overwide",
+    "survey_page", "inspect_page", "cut_overwide",
     "Layout", "LineBox", "MIN_CONTRAST", "MIN_DESKEW_DEGREES", "MIN_LINE_HEIGHT", "Page", "PageRef",
     "analyse_page", "binarise", "connected_components", "crop_line", "deskew", "estimate_skew",
     "find_line_boxes", "flatten_illumination", "lines_from_ink", "list_pages", "load_page",

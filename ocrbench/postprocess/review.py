@@ -27,6 +27,10 @@ lists are never complete. Ties are broken by page and line order.
 Lines known to be incomplete come before every other line, whatever their
 doubt: a line the recogniser's length guard cut (``truncated``) and a line the
 model could not read (``error``, e.g. NaN output; its confidence is unknown).
+Ahead of them come the lines of pages the page sanity check flagged (a ``flags``
+column: comma-separated names such as ``rotated_90``; see pages/sanity.py), the
+flags as the first reason; a flagged page stored without lines (blank, not
+text-like) is one row with ``line_no`` 0 and no text (see :func:`flagged_page_rows`).
 """
 
 from __future__ import annotations
@@ -105,6 +109,30 @@ def _incomplete(df: pd.DataFrame, reasons: list[list[str]]) -> np.ndarray:
     return cut | failed
 
 
+def _flagged(df: pd.DataFrame, reasons: list[list[str]]) -> np.ndarray:
+    """Lines of pages with sanity flags (the ``flags`` column); the flags become their first reason."""
+    if "flags" not in df.columns:
+        return np.zeros(len(df), dtype=bool)
+    flags = df["flags"].fillna("").astype(str).to_numpy()
+    out = flags != ""
+    whole_page = (df["whole_page"].fillna(False).astype(bool).to_numpy() if "whole_page" in df.columns
+                  else np.zeros(len(df), dtype=bool))
+    for i in np.flatnonzero(out):
+        whole = "; no line of it was read" if whole_page[i] else ""
+        reasons[i].insert(0, f"page flagged: {flags[i].replace(',', ', ')}{whole}")
+    return out
+
+
+def flagged_page_rows(flags: Mapping[str, str], lines: pd.DataFrame) -> pd.DataFrame:
+    """One row (``line_no`` 0, no text, unknown confidence, ``whole_page`` set) for each flagged page
+    that has no line in ``lines``, so a page stored without text (blank, not text-like, turned) still
+    heads the queue."""
+    have = set(lines["page_id"]) if len(lines) else set()
+    rows = [{"page_id": pid, "line_no": 0, "text": "", "confidence": np.nan, "flags": f, "whole_page": True}
+            for pid, f in sorted(flags.items()) if f and pid not in have]
+    return pd.DataFrame(rows, columns=["page_id", "line_no", "text", "confidence", "flags", "whole_page"])
+
+
 def ledger_parts(balance: _ledger.PageBalance) -> dict[int, tuple[float, str]]:
     """line_no (0-based within the page) -> (ledger_part, reason) for lines the arithmetic doubts."""
     out: dict[int, tuple[float, str]] = {}
@@ -130,7 +158,8 @@ class ReviewQueue:
 
     ``table`` columns: page_id, line_no, text, confidence, doubt, conf_part,
     ledger_part, word_part, reasons, seconds (expected review time of the line),
-    incomplete (cut by the length guard or not read: always at the head).
+    incomplete (cut by the length guard, not read, or on a flagged page: always at the head),
+    flagged (on a page with sanity flags: ahead of every other line).
     """
 
     table: pd.DataFrame
@@ -206,6 +235,8 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
     for i, c in enumerate(conf):
         reasons[i].insert(0, "confidence unknown" if pd.isna(c) else f"confidence {c:.2f}")
     df["incomplete"] = _incomplete(df, reasons)
+    df["flagged"] = _flagged(df, reasons)
+    df["incomplete"] |= df["flagged"]
     df["doubt"] = (weights.confidence * df["conf_part"] + weights.arithmetic * df["ledger_part"]
                    + weights.unknown_words * df["word_part"])
     if "agree_part" in df.columns:  # hook: two readers' disagreement, 0..1 (postprocess/agreement.py)
@@ -215,7 +246,8 @@ def review_queue(lines: pd.DataFrame | Sequence[Mapping[str, Any]], *,
             reasons[i].append("another recogniser read it differently")
     df["reasons"] = ["; ".join(r) for r in reasons]
     df["seconds"] = rate.seconds(df["text"].str.len().to_numpy())
-    df = df.sort_values(["incomplete", "doubt"], ascending=[False, False], kind="stable").reset_index(drop=True)
+    df = df.sort_values(["flagged", "incomplete", "doubt"], ascending=[False, False, False],
+                        kind="stable").reset_index(drop=True)
     cols = ["page_id", "line_no", "text", "confidence", "doubt", "conf_part", "ledger_part",
             "word_part", "reasons", "seconds"]
     extra = [c for c in df.columns if c not in cols]

@@ -7,7 +7,10 @@ from typing import Any, Callable, Sequence
 
 from ocrbench.postprocess import agreement as agree
 from ocrbench.postprocess.lexicon import Lexicon
-from ocrbench.postprocess.review import ReviewRate, RunReview, calibrate_on_truth, review_queue, run_lines
+import pandas as pd
+
+from ocrbench.postprocess.review import (ReviewRate, RunReview, calibrate_on_truth, flagged_page_rows, review_queue,
+                                         run_lines)
 
 
 def review_store(store_path: Any, runs: Sequence[int] = (), *, lexicon: Lexicon | None = None,
@@ -59,7 +62,15 @@ def _review_run(st, frames, rid: int, refs, done_of, *, lexicon, rate, post: boo
         other, _ = run_lines(frames, partner, post=post and st.post_recipe(partner) is not None)
         ln = agree.with_partner(ln, other)
         cols.append("agree_part")
-    q = review_queue(ln[cols], lexicon=lexicon, rate=rate, problems=problems)
+    pg = frames["pages"]
+    mine = pg[(pg["run_id"] == rid) & (pg["status"] == "done")]
+    # sanity flags of the run's pages (none in stores before version 3): flagged pages head the queue
+    flags = {str(p): f for p, f in zip(mine["page_id"], mine["flags"]) if isinstance(f, str) and f}
+    queue_lines = ln[cols].assign(flags=[flags.get(str(p), "") for p in ln["page_id"]])
+    extra = flagged_page_rows(flags, queue_lines)
+    if len(extra):
+        queue_lines = pd.concat([queue_lines, extra], ignore_index=True)
+    q = review_queue(queue_lines, lexicon=lexicon, rate=rate, problems=problems)
     rev = RunReview(rid, info.recogniser, "post-processed" if use_post else "raw", q, q.take(**select), select,
                     partner_run=partner)
     if truth_dir is not None:

@@ -14,8 +14,10 @@ with AUROC 0.91 against 0.77 for the line confidence (CTC demo recogniser).
 Doubt is then the review score of :mod:`ocrbench.postprocess.review` with that
 confidence.
 
-Groups: ``collection`` (the folder part of the page id: the page's path
-relative to the run's input folder; pages at the top are collection ``"."``),
+Groups: ``collection`` (the page's folder relative to the run's input folder,
+as the store's ``pages.collection`` holds it; stores before schema version 3
+lack it and the folder part of the page id is used; pages at the top are
+collection ``"."``),
 ``day`` (the UTC date the page was finished) or ``run``.
 """
 
@@ -40,7 +42,7 @@ from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.postprocess.review import line_edits, review_queue
 from ocrbench.store import RunStore
 
-__all__ = ["GROUPINGS", "collection_of", "group_labels", "Snapshot", "read_snapshot", "System", "systems_of",
+__all__ = ["GROUPINGS", "collection_of", "collections", "group_labels", "Snapshot", "read_snapshot", "System", "systems_of",
            "DEFAULT_QUEUE_DOUBT"]
 
 GROUPINGS = ("collection", "day", "run")
@@ -50,19 +52,28 @@ GROUPINGS = ("collection", "day", "run")
 DEFAULT_QUEUE_DOUBT = 0.5
 
 
-def collection_of(page_id: str) -> str:
-    """The collection of a page: the folder part of its id (``box3/page_001.png`` -> ``box3``; top -> ``.``).
-
-    The one place that decides it, so a store column can replace it later.
+def collection_of(page_id: str, stored: str | None = None) -> str:
+    """The collection of a page (top -> ``.``): ``stored`` (the store's ``pages.collection``) when the store
+    has it, else the folder part of its id (``box3/page_001.png`` -> ``box3``). The one place that decides it.
     """
+    if isinstance(stored, str):
+        return stored or "."
     base = str(page_id).partition("#")[0].replace("\\", "/")
     return str(PurePosixPath(base).parent)
 
 
+def collections(pages: pd.DataFrame) -> pd.Series:
+    """The collection of each page row (columns page_id and, from stores of version 3 on, collection)."""
+    stored = pages["collection"] if "collection" in pages.columns else pd.Series(None, index=pages.index)
+    return pd.Series([collection_of(p, c) for p, c in zip(pages["page_id"], stored)], index=pages.index,
+                     dtype=object)
+
+
 def group_labels(pages: pd.DataFrame, by: str) -> pd.Series:
-    """The group of each page row (columns page_id, finished_at, run_id) for ``by`` in :data:`GROUPINGS`."""
+    """The group of each page row (columns page_id, finished_at, run_id, collection when stored) for ``by``
+    in :data:`GROUPINGS`."""
     if by == "collection":
-        return pages["page_id"].map(collection_of)
+        return collections(pages)
     if by == "day":
         return pages["finished_at"].fillna("").astype(str).str[:10].replace("", "unknown")
     if by == "run":
@@ -76,7 +87,7 @@ class Snapshot:
 
     store: Path
     runs: pd.DataFrame      # run_id, recogniser, card_hash, input_dir, settings_json
-    pages: pd.DataFrame     # run_id, page_id, path, status, finished_at
+    pages: pd.DataFrame     # run_id, page_id, path, status, finished_at, collection, flags (NULL in old stores)
     lines: pd.DataFrame     # run_id, page_id, line_no, text, confidence (weakest character, see the notes)
 
 
@@ -86,12 +97,15 @@ def read_snapshot(store: Path | str, *, post: bool = False, timeout: float = 5.0
     text = "COALESCE(text_post, text)" if post else "text"
     with RunStore(path, read_only=True, timeout=timeout) as st:
         con = st.con
+        # stores before schema version 3 have neither column: collections then come from the page ids
+        extra = "collection, flags" if "collection" in [r[1] for r in con.execute("PRAGMA table_info(pages)")] \
+            else "NULL AS collection, NULL AS flags"
         try:
             con.execute("BEGIN")
             try:
                 runs = pd.read_sql_query("SELECT run_id, recogniser, card_hash, input_dir, settings_json FROM runs "
                                          "ORDER BY run_id", con)
-                pages = pd.read_sql_query("SELECT run_id, page_id, path, status, finished_at FROM pages "
+                pages = pd.read_sql_query(f"SELECT run_id, page_id, path, status, finished_at, {extra} FROM pages "
                                           "ORDER BY run_id, page_id", con)
                 lines = pd.read_sql_query(f"SELECT run_id, page_id, line_no, {text} AS text, confidence, "
                                           "char_conf_json FROM lines ORDER BY run_id, page_id, line_no", con)
@@ -121,7 +135,8 @@ class System:
     """One recogniser (same name and card) over all its runs: page and line tables ready for estimates.
 
     ``pages``: run_id, page_id, group, status, lines, chars, mean_doubt, balance (status string),
-    queued (lines at or above the queue doubt), flagged (failed, unbalanced or with a queued line),
+    queued (lines at or above the queue doubt), flagged (failed, unbalanced, with a queued line or with
+    page sanity flags),
     keyed (has ground truth), edits and ref_chars (measured, keyed pages only).
     ``lines``: run_id, page_id, page (row of ``pages``), doubt, confidence, chars,
     and for keyed pages with matching line counts ``edits``.
@@ -257,12 +272,13 @@ def systems_of(snap: Snapshot, *, by: str = "collection", truth: Path | None = N
         lines["chars"] = np.fromiter((len(norm(t)) for t in lines["text"]), dtype=np.int64, count=len(lines))
         lines["edits"] = [line_edit.get((int(r), p, int(n)), -1)
                           for r, p, n in zip(lines["run_id"], lines["page_id"], lines["line_no"])]
-        pr = pages[["run_id", "page_id", "status", "finished_at"]].merge(
+        pr = pages[["run_id", "page_id", "status", "finished_at", "collection", "flags"]].merge(
             _page_rows(lines, queue_doubt), on=["run_id", "page_id"], how="left")
         pr[["lines", "chars", "queued"]] = pr[["lines", "chars", "queued"]].fillna(0).astype(np.int64)
         pr["balance"] = [page_status.get((int(r), p), "failed" if s != "done" else "no lines")
                          for r, p, s in zip(pr["run_id"], pr["page_id"], pr["status"])]
-        pr["flagged"] = (pr["status"] != "done") | (pr["balance"] == UNBALANCED) | (pr["queued"] > 0)
+        pr["flagged"] = ((pr["status"] != "done") | (pr["balance"] == UNBALANCED) | (pr["queued"] > 0)
+                         | (pr["flags"].fillna("").astype(str) != ""))      # the page sanity check's flags
         meas = [page_meas.get((int(r), p)) for r, p in zip(pr["run_id"], pr["page_id"])]
         pr["keyed"] = [m is not None for m in meas]
         pr["edits"] = [m[0] if m else 0 for m in meas]

@@ -52,7 +52,7 @@ import pandas as pd
 
 from ocrbench.errors import InputError, TextFileError
 from ocrbench.io.text import truth_candidates
-from ocrbench.quality.data import Snapshot, System, collection_of
+from ocrbench.quality.data import Snapshot, System, collections
 from ocrbench.quality.estimate import Calibration
 
 __all__ = ["neyman_allocation", "pages_for_lines", "SamplePlan", "plan_sample", "write_sample", "template_path",
@@ -230,7 +230,7 @@ def plan_sample(snap: Snapshot, system: System, cal: Calibration | None, *, page
     if run_id is None:
         run_id = int(p.loc[p["status"] == "done", "run_id"].value_counts().idxmax()) if len(p) else -1
     cand = p[(p["run_id"] == run_id) & (p["status"] == "done") & ~p["keyed"] & (p["lines"] > 0)].copy()
-    cand["collection"] = cand["page_id"].map(collection_of)
+    cand["collection"] = collections(cand)
     if len(cand):
         cuts = np.unique(np.quantile(cand["mean_doubt"], np.linspace(0, 1, bands + 1)[1:-1]))
         cand["band"] = np.searchsorted(cuts, cand["mean_doubt"].to_numpy(), side="right") + 1

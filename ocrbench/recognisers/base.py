@@ -20,7 +20,7 @@ from ocrbench.recognisers.batching import PreparedBatch, prepare_batches, valid_
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.engine import (BATCH_MODES, DECODINGS, GRAPH_LEVELS, BatchTiming, Clock, EngineOptions,
                                          make_session, onnx_dtype, resolve_providers, share_time)
-from ocrbench.pages.segment import split_at_gaps
+from ocrbench.pages.segment import cut_overwide, split_at_gaps
 from ocrbench.recognisers.preprocess import InputSpec
 
 __all__ = ["BATCH_MODES", "DECODINGS", "GRAPH_LEVELS", "BatchTiming", "Clock", "EngineOptions", "LineResult",
@@ -109,34 +109,55 @@ class Recogniser:
         """Recognise line crops (uint8 grey, ink dark). Results come back in the crops' order.
 
         With the card's ``split_gap`` set, each line is cut at wide blank gaps, the
-        pieces are recognised as lines of their own and joined with one space.
+        pieces are recognised as lines of their own and joined with one space. A
+        line wider than the card's ``max_width`` once scaled to its height (cards
+        without a fixed ``width``) is cut the same way
+        (:func:`~ocrbench.pages.segment.cut_overwide`: at blank gaps, else at the
+        column with least ink) instead of being squeezed; pieces cut where there
+        was no gap are joined without a space.
         """
-        if self.spec.split_gap > 0:
-            return self._recognise_split(crops, clock=clock)
+        spans = [self._spans(np.asarray(c)) for c in crops]
+        if self.spec.split_gap > 0 or any(len(sp) > 1 for sp in spans):
+            return self._recognise_split(crops, spans, clock=clock)
         return self._recognise_whole(crops, clock=clock)
 
-    def _recognise_split(self, crops, *, clock):
-        pieces, owner = [], []
-        for i, c in enumerate(crops):
+    def _spans(self, g: np.ndarray) -> list[tuple[int, int]]:
+        """Column spans of the pieces a crop is read in: one (the whole crop) unless split or over-wide."""
+        if g.ndim != 2 or not g.size:
+            return [(0, g.shape[-1] if g.ndim else 0)]
+        spans = split_at_gaps(g, self.spec.split_gap) if self.spec.split_gap > 0 else [(0, g.shape[1])]
+        if self.spec.width is None and g.shape[1] * self.spec.height > self.spec.max_width * g.shape[0]:
+            max_aspect = self.spec.max_width / self.spec.height
+            spans = [(a + c, a + d) for a, b in spans for c, d in cut_overwide(g[:, a:b], max_aspect)]
+        return spans
+
+    def _recognise_split(self, crops, spans, *, clock):
+        pieces, owner, glue = [], [], []
+        for i, (c, sp) in enumerate(zip(crops, spans)):
             g = np.asarray(c)
-            for a, b in split_at_gaps(g, self.spec.split_gap) if g.ndim == 2 and g.size else [(0, g.shape[-1] if g.ndim else 0)]:
+            for k, (a, b) in enumerate(sp):
                 pieces.append(g[:, a:b] if g.ndim == 2 else g)
                 owner.append(i)
+                # a cut where there was no gap (cut_overwide's last resort) leaves adjacent spans: no space
+                glue.append("" if k and sp[k - 1][1] == a else " ")
         part_results, timings = self._recognise_whole(pieces, clock=clock)
         merged: list[LineResult | None] = [None] * len(crops)
-        groups: dict[int, list[LineResult]] = {}
-        for i, r in zip(owner, part_results):
-            groups.setdefault(i, []).append(r)
-        for i, rs in groups.items():
+        groups: dict[int, list[tuple[LineResult, str]]] = {}
+        for i, r, j in zip(owner, part_results, glue):
+            groups.setdefault(i, []).append((r, j))
+        for i, pairs in groups.items():
+            rs = [r for r, _ in pairs]
             if len(rs) == 1:
                 merged[i] = rs[0]
                 continue
-            kept = [r for r in rs if r.text.strip()] or rs[:1]
-            text = " ".join(r.text.strip() for r in kept)
+            kept = [(r, j) for r, j in pairs if r.text.strip()] or pairs[:1]
+            text = ""
             chars: list[float] = []
-            for k, r in enumerate(kept):
-                if k:
+            for k, (r, j) in enumerate(kept):
+                if k and j:
+                    text += j
                     chars.append(1.0)
+                text += r.text.strip()
                 chars.extend(r.char_confidences[: len(r.text)])
             steps = sum(r.steps for r in rs)
             # geometric mean over every decision of every piece

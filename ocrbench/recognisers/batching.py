@@ -14,6 +14,7 @@ from typing import Sequence
 
 import numpy as np
 
+from ocrbench.pages.crops import clean_crop
 from ocrbench.recognisers.engine import Clock
 from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line, width_batches
 
@@ -34,14 +35,24 @@ class PreparedBatch:
         return int(self.tensor.shape[self.width_axis])
 
 
+def prepare_line(crop: np.ndarray, spec: InputSpec) -> np.ndarray:
+    """One crop cleaned as the card says (``flatten``, ``remove_rules``: :func:`ocrbench.pages.crops.clean_crop`)
+    and resized to the card's height."""
+    g = np.asarray(crop)
+    if (spec.flatten or spec.remove_rules) and g.ndim == 2 and g.size:
+        g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules)
+    return resize_line(g, spec)
+
+
 def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: int, max_pad_ratio: float, *,
                     clock: Clock = time.perf_counter) -> list[PreparedBatch]:
-    """Resize every crop, group by width, and stack each group into a padded tensor."""
+    """Clean every crop as the card says (``flatten``, ``remove_rules``), resize it, group by width, and
+    stack each group into a padded tensor."""
     resized, t_resize = [], []
     for i, c in enumerate(crops):
         t0 = clock()
         try:
-            resized.append(resize_line(np.asarray(c), spec))
+            resized.append(prepare_line(c, spec))
         except ValueError as e:
             raise ValueError(f"line {i + 1}: {e}") from e
         t_resize.append(clock() - t0)

@@ -234,6 +234,8 @@ INPUT_SCHEMA = {
     "width": Key((int,), None, low=1),
     "resize": _str(_D.resize, choices=RESIZE_MODES),
     "filter": _str(_D.filter, choices=tuple(FILTERS)),
+    "flatten": Key((bool,), _D.flatten),
+    "remove_rules": Key((bool,), _D.remove_rules),
 }
 TOP_SCHEMA = {
     "name": _str(),

@@ -38,7 +38,8 @@ import numpy as np
 
 from ocrbench.errors import CardError, ConfigError, OcrbenchError
 from ocrbench.recognisers.card import CARD_FILE, Card, load_card
-from ocrbench.recognisers.preprocess import make_batch, resize_line, width_batches
+from ocrbench.recognisers.batching import prepare_line
+from ocrbench.recognisers.preprocess import make_batch, width_batches
 
 #: ``--ops`` names -> ONNX operator types passed to onnxruntime's quantiser.
 OP_GROUPS: dict[str, tuple[str, ...]] = {
@@ -232,7 +233,7 @@ def _calibration_feeds(src: Card, crops: Sequence[np.ndarray], batch_size: int =
     resized = []
     for i, c in enumerate(crops):
         try:
-            resized.append(resize_line(np.asarray(c), spec))
+            resized.append(prepare_line(c, spec))
         except ValueError as e:
             raise ConfigError("--calibration", f"line {i + 1}: {e}") from e
     feeds = []

@@ -240,6 +240,7 @@ def _worst(run: dict, scores, n_pages: int, n_lines: int) -> list[dict]:
     pages = pages[pages["char_edits"] > 0].sort_values(["cer", "page_id"], ascending=[False, True]).head(n_pages)
     out = []
     lines = scores.lines
+    flagged = {f["page_id"]: f["flags"] for f in run.get("flagged", [])}
     for p in pages.itertuples(index=False):
         ln = lines[(lines["page_id"] == p.page_id) & (lines["char_edits"] > 0)]
         shown = ln.sort_values("char_edits", ascending=False, kind="stable").head(n_lines)
@@ -247,6 +248,7 @@ def _worst(run: dict, scores, n_pages: int, n_lines: int) -> list[dict]:
         out.append({
             "recogniser": run["name"], "run_id": run["run_id"], "page_id": p.page_id, "cer": float(p.cer),
             "char_edits": int(p.char_edits), "ref_chars": int(p.ref_chars), "pairing": p.pairing,
+            "flags": flagged.get(p.page_id, []),
             "lines_with_edits": int(len(ln)), "lines_shown": int(len(shown)),
             "lines": [{"line_no": None if pd.isna(r.line_no) else int(r.line_no), "ref": r.ref, "hyp": r.hyp,
                        "char_edits": int(r.char_edits), "ref_chars": int(r.ref_chars)}
@@ -337,6 +339,9 @@ def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes:
             "post_recipe": recipes.get(rid),
             "failures": [{"page_id": p, "error": e} for p, e in
                          pg.loc[pg["status"] == "failed", ["page_id", "error"]].itertuples(index=False)],
+            # pages the sanity check flagged (blank, not text-like, turned; pages/sanity.py), none in old stores
+            "flagged": [{"page_id": p, "flags": str(f).split(",")} for p, f in
+                        done[["page_id", "flags"]].itertuples(index=False) if isinstance(f, str) and f],
         }
         run.update(_throughput(done["t_total"].to_numpy(float), n_boot, seed))
         run.update(_slope(ln, n_boot, seed))
@@ -351,7 +356,7 @@ def _gather_runs(sel: pd.DataFrame, frames: Mapping[str, pd.DataFrame], recipes:
         lt.insert(0, "recogniser", r.recogniser)
         lt.insert(0, "run_id", rid)
         line_times.append(lt)
-        pr = done[["page_id", "n_lines", "t_total", "width", "height", "skew_degrees"]].copy()
+        pr = done[["page_id", "collection", "flags", "n_lines", "t_total", "width", "height", "skew_degrees"]].copy()
         pr.insert(0, "recogniser", r.recogniser)
         pr.insert(0, "run_id", rid)
         page_rows.append(pr)

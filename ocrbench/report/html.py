@@ -489,6 +489,8 @@ def _worst(s: Mapping) -> str:
                    f"{_plural(w['ref_chars'], 'character')}; {figure(s, f'worst_pages.{k}.lines_shown', 'int')} of "
                    f"{figure(s, f'worst_pages.{k}.lines_with_edits', 'int')} "
                    f"{_plural(w['lines_with_edits'], 'line')} with errors shown)</h3>")
+        if w.get("flags"):
+            out.append(f'<p class="note">Page flagged before recognition: {_e(", ".join(w["flags"]))}.</p>')
         if w.get("pairing") == "page":
             out.append('<p class="note">The reading has a different number of lines than the truth, so the '
                        "page was aligned as one text.</p>")
@@ -650,6 +652,9 @@ def _runs(s: Mapping) -> str:
         if r.get("failures"):
             rows.append(("failed pages", "<br>".join(f'<code>{_e(f["page_id"])}</code>: {_e(f["error"])}'
                                                      for f in r["failures"])))
+        if r.get("flagged"):
+            rows.append(("flagged pages", "<br>".join(f'<code>{_e(f["page_id"])}</code>: {_e(", ".join(f["flags"]))}'
+                                                      for f in r["flagged"])))
         out.append(f"<table><caption>{_e(r['name'])} ({_e(r['kind'])})</caption><tbody>"
                    + "".join(f'<tr><th scope="row">{_e(k)}</th><td>{v}</td></tr>' for k, v in rows)
                    + "</tbody></table>")

@@ -52,11 +52,12 @@ from pathlib import Path
 from typing import Callable, Iterator, Sequence
 
 from ocrbench.errors import ClusterError, ConfigError, OcrbenchError
-from ocrbench.pages import PageRef, list_pages
+from ocrbench.pages import PageRef, scan_pages
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.run.engine import PageOutcome, Prefetcher, RunOptions, as_run_options, input_folder, load_cards, read_page
+from ocrbench.run.engine import (PageOutcome, Prefetcher, RunOptions, as_run_options, input_folder, load_cards,
+                                 read_page, with_listing)
 from ocrbench.run.host import host_info
 from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummary, RunWriter, file_sha256, file_stamp,
                                  open_run)
@@ -459,7 +460,8 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
     dask = dask or DaskOptions(workers=1)
     card_list = load_cards(cards)
     target = Path(target)
-    refs = list_pages(target)
+    listing = scan_pages(target, recurse=options.recurse)
+    refs = listing.refs
     input_dir = input_folder(target)
     own_store = not isinstance(store, RunStore)
     st = RunStore(store) if own_store else store
@@ -486,8 +488,8 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
             window = dask.max_in_flight or max(4, 4 * cl.threads)
             per_task = dask.pages_per_task or auto_pages_per_task(
                 sum(1 for r in refs if any(r.id not in s.done for s in states)), cl.threads)
-            return _write_as_completed(client, refs, states, card_list, st, options, per_task, window,
-                                       clock, progress, postprocess, input_dir)
+            return with_listing(_write_as_completed(client, refs, states, card_list, st, options, per_task, window,
+                                                    clock, progress, postprocess, input_dir), listing)
     finally:
         if own_store:
             st.close()

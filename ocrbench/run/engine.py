@@ -24,7 +24,8 @@ from pathlib import Path
 from typing import Callable, Sequence
 
 from ocrbench.errors import OcrbenchError, StoreError
-from ocrbench.pages import DEFAULT_MAX_PIXELS, Layout, PageRef, analyse_page, list_pages, load_page
+from ocrbench.pages import (DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Layout, Listing, PageRef, inspect_page, load_page,
+                            scan_pages)
 from ocrbench.recognisers.base import Clock, EngineOptions, LineResult, Recogniser
 from ocrbench.recognisers.card import Card, load_card
 from ocrbench.recognisers.registry import open_recogniser
@@ -36,7 +37,7 @@ from ocrbench.store import BatchRecord, LineRecord, PageRecord, RunStore
 
 # Names that moved to run/writer.py and run/host.py, kept importable from here for callers of the engine.
 __all__ = ["RunOptions", "run_pages", "recognise_page", "read_page", "load_and_segment", "LoadedPage", "PageOutcome",
-           "as_run_options", "load_cards", "input_folder", "line_records", "PostApplied", "PostProcess",
+           "as_run_options", "with_listing", "load_cards", "input_folder", "line_records", "PostApplied", "PostProcess",
            "ProgressEvent", "RecogniserSummary", "RunState", "RunSummary", "RunWriter", "apply_postprocess",
            "file_sha256", "host_info", "open_run", "post_recipe", "post_texts"]
 
@@ -60,6 +61,9 @@ class RunOptions:
     max_pixels: int = DEFAULT_MAX_PIXELS
     warm_up: bool = True
     prefetch: bool | None = None
+    pdf_dpi: float = DEFAULT_PDF_DPI     # PDF pages that are not one scanned image are rendered at this
+    auto_rotate: bool = False            # text turned 90/180/270 degrees is turned upright and read
+    recurse: bool = True                 # subfolders (collections) are read too; not a setting (it only lists)
 
     def use_prefetch(self) -> bool:
         if self.prefetch is not None:
@@ -69,6 +73,11 @@ class RunOptions:
     def settings(self) -> dict:
         d = self.engine.to_dict()
         d.update(deskew=self.deskew, max_pixels=self.max_pixels)
+        # recorded only when not the default, so runs started before these options existed still resume
+        if self.pdf_dpi != DEFAULT_PDF_DPI:
+            d["pdf_dpi"] = self.pdf_dpi
+        if self.auto_rotate:
+            d["auto_rotate"] = True
         return d
 
 
@@ -87,7 +96,8 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     options = as_run_options(options)
     cards = load_cards(cards)
     target = Path(target)
-    refs = list_pages(target)
+    listing = scan_pages(target, recurse=options.recurse)
+    refs = listing.refs
     input_dir = input_folder(target)
     own_store = not isinstance(store, RunStore)
     st = RunStore(store) if own_store else store
@@ -99,10 +109,18 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
             states.append(open_run(st, card, rec, settings=settings, input_dir=input_dir, fresh=fresh,
                                    engine=f"onnxruntime {ort_version()}", host=lambda rec=rec: host_info(rec),
                                    refs=refs))
-        return _run(refs, states, st, options, clock, progress, postprocess, input_dir)
+        return with_listing(_run(refs, states, st, options, clock, progress, postprocess, input_dir), listing)
     finally:
         if own_store:
             st.close()
+
+
+def with_listing(summary: RunSummary, listing: Listing) -> RunSummary:
+    """The summary with the files of the input that were not read as pages (and notes on those read with a
+    caveat), so the caller can name every one."""
+    summary.skipped_files = list(listing.skipped)
+    summary.page_notes = list(listing.notes)
+    return summary
 
 
 def as_run_options(options: RunOptions | EngineOptions | None) -> RunOptions:
@@ -211,16 +229,30 @@ class LoadedPage:
     error: str | None = None
     file_size: int | None = None
     file_mtime_ns: int | None = None
+    flags: list[str] | None = None       # sanity flags (pages/sanity.py); None when the page was not checked
 
     @property
     def page_id(self) -> str:
         return self.ref.id
 
+    @property
+    def unreadable(self) -> bool:
+        """Flagged so that its text would be confident garbage: blank, not text, or turned and not turned back
+        (without ``--auto-rotate``). Such a page is stored done with its flags and no lines, never as text."""
+        flags = self.flags or []
+        turned_back = self.layout is not None and self.layout.rotation != 0
+        return bool(set(flags) & UNREAD_FLAGS) or (not turned_back and any(f.startswith("rotated_") for f in flags))
+
     def record(self, status: str, **kw) -> PageRecord:
         """This page's row of ``pages`` with what loading measured, plus ``kw``."""
         return PageRecord(page_id=self.page_id, path=self.ref.display(), content_hash=self.content_hash,
                           status=status, t_load=self.t_load, t_segment=self.t_segment, file_size=self.file_size,
-                          file_mtime_ns=self.file_mtime_ns, **kw)
+                          file_mtime_ns=self.file_mtime_ns, collection=self.ref.collection,
+                          flags=None if self.flags is None else ",".join(self.flags), **kw)
+
+
+#: Flags of pages that are not read at all: nothing on them is text (see pages/sanity.py).
+UNREAD_FLAGS = frozenset({"blank", "not_text_like"})
 
 
 def load_and_segment(ref: PageRef, *, options: RunOptions, clock: Clock = time.perf_counter) -> LoadedPage:
@@ -230,10 +262,12 @@ def load_and_segment(ref: PageRef, *, options: RunOptions, clock: Clock = time.p
     t0 = clock()
     t_load = None
     try:
-        page = load_page(ref, max_pixels=options.max_pixels)
+        page = load_page(ref, max_pixels=options.max_pixels, pdf_dpi=options.pdf_dpi)
         t1 = clock()
         t_load = t1 - t0
-        layout = analyse_page(page.gray, deskew=options.deskew)
+        # over-wide lines are not flagged here: each recogniser cuts them to its own card's width
+        layout, check = inspect_page(page.gray, deskew=options.deskew, auto_rotate=options.auto_rotate,
+                                     max_aspect=math.inf)
         t_segment = clock() - t1
     except StoreError:
         raise
@@ -241,7 +275,7 @@ def load_and_segment(ref: PageRef, *, options: RunOptions, clock: Clock = time.p
         return LoadedPage(ref, chash, t_load, None, error=failure_reason(e), file_size=size, file_mtime_ns=mtime)
     h, w = page.gray.shape[:2]
     return LoadedPage(ref, chash, t_load, t_segment, width=w, height=h, layout=layout, file_size=size,
-                      file_mtime_ns=mtime)
+                      file_mtime_ns=mtime, flags=list(check.flags))
 
 
 #: Why a line whose model output was NaN or infinite has no text.
@@ -288,6 +322,11 @@ def read_page(loaded: LoadedPage, recognisers: Sequence[Recogniser], *, clock: C
     if loaded.error is not None or loaded.layout is None:
         return [PageOutcome(loaded.record("failed", error=loaded.error)) for _ in recognisers]
     layout = loaded.layout
+    if loaded.unreadable:
+        rec = loaded.record("done", width=loaded.width, height=loaded.height, n_lines=0,
+                            skew_degrees=float(layout.skew_degrees), t_preprocess=0.0, t_encode=0.0, t_steps=0.0,
+                            t_collapse=0.0, t_postprocess=0.0, t_total=loaded.t_load + loaded.t_segment)
+        return [PageOutcome(rec) for _ in recognisers]
     crops = [lb.crop for lb in layout.lines]
     size = dict(width=loaded.width, height=loaded.height, n_lines=len(crops),
                 skew_degrees=float(layout.skew_degrees))

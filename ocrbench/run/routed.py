@@ -31,14 +31,14 @@ from pathlib import Path
 from typing import Callable, Sequence
 
 from ocrbench.errors import OcrbenchError
-from ocrbench.pages import Layout, list_pages
+from ocrbench.pages import Layout, scan_pages
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.recognisers.base import Clock
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.run.engine import (LoadedPage, PageOutcome, ProgressEvent, RunOptions, RunState, RunSummary, RunWriter,
                                  as_run_options, host_info, input_folder, load_and_segment, load_cards, open_run,
-                                 read_page)
+                                 read_page, with_listing)
 from ocrbench.run.route import Route, line_doubts, merge_readings, routed_lines
 from ocrbench.store import LineRecord, PageRecord, RunStore
 
@@ -64,7 +64,8 @@ def run_routed(target: Path | str, cards: Sequence[Card | Path | str], route: Ro
     loaded_cards = load_cards(cards)
     fast, slow = pick_cards(route, loaded_cards, cards)
     target = Path(target)
-    refs = list_pages(target)
+    listing = scan_pages(target, recurse=options.recurse)
+    refs = listing.refs
     input_dir = input_folder(target)
     own = not isinstance(store, RunStore)
     st = RunStore(store) if own else store
@@ -96,7 +97,7 @@ def run_routed(target: Path | str, cards: Sequence[Card | Path | str], route: Ro
             todo = [s for s in states if ref.id not in s.done]
             outcomes = route_page(loaded, states, route, st=st, clock=clock, lexicon=lexicon)
             w.write(ref.id, [(s, o) for s, o in zip(states, outcomes) if s in todo])
-        return w.finish()
+        return with_listing(w.finish(), listing)
     finally:
         if own:
             st.close()
@@ -158,5 +159,7 @@ def _stored_outcome(st: RunStore, run_id: int, page_id: str, loaded: LoadedPage)
              ("t_load", "t_segment", "t_preprocess", "t_encode", "t_steps", "t_collapse", "t_postprocess", "t_total")}
     page = PageRecord(page_id=page_id, path=loaded.ref.display(), content_hash=loaded.content_hash, status="done",
                       width=loaded.width, height=loaded.height, n_lines=len(lines),
-                      skew_degrees=loaded.layout.skew_degrees if loaded.layout is not None else None, **times)
+                      skew_degrees=loaded.layout.skew_degrees if loaded.layout is not None else None,
+                      collection=loaded.ref.collection,
+                      flags=None if loaded.flags is None else ",".join(loaded.flags), **times)
     return PageOutcome(page, lines)

@@ -104,6 +104,7 @@ class RecogniserSummary:
     pages_changed: int = 0           # done pages read again in this call because their file changed
     lines_truncated: int = 0         # lines of done pages cut by the recogniser's length guard
     lines_failed: int = 0            # lines of done pages without text (e.g. the model gave NaN)
+    flagged: dict[str, list[str]] = field(default_factory=dict)   # page_id -> sanity flags (done pages)
 
     @property
     def post_incomplete(self) -> bool:
@@ -120,6 +121,8 @@ class RunSummary:
     wall_seconds: float
     recognisers: list[RecogniserSummary]
     pages_changed: int = 0           # distinct done pages read again because their file changed
+    skipped_files: list[tuple[str, str]] = field(default_factory=list)   # (shown path, why): not read as pages
+    page_notes: list[tuple[str, str]] = field(default_factory=list)      # (shown path, note): read with a caveat
 
     @property
     def failed_pages(self) -> list[str]:
@@ -132,6 +135,15 @@ class RunSummary:
         if self.pages_changed:
             out.append(f"{self.pages_changed} page(s) changed on disk since they were read: read again")
         for r in self.recognisers:
+            if r.flagged:
+                counts: dict[str, int] = {}
+                for flags in r.flagged.values():
+                    for f in flags:
+                        counts[f] = counts.get(f, 0) + 1
+                out.append(f"{r.name}: {len(r.flagged)} page(s) flagged ("
+                           + ", ".join(f"{f} {n}" for f, n in sorted(counts.items()))
+                           + "); blank, not text-like and turned pages not turned back are stored without text; "
+                             "flagged pages come first in `ocrbench review`")
             if r.lines_truncated:
                 out.append(f"{r.name}: {r.lines_truncated} line(s) cut by the length guard (--max-tokens); "
                            "flagged in the store and first in `ocrbench review`")
@@ -378,4 +390,4 @@ def summarise(st: RunStore, s: RunState, post_failures: list[tuple[str, str]] | 
         failures=st.failed_pages(s.run_id), post_recipe=recipe,
         post_lines=st.post_coverage(s.run_id)[0] if recipe is not None else 0,
         post_failures=list(post_failures or []), pages_changed=s.changed,
-        lines_truncated=tot["lines_truncated"], lines_failed=tot["lines_failed"])
+        lines_truncated=tot["lines_truncated"], lines_failed=tot["lines_failed"], flagged=st.page_flags(s.run_id))

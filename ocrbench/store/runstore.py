@@ -89,6 +89,8 @@ class PageRecord:
     finished_at: str | None = None
     file_size: int | None = None
     file_mtime_ns: int | None = None
+    collection: str | None = None    # the page's folder relative to the input root ("" at the top)
+    flags: str | None = None         # sanity flags, comma-separated ("" checked and clean, None not checked)
 
 
 @dataclass
@@ -385,6 +387,14 @@ class RunStore:
         return [(from_db(r[0]), from_db(r[1]) or "") for r in
                 self._read("SELECT page_id, error FROM pages WHERE run_id=? AND status='failed' ORDER BY page_id",
                            (run_id,))]
+
+    def page_flags(self, run_id: int) -> dict[str, list[str]]:
+        """page_id -> sanity flags of the run's done pages that carry any (none in stores before version 3)."""
+        if not self._has_column("pages", "flags"):
+            return {}
+        return {from_db(r[0]): str(r[1]).split(",") for r in
+                self._read("SELECT page_id, flags FROM pages WHERE run_id=? AND status='done' AND flags <> '' "
+                           "ORDER BY page_id", (run_id,))}
 
     def run_totals(self, run_id: int) -> dict:
         """Counts and page times of one run: pages_done, pages_failed, lines, chars, model_seconds, t_total (list),

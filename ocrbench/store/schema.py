@@ -16,6 +16,10 @@ Versions:
   ``pages.file_size`` and ``pages.file_mtime_ns`` (the page file as it was
   read: resuming compares them first and hashes the file only when they
   differ). Timestamps carry microseconds (older, whole-second ones still read).
+* 3 — ``pages.collection`` (the page's folder relative to the input root, ``""``
+  at the top) and ``pages.flags`` (the page's sanity flags, comma-separated
+  names such as ``blank`` or ``rotated_90``; ``""`` for a page checked and
+  clean, NULL where nothing was checked: failed pages and older stores).
 
 A store of an older version is migrated in place when it is opened for
 writing (in one transaction; the migration only adds); opened read-only it is
@@ -30,7 +34,7 @@ import datetime as _dt
 import sqlite3
 from typing import Callable
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 #: The oldest version this ocrbench reads (and migrates when it writes).
 OLDEST_READABLE = 1
@@ -82,6 +86,8 @@ PAGES = """CREATE TABLE IF NOT EXISTS pages(
     finished_at TEXT,
     file_size INTEGER,
     file_mtime_ns INTEGER,
+    collection TEXT,
+    flags TEXT,
     PRIMARY KEY (run_id, page_id)
 )"""
 
@@ -143,7 +149,8 @@ SCALING = """CREATE TABLE IF NOT EXISTS scaling(
 CREATE = (META, RUNS, RUNS_INDEX, PAGES, LINES, BATCHES, POSTPROCESSING, SCALING)
 
 #: Columns added after version 1, with the value a reader assumes in a store that lacks them.
-COLUMN_DEFAULTS: dict[str, dict[str, object]] = {"pages": {"file_size": None, "file_mtime_ns": None},
+COLUMN_DEFAULTS: dict[str, dict[str, object]] = {"pages": {"file_size": None, "file_mtime_ns": None,
+                                                            "collection": None, "flags": None},
                                                   "lines": {"truncated": 0, "error": None}}
 
 
@@ -199,8 +206,13 @@ def _migrate_1_to_2(con: sqlite3.Connection) -> None:
     _add_column(con, "pages", "file_mtime_ns", "INTEGER")
 
 
+def _migrate_2_to_3(con: sqlite3.Connection) -> None:
+    _add_column(con, "pages", "collection", "TEXT")
+    _add_column(con, "pages", "flags", "TEXT")
+
+
 #: version -> the step that brings a store of that version to the next one.
-MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _migrate_1_to_2}
+MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _migrate_1_to_2, 2: _migrate_2_to_3}
 
 
 def migrate(con: sqlite3.Connection, from_version: int) -> None:
