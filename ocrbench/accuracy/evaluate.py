@@ -15,15 +15,16 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from enum import Enum
 from itertools import combinations
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from typing import Any, Callable, Sequence
 
 import pandas as pd
 
 from ocrbench.accuracy.score import MAX_ALIGN_CHARS, Scores, score_pages
-from ocrbench.accuracy.stats import paired_comparison
+from ocrbench.accuracy.stats import bootstrap_ratio_ci, paired_comparison
 from ocrbench.errors import StoreError, TextFileError
-from ocrbench.io.text import Pairing, hypothesis_folders, pair_folders, pair_store_pages, read_text_lines
+from ocrbench.io.text import (Pairing, hypothesis_folders, pair_folders, pair_store_pages, read_text_lines,
+                              split_page_id)
 
 __all__ = ["PostText", "System", "TruthReader", "Evaluation", "folder_systems", "store_systems",
            "score_systems", "compare", "compare_systems", "evaluate_store", "evaluate_folders",
@@ -76,6 +77,10 @@ class System:
             "unreadable": self.unreadable,
             "failed_pages": [{"page_id": p, "error": e} for p, e in self.failed],
         })
+        if self.scores is not None:
+            groups = by_collection(self.scores.pages)
+            if len(groups) > 1:
+                out["collections"] = groups
         return out
 
     def problem_lines(self) -> list[str]:
@@ -162,7 +167,7 @@ def folder_systems(truth_dir: Path | str, hyp_dir: Path | str) -> list[System]:
     """The systems of a hypothesis folder, paired with the truth folder by file stem: the folder itself
     when it holds ``.txt`` files, else one system per subfolder (the layout ``run --text-out`` writes)."""
     return [System(name, None, None, pair_folders(truth_dir, folder), read_text_lines)
-            for name, folder in hypothesis_folders(hyp_dir).items()]
+            for name, folder in hypothesis_folders(hyp_dir, truth_dir).items()]
 
 
 def store_systems(store_path: Path | str, truth_dir: Path | str, runs: Sequence[int] | None = None,
@@ -274,3 +279,26 @@ def evaluate_folders(truth_dir: Path | str, hyp_dir: Path | str, *, profile: Any
 
 def _profile_name(profile: Any) -> str:
     return str(getattr(profile, "name", profile))
+
+
+def collection_of_page(page_id: str) -> str:
+    """A page's collection: the folder of its file relative to the scan root (``""`` at the top)."""
+    parent = PurePosixPath(split_page_id(str(page_id))[0]).parent.as_posix()
+    return "" if parent == "." else parent
+
+
+def by_collection(pages: pd.DataFrame, *, n_boot: int = 2000, seed: int = 0) -> list[dict]:
+    """Corpus CER per collection (sum the edits, then divide) with a page-bootstrap interval each."""
+    if pages is None or pages.empty:
+        return []
+    df = pages.assign(collection=[collection_of_page(p) for p in pages["page_id"]])
+    out = []
+    for name, g in df.groupby("collection", sort=True):
+        refs = g["ref_chars"].astype(float).to_numpy()
+        edits = g["char_edits"].astype(float).to_numpy()
+        total = float(refs.sum())
+        low, high = bootstrap_ratio_ci(edits, refs, n_boot=n_boot, seed=seed)
+        out.append({"collection": name, "pages": int(len(g)), "ref_chars": int(total),
+                    "char_edits": int(edits.sum()), "cer": float(edits.sum()) / total if total else None,
+                    "cer_low": low, "cer_high": high})
+    return out

@@ -102,7 +102,19 @@ def print_scores(con: Console, sm: dict, top: int) -> None:
         n = len(sm["line_count_mismatch"])
         con.print(f"{n} page{'s' if n != 1 else ''} had different line counts and "
                   f"{'were' if n != 1 else 'was'} aligned as one text each.", markup=False, highlight=False)
+    if sm.get("collections"):
+        con.print(_collections(sm["collections"]))
     con.print(f"recipe: {sm['recipe']}", markup=False, highlight=False, style="dim", soft_wrap=True)
+
+
+def _collections(rows: list[dict]) -> Table:
+    t = Table(title="CER per collection (page folder)", title_justify="left")
+    for col in ("collection", "pages", "characters", "CER", "interval"):
+        t.add_column(col, justify="left" if col == "collection" else "right")
+    for r in rows:
+        t.add_row(r["collection"] or "(top)", str(r["pages"]), f"{r['ref_chars']:,}", pct(r["cer"]),
+                  interval(r["cer_low"], r["cer_high"]))
+    return t
 
 
 def print_comparisons(con: Console, comparisons: list[dict]) -> None:

@@ -248,9 +248,13 @@ def _text_files(folder: Path, what: str, *, alto: bool = False) -> dict[str, Pat
     return found
 
 
-def hypothesis_folders(hyp_dir: str | Path) -> dict[str, Path]:
+def hypothesis_folders(hyp_dir: str | Path, truth_dir: str | Path | None = None) -> dict[str, Path]:
     """The hypothesis folders under ``hyp_dir``, by name: the folder itself when it holds ``.txt`` files,
-    else each subfolder that does (the layout ``run --text-out`` writes: one subfolder per recogniser)."""
+    else each subfolder that does (the layout ``run --text-out`` writes: one subfolder per recogniser).
+
+    A tree of collections (``box1/``, ``box2/``) looks like that layout too; when every subfolder's
+    name is also a folder of ``truth_dir``, the folder is read as one tree, not as recognisers.
+    """
     root = Path(hyp_dir)
     _text_files(root, "hypothesis")                     # names a missing folder or a file
     if any(p.is_file() and p.name.lower().endswith(TEXT_SUFFIX) for p in root.iterdir()):
@@ -258,6 +262,8 @@ def hypothesis_folders(hyp_dir: str | Path) -> dict[str, Path]:
     subs = {p.name: p for p in sorted(root.iterdir()) if p.is_dir() and _text_files(p, "hypothesis")}
     if not subs:
         raise TextFileError(root, "holds no .txt files, neither directly nor in one subfolder per recogniser")
+    if truth_dir is not None and all((Path(truth_dir) / name).is_dir() for name in subs):
+        return {root.name or str(root): root}
     return subs
 
 
