@@ -185,7 +185,7 @@ def margin_targets(system: System, cal: Calibration | None, cand: pd.DataFrame, 
     pg = system.pages
     rows = []
     for coll, g in cand.groupby("collection", sort=True):
-        keyed = pg[pg["keyed"] & (pg["page_id"].map(collection_of) == coll)]
+        keyed = pg[pg["keyed"] & (collections(pg) == coll)]
         e = est.get(coll) or {}
         cer, source = e.get("est_cer"), "estimated CER of the collection"
         if not cer:
