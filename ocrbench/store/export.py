@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ocrbench.errors import StoreError
+from ocrbench.errors import StoreError, TextFileError
+from ocrbench.io.tables import write_table
 from ocrbench.store.runstore import RunStore, printable
 
 FORMATS = ("parquet", "csv")
@@ -25,13 +26,8 @@ def export(store_path: Path | str, out_dir: Path | str, fmt: str = "parquet") ->
         frames["postprocessing"] = st.post_recipes()
     written = []
     for name, df in frames.items():
-        p = out / f"{name}.{fmt}"
         try:
-            if fmt == "csv":
-                df.to_csv(p, index=False, encoding="utf-8")
-            else:
-                df.to_parquet(p, index=False)
-        except OSError as e:
-            raise StoreError(f"{printable(p)}: cannot write the export ({e.strerror or e})") from e
-        written.append(p)
+            written += write_table(df, out, name, (fmt,))
+        except TextFileError as e:
+            raise StoreError(f"{e.path}: cannot write the export ({e.reason})") from e
     return written

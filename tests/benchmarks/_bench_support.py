@@ -23,3 +23,23 @@ def images_only(folder: Path) -> Path:
         if p.suffix in (".txt", ".json"):
             p.unlink()
     return folder
+
+
+SCANS = Path(__file__).resolve().parents[2] / "scans_demo"
+
+
+def say(msg: str = "") -> None:
+    print(msg, flush=True)
+
+
+def pages_subset(n: int | None, tmp: Path) -> Path:
+    """The demo archive, or a folder of links to its first ``n`` page images."""
+    if n is None:
+        return SCANS
+    from ocrbench.pages import IMAGE_SUFFIXES
+
+    out = tmp / "pages"
+    out.mkdir()
+    for p in sorted(q for q in SCANS.iterdir() if q.suffix.lower() in IMAGE_SUFFIXES)[:n]:
+        (out / p.name).symlink_to(p)
+    return out

@@ -27,24 +27,10 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-SCANS = ROOT / "scans_demo"
+from _bench_support import SCANS, pages_subset, say  # noqa: E402
 
-
-def say(msg: str = "") -> None:
-    print(msg, flush=True)
-
-
-def pages_subset(n: int | None, tmp: Path) -> Path:
-    if n is None:
-        return SCANS
-    from ocrbench.pages import IMAGE_SUFFIXES
-
-    out = tmp / "pages"
-    out.mkdir()
-    for p in sorted(q for q in SCANS.iterdir() if q.suffix.lower() in IMAGE_SUFFIXES)[:n]:
-        (out / p.name).symlink_to(p)
-    return out
 
 
 def main(argv=None) -> dict:

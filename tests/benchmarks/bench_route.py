@@ -30,25 +30,9 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from _bench_support import find_models  # noqa: E402
-
-SCANS = ROOT / "scans_demo"
+from _bench_support import SCANS, find_models, pages_subset, say  # noqa: E402
 
 
-def say(msg: str = "") -> None:
-    print(msg, flush=True)
-
-
-def pages_subset(n: int | None, tmp: Path) -> Path:
-    if n is None:
-        return SCANS
-    from ocrbench.pages import IMAGE_SUFFIXES
-
-    out = tmp / "pages"
-    out.mkdir()
-    for p in sorted(q for q in SCANS.iterdir() if q.suffix.lower() in IMAGE_SUFFIXES)[:n]:
-        (out / p.name).symlink_to(p)
-    return out
 
 
 def main(argv=None) -> dict:
