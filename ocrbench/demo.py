@@ -62,7 +62,7 @@ class DemoArchive:
     price_core_hour: float = 0.05
     seconds_per_error: float = 10.0
     correction_price_hour: float = 18.0
-    correctors: int = 50                  # invented: a large transcription team, each 37.5 hours a week
+    correctors: int = 50                  # invented: a large keying team, each 37.5 hours a week
 
     def layout(self, workers: int | None = None, *, cores: int | None = None) -> tuple[int, int]:
         """(workers per machine, machines) for ``workers`` on machines like this one: as many per machine as

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import functools
 import os
-import sys
 from typing import Callable
 
 import click
@@ -129,12 +128,12 @@ def main() -> None:
         app()
     except KeyboardInterrupt:
         _say("interrupted")
-        sys.exit(EXIT_INTERRUPTED)
+        raise SystemExit(EXIT_INTERRUPTED) from None
     except OcrbenchError as e:  # an error that stops the whole command
         _say(str(e))
-        sys.exit(EXIT_USAGE)
+        raise SystemExit(EXIT_USAGE) from None
     except Exception as e:  # noqa: BLE001 - the last line of defence, by design
         if _debug():
             raise
         _say(unexpected(e))
-        sys.exit(EXIT_USAGE)
+        raise SystemExit(EXIT_USAGE) from None

@@ -130,6 +130,8 @@ def run(
                                scheduler=scheduler, pages_per_task=pages_per_task, connect_timeout=connect_timeout)
         except OcrbenchError as e:
             raise fail(str(e), EXIT_USAGE)
+    if not target.exists():                               # before any progress bar or store
+        raise fail(f"{target}: no such file or folder", EXIT_USAGE)
     warn_before_run(recogniser, engine)
     try:
         pipeline = None
