@@ -52,11 +52,11 @@ from pathlib import Path
 from typing import Callable, Iterator, Sequence
 
 from ocrbench.errors import ClusterError, ConfigError, OcrbenchError
-from ocrbench.pages import PageRef, scan_pages
+from ocrbench.pages import PageRef
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.recognisers.card import Card, load_card
-from ocrbench.run.engine import (PageOutcome, Prefetcher, RunOptions, as_run_options, input_folder, load_cards,
+from ocrbench.run.engine import (PageOutcome, Prefetcher, RunOptions, as_run_options, load_cards, open_inputs,
                                  read_page, with_listing)
 from ocrbench.run.host import host_info
 from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummary, RunWriter, file_sha256, file_stamp,
@@ -459,12 +459,8 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
     options = as_run_options(options)
     dask = dask or DaskOptions(workers=1)
     card_list = load_cards(cards)
-    target = Path(target)
-    listing = scan_pages(target, recurse=options.recurse)
+    listing, input_dir, st, own_store = open_inputs(target, options, store)
     refs = listing.refs
-    input_dir = input_folder(target)
-    own_store = not isinstance(store, RunStore)
-    st = RunStore(store) if own_store else store
     try:
         with connect(dask) as cl:
             client = cl.client

@@ -95,12 +95,8 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     """
     options = as_run_options(options)
     cards = load_cards(cards)
-    target = Path(target)
-    listing = scan_pages(target, recurse=options.recurse)
+    listing, input_dir, st, own_store = open_inputs(target, options, store)
     refs = listing.refs
-    input_dir = input_folder(target)
-    own_store = not isinstance(store, RunStore)
-    st = RunStore(store) if own_store else store
     try:
         settings = options.settings()
         states: list[RunState] = []
@@ -113,6 +109,17 @@ def run_pages(target: Path | str, cards: Sequence[Card | Path | str], *, store: 
     finally:
         if own_store:
             st.close()
+
+
+def open_inputs(target: Path | str, options: RunOptions, store: RunStore | Path | str
+                ) -> tuple[Listing, str, RunStore, bool]:
+    """What every engine starts from: the listing of ``target`` (pages, and every file not read), the input
+    folder as runs record it, and the run store, opened here when given as a path (then the bool is True
+    and the caller closes it)."""
+    target = Path(target)
+    listing = scan_pages(target, recurse=options.recurse)
+    own = not isinstance(store, RunStore)
+    return listing, input_folder(target), (RunStore(store) if own else store), own
 
 
 def with_listing(summary: RunSummary, listing: Listing) -> RunSummary:

@@ -31,13 +31,13 @@ from pathlib import Path
 from typing import Callable, Sequence
 
 from ocrbench.errors import OcrbenchError
-from ocrbench.pages import Layout, scan_pages
+from ocrbench.pages import Layout
 from ocrbench.postprocess.lexicon import Lexicon
 from ocrbench.recognisers.base import Clock
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.registry import open_recogniser
 from ocrbench.run.engine import (LoadedPage, PageOutcome, ProgressEvent, RunOptions, RunState, RunSummary, RunWriter,
-                                 as_run_options, host_info, input_folder, load_and_segment, load_cards, open_run,
+                                 as_run_options, host_info, load_and_segment, load_cards, open_inputs, open_run,
                                  read_page, with_listing)
 from ocrbench.run.route import Route, line_doubts, merge_readings, routed_lines
 from ocrbench.store import LineRecord, PageRecord, RunStore
@@ -63,12 +63,8 @@ def run_routed(target: Path | str, cards: Sequence[Card | Path | str], route: Ro
     options = as_run_options(options)
     loaded_cards = load_cards(cards)
     fast, slow = pick_cards(route, loaded_cards, cards)
-    target = Path(target)
-    listing = scan_pages(target, recurse=options.recurse)
+    listing, input_dir, st, own = open_inputs(target, options, store)
     refs = listing.refs
-    input_dir = input_folder(target)
-    own = not isinstance(store, RunStore)
-    st = RunStore(store) if own else store
     try:
         import onnxruntime as ort
 

@@ -28,6 +28,7 @@ import json
 import math
 import re
 import xml.etree.ElementTree as ET
+from contextlib import contextmanager
 from pathlib import Path, PurePosixPath
 
 from ocrbench.errors import StoreError
@@ -158,16 +159,22 @@ def _line_rows(frame, post: bool) -> list[dict]:
     return rows
 
 
-def export_alto(store_path: Path | str, out_dir: Path | str, *, text: str = "raw") -> list[Path]:
-    """Write one ALTO file per done page of every run; returns the files written."""
+@contextmanager
+def _runs(store_path: Path | str, text: str):
+    """The store opened read-only, its runs and each run's output folder name (``text`` checked first)."""
     from ocrbench.store import RunStore     # the store package's run store (this module adds to it)
 
     if text not in TEXT_CHOICES:
         raise StoreError(f"text must be one of {', '.join(TEXT_CHOICES)}, not {text!r}")
-    written: list[Path] = []
     with RunStore(store_path, read_only=True) as st:
         infos = [st.run_info(r) for r in st.run_ids()]
-        folders = run_folders(infos)
+        yield st, infos, run_folders(infos)
+
+
+def export_alto(store_path: Path | str, out_dir: Path | str, *, text: str = "raw") -> list[Path]:
+    """Write one ALTO file per done page of every run; returns the files written."""
+    written: list[Path] = []
+    with _runs(store_path, text) as (st, infos, folders):
         for info in infos:
             frames = st.read_frames([info.run_id])
             pages = frames["pages"][frames["pages"]["status"] == "done"]
@@ -185,14 +192,8 @@ def export_alto(store_path: Path | str, out_dir: Path | str, *, text: str = "raw
 
 def export_texts(store_path: Path | str, out_dir: Path | str, *, text: str = "raw") -> list[Path]:
     """Write each done page's lines as ``<out>/<recogniser>/<text name>`` (what ``run --text-out`` writes)."""
-    from ocrbench.store import RunStore
-
-    if text not in TEXT_CHOICES:
-        raise StoreError(f"text must be one of {', '.join(TEXT_CHOICES)}, not {text!r}")
     written: list[Path] = []
-    with RunStore(store_path, read_only=True) as st:
-        infos = [st.run_info(r) for r in st.run_ids()]
-        folders = run_folders(infos)
+    with _runs(store_path, text) as (st, infos, folders):
         for info in infos:
             texts = st.page_texts(info.run_id, post=text == "post")
             paths = text_paths(Path(out_dir), folders[info.run_id], texts.keys())
