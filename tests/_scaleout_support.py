@@ -70,3 +70,29 @@ def assert_whole_pages(db: Path) -> dict[int, set[str]]:
             assert key not in lines and key not in batch_lines
     assert set(lines) <= {(r[0], r[1]) for r in rows["pages"]}       # no orphan lines
     return done
+
+
+def done_pages(db: Path, run_id: int | None = None) -> int:
+    """Done pages of a store (of one run when given), read while a run writes (WAL lets readers in)."""
+    import sqlite3
+
+    where = "status='done'" + ("" if run_id is None else f" AND run_id={int(run_id)}")
+    try:
+        con = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1)
+        try:
+            return con.execute(f"SELECT COUNT(*) FROM pages WHERE {where}").fetchone()[0]
+        finally:
+            con.close()
+    except sqlite3.Error:
+        return 0
+
+
+def group_alive(pgid: int) -> bool:
+    """Whether any process of the process group ``pgid`` is still alive."""
+    import os
+
+    try:
+        os.killpg(pgid, 0)
+        return True
+    except ProcessLookupError:
+        return False

@@ -27,7 +27,7 @@ from pathlib import Path
 
 import pytest
 
-from _scaleout_support import assert_whole_pages, small_pages, tiny_cards
+from _scaleout_support import assert_whole_pages, done_pages, group_alive, small_pages, tiny_cards
 from ocrbench.run.engine import RunOptions, run_pages
 from ocrbench.store import RunStore
 
@@ -158,23 +158,6 @@ def test_cluster_started_with_dasks_own_commands(pages, cards, reference, tmp_pa
 # --------------------------------------------------------------------------- Ctrl-C
 
 
-def done_pages(db: Path) -> int:
-    try:
-        con = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1)
-        try:
-            return con.execute("SELECT COUNT(*) FROM pages WHERE status='done'").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
-
-
-def group_alive(pgid: int) -> bool:
-    try:
-        os.killpg(pgid, 0)
-        return True
-    except ProcessLookupError:
-        return False
 
 
 @pytest.mark.parametrize("extra", [[], ["--workers", "2"]], ids=["serial", "workers"])

@@ -29,7 +29,7 @@ import pytest
 from onnx import helper
 
 import _tiny_models as tm
-from _scaleout_support import assert_whole_pages, small_pages, tiny_cards
+from _scaleout_support import assert_whole_pages, done_pages, group_alive, small_pages, tiny_cards
 from ocrbench.run.distributed import DaskOptions, run_distributed
 from ocrbench.run.engine import RunOptions, run_pages
 from ocrbench.store import RunStore
@@ -68,24 +68,6 @@ def run_cmd(pages: Path, cards, db: Path, *extra: str) -> list[str]:
     return args
 
 
-def done_pages(db: Path) -> int:
-    """Pages the first run has finished so far, read while the run writes (WAL lets readers in)."""
-    try:
-        con = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1)
-        try:
-            return con.execute("SELECT COUNT(*) FROM pages WHERE run_id=1 AND status='done'").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
-
-
-def group_alive(pgid: int) -> bool:
-    try:
-        os.killpg(pgid, 0)
-        return True
-    except ProcessLookupError:
-        return False
 
 
 # --------------------------------------------------------------------------- kill -9 of the whole run
@@ -101,7 +83,7 @@ def test_whole_run_killed_then_rerun_holds_every_page_once(engine, pages, cards,
                             stderr=subprocess.DEVNULL, start_new_session=True)
     try:
         deadline = time.monotonic() + 120
-        while done_pages(db) < 3 and proc.poll() is None and time.monotonic() < deadline:
+        while done_pages(db, run_id=1) < 3 and proc.poll() is None and time.monotonic() < deadline:
             time.sleep(0.02)
     finally:
         os.killpg(proc.pid, signal.SIGKILL)          # the whole run: the command and its worker processes
