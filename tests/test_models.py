@@ -201,13 +201,17 @@ def test_text_from_another_renderer_under_10_percent(folder, decoding):
 
 
 def test_build_script_data_generator_runs_without_torch():
-    """The build script must import and generate data with torch absent."""
+    """The build script and its line generator (models/linegen.py) must import and make lines with torch absent."""
     code = (
         "import sys; sys.modules['torch'] = None\n"
         f"sys.path.insert(0, {str(MODELS)!r})\n"
         "import random, build\n"
         "b, w, t = build.make_batch_lines(random.Random(1), 4)\n"
         "assert b.shape[0] == 4 and b.shape[2] == 32 and len(t) == 4\n"
+        "import linegen\n"
+        "assert len(linegen.faces(linegen.TRAIN_FAMILIES)) >= 9\n"               # DejaVu at the least
+        "lines = linegen.heldout_family_lines(6, degraded=True)\n"
+        "assert len(lines) == 6 and all(t for _, t, _ in lines)\n"
         "print('ok', b.shape)\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
