@@ -344,15 +344,15 @@ def render_line(rng: random.Random, face_list: Sequence[tuple[str, Path, bool]],
     fields = [f for f in fields if f]
     family, path, has_onum = face_list[rng.randrange(len(face_list))]
     small = rng.random() < 0.25
-    size = rng.randint(11, 16) if small else rng.randint(16, 38)     # x-height about 0.45-0.5 of the size
+    size = rng.randint(9, 16) if small else rng.randint(16, 38)      # x-height about 0.45-0.5 of the size
     fnt = load_font(path, size)
     feats = ["onum"] if (has_onum and RAQM and rng.random() < 0.4) else None
     ink = rng.randint(0, 40) if rng.random() < 0.75 else rng.randint(50, 130)
-    table = kind in ("ledger", "register", "numbers") and rng.random() < 0.35
+    table = kind in ("ledger", "register", "numbers") and rng.random() < 0.45
     em_gap = (2.0, 25.0) if table else (0.5, 5.0)
     tracking = size * rng.uniform(-0.03, 0.25) if rng.random() < 0.2 else 0.0
     stroke = 1 if (size >= 18 and rng.random() < 0.12) else 0
-    rules = table and rng.random() < 0.5
+    rules = table and rng.random() < 0.6
     underline = rng.random() < 0.12
     img = render_fields(fields, fnt, rng, ink=ink, em_gap=em_gap, tracking=tracking, feats=feats,
                         stroke=stroke, rules=rules, underline=underline, centre=kind == "heading")
@@ -361,7 +361,7 @@ def render_line(rng: random.Random, face_list: Sequence[tuple[str, Path, bool]],
     if degrade and size >= 20 and rng.random() < 0.15:
         img = stroke_weight(img, rng)
     img = synth.pad_like_segmenter(img, rng)
-    if rng.random() < 0.12:                                         # a cell border above or below
+    if rng.random() < 0.25:                                         # a cell border above or below
         d = ImageDraw.Draw(img)
         y = rng.choice([rng.randint(0, 2), img.height - 1 - rng.randint(0, 2)])
         d.line([(0, y), (img.width, y)], fill=ink + rng.randint(0, 80), width=max(1, size // 18))

@@ -26,7 +26,7 @@ sys.path.insert(0, str(MODELS))
 
 import linegen  # noqa: E402
 
-N_LINES = 200          # per condition (clean, degraded); fixed seed inside linegen
+N_LINES = 150          # per condition (clean, degraded); fixed seed inside linegen
 
 # The targets: held-out families, clean and degraded, greedy.
 TARGET = {"ctc": 0.02, "seq": 0.03}
