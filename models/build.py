@@ -626,6 +626,8 @@ def export(opset: int = 17, only: str | None = None):
     CRNN, Seq2Seq, StepWrapper, FullWrapper = build_modules()
     heldout = heldout_lines(300, kinds=TEXT_KINDS)
     heldout_any = heldout_lines(300)
+    fam = {d: [(resize_line(np.asarray(im), SPEC), t) for im, t, _ in linegen.heldout_family_lines(200, degraded=d)]
+           for d in (False, True)}
     figures = {}
 
     # ---- CTC
@@ -649,13 +651,16 @@ def export(opset: int = 17, only: str | None = None):
             return greedy_ctc(sess.run(None, {"image": b})[0], w)
         c_raw, c_ws = cer_on(heldout, dec_ctc)
         _, c_any = cer_on(heldout_any, dec_ctc)
+        fam_cer = {d: cer_on(fam[d], dec_ctc)[1] for d in (False, True)}
         (out / "alphabet.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in CTC_CLASSES) + "\n", encoding="utf-8")
         done = json.loads((WORK / "ctc.done").read_text()) if (WORK / "ctc.done").exists() else {}
         figures[CTC_NAME] = {"parameters": sum(p.numel() for p in m.parameters()),
                              "onnx_bytes": path.stat().st_size, "parity_max_abs_diff": diff,
                              "heldout_lines": len(heldout), "heldout_cer_raw": c_raw,
                              "heldout_cer_ws_collapsed": c_ws,
-                             "heldout_cer_ws_collapsed_with_random_chars": c_any, "train_steps": done.get("step"),
+                             "heldout_cer_ws_collapsed_with_random_chars": c_any,
+                             "heldout_families_cer_clean": fam_cer[False], "heldout_families_cer_degraded": fam_cer[True],
+                             "heldout_families_lines": len(fam[False]), "train_steps": done.get("step"),
                              "train_minutes": done.get("minutes")}
         print(json.dumps(figures[CTC_NAME], indent=1))
 
@@ -724,6 +729,7 @@ def export(opset: int = 17, only: str | None = None):
             return greedy_seq_ort(es, ss, b, mem_mask_for(w, b.shape[-1]))
         c_raw, c_ws = cer_on(heldout, dec_seq)
         _, c_any = cer_on(heldout_any, dec_seq)
+        fam_cer = {d: cer_on(fam[d], dec_seq)[1] for d in (False, True)}
         (out / "vocab.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in SEQ_VOCAB) + "\n", encoding="utf-8")
         done = json.loads((WORK / "seq.done").read_text()) if (WORK / "seq.done").exists() else {}
         figures[SEQ_NAME] = {"parameters": sum(p.numel() for p in m.parameters()),
@@ -731,6 +737,8 @@ def export(opset: int = 17, only: str | None = None):
                              "parity_max_abs_diff": diffs, "heldout_lines": len(heldout),
                              "heldout_cer_raw": c_raw, "heldout_cer_ws_collapsed": c_ws,
                              "heldout_cer_ws_collapsed_with_random_chars": c_any,
+                             "heldout_families_cer_clean": fam_cer[False], "heldout_families_cer_degraded": fam_cer[True],
+                             "heldout_families_lines": len(fam[False]),
                              "train_steps": done.get("step"), "train_minutes": done.get("minutes")}
         print(json.dumps(figures[SEQ_NAME], indent=1))
 
@@ -883,8 +891,11 @@ def write_readme_block():
 
     row("parameters", lambda f: f"{f['parameters']:,}")
     row("ONNX bytes (all graphs)", lambda f: f"{f['onnx_bytes']:,}")
-    row("held-out text lines: CER, greedy, whitespace collapsed",
+    row("held-out DejaVu text lines: CER, greedy, whitespace collapsed",
         lambda f: f"{100 * f['heldout_cer_ws_collapsed']:.2f}% ({f['heldout_lines']} lines)")
+    row("held-out design families, clean: CER, greedy, whitespace collapsed",
+        lambda f: f"{100 * f['heldout_families_cer_clean']:.2f}% ({f['heldout_families_lines']} lines)")
+    row("held-out design families, degraded", lambda f: f"{100 * f['heldout_families_cer_degraded']:.2f}%")
     row("same, raw (no whitespace collapsing)", lambda f: f"{100 * f['heldout_cer_raw']:.2f}%")
     row("held-out lines incl. random-character strings", lambda f: f"{100 * f['heldout_cer_ws_collapsed_with_random_chars']:.2f}%")
     row("onnxruntime vs torch, max abs diff",
