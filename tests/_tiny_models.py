@@ -285,6 +285,11 @@ log_probs = "log_probs"
 """
 
 
+#: The tiny seq card with the repetition guard off: the tiny decoder's lines are one letter over and over
+#: (up to 16 ``c`` in a row on wide lines), which the guard would cut; tests of the token limit use this.
+SEQ_CARD_NO_REPEAT_GUARD = SEQ_CARD.replace("[seq]\n", "[seq]\nrepeat_guard = false\n", 1)
+
+
 def write_seq(folder: Path, *, card: str = SEQ_CARD) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     _save(seq_encoder(), folder / "encoder.onnx")
