@@ -97,28 +97,51 @@ def advance(state: tuple[tuple[int, ...], int] | None, tokens: Sequence[int], to
 
 
 class RepeatState:
-    """The guard's counts for the rows of a greedy batch, updated with numpy once per step."""
+    """The guard's counts for the rows of a greedy batch, updated with numpy once per step.
+
+    Per step: one comparison of the new tokens with the last ``max_ngram`` tokens, the run counts bumped or
+    reset, and their maximum against the lowest threshold; the per-size thresholds and the filler test run
+    only when some run gets that far (rare), so the guard costs four small array operations per step.
+    """
 
     def __init__(self, rows: int, guard: RepeatGuard, filler: np.ndarray):
-        self.g = guard
         self.filler = filler
         self.runs = np.zeros((rows, guard.max_ngram), np.int64)
-        self.frun = np.zeros(rows, np.int64)
-        self.ns = np.arange(1, guard.max_ngram + 1)
+        ns = np.arange(1, guard.max_ngram + 1)
 
-    def step(self, hist: np.ndarray, nxt: np.ndarray) -> np.ndarray:
+        def need(tokens: int) -> np.ndarray:
+            """The run count (tokens equal to the one n back) at which n-grams of each size n fire."""
+            return np.maximum(guard.min_copies * ns, -(-tokens // ns) * ns) - ns
+
+        self.need, self.need_filler = need(guard.min_tokens), need(guard.min_filler_tokens)
+        self.low = np.minimum(self.need, self.need_filler)
+        self.lowest = int(self.low.min())
+
+    def _filler(self, toks) -> bool:
+        return all(0 <= t < len(self.filler) and self.filler[t] for t in toks)
+
+    def step(self, hist: np.ndarray, nxt: np.ndarray) -> np.ndarray | None:
         """``hist``: (R, 1 + tokens so far), start token first; ``nxt``: the tokens chosen now.
-        Returns per row the period the guard cuts at (0: none)."""
-        m = min(self.g.max_ngram, hist.shape[1] - 1)
-        eq = hist[:, hist.shape[1] - m:][:, ::-1] == nxt[:, None]          # column k: the token k+1 back
-        self.runs[:, :m] = np.where(eq, self.runs[:, :m] + 1, 0)
-        self.runs[:, m:] = 0
-        fill = self.filler[np.clip(nxt, 0, len(self.filler) - 1)] & (nxt >= 0) & (nxt < len(self.filler))
-        self.frun = np.where(fill, self.frun + 1, 0)
-        copies = (self.runs + self.ns) // self.ns
-        need = np.where(self.frun[:, None] >= self.ns, self.g.min_filler_tokens, self.g.min_tokens)
-        cut = (copies >= self.g.min_copies) & (copies * self.ns >= need)
-        return np.where(cut.any(axis=1), np.argmax(cut, axis=1) + 1, 0)
+        Returns per row the period the guard cuts at (0: none), or None when no row is cut."""
+        c = hist.shape[1]
+        m = min(self.runs.shape[1], c - 1)
+        if m == 0:
+            return None
+        runs = self.runs[:, :m]                                       # a view: updated in place
+        runs += 1
+        runs *= hist[:, c - m:][:, ::-1] == nxt[:, None]             # column k: the token k+1 back
+        if runs.max() < self.lowest:                                  # the usual step: no run near a limit
+            return None
+        hit = runs >= self.low[:m]
+        out = np.zeros(len(nxt), np.int64)
+        for r in np.flatnonzero(hit.any(axis=1)):
+            for k in np.flatnonzero(hit[r]):                          # smallest n first
+                n = int(k) + 1
+                filler = self._filler([int(nxt[r]), *hist[r, c - n + 1:].tolist()])
+                if runs[r, k] >= (self.need_filler[k] if filler else self.need[k]):
+                    out[r] = n
+                    break
+        return out
 
     def take(self, idx: np.ndarray) -> None:
-        self.runs, self.frun = self.runs[idx], self.frun[idx]
+        self.runs = self.runs[idx]

@@ -337,7 +337,7 @@ class SeqRecogniser(Recogniser):
             best = lp[np.arange(len(nxt)), nxt]
             bad = _bad_rows(lp)
             fin = (nxt == s.eos_index) | bad
-            cut = rep.step(hist, nxt) if rep is not None else np.zeros(len(nxt), np.int64)
+            cut = rep.step(hist, nxt) if rep is not None else None      # None: no line cut this step
             for r in (range(len(rows)) if mode == "drop" else np.flatnonzero(active)):
                 d = out[rows[r]]
                 if bad[r]:
@@ -348,9 +348,10 @@ class SeqRecogniser(Recogniser):
                     d.ended = True
                 else:
                     d.tokens.append(int(nxt[r]))
-                    if cut[r]:
+                    if cut is not None and cut[r]:
                         d.drop_tail(int(cut[r]))
-            fin |= cut > 0
+            if cut is not None:
+                fin |= cut > 0
             cache = new_cache
             if mode == "drop":
                 if fin.all():
