@@ -285,6 +285,11 @@ log_probs = "log_probs"
 """
 
 
+#: The tiny seq card with the repetition guard off: the tiny decoder's lines are one letter over and over
+#: (up to 16 ``c`` in a row on wide lines), which the guard would cut; tests of the token limit use this.
+SEQ_CARD_NO_REPEAT_GUARD = SEQ_CARD.replace("[seq]\n", "[seq]\nrepeat_guard = false\n", 1)
+
+
 def write_seq(folder: Path, *, card: str = SEQ_CARD) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     _save(seq_encoder(), folder / "encoder.onnx")
@@ -292,6 +297,99 @@ def write_seq(folder: Path, *, card: str = SEQ_CARD) -> Path:
     _save(seq_decoder_full(), folder / "decoder_full.onnx")
     write_symbols(folder / "vocab.txt", SEQ_VOCAB)
     (folder / "card.toml").write_text(card, encoding="utf-8")
+    return folder
+
+
+#: The scripted decoder's vocabulary: special tokens, then one character per token.
+SCRIPT_VOCAB = ["<pad>", "<bos>", "<eos>"] + list(" .-_=,/&£abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789")
+SCRIPT_LEN = 320   # rows of the scripted table: past any max_tokens the tests use
+
+
+def scripted_table(script: str | list[int], *, end: bool = True, loop: bool = False) -> np.ndarray:
+    """(SCRIPT_LEN, V) log-probabilities: at position k the script's k-th token is likeliest (p ~ 0.95), the
+    next vocabulary entry second (p ~ 0.05: a runner-up for beam search), the rest (the end token included)
+    near e^-12, so even a 300-token script outscores stopping at once. ``end``: the end token follows
+    the script (else its last token repeats); ``loop``: the script repeats to the end of the table instead."""
+    ids = [SCRIPT_VOCAB.index(c) for c in script] if isinstance(script, str) else list(script)
+    seq = (ids * (SCRIPT_LEN // max(1, len(ids)) + 1) if loop else ids + [2] * SCRIPT_LEN)[:SCRIPT_LEN]
+    if not end and not loop:
+        seq = (ids + [ids[-1]] * SCRIPT_LEN)[:SCRIPT_LEN]
+    V = len(SCRIPT_VOCAB)
+    scores = np.zeros((SCRIPT_LEN, V), np.float64)
+    for k, t in enumerate(seq):
+        scores[k, t] = 12.0
+        scores[k, 3 + (t - 2) % (V - 3)] += 9.0 if t != 2 else 0.0      # a runner-up that is not the end token
+    scores[:, 0] = scores[:, 1] = -20.0
+    lp = scores - np.log(np.exp(scores).sum(axis=1, keepdims=True))
+    return lp.astype(np.float32)
+
+
+def scripted_decoder_full(table: np.ndarray) -> onnx.ModelProto:
+    """An uncached decoder that ignores the image: its next-token log-probabilities are row (prefix length - 1)
+    of ``table``, the same for every line and every hypothesis (a scripted reader, for decoding tests)."""
+    V = table.shape[1]
+    nodes = [
+        helper.make_node("Shape", ["tokens"], ["tshape"]),
+        helper.make_node("Gather", ["tshape", "one"], ["length"], axis=0),
+        helper.make_node("Sub", ["length", "one"], ["pos"]),
+        helper.make_node("Gather", ["table", "pos"], ["row"], axis=0),
+        helper.make_node("Slice", ["tshape", "zero1", "one1"], ["batch"]),
+        helper.make_node("Concat", ["batch", "vocab"], ["out_shape"], axis=0),
+        helper.make_node("Expand", ["row", "out_shape"], ["row_b"]),
+        # the memory enters with weight 0, so the graph reads every input it declares
+        helper.make_node("ReduceMean", ["memory"], ["mem_mean"], keepdims=0),
+        helper.make_node("Mul", ["mem_mean", "zero_f"], ["nothing"]),
+        helper.make_node("Add", ["row_b", "nothing"], ["log_probs"]),
+    ]
+    inits = [_init("table", table), _init("one", np.array(1, np.int64)), _init("zero1", np.array([0], np.int64)),
+             _init("one1", np.array([1], np.int64)), _init("vocab", np.array([V], np.int64)),
+             _init("zero_f", np.array(0.0, np.float32))]
+    g = helper.make_graph(
+        nodes, "scripted_decoder",
+        [helper.make_tensor_value_info("tokens", TensorProto.INT64, ["batch", "length"]),
+         helper.make_tensor_value_info("memory", TensorProto.FLOAT, ["batch", "frames", D])],
+        [helper.make_tensor_value_info("log_probs", TensorProto.FLOAT, ["batch", V])], inits)
+    return helper.make_model(g, opset_imports=[helper.make_opsetid("", OPSET)])
+
+
+SCRIPT_CARD = """name = "scripted-seq"
+kind = "seq"
+
+[input]
+height = 8
+width_multiple = 4
+min_width = 8
+
+[seq]
+vocab = "vocab.txt"
+bos_index = 1
+eos_index = 2
+pad_index = 0
+max_tokens = {max_tokens}
+frames_per_pixel = 0.25
+{extra}
+[seq.encoder]
+model = "encoder.onnx"
+input = "image"
+outputs = ["memory"]
+layout = "BTD"
+
+[seq.decoder_full]
+model = "decoder_full.onnx"
+tokens = "tokens"
+memory = ["memory"]
+log_probs = "log_probs"
+"""
+
+
+def write_scripted_seq(folder: Path, table: np.ndarray, *, max_tokens: int = 200, extra: str = "") -> Path:
+    """A seq recogniser whose decoder reads ``table`` (see :func:`scripted_table`), whatever the image;
+    ``extra``: more lines of the card's [seq] table."""
+    folder.mkdir(parents=True, exist_ok=True)
+    _save(seq_encoder(), folder / "encoder.onnx")
+    _save(scripted_decoder_full(table), folder / "decoder_full.onnx")
+    write_symbols(folder / "vocab.txt", SCRIPT_VOCAB)
+    (folder / "card.toml").write_text(SCRIPT_CARD.format(max_tokens=max_tokens, extra=extra), encoding="utf-8")
     return folder
 
 

@@ -25,8 +25,9 @@ strong a sign as a confidence of zero; an unlisted word is weaker, since word
 lists are never complete. Ties are broken by page and line order.
 
 Lines known to be incomplete come before every other line, whatever their
-doubt: a line the recogniser's length guard cut (``truncated``) and a line the
-model could not read (``error``, e.g. NaN output; its confidence is unknown).
+doubt: a line one of the recogniser's guards cut (``truncated``: the token limit, or
+the repetition guard when ``truncated`` is 2, the store's code; the reason names
+which) and a line the model could not read (``error``, e.g. NaN output; its confidence is unknown).
 Ahead of them come the lines of pages the page sanity check flagged (a ``flags``
 column: comma-separated names such as ``rotated_90``; see pages/sanity.py), the
 flags as the first reason; a flagged page stored without lines (blank, not
@@ -45,6 +46,7 @@ from rapidfuzz.distance import Levenshtein
 from ocrbench.accuracy.stats import bootstrap_statistic, wilson_interval
 from ocrbench.ledger import balance as _ledger
 from ocrbench.postprocess.lexicon import Lexicon, unknown_words
+from ocrbench.store import TRUNCATED_CODES
 
 
 @dataclass(frozen=True)
@@ -98,14 +100,16 @@ def _as_frame(lines: pd.DataFrame | Sequence[Mapping[str, Any]]) -> pd.DataFrame
 
 
 def _incomplete(df: pd.DataFrame, reasons: list[list[str]]) -> np.ndarray:
-    """Lines cut by the length guard or left unread (see the module notes); their reasons come first."""
-    cut = (df["truncated"].fillna(0).astype(bool).to_numpy() if "truncated" in df.columns
-           else np.zeros(len(df), dtype=bool))
+    """Lines cut by a guard or left unread (see the module notes); their reasons come first."""
+    code = (pd.to_numeric(df["truncated"], errors="coerce").fillna(0).astype(int).to_numpy()
+            if "truncated" in df.columns else np.zeros(len(df), dtype=int))
+    cut = code != 0
     failed = df["error"].notna().to_numpy() if "error" in df.columns else np.zeros(len(df), dtype=bool)
     for i in np.flatnonzero(failed):
         reasons[i].insert(0, f"not read: {df['error'].iloc[i]}")
     for i in np.flatnonzero(cut):
-        reasons[i].insert(0, "cut by the recogniser's length guard")
+        reasons[i].insert(0, "cut by the recogniser's repetition guard (the same n-gram over and over)"
+                          if code[i] == TRUNCATED_CODES["repeated n-gram"] else "cut by the recogniser's length guard")
     return cut | failed
 
 
@@ -158,7 +162,7 @@ class ReviewQueue:
 
     ``table`` columns: page_id, line_no, text, confidence, doubt, conf_part,
     ledger_part, word_part, reasons, seconds (expected review time of the line),
-    incomplete (cut by the length guard, not read, or on a flagged page: always at the head),
+    incomplete (cut by a recogniser's guard, not read, or on a flagged page: always at the head),
     flagged (on a page with sanity flags: ahead of every other line).
     """
 

@@ -24,7 +24,7 @@ from ocrbench.pages.segment import cut_overwide, split_at_gaps
 from ocrbench.recognisers.preprocess import InputSpec
 
 __all__ = ["BATCH_MODES", "DECODINGS", "GRAPH_LEVELS", "BatchTiming", "Clock", "EngineOptions", "LineResult",
-           "NONFINITE", "PreparedBatch", "Recogniser", "nonfinite_failure", "make_session", "onnx_dtype", "resolve_providers", "share_time",
+           "NONFINITE", "PreparedBatch", "REPEATED_NGRAM", "TOKEN_LIMIT", "Recogniser", "nonfinite_failure", "make_session", "onnx_dtype", "resolve_providers", "share_time",
            "valid_frames", "warm_up_lines"]
 
 @dataclass
@@ -34,10 +34,12 @@ class LineResult:
     ``confidence`` is the geometric mean of the probabilities of the decisions
     that made the line (CTC: the best-path frame posteriors over the line's
     frames; seq: the chosen tokens, end token included), so 1 means every
-    decision was certain; a line cut by the max-tokens guard (``truncated``) or
-    failed (``failure``) has confidence 0, so it never reads as certain and heads
-    any queue ordered by confidence. ``steps``: seq = decoder steps (tokens + end
-    token); CTC = the line's frames.
+    decision was certain; a line cut by the max-tokens or the repetition guard
+    (``truncated``, why in ``cut_by``) or failed (``failure``) has confidence 0,
+    so it never reads as certain and heads any queue ordered by confidence.
+    ``steps``: seq = decoder steps (tokens + end token; a line cut by the
+    repetition guard also counts the steps of the copy it dropped); CTC = the
+    line's frames.
     """
 
     text: str
@@ -47,14 +49,20 @@ class LineResult:
     width_px: int
     batch_no: int
     tokens: int = 0                  # emitted symbols (CTC: characters after collapse)
-    truncated: bool = False          # seq: stopped by the max-tokens guard (its text is incomplete)
+    truncated: bool = False          # seq: stopped by a guard (its text is incomplete); which one: ``cut_by``
     t_line: float = 0.0              # the line's share of its batch's model + decode time
     failure: str | None = None       # set when the line could not be read (e.g. NaN model output); text is ""
+    cut_by: str | None = None        # a truncated line: TOKEN_LIMIT or REPEATED_NGRAM
 
     @property
     def failed(self) -> bool:
         return self.failure is not None
 
+
+#: Why a truncated line was cut (``LineResult.cut_by``): the max-tokens guard, or the repetition guard
+#: (the line kept repeating one n-gram; see recognisers/repeat.py).
+TOKEN_LIMIT = "token limit"
+REPEATED_NGRAM = "repeated n-gram"
 
 #: The reason given for lines whose model scores hold NaN or +/-Inf.
 NONFINITE = "the model's scores for this line hold NaN or infinite values"
@@ -164,12 +172,13 @@ class Recogniser:
             logc = sum(r.steps * float(np.log(max(r.confidence, 1e-12))) for r in rs)
             failure = next((r.failure for r in rs if r.failure), None)
             truncated = any(r.truncated for r in rs)
+            cut_by = next((r.cut_by for r in rs if r.truncated), None)
             conf = 0.0 if failure or truncated else float(np.exp(logc / max(1, steps)))
             merged[i] = LineResult(text="" if failure else text, confidence=conf,
                                    char_confidences=[] if failure else chars, steps=steps,
                                    width_px=sum(r.width_px for r in rs), batch_no=rs[0].batch_no,
                                    tokens=sum(r.tokens for r in rs), truncated=truncated,
-                                   t_line=sum(r.t_line for r in rs), failure=failure)
+                                   t_line=sum(r.t_line for r in rs), failure=failure, cut_by=cut_by)
         return merged, timings  # type: ignore[return-value]
 
     def _recognise_whole(self, crops, *, clock):

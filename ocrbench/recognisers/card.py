@@ -29,6 +29,7 @@ from ocrbench.io.config import Key, check_table
 from ocrbench.recognisers.draft import generation_warnings
 from ocrbench.recognisers.graphs import (FLOAT32, INT_TYPES, MASK_TYPES, GraphInfo, TensorInfo, class_count,
                                         need_dtype, need_tensor, read_graph)
+from ocrbench.recognisers.repeat import RepeatGuard
 from ocrbench.recognisers.preprocess import FILTERS, LAYOUTS, RESIZE_MODES, InputSpec, make_batch, resize_line
 
 CARD_FILE = "card.toml"
@@ -152,6 +153,7 @@ class SeqSpec:
     decoder_first: DecoderFirstSpec | None = None
     tokenizer: Path | None = None            # a tokenizer.json decoding whole sequences (else ``symbols``)
     vocab_size: int = 0                      # entries of the symbol table or tokenizer
+    repeat: RepeatGuard = RepeatGuard()      # the repetition guard (recognisers/repeat.py)
 
 
 @dataclass(frozen=True)
@@ -275,6 +277,12 @@ SEQ_SCHEMA = {
     "frames_per_pixel": Key((float,), None, low=0, low_open=True),
     "memory_mask_valid": Key((float,), DEFAULT_MASK_VALID),
     "memory_mask_padded": Key((float,), DEFAULT_MASK_PADDED),
+    # the repetition guard: defaults and their reasons in recognisers/repeat.py and models/README.md
+    "repeat_guard": Key((bool,), RepeatGuard.enabled),
+    "repeat_max_ngram": Key((int,), RepeatGuard.max_ngram, low=1, high=64),
+    "repeat_min_copies": Key((int,), RepeatGuard.min_copies, low=2),
+    "repeat_min_tokens": Key((int,), RepeatGuard.min_tokens, low=2),
+    "repeat_min_filler_tokens": Key((int,), RepeatGuard.min_filler_tokens, low=2),
     "encoder": {
         "model": _str(required=True),
         "input": _str("image"),
@@ -578,7 +586,9 @@ def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
     return SeqSpec(symbols=tuple(syms), bos_index=bos, eos_index=eos, pad_index=pad, special=special,
                    max_tokens=t["max_tokens"], frames_per_pixel=t["frames_per_pixel"],
                    mask_valid=t["memory_mask_valid"], mask_padded=t["memory_mask_padded"], encoder=enc,
-                   decoder_step=step, decoder_full=full, decoder_first=first, tokenizer=tokenizer, vocab_size=n)
+                   decoder_step=step, decoder_full=full, decoder_first=first, tokenizer=tokenizer, vocab_size=n,
+                   repeat=RepeatGuard(t["repeat_guard"], t["repeat_max_ngram"], t["repeat_min_copies"],
+                                      t["repeat_min_tokens"], t["repeat_min_filler_tokens"]))
 
 
 def _check_first_and_static(p: Path, step: DecoderStepSpec | None, first: DecoderFirstSpec | None) -> None:

@@ -21,6 +21,11 @@ line's hypotheses together in one decoder call per step and stops a line as
 soon as no running hypothesis can beat its best finished one (scores are sums
 of log-probabilities and can only fall), so it is exact with respect to its
 beam.
+
+Both decodings apply the card's repetition guard (recognisers/repeat.py): a
+line (greedy) or hypothesis (beam) whose tokens end in one n-gram repeated past
+the card's limits stops there, drops the copy that reached the limit and is
+truncated, as at the max-tokens guard, with ``cut_by`` = ``"repeated n-gram"``.
 """
 
 from __future__ import annotations
@@ -31,11 +36,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from ocrbench.errors import CardError, OcrbenchError
-from ocrbench.recognisers.base import NONFINITE, LineResult, Recogniser
+from ocrbench.recognisers.base import NONFINITE, REPEATED_NGRAM, TOKEN_LIMIT, LineResult, Recogniser
 from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_lines
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, onnx_dtype, share_time
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.ctc import log_softmax
+from ocrbench.recognisers.repeat import RepeatGuard, RepeatState, advance, filler_tokens
 from ocrbench.recognisers.tokens import SymbolTable, TokenizerFile
 
 
@@ -45,12 +51,25 @@ class Decoded:
 
     tokens: list[int]                # emitted tokens, end token excluded
     log_probs: list[float]           # log-probability of each decision (end token included when ended)
-    ended: bool                      # False: stopped by the max-tokens guard (or failed)
+    ended: bool                      # False: stopped by the max-tokens or the repetition guard (or failed)
     failure: str | None = None       # the decoder's scores for this line were not finite
+    dropped: int = 0                 # repetition guard: the tokens of the copy it dropped (0: not cut by it)
 
     @property
     def steps(self) -> int:
-        return len(self.tokens) + (1 if self.ended else 0)
+        return len(self.tokens) + self.dropped + (1 if self.ended else 0)
+
+    @property
+    def cut_by(self) -> str | None:
+        if self.ended or self.failure:
+            return None
+        return REPEATED_NGRAM if self.dropped else TOKEN_LIMIT
+
+    def drop_tail(self, n: int) -> None:
+        """The repetition guard cut the line: its last ``n`` tokens (one copy) go, their steps are counted."""
+        del self.tokens[len(self.tokens) - n:]
+        del self.log_probs[len(self.log_probs) - n:]
+        self.dropped = n
 
 
 def scores_to_log_probs(y: np.ndarray, logits: bool) -> np.ndarray:
@@ -66,10 +85,23 @@ def _bad_rows(lp: np.ndarray) -> np.ndarray:
     return np.isnan(lp).any(axis=1) | ~np.isfinite(lp.max(axis=1, initial=-np.inf))
 
 
+class _Guard:
+    """The card's repetition guard with the filler tokens of its vocabulary (a recogniser holds None when the
+    card turns the guard off)."""
+
+    def __init__(self, guard: RepeatGuard, texts: list[str]):
+        self.g = guard
+        self.filler = filler_tokens(texts)
+
+
 def _beam_line(hyps, r: int, r_end: int, lp: np.ndarray, top: np.ndarray, K: int, eos: int, last: bool,
-               finished: list) -> list[tuple[tuple, int, int]]:
+               finished: list, guard: _Guard | None = None) -> list[tuple[tuple, int, int]]:
     """One line's beam step over its hypotheses ``hyps[r:r_end]``: finished ones go to ``finished``;
-    returns the surviving (new hypothesis, parent row, token) triples, best first."""
+    returns the surviving (new hypothesis, parent row, token) triples, best first.
+
+    A hypothesis is (line, score, tokens, log_probs, guard state). One the repetition guard cuts finishes
+    like one that chose the end token (kept only among the K best candidates), truncated, its last copy
+    dropped, at the score it had reached."""
     line = hyps[r][0]
     cands = []
     for rr in range(r, r_end):
@@ -79,27 +111,34 @@ def _beam_line(hyps, r: int, r_end: int, lp: np.ndarray, top: np.ndarray, K: int
     cands.sort(key=lambda c: -c[0])      # stable: ties keep row, then token order
     alive = []
     for rank, (score, rr, tok) in enumerate(cands):
-        _, _, toks, lps = hyps[rr]
+        _, _, toks, lps, state = hyps[rr]
         if tok == eos:
             # an end among the K best candidates finishes a hypothesis; a lower-ranked one is not kept
             # (as the Transformers library's beam search does: transformers generate(), num_beams=K)
             if rank < K:
-                finished.append((score, toks, lps + [float(lp[rr, tok])], True))
-        else:
-            alive.append((score, rr, tok))
-            if len(alive) == K:
-                break
+                finished.append((score, toks, lps + [float(lp[rr, tok])], True, 0))
+            continue
+        if guard is not None:
+            state, n = advance(state, toks, tok, guard.g, guard.filler)
+            if n:
+                if rank < K:
+                    keep = len(toks) + 1 - n
+                    finished.append((score, (toks + [tok])[:keep], (lps + [float(lp[rr, tok])])[:keep], False, n))
+                continue
+        alive.append((score, rr, tok, state))
+        if len(alive) == K:
+            break
     if last:
-        for score, rr, tok in alive:
-            _, _, toks, lps = hyps[rr]
-            finished.append((score, toks + [tok], lps + [float(lp[rr, tok])], False))
+        for score, rr, tok, _ in alive:
+            _, _, toks, lps, _ = hyps[rr]
+            finished.append((score, toks + [tok], lps + [float(lp[rr, tok])], False, 0))
         alive = []
     best_fin = max((f[0] for f in finished), default=None)
     out = []
     if alive and (best_fin is None or alive[0][0] > best_fin):
-        for score, rr, tok in alive:
-            _, _, toks, lps = hyps[rr]
-            out.append(((line, score, toks + [tok], lps + [float(lp[rr, tok])]), rr, tok))
+        for score, rr, tok, state in alive:
+            _, _, toks, lps, _ = hyps[rr]
+            out.append(((line, score, toks + [tok], lps + [float(lp[rr, tok])], state), rr, tok))
     return out
 
 
@@ -110,8 +149,8 @@ def _beam_result(finished: list, failed: bool) -> Decoded:
     if not finished:
         return Decoded([], [], False)
     best = max(range(len(finished)), key=lambda i: (finished[i][0], -i))
-    score, toks, lps, ended = finished[best]
-    return Decoded(list(toks), list(lps), ended)
+    score, toks, lps, ended, dropped = finished[best]
+    return Decoded(list(toks), list(lps), ended, dropped=dropped)
 
 
 class _Timer:
@@ -140,6 +179,7 @@ class SeqRecogniser(Recogniser):
                              if not self.cached else None)
         self.max_tokens = options.max_tokens or s.max_tokens
         self.detok = TokenizerFile(s.tokenizer, card.path) if s.tokenizer else SymbolTable(s.symbols)
+        self.guard = _Guard(s.repeat, self.detok.texts()) if s.repeat.enabled else None
         d = s.decoder_step if self.cached else s.decoder_full
         g = d.graph
         self.tok_dtype = onnx_dtype(g.inputs[d.tokens].elem_type, np.int64)
@@ -290,12 +330,14 @@ class SeqRecogniser(Recogniser):
         active = np.ones(B, bool)               # mask mode: rows still running
         hist = np.full((B, 1), s.bos_index, np.int64)
         cache = self._init_cache(B) if self.cached else None
+        rep = RepeatState(B, self.guard.g, self.guard.filler) if self.guard else None
         for step in range(max_tokens):
             lp, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
             nxt = np.argmax(lp, axis=1)
             best = lp[np.arange(len(nxt)), nxt]
             bad = _bad_rows(lp)
             fin = (nxt == s.eos_index) | bad
+            cut = rep.step(hist, nxt) if rep is not None else None      # None: no line cut this step
             for r in (range(len(rows)) if mode == "drop" else np.flatnonzero(active)):
                 d = out[rows[r]]
                 if bad[r]:
@@ -306,6 +348,10 @@ class SeqRecogniser(Recogniser):
                     d.ended = True
                 else:
                     d.tokens.append(int(nxt[r]))
+                    if cut is not None and cut[r]:
+                        d.drop_tail(int(cut[r]))
+            if cut is not None:
+                fin |= cut > 0
             cache = new_cache
             if mode == "drop":
                 if fin.all():
@@ -314,6 +360,8 @@ class SeqRecogniser(Recogniser):
                     keep = np.flatnonzero(~fin)
                     rows, nxt, hist = rows[keep], nxt[keep], hist[keep]
                     memory, mask, cache = self._take_rows(memory, mask, cache, keep)
+                    if rep is not None:
+                        rep.take(keep)
             else:
                 active &= ~fin
                 if not active.any():
@@ -334,8 +382,10 @@ class SeqRecogniser(Recogniser):
         eos = s.eos_index
         B = memory[0].shape[s.encoder.batch_axis]
         # running hypotheses: per row (line, score, tokens, log_probs)
-        hyps: list[tuple[int, float, list[int], list[float]]] = [(b, 0.0, [], []) for b in range(B)]
-        finished: list[list[tuple[float, list[int], list[float], bool]]] = [[] for _ in range(B)]
+        hyps: list[tuple[int, float, list[int], list[float], tuple | None]] = [(b, 0.0, [], [], None)
+                                                                              for b in range(B)]
+        # finished: (score, tokens, log_probs, ended, tokens dropped by the repetition guard)
+        finished: list[list[tuple[float, list[int], list[float], bool, int]]] = [[] for _ in range(B)]
         hist = np.full((B, 1), s.bos_index, np.int64)
         cache = self._init_cache(B) if self.cached else None
         failed: set[int] = set()                # lines whose decoder scores were not finite
@@ -359,7 +409,7 @@ class SeqRecogniser(Recogniser):
                 if line in failed:
                     r = r_end
                     continue
-                for hyp, rr, tok in _beam_line(hyps, r, r_end, lp, top, K, eos, last, finished[line]):
+                for hyp, rr, tok in _beam_line(hyps, r, r_end, lp, top, K, eos, last, finished[line], self.guard):
                     new_hyps.append(hyp)
                     parents.append(rr)
                     next_tok.append(tok)
@@ -405,7 +455,8 @@ class SeqRecogniser(Recogniser):
                 text, chars = "", []
             results.append(LineResult(text=text, confidence=conf, char_confidences=chars, steps=d.steps,
                                       width_px=int(pb.widths[b]), batch_no=pb.batch_no, tokens=len(d.tokens),
-                                      truncated=not d.ended and d.failure is None, failure=d.failure))
+                                      truncated=not d.ended and d.failure is None, failure=d.failure,
+                                      cut_by=d.cut_by))
         t2 = clock()
         frames = int(memory[0].shape[self.s.encoder.frames_axis])
         n_steps = [r.steps for r in results]

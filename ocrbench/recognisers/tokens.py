@@ -36,6 +36,10 @@ class SymbolTable:
             chars += [float(p)] * len(piece)
         return "".join(text), chars
 
+    def texts(self) -> list[str]:
+        """Each token's text on its own (special tokens: empty)."""
+        return list(self.symbols)
+
 
 class TokenizerFile:
     """A ``tokenizer.json`` (Hugging Face ``tokenizers`` format), decoded over the whole sequence with its own
@@ -60,6 +64,11 @@ class TokenizerFile:
 
     def text(self, ids: Sequence[int]) -> str:
         return self.tok.decode([int(i) for i in ids], skip_special_tokens=True)
+
+    def texts(self) -> list[str]:
+        """Each token's text decoded on its own (special tokens: empty; a lone byte of a longer character
+        decodes to U+FFFD)."""
+        return self.tok.decode_batch([[i] for i in range(self.size)], skip_special_tokens=True)
 
     def decode(self, ids: Sequence[int], probs: Sequence[float]) -> tuple[str, list[float]]:
         ids = [int(i) for i in ids]

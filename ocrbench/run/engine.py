@@ -33,7 +33,7 @@ from ocrbench.run.host import host_info, ort_version
 from ocrbench.run.writer import (PostApplied, PostProcess, ProgressEvent, RecogniserSummary, RunState, RunSummary,
                                  RunWriter, apply_postprocess, failure_reason, file_sha256, file_stamp, open_run,
                                  post_recipe, post_texts)
-from ocrbench.store import BatchRecord, LineRecord, PageRecord, RunStore
+from ocrbench.store import TRUNCATED_CODES, BatchRecord, LineRecord, PageRecord, RunStore
 
 # Names that moved to run/writer.py and run/host.py, kept importable from here for callers of the engine.
 __all__ = ["RunOptions", "run_pages", "recognise_page", "read_page", "load_and_segment", "LoadedPage", "PageOutcome",
@@ -303,7 +303,7 @@ def line_records(layout_lines, results: Sequence[LineResult], post: Sequence[str
     for i, (box, r) in enumerate(zip(layout_lines, results)):
         common = dict(line_no=i + 1, x0=int(box.x0), y0=int(box.y0), x1=int(box.x1), y1=int(box.y1),
                       width_px=r.width_px, steps=r.steps, batch_no=r.batch_no, t_line=r.t_line,
-                      truncated=bool(r.truncated))
+                      truncated=TRUNCATED_CODES.get(r.cut_by or "token limit", 1) if r.truncated else 0)
         if not _finite(r):
             out.append(LineRecord(text="", text_post=None, confidence=None, char_conf=[], n_chars=0,
                                   error=NON_FINITE, **common))

@@ -102,7 +102,8 @@ class RecogniserSummary:
     post_lines: int = 0              # lines of done pages that have post-processed text
     post_failures: list[tuple[str, str]] = field(default_factory=list)   # pages post-processing refused
     pages_changed: int = 0           # done pages read again in this call because their file changed
-    lines_truncated: int = 0         # lines of done pages cut by the recogniser's length guard
+    lines_truncated: int = 0         # lines of done pages cut by one of the recogniser's guards
+    lines_repeat_cut: int = 0        # of those, the lines the repetition guard cut (the rest: the token limit)
     lines_failed: int = 0            # lines of done pages without text (e.g. the model gave NaN)
     flagged: dict[str, list[str]] = field(default_factory=dict)   # page_id -> sanity flags (done pages)
 
@@ -145,7 +146,11 @@ class RunSummary:
                            + "); blank, not text-like and turned pages not turned back are stored without text; "
                              "flagged pages come first in `ocrbench review`")
             if r.lines_truncated:
-                out.append(f"{r.name}: {r.lines_truncated} line(s) cut by the length guard (--max-tokens); "
+                by_limit = r.lines_truncated - r.lines_repeat_cut
+                why = ([f"{by_limit} cut by the length guard (--max-tokens)"] if by_limit else []) + (
+                    [f"{r.lines_repeat_cut} cut by the repetition guard (the same n-gram over and over)"]
+                    if r.lines_repeat_cut else [])
+                out.append(f"{r.name}: {r.lines_truncated} line(s) truncated, {', '.join(why)}; "
                            "flagged in the store and first in `ocrbench review`")
             if r.lines_failed:
                 out.append(f"{r.name}: {r.lines_failed} line(s) not read (the model gave NaN or infinite scores); "
@@ -390,4 +395,4 @@ def summarise(st: RunStore, s: RunState, post_failures: list[tuple[str, str]] | 
         failures=st.failed_pages(s.run_id), post_recipe=recipe,
         post_lines=st.post_coverage(s.run_id)[0] if recipe is not None else 0,
         post_failures=list(post_failures or []), pages_changed=s.changed,
-        lines_truncated=tot["lines_truncated"], lines_failed=tot["lines_failed"], flagged=st.page_flags(s.run_id))
+        lines_truncated=tot["lines_truncated"], lines_repeat_cut=tot["lines_repeat_cut"], lines_failed=tot["lines_failed"], flagged=st.page_flags(s.run_id))

@@ -24,8 +24,8 @@ opened for writing.
 from ocrbench.store.export import export
 from ocrbench.store.runstore import (BatchRecord, LineRecord, PageRecord, RunInfo, RunStore, StoredPage, from_db,
                                      printable, settings_key, to_db)
-from ocrbench.store.schema import SCALING_COLUMNS, SCHEMA_VERSION, TABLES, now_iso, parse_time
+from ocrbench.store.schema import SCALING_COLUMNS, SCHEMA_VERSION, TABLES, TRUNCATED_CODES, now_iso, parse_time
 
 __all__ = ["BatchRecord", "LineRecord", "PageRecord", "RunInfo", "RunStore", "StoredPage", "SCALING_COLUMNS",
-           "SCHEMA_VERSION", "TABLES", "export", "from_db", "now_iso", "parse_time", "printable", "settings_key",
+           "SCHEMA_VERSION", "TABLES", "TRUNCATED_CODES", "export", "from_db", "now_iso", "parse_time", "printable", "settings_key",
            "to_db"]

@@ -22,7 +22,7 @@ from typing import Iterable, Sequence
 
 from ocrbench.errors import StoreError
 from ocrbench.store import schema
-from ocrbench.store.schema import now_iso
+from ocrbench.store.schema import TRUNCATED_CODES, now_iso
 
 # --------------------------------------------------------------------------- names of any bytes
 
@@ -99,7 +99,8 @@ class LineRecord:
 
     A line the recogniser could not read (its output was NaN or infinite) has
     empty ``text``, no ``confidence`` and the reason in ``error``; a line cut
-    by the recogniser's length guard has ``truncated`` set.
+    by one of the recogniser's guards has ``truncated`` set: 1 the token limit, 2 the repetition guard
+    (``schema.TRUNCATED_CODES``; ``True`` stores as 1).
     """
 
     line_no: int
@@ -116,7 +117,7 @@ class LineRecord:
     steps: int = 0
     batch_no: int = 0
     t_line: float = 0.0
-    truncated: bool = False
+    truncated: int = 0
     error: str | None = None
 
 
@@ -202,7 +203,7 @@ def _line_row(run_id: int, page_id, ln: LineRecord) -> tuple:
     conf = None if ln.confidence is None else float(ln.confidence)
     return (run_id, page_id, ln.line_no, ln.x0, ln.y0, ln.x1, ln.y1, ln.width_px, ln.text, ln.text_post, conf,
             json.dumps([round(c, 5) for c in ln.char_conf]), ln.n_chars, ln.steps, ln.batch_no, ln.t_line,
-            int(bool(ln.truncated)), to_db(ln.error))
+            int(ln.truncated), to_db(ln.error))
 
 
 class RunStore:
@@ -398,18 +399,20 @@ class RunStore:
 
     def run_totals(self, run_id: int) -> dict:
         """Counts and page times of one run: pages_done, pages_failed, lines, chars, model_seconds, t_total (list),
-        lines_truncated and lines_failed (lines of done pages cut by the length guard / without text)."""
+        lines_truncated and lines_failed (lines of done pages cut by a guard / without text), lines_repeat_cut
+        (those of lines_truncated the repetition guard cut)."""
         done = self._read("SELECT t_total, COALESCE(t_encode,0)+COALESCE(t_steps,0)+COALESCE(t_collapse,0) "
                           "FROM pages WHERE run_id=? AND status='done' ORDER BY page_id", (run_id,))
         failed = self._read("SELECT COUNT(*) FROM pages WHERE run_id=? AND status='failed'", (run_id,))[0][0]
-        flags = ("COALESCE(SUM(l.truncated),0), COUNT(l.error)" if self._has_column("lines", "truncated")
-                 else "0, 0")
-        lines, chars, truncated, bad = self._read(
+        rep = TRUNCATED_CODES["repeated n-gram"]
+        flags = (f"COALESCE(SUM(l.truncated <> 0),0), COALESCE(SUM(l.truncated = {rep}),0), COUNT(l.error)"
+                 if self._has_column("lines", "truncated") else "0, 0, 0")
+        lines, chars, truncated, repeat, bad = self._read(
             f"SELECT COUNT(*), COALESCE(SUM(l.n_chars),0), {flags} FROM lines l JOIN pages p "
             "ON p.run_id=l.run_id AND p.page_id=l.page_id WHERE l.run_id=? AND p.status='done'", (run_id,))[0]
         return {"pages_done": len(done), "pages_failed": int(failed), "lines": int(lines), "chars": int(chars),
                 "model_seconds": float(sum(r[1] for r in done)), "t_total": [float(r[0] or 0.0) for r in done],
-                "lines_truncated": int(truncated), "lines_failed": int(bad)}
+                "lines_truncated": int(truncated), "lines_repeat_cut": int(repeat), "lines_failed": int(bad)}
 
     def write_page(self, run_id: int, page: PageRecord, lines: Iterable[LineRecord] = (),
                    batches: Iterable[BatchRecord] = ()) -> None:

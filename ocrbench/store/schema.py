@@ -20,6 +20,10 @@ Versions:
   at the top) and ``pages.flags`` (the page's sanity flags, comma-separated
   names such as ``blank`` or ``rotated_90``; ``""`` for a page checked and
   clean, NULL where nothing was checked: failed pages and older stores).
+  ``lines.truncated`` also says which guard cut a line (:data:`TRUNCATED_CODES`:
+  1 the token limit, 2 the repetition guard); stores written before the
+  repetition guard hold only 0 and 1, which read the same, so the version did
+  not change. Read it as "non-zero = truncated".
 
 A store of an older version is migrated in place when it is opened for
 writing (in one transaction; the migration only adds); opened read-only it is
@@ -147,6 +151,9 @@ SCALING = """CREATE TABLE IF NOT EXISTS scaling(
 
 #: Every statement that creates a store of the current version, in order.
 CREATE = (META, RUNS, RUNS_INDEX, PAGES, LINES, BATCHES, POSTPROCESSING, SCALING)
+
+#: ``lines.truncated``: which guard cut a line (0: not cut). Non-zero means truncated.
+TRUNCATED_CODES: dict[str, int] = {"token limit": 1, "repeated n-gram": 2}
 
 #: Columns added after version 1, with the value a reader assumes in a store that lacks them.
 COLUMN_DEFAULTS: dict[str, dict[str, object]] = {"pages": {"file_size": None, "file_mtime_ns": None,
