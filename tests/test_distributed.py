@@ -282,6 +282,7 @@ def test_a_worker_checks_the_card_hash_without_validating_again(tmp_path):
     import shutil
 
     from ocrbench.errors import CardError
+    from ocrbench.recognisers.base import EngineOptions
     from ocrbench.recognisers.card import card_hash_on_disk, load_card
     from ocrbench.run.distributed import worker_recogniser
 
@@ -294,8 +295,10 @@ def test_a_worker_checks_the_card_hash_without_validating_again(tmp_path):
     assert card.card_hash == cards[0].card_hash      # same bytes, same hash, wherever the folder is
     alphabet = card.files["alphabet"]
     alphabet.write_bytes(alphabet.read_bytes() + b"\n")   # the worker's copy now differs from the client's
+    # engine options no other test uses: this process's cache of opened recognisers has no entry for them
+    options = RunOptions(engine=EngineOptions(batch_size=7))
     with pytest.raises(ClusterError, match="differs from the client's") as e:
-        worker_recogniser(card, RunOptions())
+        worker_recogniser(card, options)
     assert str(card.path) in str(e.value)
     alphabet.unlink()
     with pytest.raises(CardError, match="cannot read it"):
