@@ -262,8 +262,8 @@ def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
     archive is ``ceil(pages / pages_per_job)`` jobs, run in waves over the workers, each wave starting anew.
     Several workers of one machine without ``pages_per_job`` are one Dask run (``run --workers K``), which
     also starts and closes its cluster (``cluster_start_s``, measured by ``measure-scaling --workers K``):
-    without it the 2-worker plan missed a Dask run's whole command by 47 % on this machine (bench_distributed
-    --plan; the pages' own part was within 5 %).
+    without it the 2-worker plan missed a Dask run's whole command by -47 % on a loaded 2-core machine
+    (bench_distributed --plan; the pages' own part within 5 %), with it by -23 % (DEVELOPERS.md, Scale-out).
     """
     per_job = m.process_start_s + m.startup_s
     total_workers = res.workers * res.machines
