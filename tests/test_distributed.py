@@ -228,9 +228,9 @@ def test_pages_per_task_by_default():
     from ocrbench.run.distributed import auto_pages_per_task
 
     # one thread: as many pages a task as allowed (only a task's first page is not pipelined)
-    assert [auto_pages_per_task(n, 1) for n in (1, 5, 48)] == [1, 5, 8]
+    assert [auto_pages_per_task(n, 1) for n in (1, 5, 48, 1000)] == [1, 5, 32, 32]
     # several threads: about four tasks each, so they stay evenly busy to the end
-    assert [auto_pages_per_task(n, 2) for n in (1, 6, 12, 48, 1000)] == [1, 1, 2, 6, 8]
+    assert [auto_pages_per_task(n, 2) for n in (1, 6, 12, 48, 200, 1000)] == [1, 1, 2, 6, 25, 32]
     assert auto_pages_per_task(48, 14) == 1
 
 
@@ -273,3 +273,48 @@ def test_a_page_that_kills_its_workers_fails_alone_not_its_whole_task(pages, car
     assert "died" in err
     with RunStore(db) as st:
         assert set(st.done_page_ids(1)) == set(serial["texts"][0]) - {killer}   # its task's other pages are done
+
+
+def test_a_worker_checks_the_card_hash_without_validating_again(tmp_path):
+    """The worker's cheap check (card_hash_on_disk: no second validation, no onnx import) gives the hash
+    load_card gives, and a copy whose files changed is refused, naming the card."""
+    import dataclasses
+    import shutil
+
+    from ocrbench.errors import CardError
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.card import card_hash_on_disk, load_card
+    from ocrbench.run.distributed import worker_recogniser
+
+    cards = tiny_cards(tmp_path / "models")
+    for card in cards:
+        assert card_hash_on_disk(card) == card.card_hash
+    copy = tmp_path / "copy"
+    shutil.copytree(cards[0].folder, copy)
+    card = load_card(copy)
+    assert card.card_hash == cards[0].card_hash      # same bytes, same hash, wherever the folder is
+    alphabet = card.files["alphabet"]
+    alphabet.write_bytes(alphabet.read_bytes() + b"\n")   # the worker's copy now differs from the client's
+    # engine options no other test uses: this process's cache of opened recognisers has no entry for them
+    options = RunOptions(engine=EngineOptions(batch_size=7))
+    with pytest.raises(ClusterError, match="differs from the client's") as e:
+        worker_recogniser(card, options)
+    assert str(card.path) in str(e.value)
+    alphabet.unlink()
+    with pytest.raises(CardError, match="cannot read it"):
+        card_hash_on_disk(dataclasses.replace(card))
+
+
+@pytest.mark.slow
+def test_workers_read_pages_without_importing_onnx(pages, cards, tmp_path):
+    """Workers started here open the recognisers with onnxruntime alone (onnx is the validator's, 0.7 s)."""
+    import sys
+
+    from distributed import Client, LocalCluster
+
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+                      silence_logs=50) as c, Client(c) as client:
+        s = run_distributed(pages, cards, store=tmp_path / "o.sqlite", dask=DaskOptions(scheduler=c.scheduler_address))
+        assert not s.failed_pages
+        assert set(client.run(lambda: "onnx" in sys.modules).values()) == {False}
+        assert set(client.run(lambda: "onnxruntime" in sys.modules).values()) == {True}

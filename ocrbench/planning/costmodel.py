@@ -322,6 +322,7 @@ class CostModel:
     split_gap: float = 0.0             # the card cuts lines at blank gaps wider than this many heights
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
     process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
+    cluster_start_s: float = 0.0       # a local Dask cluster's start and close, once per run of several workers
     figures: dict = field(default_factory=dict)   # the calibration pages' look (medians), see page_figures
 
     def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -723,6 +724,7 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         n_batches=len(batches), quality=quality, notes=po.notes + bp.notes + w_notes, overlap=bp.overlap,
         speed_cv=bp.speed_cv, split_gap=float(split_gap or 0.0),
         process_start_s=max(0.0, float((session or {}).get("process_start_seconds") or 0.0)),
+        cluster_start_s=max(0.0, float((session or {}).get("cluster_start_seconds") or 0.0)),
         figures=_calibration_figures(cal, po),
         pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(po.lines.sum()))) if split_gap else 1.0)
 

@@ -301,7 +301,9 @@ def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
         "whole-process time: every job pays the process start-up"
         + (f" (measured, {', '.join(proc)})" if proc else " (not measured: 0 s; `ocrbench measure-scaling` "
                                                          "measures it)")
-        + " and the model loading and warm-up (measured before the first page)",
+        + " and the model loading and warm-up (measured before the first page); several workers of one "
+        "machine are one Dask run, which also starts and closes its cluster (measured by `ocrbench "
+        "measure-scaling --workers K`, else 0 s)",
         "characters per line of a segmented sample are estimated from line width (fitted px per character "
         "on the calibration's recognised lines); expected errors = CER x these characters",
     ]

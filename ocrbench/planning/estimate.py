@@ -260,14 +260,19 @@ def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
 
     Without ``pages_per_job`` every worker runs one job (one start each, all in parallel); with it the
     archive is ``ceil(pages / pages_per_job)`` jobs, run in waves over the workers, each wave starting anew.
+    Several workers of one machine without ``pages_per_job`` are one Dask run (``run --workers K``), which
+    also starts and closes its cluster (``cluster_start_s``, measured by ``measure-scaling --workers K``):
+    without it the 2-worker plan missed a Dask run's whole command by -47 % on a loaded 2-core machine
+    (bench_distributed --plan; the pages' own part within 5 %), with it by -23 % (DEVELOPERS.md, Scale-out).
     """
     per_job = m.process_start_s + m.startup_s
     total_workers = res.workers * res.machines
     jobs = math.ceil(n_pages / res.pages_per_job) if res.pages_per_job else total_workers
     waves = math.ceil(jobs / total_workers)
+    cluster = m.cluster_start_s if res.workers > 1 and not res.pages_per_job else 0.0
     return {"jobs": jobs, "pages_per_job": res.pages_per_job, "process_start_seconds": m.process_start_s,
             "load_warmup_seconds": m.startup_s, "startup_seconds_per_job": per_job,
-            "startup_seconds": waves * per_job}
+            "cluster_start_seconds": cluster, "startup_seconds": waves * per_job + cluster}
 
 
 def _compute_part(est: SerialEstimate, res: Resources, scaling: ScalingFit | None) -> tuple[np.ndarray, dict, list[str]]:

@@ -169,12 +169,13 @@ def _card_geometry(card_path: str | None) -> tuple[int | None, int | None, float
         return None, None, 0.0
 
 
-def _process_start(host_json: pd.Series) -> float | None:
-    """The median process start-up measured with the sessions (``ocrbench measure-scaling`` notes it in host_json)."""
+def _process_start(host_json: pd.Series, key: str = "process_start_seconds") -> float | None:
+    """The median process start-up (or another figure ``key``) measured with the sessions (``ocrbench
+    measure-scaling`` notes it in host_json)."""
     got = []
     for h in host_json:
         try:
-            v = json.loads(h or "{}").get("process_start_seconds")
+            v = json.loads(h or "{}").get(key)
         except (TypeError, ValueError, AttributeError):
             v = None
         if isinstance(v, (int, float)) and v >= 0:
@@ -228,7 +229,8 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
                            "gap_seconds_per_page": float((one["gap_seconds_per_page"] * one["pages"]).sum()
                                                          / one["pages"].sum()),
                            "run_id": None if rid is None or pd.isna(rid) else int(rid),
-                           "process_start_seconds": _process_start(one["host_json"])}
+                           "process_start_seconds": _process_start(one["host_json"]),
+                           "cluster_start_seconds": _process_start(one["host_json"], "cluster_start_seconds")}
             scaling[n] = ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
             m = fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,

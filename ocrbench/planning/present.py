@@ -54,7 +54,8 @@ def table_lines(table: pd.DataFrame) -> tuple[list[str], list[tuple[str, list[st
         ("pages", lambda r: _num(r["pages"])),
         ("characters (P50)", lambda r: _num(r["characters"])),
         ("resources", lambda r: f"{r['machines']} x {r['workers']} workers x {r['threads']} threads"),
-        ("jobs x start-up each", lambda r: f"{r['jobs']} x {_dur(r['startup_seconds_per_job'])}"),
+        ("jobs x start-up each", lambda r: f"{r['jobs']} x {_dur(r['startup_seconds_per_job'])}"
+         + (f" + Dask cluster {_dur(r['cluster_start_seconds'])}" if r.get("cluster_start_seconds") else "")),
         ("recognition wall-clock P10", lambda r: _dur(r["wall_seconds_p10"])),
         ("recognition wall-clock P50", lambda r: _dur(r["wall_seconds_p50"])),
         ("recognition wall-clock P90", lambda r: _dur(r["wall_seconds_p90"])),

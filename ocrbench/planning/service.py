@@ -120,7 +120,7 @@ ROW_KEYS = ("workers", "threads", "machines", "pages", "characters", "wall_secon
             "currency", "review_mode", "review_hours", "people_hours", "people_hours_high", "errors_left",
             "correctors", "correctors_needed", "people_seconds_high", "correction_meets_deadline",
             "recognition_meets_deadline", "people_cost", "people_cost_high", "compute_share", "people_share",
-            "unpriced", "unknown", "jobs", "startup_seconds_per_job")
+            "unpriced", "unknown", "jobs", "startup_seconds_per_job", "cluster_start_seconds")
 
 
 def plan_from_results(results: PlanResults) -> dict:

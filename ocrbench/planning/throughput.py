@@ -66,17 +66,23 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     """Time each card on ``target`` at 1..``workers`` workers, save the rows to ``store``'s scaling table.
 
     Returns the rows with speed-up intervals and the positive idle/overlap figures, and the
-    explanations of every speed-up below 1. The process start-up is measured too and noted in the
-    rows' host description (the planner reads it from there).
+    explanations of every speed-up below 1. The process start-up (and, with several workers, the
+    start and close of a local Dask cluster of that many) is measured too and noted in the rows'
+    host description (the planner reads it from there).
     """
     import pandas as pd
 
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session, session_options
+    from ocrbench.run.measure import (measure_cluster_start, measure_process_start, measure_scaling, measure_session,
+                                      session_options)
 
     say = progress or (lambda _m: None)
     say("timing a fresh process start")
     proc = measure_process_start()
+    extra = {"process_start_seconds": proc}
+    if workers > 1:      # several workers on one machine run on Dask (run --workers K): its cluster costs too
+        say(f"timing the start and close of a local Dask cluster of {workers} workers")
+        extra["cluster_start_seconds"] = measure_cluster_start(workers)
     rows = []
     for card in cards:
         say(f"timing {card} on one worker")
@@ -88,8 +94,7 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
                                    batch_size=batch_size, engine=engine)
             rows += more.drop(columns=["speedup"]).to_dict(orient="records")
     df = pd.DataFrame(rows)
-    df["host_json"] = [json.dumps(json.loads(h or "{}") | {"process_start_seconds": proc}, sort_keys=True)
-                       for h in df["host_json"]]
+    df["host_json"] = [json.dumps(json.loads(h or "{}") | extra, sort_keys=True) for h in df["host_json"]]
     df["process_start_seconds"] = proc
     save_scaling(store, df)
     return describe_rows(df)

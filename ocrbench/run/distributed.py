@@ -46,7 +46,8 @@ import threading
 import time
 import uuid
 from collections import Counter, deque
-from contextlib import contextmanager
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterator, Sequence
@@ -55,9 +56,9 @@ from ocrbench.errors import ClusterError, ConfigError, OcrbenchError
 from ocrbench.pages import PageRef
 from ocrbench.recognisers.base import Clock, EngineOptions, Recogniser
 from ocrbench.recognisers.registry import open_recogniser
-from ocrbench.recognisers.card import Card, load_card
-from ocrbench.run.engine import (PageOutcome, Prefetcher, RunOptions, as_run_options, load_cards, open_inputs,
-                                 read_page, with_listing)
+from ocrbench.recognisers.card import Card, card_hash_on_disk
+from ocrbench.run.engine import (PageOutcome, Prefetcher, RunOptions, as_run_options, load_cards, open_store,
+                                 read_page, scan_inputs, with_listing)
 from ocrbench.run.host import host_info
 from ocrbench.run.writer import (PostProcess, ProgressEvent, RunState, RunSummary, RunWriter, file_sha256, file_stamp,
                                  open_run)
@@ -103,16 +104,20 @@ def scheduler_endpoint(address: str) -> tuple[str, str, int]:
 
 
 #: The most pages one task gets when the size is chosen automatically.
-MAX_AUTO_PAGES_PER_TASK = 8
+MAX_AUTO_PAGES_PER_TASK = 32
 
 
 def auto_pages_per_task(pages: int, threads: int) -> int:
-    """Pages per task when none is given: 1 to 8 pages, about four tasks per worker thread.
+    """Pages per task when none is given: 1 to 32 pages, about four tasks per worker thread.
 
     Several pages a task let the worker pipeline them (load the next while
-    recognising this one: only a task's first page is not hidden) and keep the
-    scheduler's per-task cost small; with several threads, four tasks each keep
-    them evenly busy to the end of the run (a single thread has no one to wait for).
+    recognising this one) and keep the scheduler's per-task cost small. A task's
+    first page is not hidden: its loading and segmentation (0.23 s of a page's
+    0.56 s on the demo pages, measured) run while the prefetch thread idles, once
+    per task. Pipelined pages take some 0.34 s each, so a task boundary costs about
+    2 % of a 32-page task and 8 % of an 8-page one (the former cap; arithmetic from
+    those stage times). With several threads, four tasks each keep them evenly busy
+    to the end of the run (a single thread has no one to wait for: up to 32 pages).
     """
     per_thread_tasks = 4 if threads > 1 else 1
     return max(1, min(MAX_AUTO_PAGES_PER_TASK, -(-pages // (per_thread_tasks * max(1, threads)))))
@@ -205,9 +210,10 @@ def _engine_key(options: RunOptions) -> str:
 def worker_recogniser(card: Card, options: RunOptions) -> Recogniser:
     """This process's recogniser for ``card``: opened (and warmed up) on first use, then reused.
 
-    The card is loaded again from its path here, so a worker that sees other
-    model files than the client (a remote worker with a stale copy) is refused
-    rather than silently mixing models in one run.
+    The card's files are hashed again here (:func:`card_hash_on_disk`: the hash only, not a second
+    validation, which would import ``onnx``: 0.7 s of every worker's start-up), so a worker that sees
+    other model files than the client (a remote worker with a stale copy) is refused rather than
+    silently mixing models in one run.
     """
     key = (card.card_hash, _engine_key(options))
     rec = _CACHE.get(key)
@@ -216,11 +222,11 @@ def worker_recogniser(card: Card, options: RunOptions) -> Recogniser:
     with _LOCK:                                   # threads of one worker open it once between them
         rec = _CACHE.get(key)
         if rec is None:
-            here = load_card(card.path)
-            if here.card_hash != card.card_hash:
+            here = card_hash_on_disk(card)
+            if here != card.card_hash:
                 raise ClusterError(f"{card.path}: the worker's copy of recogniser {card.name!r} differs from the "
-                                   f"client's (card hash {here.card_hash[:12]} vs {card.card_hash[:12]})")
-            rec = open_recogniser(here, options=options.engine, warm_up=options.warm_up)
+                                   f"client's (card hash {here[:12]} vs {card.card_hash[:12]})")
+            rec = open_recogniser(card, options=options.engine, warm_up=options.warm_up)
             _CACHE[key] = rec
             _LOADS[card.card_hash] += 1
     return rec
@@ -403,9 +409,15 @@ def connect(dask: DaskOptions) -> Iterator[_Cluster]:
     # it makes segmentation some 2x slower, see retune_allocator. Nor do they run Dask's statistical
     # profiler, which samples every thread's stack every 10 ms while pages are read (measured: page
     # time ~3 % lower without it on this project's pages; the best of several runs on a busy machine).
+    # Their event loops check their own health every second instead of every 20 ms, and sample the
+    # system every 2 s instead of 0.5 s (dashboards only): idle, a one-worker cluster's processes used
+    # 4-5 % of a core between them, now ~2 % (CPU seconds over 10 s idle, measured twice each); the
+    # memory monitor that stops a worker running out of memory keeps Dask's 100 ms.
     with dask_config.set({"distributed.admin.low-level-log-length": keep,
                           "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,
-                          "distributed.worker.profile.enabled": False}):
+                          "distributed.worker.profile.enabled": False,
+                          "distributed.admin.tick.interval": "1s",
+                          "distributed.admin.system-monitor.interval": "2s"}):
         if dask.scheduler is not None:
             client = _remote_client(dask)
         else:
@@ -458,11 +470,11 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
     """
     options = as_run_options(options)
     dask = dask or DaskOptions(workers=1)
-    card_list = load_cards(cards)
-    listing, input_dir, st, own_store = open_inputs(target, options, store)
-    refs = listing.refs
-    try:
-        with connect(dask) as cl:
+    with _connect_while(dask, lambda: (load_cards(cards), scan_inputs(target, options))) as (cl, (card_list, found)):
+        listing, input_dir = found
+        st, own_store = open_store(store)      # here: a SQLite connection stays in the thread that opened it
+        refs = listing.refs
+        try:
             client = cl.client
             # Every worker there now opens every recogniser (workers that join later do so on their first page).
             pre = client.run(_preflight, card_list, options)
@@ -486,9 +498,33 @@ def run_distributed(target: Path | str, cards: Sequence[Card | Path | str], *, s
                 sum(1 for r in refs if any(r.id not in s.done for s in states)), cl.threads)
             return with_listing(_write_as_completed(client, refs, states, card_list, st, options, per_task, window,
                                                     clock, progress, postprocess, input_dir), listing)
-    finally:
-        if own_store:
-            st.close()
+        finally:
+            if own_store:
+                st.close()
+
+
+@contextmanager
+def _connect_while(dask: DaskOptions, prepare: Callable[[], object]) -> Iterator[tuple[_Cluster, object]]:
+    """:func:`connect`, with ``prepare()`` (validating the cards, listing the pages) run meanwhile in a second
+    thread; yields the cluster and what ``prepare`` returned.
+
+    Starting a cluster is mostly waiting for its worker processes (interpreter, imports), and the
+    first card's validation imports ``onnx`` (some 0.8 s): done one after the other, the client's
+    core idled through the first. A problem ``prepare`` meets (a bad card, a missing folder) is
+    raised rather than the cluster's, as when the two ran in that order; it now comes once the
+    cluster has started (and is closed again).
+    """
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ocrbench-inputs") as ex:
+        fut = ex.submit(prepare)
+        with ExitStack() as stack:
+            try:
+                cl = stack.enter_context(connect(dask))
+            except BaseException as e:
+                err = fut.exception()
+                if err is not None and not isinstance(e, KeyboardInterrupt):
+                    raise err from e
+                raise
+            yield cl, fut.result()
 
 
 #: Times a chunk is resubmitted after a cluster-level error before the run stops with ClusterError.

@@ -116,10 +116,20 @@ def open_inputs(target: Path | str, options: RunOptions, store: RunStore | Path 
     """What every engine starts from: the listing of ``target`` (pages, and every file not read), the input
     folder as runs record it, and the run store, opened here when given as a path (then the bool is True
     and the caller closes it)."""
+    listing, folder = scan_inputs(target, options)
+    return (listing, folder, *open_store(store))
+
+
+def scan_inputs(target: Path | str, options: RunOptions) -> tuple[Listing, str]:
+    """The listing of ``target`` and the input folder as runs record it (the store-free half of open_inputs)."""
     target = Path(target)
-    listing = scan_pages(target, recurse=options.recurse)
+    return scan_pages(target, recurse=options.recurse), input_folder(target)
+
+
+def open_store(store: RunStore | Path | str) -> tuple[RunStore, bool]:
+    """The run store, opened here when given as a path (then the bool is True and the caller closes it)."""
     own = not isinstance(store, RunStore)
-    return listing, input_folder(target), (RunStore(store) if own else store), own
+    return (RunStore(store) if own else store), own
 
 
 def with_listing(summary: RunSummary, listing: Listing) -> RunSummary:

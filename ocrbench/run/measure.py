@@ -208,3 +208,46 @@ def measure_process_start(repeats: int = 3, *, timeout: float = 120.0) -> float:
             raise PlanError(f"a fresh process could not import the runner: {done.stderr.decode(errors='replace')[-300:]}")
         times.append(time.perf_counter() - t0)
     return float(statistics.median(times))
+
+
+#: Run in a fresh process by :func:`measure_cluster_start`: argv = workers. Prints the start and the close, seconds.
+_CLUSTER_PROBE = r"""
+import sys, time
+from ocrbench.run.distributed import DaskOptions, connect
+
+def ready():
+    import ocrbench.run.engine, onnxruntime  # what a worker imports before its first recogniser opens
+    return True
+
+t0 = time.perf_counter()
+with connect(DaskOptions(workers=int(sys.argv[1]))) as cl:
+    cl.client.run(ready)
+    t1 = time.perf_counter()
+t2 = time.perf_counter()
+print(f"CLUSTER {t1 - t0:.6f} {t2 - t1:.6f}")
+"""
+
+
+def measure_cluster_start(workers: int = 2, repeats: int = 1, *, timeout: float = 300.0) -> float:
+    """Seconds a Dask run of ``workers`` local workers spends on its cluster, beyond a serial run's own start-up.
+
+    In a fresh process (the interpreter and the runner already counted by :func:`measure_process_start`):
+    importing Dask, starting the scheduler and the worker processes, each worker importing the runner and
+    onnxruntime, and closing it all at the end. The median of ``repeats``. The recognisers' loading and
+    warm-up are not in it: every worker does that in parallel, as one serial run does.
+    """
+    import statistics
+    import subprocess
+    import sys
+
+    times = []
+    for _ in range(max(1, repeats)):
+        done = subprocess.run([sys.executable, "-c", _CLUSTER_PROBE, str(int(workers))], capture_output=True,
+                              text=True, timeout=timeout, check=False)
+        line = next((ln for ln in done.stdout.splitlines() if ln.startswith("CLUSTER ")), None)
+        if done.returncode != 0 or line is None:
+            raise PlanError(f"a local Dask cluster of {workers} workers could not be started and timed: "
+                            f"{done.stderr[-300:]}")
+        start, close = (float(x) for x in line.split()[1:3])
+        times.append(start + close)
+    return float(statistics.median(times))
