@@ -302,8 +302,9 @@ def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
         + (f" (measured, {', '.join(proc)})" if proc else " (not measured: 0 s; `ocrbench measure-scaling` "
                                                          "measures it)")
         + " and the model loading and warm-up (measured before the first page)",
-        "characters per line of a segmented sample are estimated from line width (fitted px per character "
-        "on the calibration's recognised lines); expected errors = CER x these characters",
+        "characters per line of a segmented sample are estimated once, from line width (the calibration fit of "
+        "characters on width that explains most of their variance, applied to the width as that recogniser "
+        "measures it: ink only for a card that cuts lines at blank gaps); expected errors = CER x these characters",
     ]
 
 
