@@ -323,6 +323,7 @@ class CostModel:
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
     process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
     figures: dict = field(default_factory=dict)   # the calibration pages' look (medians), see page_figures
+    slower_than: str | None = None     # measured slower than another configuration of it (planning.configs)
 
     def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per page: batch time, page overhead, and the part of them loading ahead hides."""
