@@ -100,6 +100,8 @@ def test_the_measured_slower_batch_size_is_never_first(two_batch_sizes, order):
     for c in ranked:                                                         # ranked with their ranges
         assert c["wall_seconds_p10"] <= c["wall_seconds_p50"] <= c["wall_seconds_p90"]
     assert doc["recommendation"]["batch_size"] == fast
+    # when the recogniser's own row (its latest settings) is the slower one, the plan says so
+    assert any("latest run" in w and "measured slower" in w for w in doc["warnings"]) == (order[-1] == slow)
     assert f"batch size {fast}" in doc["recommendation"]["text"]
     # the printed plan names the batch size of every configuration
     res = cli.invoke(app, ["plan", "-c", str(store), "--pages", "200", "--lines-per-page", "6-12",

@@ -391,6 +391,9 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
                 warnings.append(f"{o.row['recogniser']}: not judged against the budget: "
                                 + "; ".join([f"{u} unpriced" for u in o.row["unpriced"]]
                                             + [f"{u} unknown" for u in o.row["unknown"]]))
+    warnings += [f"{m.recogniser} on {m.profile}: its row is planned with the settings of its latest run, but "
+                 f"{m.slower_than}; the configurations rank (and the choice takes) the faster"
+                 for m in models if m.slower_than]
     configs = rank_configurations(options + _alternative_options(inputs, len(models)), inputs)
     table.attrs["recommendation"] = _recommend(options, inputs, [o for c, o in configs if c["rank"]])
     table.attrs["configurations"] = [c for c, _o in configs]
