@@ -315,5 +315,8 @@ def with_shared_characters(archive: Archive, models: Sequence[CostModel]) -> tup
     others = "; ".join(f"{m.recogniser} R^2 {_chars_r2(m.width):.2f}" for m in fits if m is not best)
     note = (f"characters per line of the sample are estimated once for every recogniser from its line shapes: "
             f"{best.recogniser}'s calibration fit of characters on the {how} (R^2 {_chars_r2(best.width):.2f}"
-            + (f"; not used: {others}" if others else "") + "), so every recogniser plans the same archive")
+            + (f"; not used: {others}" if others else "") + "), so every recogniser plans the same archive"
+            + ("; line width says little about characters here (R^2 below 0.3): the estimate is close to the "
+               "calibration's own characters per line, and errors (CER x characters) are as uncertain; describe "
+               "the archive by a run store (--archive-store) to count them" if _chars_r2(best.width) < 0.3 else ""))
     return replace(archive, sample_lines=lines), note
