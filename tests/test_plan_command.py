@@ -315,6 +315,8 @@ def test_measure_scaling_and_tune_on_the_real_runner(calibrated, tmp_path):
     plan = json.loads(res.stdout)
     ranked = [c for c in plan["configurations"] if c["rank"]]
     assert ranked and {c["workers"] for c in plan["configurations"]} == {1, 2}
+    # every batch size timed at the chosen threads is a configuration of the plan, ranked on its measurement
+    assert {c["batch_size"] for c in plan["configurations"]} == set(t["batch_sizes_stored"])
     assert plan["recognisers"][0]["process_start_seconds"] > 0
 
 

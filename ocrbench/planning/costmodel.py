@@ -324,6 +324,7 @@ class CostModel:
     process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
     cluster_start_s: float = 0.0       # a local Dask cluster's start and close, once per run of several workers
     figures: dict = field(default_factory=dict)   # the calibration pages' look (medians), see page_figures
+    slower_than: str | None = None     # measured slower than another configuration of it (planning.configs)
 
     def _parts(self, X: np.ndarray, coef: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per page: batch time, page overhead, and the part of them loading ahead hides."""

@@ -90,6 +90,7 @@ class PlanInputs:
     seed: int = 0
     speed_drift: float = SPEED_DRIFT   # machine speed spread between calibration and run (see SPEED_DRIFT)
     currency: str | None = None        # ISO 4217 code of every amount of money
+    alternatives: Sequence[CostModel] = ()   # other measured settings (batch size, threads) of the recognisers
 
     def __post_init__(self) -> None:
         if not 0.0 <= self.speed_drift < 1.0:
@@ -226,13 +227,15 @@ def _recommend(options: list[Option], inputs: PlanInputs, ranked: Sequence[Optio
     smallest change that would make one meet them."""
     ok = [o for o in (list(ranked) or options) if _meets(o.row)]
     if ok:
-        r = min(ok, key=_key).row
+        best = min(ok, key=_key)
+        r = best.row
         judged = "cheapest option meeting the goals" if r["cost"] is not None else \
             "fastest option not failing the goals (money not judged: " + "; ".join(r["unpriced"] + r["unknown"]) + ")"
         return {"recogniser": r["recogniser"], "profile": r["profile"], "workers": r["workers"],
-                "machines": r["machines"], "change": None,
+                "machines": r["machines"], "batch_size": best.serial.model.batch_size, "change": None,
                 "text": f"{judged}: {r['recogniser']} on {r['profile']} with {r['workers']} worker(s) x "
-                        f"{r['threads']} thread(s) x {r['machines']} machine(s)" + _fit_text(r, inputs)}
+                        f"{r['threads']} thread(s) x {r['machines']} machine(s), batch size "
+                        f"{best.serial.model.batch_size}" + _fit_text(r, inputs)}
     changes = []
     for o in options:
         res = inputs.resources_by_profile.get(o.serial.model.profile, inputs.resources)
@@ -248,10 +251,12 @@ def _recommend(options: list[Option], inputs: PlanInputs, ranked: Sequence[Optio
 def rank_configurations(options: list[Option], inputs: PlanInputs) -> list[tuple[dict, Option]]:
     """Every configuration of each recogniser and profile worth considering, ranked by the goals, then cost/time.
 
-    Workers per machine: each count measured at the planned threads, and the count asked for. A count
-    measured slower than a smaller count is listed as excluded (it is never ranked above, or recommended
-    over, the faster one). Ranked first: configurations not failing the goals; then the cheapest (or the
-    fastest when money is not known).
+    Dimensions: the recogniser (variants are recognisers of their own), each batch size (and thread count)
+    measured for it (``PlanInputs.alternatives``), and the workers per machine: each count measured at the
+    planned threads, and the count asked for. A count measured slower than a smaller count, and settings
+    measured slower than others on the same pages (:mod:`ocrbench.planning.configs`), are listed as
+    excluded: never ranked above, or recommended over, the faster one. Ranked first: configurations not
+    failing the goals; then the cheapest (or the fastest when money is not known).
     """
     out = []
     for o in options:
@@ -268,11 +273,12 @@ def rank_configurations(options: list[Option], inputs: PlanInputs) -> list[tuple
             except PlanError:
                 continue
             r = alt.row
+            why = [f"{w} workers were measured slower than {slower} on {m.profile}"] if slower is not None else []
+            why += [f"{m.recogniser} on {m.profile}: {m.slower_than}"] if m.slower_than else []
             out.append(({k: r.get(k) for k in ("recogniser", "profile", "workers", "threads", "machines",
                                                 "wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90",
                                                 "cost", "cost_high", "meets_deadline", "meets_budget")}
-                        | {"excluded": None if slower is None else
-                           f"{w} workers were measured slower than {slower} on {m.profile}"}, alt))
+                        | {"batch_size": m.batch_size, "excluded": "; ".join(why) or None}, alt))
     ranked = sorted([c for c in out if not c[0]["excluded"]],
                     key=lambda c: (not _meets(c[0]), c[0]["cost"] is None,
                                    c[0]["cost"] if c[0]["cost"] is not None else 0.0, c[0]["wall_seconds_p50"]))
@@ -304,8 +310,9 @@ def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
         + " and the model loading and warm-up (measured before the first page); several workers of one "
         "machine are one Dask run, which also starts and closes its cluster (measured by `ocrbench "
         "measure-scaling --workers K`, else 0 s)",
-        "characters per line of a segmented sample are estimated from line width (fitted px per character "
-        "on the calibration's recognised lines); expected errors = CER x these characters",
+        "characters per line of a segmented sample are estimated once, from line width (the calibration fit of "
+        "characters on width that explains most of their variance, applied to the width as that recogniser "
+        "measures it: ink only for a card that cuts lines at blank gaps); expected errors = CER x these characters",
     ]
 
 
@@ -334,6 +341,22 @@ def sample_differences(models: Sequence[CostModel], archive: Archive,
     return out
 
 
+def _alternative_options(inputs: PlanInputs, first_seed: int) -> list[Option]:
+    """The recognisers' other measured settings (batch size, threads), each judged as its own configuration."""
+    out = []
+    for i, m in enumerate(inputs.alternatives):
+        res = inputs.resources_by_profile.get(m.profile, inputs.resources)
+        try:
+            est = estimate_serial(m, inputs.archive, draws=inputs.draws, seed=inputs.seed + first_seed + i,
+                                  speed_drift=inputs.speed_drift, archive_seed=inputs.seed)
+            o = _evaluate(Option(row={}, wall=np.zeros(0), serial=est), res, inputs)
+        except PlanError:
+            continue
+        o.row["currency"] = inputs.currency
+        out.append(o)
+    return out
+
+
 def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
     """The plan: one row per recogniser (per machine profile), side by side.
 
@@ -355,6 +378,7 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
                                        sample_size=inputs.sample_sizes.get(m.recogniser)))
     for o in options:
         o.row["currency"] = inputs.currency
+        o.row["batch_size"] = o.serial.model.batch_size
     table = pd.DataFrame([o.row for o in options])
     cross = []
     for prof in dict.fromkeys(m.profile for m in models):
@@ -369,7 +393,10 @@ def make_plan(models: Sequence[CostModel], inputs: PlanInputs) -> pd.DataFrame:
                 warnings.append(f"{o.row['recogniser']}: not judged against the budget: "
                                 + "; ".join([f"{u} unpriced" for u in o.row["unpriced"]]
                                             + [f"{u} unknown" for u in o.row["unknown"]]))
-    configs = rank_configurations(options, inputs)
+    warnings += [f"{m.recogniser} on {m.profile}: its row is planned with the settings of its latest run, but "
+                 f"{m.slower_than}; the configurations rank (and the choice takes) the faster"
+                 for m in models if m.slower_than]
+    configs = rank_configurations(options + _alternative_options(inputs, len(models)), inputs)
     table.attrs["recommendation"] = _recommend(options, inputs, [o for c, o in configs if c["rank"]])
     table.attrs["configurations"] = [c for c, _o in configs]
     table.attrs["crossover"] = cross

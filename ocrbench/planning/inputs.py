@@ -28,6 +28,7 @@ import pandas as pd
 
 from ocrbench.io.config import Key, check_table, read_toml
 from ocrbench.planning.archive import Archive
+from ocrbench.planning.configs import measured_slower, settings_groups
 from ocrbench.planning.costmodel import CostModel, fit_cost_model
 from ocrbench.planning.people import (DEFAULT_CHARS_PER_SECOND, DEFAULT_HOURS_PER_WEEK, DEFAULT_REVIEW_SHARE,
                                       DEFAULT_SECONDS_PER_ERROR, DEFAULT_SECONDS_PER_LINE, REVIEW_MODES)
@@ -191,6 +192,7 @@ class Calibration:
     profile: str
     models: list[CostModel]
     scaling: dict[str, ScalingFit]
+    alternatives: list[CostModel] = field(default_factory=list)   # other measured settings (planning.configs)
 
 
 def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = None, n_boot: int = 200,
@@ -211,7 +213,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
     if missing:
         raise PlanError(f"{path}: no run of {', '.join(missing)} in this calibration store "
                         f"(it holds {', '.join(sorted(runs['recogniser'].unique()))})")
-    models, scaling = [], {}
+    models, scaling, alternatives = [], {}, []
     for n in names:
         last = runs[runs["recogniser"] == n].iloc[-1]
         height, multiple, split_gap = _card_geometry(last.get("card_path"))
@@ -238,11 +240,34 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         except PlanError as e:
             raise PlanError(f"{path}: {e}") from e
         models.append(m)
+        alternatives += _alternatives(frames, m, dict(profile=name, line_height=height, width_multiple=multiple,
+                                                      split_gap=split_gap, session=session, n_boot=n_boot,
+                                                      seed=seed))
     profile = name or models[0].profile
-    for m in models:
+    for m in models + alternatives:
         m.profile = profile
     return Calibration(path=path, profile=profile, models=models,
-                       scaling={f"{profile}/{k}": v for k, v in scaling.items()})
+                       scaling={f"{profile}/{k}": v for k, v in scaling.items()}, alternatives=alternatives)
+
+
+def _alternatives(frames: Mapping[str, pd.DataFrame], main: CostModel, fit_args: dict) -> list[CostModel]:
+    """The recogniser's other measured settings (batch size, threads) as cost models of their own; every one
+    (``main`` included) measured slower than another on the same pages is marked (``slower_than``)."""
+    groups = settings_groups(frames, main.recogniser)
+    slower = measured_slower(groups)
+    out = []
+    for i, g in enumerate(groups):
+        if max(main.run_ids) in g.run_ids:          # the latest settings: the recogniser's own row
+            main.slower_than = slower.get(i)
+            continue
+        try:
+            alt = fit_cost_model(frames, main.recogniser, run_ids=g.run_ids, **fit_args)
+        except PlanError as e:
+            main.notes.append(f"{g.label()} (runs {', '.join(map(str, g.run_ids))}) not planned: {e}")
+            continue
+        alt.slower_than = slower.get(i)
+        out.append(alt)
+    return out
 
 
 # --------------------------------------------------------------------------- sample folder

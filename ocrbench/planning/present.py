@@ -103,7 +103,9 @@ def statements(table: pd.DataFrame) -> list[tuple[str, str]]:
         cost = "" if c["cost"] is None else f", cost {money_text(c['cost'], cur)}"
         head = f"#{c['rank']}" if c["rank"] else "excluded"
         out.append(("Configuration", f"{head} {c['recogniser']} on {c['profile']}: {c['machines']} x {c['workers']} "
-                                     f"workers x {c['threads']} threads, P50 {_dur(c['wall_seconds_p50'])} "
+                                     f"workers x {c['threads']} threads"
+                                     + (f", batch {c['batch_size']}" if c.get("batch_size") else "")
+                                     + f", P50 {_dur(c['wall_seconds_p50'])} "
                                      f"({_dur(c['wall_seconds_p10'])}-{_dur(c['wall_seconds_p90'])}){cost}"
                                      + (f" — {c['excluded']}" if c["excluded"] else "")))
     for c in table.attrs.get("crossover", []):

@@ -273,7 +273,7 @@ def plan(req: PlanRequest, *, context: ReportContext | None = None,
                         correction=correction, correction_by_recogniser=by_recogniser,
                         accuracy=accuracy, sample_sizes=sizes, scaling={k: v for c in cals for k, v in c.scaling.items()},
                         resources_by_profile=by_profile, draws=req.draws, seed=req.seed, speed_drift=req.speed_drift,
-                        currency=req.currency)
+                        currency=req.currency, alternatives=[a for c in cals for a in c.alternatives])
     say("simulating the archive")
     table = make_plan(models, inputs)
     table.attrs["sample_sizes"] = sizes

@@ -148,7 +148,10 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
     the real runner (k workers side by side, as ``measure-scaling`` does) into a scratch store;
     the fastest (pages per second of the whole machine) is then timed once more into ``store``,
     with its throughput rows at each worker count, so ``ocrbench plan`` calibrates on it and
-    ranks its worker counts. Returns ``grid`` (every configuration measured or why not), ``best``.
+    ranks its worker counts. Every other batch size timed at the chosen threads is timed once more into
+    ``store`` too (before the chosen one, whose run stays the latest), as a run of its own settings, so
+    the plan ranks batch sizes on measurements of the same pages (:mod:`ocrbench.planning.configs`).
+    Returns ``grid`` (every configuration measured or why not), ``best``, ``batch_sizes_stored``.
     """
     import os
     import shutil
@@ -190,6 +193,10 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
             from ocrbench.errors import PlanError
             raise PlanError(f"{target}: no configuration could be timed within {max_seconds:g} s")
         best = max(done, key=lambda g: g["pages_per_second"])
+        others = sorted({g["batch_size"] for g in done if g["threads"] == best["threads"]} - {best["batch_size"]})
+        for b in others:         # kept as runs of their own: the plan ranks batch sizes by what was measured
+            say(f"timing batch size {b} into the calibration store")
+            measure_session(subset, card, store=store, options=session_options(None, best["threads"], b))
         say("timing the chosen configuration into the calibration store")
         opts = session_options(None, best["threads"], best["batch_size"])
         rows = [measure_session(subset, card, store=store, options=opts)]
@@ -203,5 +210,5 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
     out["host_json"] = [json.dumps(json.loads(h or "{}") | {"process_start_seconds": proc}, sort_keys=True)
                         for h in out["host_json"]]
     save_scaling(store, out)
-    return {"grid": grid, "best": best, "cores": cores, "pages": len(refs),
+    return {"grid": grid, "best": best, "cores": cores, "pages": len(refs), "batch_sizes_stored": others + [best["batch_size"]],
             "seconds": time.perf_counter() - t0, "process_start_seconds": proc}

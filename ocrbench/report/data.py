@@ -25,6 +25,7 @@ the store):
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import json
 from dataclasses import dataclass, field
@@ -39,7 +40,7 @@ from ocrbench.accuracy.normalise import get_profile
 from ocrbench.accuracy.evaluate import (PostText, System, TruthReader, compare, read_truth_pages, score_systems,
                                         store_systems)
 from ocrbench.accuracy.stats import bootstrap_ratio_ci, bootstrap_sums, percentile_interval
-from ocrbench.errors import StoreError
+from ocrbench.errors import PlanError, StoreError
 from ocrbench.io.tables import json_ready
 from ocrbench.planning.service import PlanRequest, PlanResults, compute_plan, plan_from_results
 from ocrbench.quality.summary import quality
@@ -493,11 +494,24 @@ def _add_quality(data: ReportData, store: Path, truth: Path | None, profile: str
         data.tables["quality"] = pd.DataFrame(rows)
 
 
+#: The plan's fields that hold money, and what each amount is per (its unit is the currency and this).
+MONEY_FIELDS = {"compute_cost": "", "compute_cost_p90": "", "correction_cost": "", "correction_cost_high": "",
+                "people_cost": "", "people_cost_high": "", "cost": "", "cost_high": "", "budget": "",
+                "spec.budget": "", "spec.price_core_hour": " per core-hour",
+                "spec.price_machine_hour": " per machine-hour", "spec.correction_price_hour": " per hour of correction",
+                "configurations.cost": "", "configurations.cost_high": ""}
+
+
 def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
               plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int) -> None:
     """The plan section: given results as they are, or a request computed on this store."""
     summary = data.summary
     runs = summary["recognisers"]
+    if isinstance(plan, PlanRequest) and currency:
+        if plan.currency and plan.currency != currency:
+            raise PlanError(f"the plan's amounts are in {plan.currency} and the report was asked for {currency}: "
+                            "give one currency")
+        plan = dataclasses.replace(plan, currency=currency)
     if isinstance(plan, PlanResults):
         summary["plan"] = plan_from_results(plan)
     else:
@@ -514,7 +528,11 @@ def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
                                        curve_max_workers=curve_max_workers)
         summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
                                               if accuracy else None)
-    summary["plan"]["currency"] = currency or summary["plan"].get("currency")
+    summary["plan"]["currency"] = cur = currency or summary["plan"].get("currency")
+    # every amount of money in the plan section and its rows, with its unit (ISO 4217 code)
+    summary["plan"]["units"] = {k: (cur or "no currency given") + per for k, per in MONEY_FIELDS.items()}
+    for row in summary["plan"]["rows"].values():
+        row["currency"] = cur
     for run in runs:
         run["plan"] = summary["plan"]["rows"].get(run["name"])
     if summary["plan"]["curve"]:
@@ -536,7 +554,7 @@ def _flat_row(run: dict) -> dict:
         row[pre + "recipe"] = acc.get("recipe")
     plan = run.get("plan") or {}
     for k in ("wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90", "cost", "cost_high", "meets_deadline",
-              "meets_budget"):
+              "meets_budget", "currency"):
         row["plan_" + k] = plan.get(k)
     return row
 

@@ -151,7 +151,7 @@ def _decision(s: Mapping) -> str:
     runs = s["recognisers"]
     plan = s.get("plan") or {}
     rec = plan.get("recommendation") or {}
-    cur = _e(plan.get("currency") or "")
+    cur = _unit(plan)
     parts = ['<section id="decision" class="decision"><h2>Decision</h2>']
     if rec.get("text"):
         parts.append(f'<p class="verdict">{_e(rec["text"][:1].upper() + rec["text"][1:])}.</p>')
@@ -170,7 +170,7 @@ def _decision(s: Mapping) -> str:
     if has_plan:
         head += ["archive time P50 (P90)"]
     if money:
-        head += [f"compute {cur}".strip(), f"correction {cur}".strip(), f"total {cur} (up to)".replace("  ", " ")]
+        head += [f"compute, {cur}", f"correction, {cur}", f"total, {cur} (up to)"]
     if has_plan:
         head += ["deadline", "budget"]
     rows = []
@@ -207,12 +207,31 @@ def _decision(s: Mapping) -> str:
     return "".join(parts)
 
 
+def _unit(plan: Mapping) -> str:
+    """The plan's currency (ISO 4217 code) for every money label, or a plain statement that none was given."""
+    return _e(plan.get("currency") or "no currency given")
+
+
 def _holds(s: Mapping, path: str) -> str:
-    try:
-        v = resolve(s, path)
-    except (KeyError, IndexError, TypeError):
-        v = None
-    return "no goal" if v is None else figure(s, path, "bool")
+    """yes/no for a goal the plan judged; "unknown" for one it could not (a part unpriced, correctors not
+    given), never "yes"; "no goal" only where no such goal was set."""
+    def get(p: str):
+        try:
+            return resolve(s, p)
+        except (KeyError, IndexError, TypeError):
+            return None
+
+    if get(path) is not None:
+        return figure(s, path, "bool")
+    base, _, what = path.rpartition(".")
+    goal = get(base + (".budget" if what == "meets_budget" else ".deadline_seconds"))
+    if goal is None:
+        return "no goal"
+    if what == "meets_budget":
+        why = [f"not priced: {u}" for u in get(base + ".unpriced") or []] + \
+              [f"not known: {u}" for u in get(base + ".unknown") or []]
+        return "unknown (" + _e("; ".join(why) or "not judged") + ")"
+    return "unknown (correctors not given)"
 
 
 def _side_by_side(s: Mapping) -> str:
@@ -262,8 +281,7 @@ def _side_by_side(s: Mapping) -> str:
             [_interval(s, f"recognisers.{i}.plan.wall_seconds_p50", f"recognisers.{i}.plan.wall_seconds_p10",
                        f"recognisers.{i}.plan.wall_seconds_p90", "dur") for i in range(len(runs))])
         if money:
-            cur = _e(s["plan"].get("currency") or "")
-            row(f"archive cost {cur}, recognition and correction (up to)".replace("  ", " "),
+            row(f"archive cost, {_unit(s['plan'])}, recognition and correction (up to)",
                 [f'{figure(s, f"recognisers.{i}.plan.cost", "money")} '
                  f'<span class="iv">(up to {figure(s, f"recognisers.{i}.plan.cost_high", "money")})</span>'
                  for i in range(len(runs))])
@@ -272,10 +290,8 @@ def _side_by_side(s: Mapping) -> str:
         row("correction hours [interval]",
             [_interval(s, f"recognisers.{i}.plan.correction_hours", f"recognisers.{i}.plan.correction_hours_low",
                        f"recognisers.{i}.plan.correction_hours_high", "f1") for i in range(len(runs))])
-        row("meets the deadline", [figure(s, f"recognisers.{i}.plan.meets_deadline", "bool")
-                                   for i in range(len(runs))])
-        row("meets the budget", [figure(s, f"recognisers.{i}.plan.meets_budget", "bool")
-                                 for i in range(len(runs))])
+        row("meets the deadline", [_holds(s, f"recognisers.{i}.plan.meets_deadline") for i in range(len(runs))])
+        row("meets the budget", [_holds(s, f"recognisers.{i}.plan.meets_budget") for i in range(len(runs))])
     head = "".join(f'<th scope="col" class="n">{_e(r["name"])}</th>' for r in runs)
     body = "".join(f'<tr><th scope="row">{_e(label)}</th>{"".join(f"<td class=n>{c}</td>" for c in cells)}</tr>'
                    for label, cells in rows)
@@ -350,12 +366,11 @@ def _plan(s: Mapping) -> str:
     if not plan:
         return ""
     spec = plan.get("spec") or {}
-    cur = _e(plan.get("currency") or "")
+    cur = _unit(plan)
     parts = ['<h2 id="plan">Plan for the archive</h2>']
 
-    def money(key: str) -> str:
-        return (f'{cur} {figure(s, f"plan.spec.{key}", "money")}'.strip() if spec.get(key) is not None
-                else "not priced")
+    def money(key: str, none: str = "not priced") -> str:
+        return f'{figure(s, f"plan.spec.{key}", "money")} {cur}' if spec.get(key) is not None else none
 
     if spec:
         if spec.get("lines_per_page"):
@@ -370,15 +385,14 @@ def _plan(s: Mapping) -> str:
         items = [("pages in the archive", figure(s, "plan.spec.pages", "int")),
                  ("pages described by", pages_by),
                  ("deadline", _e(spec.get("deadline") or "none")),
-                 ("budget", (f'{cur} {figure(s, "plan.spec.budget", "money")}'.strip()
-                             if spec.get("budget") is not None else "none")),
+                 (f"budget, {cur}", money("budget", "none")),
                  ("workers per machine × machines", f'{figure(s, "plan.spec.workers", "int")} × '
                                                     f'{figure(s, "plan.spec.machines", "int")}'),
                  ("threads per worker", _e(spec.get("threads") or "as calibrated")),
-                 ("price per core-hour", money("price_core_hour")),
-                 ("price per machine-hour", money("price_machine_hour")),
+                 (f"price per core-hour, {cur}", money("price_core_hour")),
+                 (f"price per machine-hour, {cur}", money("price_machine_hour")),
                  ("correction effort per character error", f'{figure(s, "plan.spec.seconds_per_error", "f1")} s'),
-                 ("price per hour of correction", money("correction_price_hour")),
+                 (f"price per hour of correction, {cur}", money("correction_price_hour")),
                  ("wanted CER margin of a ground-truth sample", f'± {figure(s, "plan.spec.cer_margin", "pct")}'),
                  ("calibration", ", ".join(f"<code>{_e(c)}</code>" for c in spec.get("calibration") or [])),
                  ("throughput measured at several workers for",
@@ -426,7 +440,8 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
                         "deadline (named at the top instead when it lies far above every curve).",
         "cost-accuracy": "Each option of the plan: its archive cost (compute and correction; the bar reaches the "
                          "cost's high end) against its CER with the 95 % interval. The filled mark is the "
-                         "recommended option; the dashed line is the budget.",
+                         "recommended option; the dashed line is the budget. Money in "
+                         + _unit(s.get("plan") or {}) + ".",
     }
     for k, f in enumerate(s["figures"]):
         if f.get("section"):

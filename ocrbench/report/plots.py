@@ -317,7 +317,7 @@ def cost_accuracy(summary: Mapping) -> str | None:
         return None
     names = [r["name"] for r in summary["recognisers"]]
     chosen = (plan.get("recommendation") or {}).get("recogniser")
-    cur = plan.get("currency") or ""
+    cur = plan.get("currency") or "no currency given"
     plt = _plt()
     with plt.rc_context(STYLE):
         fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
@@ -334,10 +334,10 @@ def cost_accuracy(summary: Mapping) -> str | None:
         budget = (plan.get("spec") or {}).get("budget")
         if budget is not None:
             ax.axhline(float(budget), color=INK, linestyle=(0, (6, 3)), linewidth=1.0)
-            ax.annotate("budget", (ax.get_xlim()[1], float(budget)), textcoords="offset points", xytext=(-4, 4),
+            ax.annotate(f"budget, {cur}", (ax.get_xlim()[1], float(budget)), textcoords="offset points", xytext=(-4, 4),
                         ha="right", fontsize=8)
         ax.set_xlabel("CER, % (95 % interval; the text the plan's correction effort uses)")
-        ax.set_ylabel(_label(f"archive cost{', ' + cur if cur else ''} (point; bar up to the high end)"))
+        ax.set_ylabel(_label(f"archive cost, {cur} (point; bar up to the high end)"))
         ax.set_xlim(left=0)
         ax.set_ylim(bottom=0)
         _legend(ax)

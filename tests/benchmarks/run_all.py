@@ -47,11 +47,14 @@ QUICK_ARGS = {
     "bench_quality": ["--quick", "--repeats", "2"],
     "bench_tune": ["--pages", "3", "--max-seconds", "60", "--batch-sizes", "8,16"],
     "bench_repeat_guard": ["--pages", "1", "--rounds", "2"],
+    "bench_plan_whole": ["--pages", "20", "--rounds", "1"],
+    "bench_plan_later": ["--pages", "20", "--rounds", "1", "--load-seconds", "10"],
 }
 
 #: Benchmarks that take ``--models DIR`` (a folder with ledger-ctc/ and ledger-seq/).
 TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner", "bench_postprocess",
-                "bench_variant", "bench_route", "bench_quality", "bench_tune", "bench_repeat_guard"}
+                "bench_variant", "bench_route", "bench_quality", "bench_tune", "bench_repeat_guard",
+                "bench_plan_whole", "bench_plan_later"}
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
 TARGET_RE = re.compile(r"^(>=|<=|>|<)\s*([0-9.]+)\s*x?$")
