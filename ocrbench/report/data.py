@@ -299,7 +299,7 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     _add_quality(data, store, Path(truth) if truth is not None else None, prof.name, sel["run_id"].tolist(),
                  min(n_boot, QUALITY_BOOT), seed)
     if plan is not None:
-        _add_plan(data, store, frames, plan, currency, curve_max_workers)
+        _add_plan(data, store, frames, plan, currency, curve_max_workers, truth)
     else:
         for run in runs:
             run["plan"] = None
@@ -494,7 +494,8 @@ def _add_quality(data: ReportData, store: Path, truth: Path | None, profile: str
 
 
 def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
-              plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int) -> None:
+              plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int,
+              truth: Path | str | None = None) -> None:
     """The plan section: given results as they are, or a request computed on this store."""
     summary = data.summary
     runs = summary["recognisers"]
@@ -511,7 +512,7 @@ def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
                 if key in data.page_scores:
                     gt_pages[run["name"]] = data.page_scores[key]
         summary["plan"] = compute_plan(store, frames, plan, runs, accuracy=accuracy, page_scores=gt_pages,
-                                       curve_max_workers=curve_max_workers)
+                                       curve_max_workers=curve_max_workers, truth=truth)
         summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
                                               if accuracy else None)
     summary["plan"]["currency"] = currency or summary["plan"].get("currency")
@@ -575,6 +576,14 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("y=archive wall-clock P50 with P10-P90 band (Monte Carlo over cost-model refits, page "
                     f"distribution and residuals);x={(plan or {}).get('curve_axis') or 'workers'};"
                     f"pages={((plan or {}).get('spec') or {}).get('pages', '-')}")},
+        {"id": "plan-frontier", "title": "Options: cost against CER, with the frontier",
+         "shown": bool(plan and len(plan.get("options") or []) > 1
+                       and any(o.get("cer") is not None for o in plan.get("options") or [])),
+         "why_not": ("no plan was given" if not plan else "the plan has fewer than two options with a CER"),
+         "recipe": ("x=cer(calibration pages' ground truth, 95% interval; routes: each line's kept reading, "
+                    "scored as score does);y=archive cost P50 (compute + people, or core-hours where money is "
+                    "not known) with a bar up to its high end;route=fast all lines + share x slow;"
+                    "line=frontier;filled=chosen;dashed=target CER (upper bound)")},
         {"id": "cost-accuracy", "title": "Archive cost against accuracy",
          "shown": bool(plan and any(r.get("cost") is not None and r.get("cer") is not None
                                     for r in (plan.get("rows") or {}).values())),
