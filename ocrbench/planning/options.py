@@ -133,7 +133,7 @@ def _judge(options: list[dict], target: float, key: str, currency: str | None) -
         elif o.get(key) is None:
             o["lost"] = "no cost known"
         else:
-            o["lost"] = f"meets the target but costs {fmt(o[key])}, {fmt(o[key] - chosen[key])} more"
+            o["lost"] = f"meets the target but costs {fmt(o[key] - chosen[key])} more"
     return chosen
 
 
@@ -218,8 +218,10 @@ def option_statements(table: pd.DataFrame) -> list[tuple[str, str]]:
     out, rest = [], {}
     for o in sorted(opts, key=lambda o: (o.get(key) is None, o.get(key) or 0.0)):
         if o["kind"] == "route" and not o.get("frontier") and not o.get("chosen"):
-            why = (o.get("lost") or "dominated").split(",")[0].split(" costs")[0]
-            why = "CER above the target" if why.startswith("CER up to") else why
+            lost = o.get("lost") or ""
+            why = ("with a CER above the target" if lost.startswith("CER up to") else
+                   "meeting the target at a higher cost" if lost.startswith("meets") else
+                   lost or "costlier or less accurate than an option on the frontier")
             rest[why] = rest.get(why, 0) + 1
             continue
         cost = (money_text(o[key], cur) if key == "cost" else f"{o[key]:,.1f} core-hours") \

@@ -421,13 +421,15 @@ def plan_frontier(summary: Mapping) -> str | None:
                         mec=st["color"], elinewidth=1.0, label=_label(f"{o['option']} ({o.get('kind')})"))
         for j, (pair, group) in enumerate(_by_route(opts).items()):
             st = _style(len(singles) + j)
-            for k, o in enumerate(group):
+            ax.plot([], [], st["marker"], color=st["color"], ms=4, mfc="white", linestyle="none",
+                    label=_label(f"route {pair}, each threshold"))
+            for o in group:
                 x, y = 100 * o["cer"], float(o[key])
-                ax.errorbar([x], [y], xerr=_err(x, _pct_or_none(o.get("cer_low")), _pct_or_none(o.get("cer_high"))),
-                            fmt=st["marker"], color=st["color"], ms=4 if not o.get("chosen") else 7, capsize=0,
-                            mfc=st["color"] if o.get("chosen") else "white", mec=st["color"], elinewidth=0.5,
-                            alpha=1.0 if o.get("frontier") or o.get("chosen") else 0.55,
-                            label=_label(f"route {pair}, thresholds") if k == 0 else None)
+                shown = o.get("frontier") or o.get("chosen")     # bars on the frontier only, or the plot is a thicket
+                ax.errorbar([x], [y], xerr=_err(x, _pct_or_none(o.get("cer_low")), _pct_or_none(o.get("cer_high")))
+                            if shown else None, fmt=st["marker"], color=st["color"], ms=7 if o.get("chosen") else 4,
+                            capsize=2, mfc=st["color"] if o.get("chosen") else "white", mec=st["color"],
+                            elinewidth=0.6, alpha=1.0 if shown else 0.6)
         front = sorted((100 * o["cer"], float(o[key])) for o in opts if o.get("frontier"))
         if len(front) > 1:
             ax.plot(*zip(*front), color=INK, linestyle="-", linewidth=0.9, label="frontier")
@@ -443,8 +445,7 @@ def plan_frontier(summary: Mapping) -> str | None:
         ax.set_xlabel("CER, % (95 % interval; calibration pages with ground truth)")
         ax.set_ylabel(_label(f"archive cost, P50{', ' + cur if cur and by_cost else ''}" if by_cost else
                              "archive compute, core-hours (P50)"))
-        ax.set_xlim(left=0)
-        ax.set_ylim(bottom=0)
+        ax.set_xlim(left=0)         # cost axis not from 0: the options often differ by a few per cent of it
         _legend(ax)
         ax.set_title("Lower left is cheaper and more accurate", fontsize=9, loc="left")
         return _to_svg(fig)
