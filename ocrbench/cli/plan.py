@@ -71,8 +71,9 @@ def plan(
                                       help="Split the archive into jobs of this many pages (each starts anew)."),
     deadline: Optional[str] = _o(None, "--deadline", help="e.g. 6w, 42d, 1000h."),
     budget: Optional[float] = _o(None, "--budget", min=0, help="Money available (compute + people)."),
-    target_cer: Optional[float] = _o(None, "--target-cer", min=0, max=1, help="Choose the cheapest option (recogniser, "
-                                     "variant, route and threshold) whose CER upper bound is at most this (0.004 = 0.4 %)."),
+    target_cer: Optional[float] = _o(None, "--target-cer", min=0, max=1, help="Choose the cheapest option "
+                                     "(recogniser, variant, route and threshold) whose CER upper bound is at most "
+                                     "this (0.004 = 0.4 %)."),
     route: Optional[str] = _o(None, "--route", help="Plan this route: 'FAST -> SLOW if doubt > X', or 'FAST -> SLOW' "
                               "to try thresholds."),
     currency: Optional[str] = _o(None, "--currency", help="ISO 4217 code of every amount (e.g. GBP, EUR)."),

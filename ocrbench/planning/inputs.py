@@ -68,9 +68,9 @@ deadline = "6w"                            # s, m, h, d or w
 budget = 5000
 # target_cer = 0.004                        # cheapest option whose CER upper bound is at most this (0.4 %)
 
-# [route]                                   # a route as a plan option (see `ocrbench run --route`)
-# fast = "ledger-ctc"                       # reads every line
-# slow = "ledger-seq"                       # re-reads the lines the fast one doubts
+[route]                                    # a route as a plan option (see `ocrbench run --route`)
+fast = "ledger-ctc"                        # reads every line
+slow = "ledger-seq"                        # re-reads the lines the fast one doubts
 # threshold = 0.3                           # doubt > threshold is routed (default: the plan tries several)
 
 [correction]
@@ -208,7 +208,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         name, text = text.split("=", 1)
     path = Path(text)
     frames = read_store_frames(path)
-    frames = {**frames, "runs": reading_runs(frames["runs"])}   # a route's kept text and SLOW re-reading are no recogniser's
+    frames = {**frames, "runs": reading_runs(frames["runs"])}   # not a route's kept text nor its SLOW re-reading
     runs = frames["runs"]
     if runs.empty:
         raise PlanError(f"{path}: the calibration store holds no runs")

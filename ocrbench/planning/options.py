@@ -208,11 +208,17 @@ def _with_attrs(df: pd.DataFrame, attrs: Mapping) -> pd.DataFrame:
     return df
 
 
+def has_options(plan: Mapping) -> bool:
+    """Whether a plan (table attrs or the report's plan section) has options beyond its recognisers' rows:
+    a route, or a target CER to choose for."""
+    return bool(plan.get("target")) or any(o.get("kind") == "route" for o in plan.get("options") or [])
+
+
 def option_statements(table: pd.DataFrame) -> list[tuple[str, str]]:
     """(kind, text) lines of the options: the singles, the frontier and the chosen one each with cost and CER and
     why it lost; the other (dominated) route thresholds counted by reason (``--json`` lists every one)."""
     opts = table.attrs.get("options") or []
-    if len(opts) < 2 and not table.attrs.get("target"):
+    if not has_options(table.attrs):
         return []
     key, cur = table.attrs.get("options_key", "cost"), table.attrs.get("currency")
     out, rest = [], {}

@@ -121,13 +121,17 @@ def routed_runs(runs: pd.DataFrame) -> list[dict]:
             x = parse_route(s.get("route", "")).threshold
         except ConfigError:
             continue
-        f = [q for q in rows if _settings(q).get("route") == s.get("route") and q.get("card_hash") == s.get("route_fast")
-             and _settings(q).get("route_role") == "fast"]
-        sl = [q for q in rows if _settings(q).get("route") == s.get("route") and q.get("card_hash") ==
-              s.get("route_slow") and _settings(q).get("route_role") == "slow"]
+        def role(q: Mapping, name: str, hash_key: str) -> bool:
+            qs = _settings(q)
+            return qs.get("route") == s.get("route") and qs.get("route_role") == name and \
+                q.get("card_hash") == s.get(hash_key)
+
+        f = [q for q in rows if role(q, "fast", "route_fast")]
+        sl = [q for q in rows if role(q, "slow", "route_slow")]
         if f and sl:
             out.append({"fast": f[-1]["recogniser"], "slow": sl[-1]["recogniser"], "threshold": x,
-                        "run_id": int(r["run_id"]), "fast_run": int(f[-1]["run_id"]), "slow_run": int(sl[-1]["run_id"])})
+                        "run_id": int(r["run_id"]), "fast_run": int(f[-1]["run_id"]),
+                        "slow_run": int(sl[-1]["run_id"])})
     return out
 
 
@@ -270,7 +274,7 @@ def route_row(fast_row: Mapping, slow_row: Mapping, share: float, accuracy: tupl
             "route_slow": slow_row["recogniser"], "band_drift_share": None, "p_meets_deadline": None,
             "p_recognition_meets_deadline": None, "gt_sample_pages": None,
             "extrapolated": bool(fast_row.get("extrapolated") or slow_row.get("extrapolated")),
-            "warnings": list(dict.fromkeys(list(fast_row.get("warnings") or []) + list(slow_row.get("warnings") or [])))}
+            "warnings": list(dict.fromkeys([*(fast_row.get("warnings") or []), *(slow_row.get("warnings") or [])]))}
     chars = float(row["characters"])
     if accuracy is None:
         errs = None

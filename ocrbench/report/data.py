@@ -576,14 +576,6 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("y=archive wall-clock P50 with P10-P90 band (Monte Carlo over cost-model refits, page "
                     f"distribution and residuals);x={(plan or {}).get('curve_axis') or 'workers'};"
                     f"pages={((plan or {}).get('spec') or {}).get('pages', '-')}")},
-        {"id": "plan-frontier", "title": "Options: cost against CER, with the frontier",
-         "shown": bool(plan and len(plan.get("options") or []) > 1
-                       and any(o.get("cer") is not None for o in plan.get("options") or [])),
-         "why_not": ("no plan was given" if not plan else "the plan has fewer than two options with a CER"),
-         "recipe": ("x=cer(calibration pages' ground truth, 95% interval; routes: each line's kept reading, "
-                    "scored as score does);y=archive cost P50 (compute + people, or core-hours where money is "
-                    "not known) with a bar up to its high end;route=fast all lines + share x slow;"
-                    "line=frontier;filled=chosen;dashed=target CER (upper bound)")},
         {"id": "cost-accuracy", "title": "Archive cost against accuracy",
          "shown": bool(plan and any(r.get("cost") is not None and r.get("cer") is not None
                                     for r in (plan.get("rows") or {}).values())),
@@ -591,6 +583,16 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("x=cer(corpus, 95% interval, post-processed text where stored);y=archive cost P50 "
                     "(compute + correction) with a bar up to its high end;line=budget")},
     ]
+    opts = (plan or {}).get("options") or []
+    if plan and (plan.get("target") or any(o.get("kind") == "route" for o in opts)):    # else no such figure
+        figs.insert(5, {"id": "plan-frontier", "title": "Options: cost against CER, with the frontier",
+                        "shown": sum(o.get("cer") is not None for o in opts) > 1,
+                        "why_not": "fewer than two options have a CER (give ground truth)",
+                        "recipe": ("x=cer(calibration pages' ground truth, 95% interval; routes: each line's kept "
+                                   "reading, scored as score does);y=archive cost P50 (compute + people, or "
+                                   "core-hours where money is not known) with a bar up to its high end;"
+                                   "route=fast all lines + share x slow;line=frontier;filled=chosen;"
+                                   "dashed=target CER (upper bound)")})
     q = summary.get("quality") or {}
     est = any(g.get("est_cer") is not None for sq in q.get("systems") or [] for g in sq["groups"])
     figs.append(

@@ -413,8 +413,8 @@ def _plan_options(s: Mapping) -> str:
     choice for a target CER; route thresholds off the frontier folded away."""
     plan = s.get("plan") or {}
     opts = plan.get("options") or []
-    if len(opts) < 2 and not plan.get("target"):
-        return ""
+    if not plan.get("target") and not any(o.get("kind") == "route" for o in opts):
+        return ""           # the recognisers alone: the side-by-side table and the cost-accuracy figure show them
     by_cost = plan.get("options_compared_by") == "cost"
     cur = _e(plan.get("currency") or "")
 

@@ -405,7 +405,7 @@ def plan_frontier(summary: Mapping) -> str | None:
     by_cost = plan.get("options_compared_by") == "cost"
     key = "cost" if by_cost else "core_hours"
     opts = [o for o in plan.get("options") or [] if o.get(key) is not None and o.get("cer") is not None]
-    if len(opts) < 2:
+    if len(opts) < 2 or not (plan.get("target") or any(o.get("kind") == "route" for o in opts)):
         return None
     cur = plan.get("currency") or ""
     plt = _plt()
