@@ -90,8 +90,11 @@ def _hand_lines() -> RouteLines:
 
 def test_threshold_choice_picks_cheapest_option_meeting_target():
     rl = _hand_lines()
-    xs = candidate_thresholds(rl.lines["doubt"])
-    assert xs == sorted(set(xs)) and set(xs) <= {0.1, 0.2, 0.3, 0.4, 0.9} | set(xs)
+    # quantiles at 5 %..95 % of 20 doubts (four each of 0.1, 0.2, 0.3, 0.4, 0.9), linear interpolation:
+    # 5 % sits at position 0.95 (0.1 and 0.1), 95 % at 18.05 (0.9 and 0.9), 20 % at 3.8 (0.1 + 0.8 x 0.1)
+    xs = candidate_thresholds(rl.lines["doubt"], extra=[0.55])
+    assert xs[0] == pytest.approx(0.1) and xs[-1] == pytest.approx(0.9) and 0.55 in xs
+    assert all(a < b for a, b in zip(xs, xs[1:])) and any(x == pytest.approx(0.18) for x in xs)
     ev = {round(e["threshold"], 6): e for e in evaluate_thresholds(rl, [0.05, 0.35, 0.5, 0.9], n_boot=200)}
     # doubt > 0.5 routes exactly the 4 misread lines: share 4/20, no error left
     assert ev[0.5]["share"] == pytest.approx(0.2) and ev[0.5]["cer"] == 0.0 and ev[0.5]["cer_high"] == 0.0
@@ -226,7 +229,7 @@ def test_plan_prices_a_route_as_fast_plus_share_of_slow(built):
         assert route[k] == pytest.approx(f[k] + b["share"] * s[k])
     # the truth was written from the route's own readings at this threshold
     assert route["cer"] == 0.0 and route["cer_high"] == 0.0
-    # the same CER as scoring the kept text, and a total = compute + people
+    # the total is compute + people, as for a single recogniser
     assert route["cost"] == pytest.approx(route["compute_cost"] + route["people_cost"])
 
 
@@ -284,6 +287,32 @@ def test_report_shows_the_frontier_with_the_chosen_option(built, tmp_path):
     fig = html[html.index('id="fig-plan-frontier"'):]
     fig = fig[:fig.index("</figure>")]
     assert "<svg" in fig and "chosen: " in fig and "target CER" in fig and "frontier" in fig
+
+
+def test_a_routed_run_alone_gives_the_measured_share_and_thresholds_from_its_own_up(built, tmp_path):
+    from ocrbench.run.route import Route
+    from ocrbench.run.routed import run_routed
+
+    b = built
+    db = tmp_path / "routed.sqlite"
+    cards = [load_card(b["root"] / "fast"), load_card(b["root"] / "slow")]
+    run_routed(b["pages"], cards, Route(b["fast"], b["slow"], b["x"]), store=db, options=RunOptions(prefetch=False))
+    with RunStore(db) as st:
+        infos = {st.run_info(i).recogniser: st.run_info(i) for i in st.run_ids()}
+        fid, sid = infos[b["fast"]].run_id, infos[b["slow"]].run_id
+        n_fast = sum(len(st.page_lines(fid, p)) for p in st.done_page_ids(fid))
+        n_slow = sum(len(st.page_lines(sid, p)) for p in st.done_page_ids(sid))
+    res = plan(PlanRequest(calibration=[str(db)], archive_store=db, pages=10_000, truth=b["truth"], draws=100,
+                           price_core_hour=0.05, route=f"{b['fast']} -> {b['slow']}"))
+    opts = [o for o in res.table.attrs["options"] if o["kind"] == "route"]
+    # SLOW read only the routed lines, so no threshold below the run's is tried; at the run's own, the share is
+    # the lines SLOW read over the lines FAST read, and the CER is 0 (the truth is the route's text there)
+    assert opts and min(o["threshold"] for o in opts) == pytest.approx(b["x"])
+    at_x = next(o for o in opts if o["threshold"] == pytest.approx(b["x"]))
+    assert at_x["routed_share"] == pytest.approx(n_slow / n_fast) and at_x["cer"] == 0.0
+    # SLOW has a cost model (fitted on the lines it re-read) but no CER of its own: it never read every line
+    rows = {r["recogniser"]: r for r in res.table.to_dict("records")}
+    assert pd.isna(rows[b["slow"]]["cer"]) and rows[b["slow"]]["core_hours"] > 0
 
 
 def test_route_naming_an_uncalibrated_recogniser_is_refused(built):

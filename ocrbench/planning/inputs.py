@@ -33,7 +33,7 @@ from ocrbench.planning.people import (DEFAULT_CHARS_PER_SECOND, DEFAULT_HOURS_PE
                                       DEFAULT_SECONDS_PER_ERROR, DEFAULT_SECONDS_PER_LINE, REVIEW_MODES)
 from ocrbench.planning.estimate import SPEED_DRIFT, AccuracyInput
 from ocrbench.planning.numerics import ScalingFit
-from ocrbench.planning.routes import reading_runs, route_from_table
+from ocrbench.planning.routes import calibration_runs, reading_runs, route_from_table
 from ocrbench.errors import ConfigError, InputError, OcrbenchError, PlanError, StoreError
 
 #: Default half-width of the CER interval wanted from a ground-truth sample, relative to the CER (±20 %).
@@ -208,7 +208,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         name, text = text.split("=", 1)
     path = Path(text)
     frames = read_store_frames(path)
-    frames = {**frames, "runs": reading_runs(frames["runs"])}   # not a route's kept text nor its SLOW re-reading
+    frames = {**frames, "runs": calibration_runs(frames["runs"])}   # not a route's kept text (see calibration_runs)
     runs = frames["runs"]
     if runs.empty:
         raise PlanError(f"{path}: the calibration store holds no runs")

@@ -24,6 +24,7 @@ the plan says that money was not judged.
 
 from __future__ import annotations
 
+import math
 from typing import Callable, Mapping, Sequence
 
 import pandas as pd
@@ -47,7 +48,10 @@ def _pct(v) -> str:
 
 def option_of(row: Mapping, **extra) -> dict:
     """One option (the columns the comparison needs) from a plan row, named by the row's recogniser."""
-    return {k: row.get(k) for k in _KEEP} | {"option": row["recogniser"]} | extra
+    def clean(v):
+        return None if isinstance(v, float) and v != v else v     # a table's missing number is NaN
+
+    return {k: clean(row.get(k)) for k in _KEEP} | {"option": row["recogniser"]} | extra
 
 
 def _route_options(table: pd.DataFrame, inputs: PlanInputs, stores: Sequence[tuple[str, str]], truth,
@@ -84,7 +88,7 @@ def _route_options(table: pd.DataFrame, inputs: PlanInputs, stores: Sequence[tup
             fr, sr = by[(fast, profile)], by[(slow, profile)]
             if any(e["routed_lines"] == 0 for e in evals):
                 notes.append(f"route {fast} -> {slow}: a threshold that routes no line is {fast} alone, left out")
-            for e in (e for e in evals if e["routed_lines"] > 0):
+            for e in _distinct(evals, rl.measured):
                 acc = None if e["cer"] is None else (e["cer"], e["cer_low"], e["cer_high"])
                 row = route_row(fr, sr, e["share"], acc, name=f"{fast} -> {slow} if doubt > {e['threshold']:.4g}",
                                 correction=inputs.correction_for(fast), deadline_s=inputs.goals.deadline_s,
@@ -95,6 +99,18 @@ def _route_options(table: pd.DataFrame, inputs: PlanInputs, stores: Sequence[tup
             if not rl.truth:
                 notes.append(f"route {fast} -> {slow}: no ground truth for its pages, so no CER (give --truth)")
     return rows, notes
+
+
+def _distinct(evals: Sequence[dict], measured: Sequence[float]) -> list[dict]:
+    """One evaluation per set of routed lines (thresholds between the same two doubts route the same lines):
+    a routed run's own threshold where it is one of them, else the lowest. Routing no line is FAST alone."""
+    by: dict[int, dict] = {}
+    for e in evals:
+        k = e["routed_lines"]
+        if k > 0 and (k not in by or any(math.isclose(e["threshold"], m, rel_tol=0, abs_tol=1e-12)
+                                         for m in measured)):
+            by[k] = e
+    return sorted(by.values(), key=lambda e: e["threshold"])
 
 
 def frontier(options: Sequence[Mapping], key: str) -> list[bool]:
@@ -153,9 +169,10 @@ def _statement(chosen: dict | None, options: list[dict], target: float, key: str
         return (f"no option meets the target CER of {_pct(target)} ({BOUND}, and the deadline and budget where "
                 f"given) among {len(options)} options{tail}: nothing is recommended; more accurate recognisers, "
                 "or a larger ground-truth sample to narrow the intervals, are needed")
+    why = sorted({w for o in options if o["cer"] is not None and o["cost"] is None
+                  for w in list(o.get("unpriced") or []) + list(o.get("unknown") or [])})
     cost = (money_text(chosen["cost"], currency) + " in total (compute + people)" if key == "cost" else
-            f"{chosen['core_hours']:,.1f} core-hours (money not judged: "
-            + "; ".join(list(chosen.get("unpriced") or []) + list(chosen.get("unknown") or [])) + ")")
+            f"{chosen['core_hours']:,.1f} core-hours (money not judged: " + "; ".join(why) + ")")
     what = (f"{chosen['option']} (routes {100 * chosen['routed_share']:.1f} % of the lines to {chosen['route_slow']})"
             if chosen["kind"] == "route" else chosen["option"])
     return (f"for a target CER of {_pct(target)} ({BOUND}): {what}, CER {_pct(chosen['cer'])} "
@@ -184,7 +201,8 @@ def plan_options(table: pd.DataFrame, inputs: PlanInputs, *, stores: Sequence[tu
     singles = [option_of(r, kind=("variant of " + variants[r["recogniser"]]) if r["recogniser"] in variants
                        else r["kind"]) for r in table.to_dict("records")]
     options = singles + [option_of(r, pages_scored=r["pages_scored"], source=r["route_source"]) for r in routes]
-    key = "cost" if options and all(o["cost"] is not None for o in options) else "core_hours"
+    rated = [o for o in options if o["cer"] is not None]       # only these can meet a target
+    key = "cost" if rated and all(o["cost"] is not None for o in rated) else "core_hours"
     for o, f in zip(options, frontier(options, key)):
         o["frontier"] = f
     table.attrs["options"] = options

@@ -109,6 +109,14 @@ def reading_runs(runs: pd.DataFrame) -> pd.DataFrame:
     return runs[np.asarray(keep, dtype=bool)]
 
 
+def calibration_runs(runs: pd.DataFrame) -> pd.DataFrame:
+    """The runs a cost model may be fitted on: :func:`reading_runs`, and a route's SLOW re-reading for a
+    recogniser that has no other run (its batches are timed like any run's, on the routed lines only)."""
+    full = reading_runs(runs)
+    slow = runs[[_settings(r).get("route_role") == "slow" for r in runs.to_dict("records")]] if len(runs) else runs
+    return pd.concat([full, slow[~slow["recogniser"].isin(set(full["recogniser"]))]]).sort_values("run_id")
+
+
 def routed_runs(runs: pd.DataFrame) -> list[dict]:
     """Each route run of a store: fast and slow recogniser names, threshold, and the three run ids."""
     out = []
