@@ -90,7 +90,10 @@ def _route_options(table: pd.DataFrame, inputs: PlanInputs, stores: Sequence[tup
                 notes.append(f"route {fast} -> {slow}: a threshold that routes no line is {fast} alone, left out")
             for e in _distinct(evals, rl.measured):
                 acc = None if e["cer"] is None else (e["cer"], e["cer_low"], e["cer_high"])
-                row = route_row(fr, sr, e["share"], acc, name=f"{fast} -> {slow} if doubt > {e['threshold']:.4g}",
+                name = f"{fast} -> {slow} if doubt > {e['threshold']:.4g}"
+                if any(r["recogniser"] == name for r in rows):          # thresholds alike to 4 digits
+                    name = f"{fast} -> {slow} if doubt > {e['threshold']!r}"
+                row = route_row(fr, sr, e["share"], acc, name=name,
                                 correction=inputs.correction_for(fast), deadline_s=inputs.goals.deadline_s,
                                 budget=inputs.goals.budget)
                 row |= {"threshold": e["threshold"], "routed_lines": e["routed_lines"], "route_lines": e["lines"],
