@@ -71,6 +71,11 @@ def plan(
                                       help="Split the archive into jobs of this many pages (each starts anew)."),
     deadline: Optional[str] = _o(None, "--deadline", help="e.g. 6w, 42d, 1000h."),
     budget: Optional[float] = _o(None, "--budget", min=0, help="Money available (compute + people)."),
+    target_cer: Optional[float] = _o(None, "--target-cer", min=0, max=1, help="Choose the cheapest option "
+                                     "(recogniser, variant, route and threshold) whose CER upper bound is at most "
+                                     "this (0.004 = 0.4 %)."),
+    route: Optional[str] = _o(None, "--route", help="Plan this route: 'FAST -> SLOW if doubt > X', or 'FAST -> SLOW' "
+                              "to try thresholds."),
     currency: Optional[str] = _o(None, "--currency", help="ISO 4217 code of every amount (e.g. GBP, EUR)."),
     price_core_hour: Optional[float] = _o(None, "--price-core-hour", min=0),
     price_machine_hour: Optional[float] = _o(None, "--price-machine-hour", min=0),
@@ -127,7 +132,7 @@ def plan(
             "review_share": review_share, "catch_rate": catch_rate, "correctors": correctors,
             "corrector_hours_per_week": corrector_hours, "correction_price_hour": correction_price_hour,
             "truth": truth, "cer_margin": cer_margin, "cer_relative_margin": cer_relative, "draws": draws,
-            "seed": seed, "speed_drift": speed_drift})
+            "seed": seed, "speed_drift": speed_drift, "target_cer": target_cer, "route": route})
         with err.status("planning") as status:
             result = service.plan(req, progress=lambda m: status.update(m))
     except OcrbenchError as e:

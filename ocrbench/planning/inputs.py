@@ -34,6 +34,7 @@ from ocrbench.planning.people import (DEFAULT_CHARS_PER_SECOND, DEFAULT_HOURS_PE
                                       DEFAULT_SECONDS_PER_ERROR, DEFAULT_SECONDS_PER_LINE, REVIEW_MODES)
 from ocrbench.planning.estimate import SPEED_DRIFT, AccuracyInput
 from ocrbench.planning.numerics import ScalingFit
+from ocrbench.planning.routes import calibration_runs, reading_runs, route_from_table
 from ocrbench.errors import ConfigError, InputError, OcrbenchError, PlanError, StoreError
 
 #: Default half-width of the CER interval wanted from a ground-truth sample, relative to the CER (±20 %).
@@ -66,6 +67,12 @@ price_core_hour = 0.05                     # or price_machine_hour
 [goals]
 deadline = "6w"                            # s, m, h, d or w
 budget = 5000
+# target_cer = 0.004                        # cheapest option whose CER upper bound is at most this (0.4 %)
+
+[route]                                    # a route as a plan option (see `ocrbench run --route`)
+fast = "ledger-ctc"                        # reads every line
+slow = "ledger-seq"                        # re-reads the lines the fast one doubts
+# threshold = 0.3                           # doubt > threshold is routed (default: the plan tries several)
 
 [correction]
 review = "full"                            # full (every line read), targeted (queue head) or none
@@ -204,6 +211,7 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
         name, text = text.split("=", 1)
     path = Path(text)
     frames = read_store_frames(path)
+    frames = {**frames, "runs": calibration_runs(frames["runs"])}   # not a route's kept text (see calibration_runs)
     runs = frames["runs"]
     if runs.empty:
         raise PlanError(f"{path}: the calibration store holds no runs")
@@ -336,7 +344,7 @@ def score_calibration(store_path: Path | str, truth_dir: Path | str, *, recognis
     if not truth_dir.is_dir():
         raise InputError(truth_dir, "ground-truth folder not found")
     with RunStore(store_path, read_only=True) as st:
-        runs = st.read_frames()["runs"]
+        runs = reading_runs(st.read_frames()["runs"])
     latest = {}
     for name in (recognisers or sorted(runs["recogniser"].unique())):
         mine = runs[runs["recogniser"] == name]
@@ -401,6 +409,8 @@ class PlanRequest:
     draws: int = 2000
     seed: int = 0
     speed_drift: float = SPEED_DRIFT
+    target_cer: float | None = None            # choose the cheapest option whose CER upper bound meets it
+    route: str | None = None                   # "FAST -> SLOW [if doubt > X]" (planning.routes.parse_plan_route)
 
 
 def page_size_or_calibrated(size: tuple[int, int] | None, ref: CostModel) -> tuple[int, int]:
@@ -453,7 +463,8 @@ PLAN_FILE_SCHEMA = {
                   for k, v in PROFILE_SCHEMA.items()} | {"pages_per_job": Key((int,), low=1)},
     "people": {"correctors": Key((int,), low=1), "hours_per_week": Key(_NUM, default=DEFAULT_HOURS_PER_WEEK,
                                                                          low=0, low_open=True, high=168)},
-    "goals": {"deadline": Key((str,)), "budget": Key(_NUM, low=0)},
+    "goals": {"deadline": Key((str,)), "budget": Key(_NUM, low=0), "target_cer": Key(_NUM, low=0, high=1)},
+    "route": {"fast": Key((str,)), "slow": Key((str,)), "threshold": Key(_NUM)},
     "correction": {
         "seconds_per_error": Key(_NUM, default=DEFAULT_SECONDS_PER_ERROR, low=0),
         "price_hour": Key(_NUM, low=0), "truth": Key((str,)),
@@ -534,7 +545,8 @@ def load_plan_file(path: Path | str) -> PlanRequest:
         review_share=float(c["review_share"]), catch_rate=c["catch_rate"], correctors=doc["people"]["correctors"],
         corrector_hours_per_week=float(doc["people"]["hours_per_week"]), pages_per_job=r["pages_per_job"],
         currency=doc["currency"], accuracy=accuracy, profiles=profiles, draws=s["draws"], seed=s["seed"],
-        speed_drift=float(s["speed_drift"]))
+        speed_drift=float(s["speed_drift"]), target_cer=g["target_cer"],
+        route=None if (rt := route_from_table(doc["route"], p)) is None else str(rt))
 
 
 def merge_request(base: PlanRequest, overrides: Mapping) -> PlanRequest:
@@ -562,7 +574,8 @@ def measure_catch_rate(store_path: Path | str, truth_dir: Path | str, recogniser
 
     with RunStore(store_path, read_only=True) as st:
         frames = st.read_frames()
-        runs = frames["runs"][frames["runs"]["recogniser"] == recogniser]
+        runs = reading_runs(frames["runs"])
+        runs = runs[runs["recogniser"] == recogniser]
         if runs.empty:
             raise PlanError(f"{store_path}: no run of {recogniser} to measure its review catch rate on")
         rid = int(runs["run_id"].iloc[-1])

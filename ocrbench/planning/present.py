@@ -12,6 +12,7 @@ import pandas as pd
 
 from ocrbench.planning.decide import money_text
 from ocrbench.planning.numerics import format_duration
+from ocrbench.planning.options import option_statements
 
 
 def _amount(v) -> str:
@@ -98,6 +99,7 @@ def statements(table: pd.DataFrame) -> list[tuple[str, str]]:
     rec = table.attrs.get("recommendation") or {}
     if rec.get("text"):
         out.append(("Choice", rec["text"]))
+    out += option_statements(table)
     cur = table.attrs.get("currency")
     for c in table.attrs.get("configurations") or []:
         cost = "" if c["cost"] is None else f", cost {money_text(c['cost'], cur)}"

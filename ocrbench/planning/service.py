@@ -44,7 +44,9 @@ from ocrbench.planning.inputs import (PROFILE_SCHEMA, Calibration, PlanRequest, 
                                       page_size_or_calibrated, read_calibration,
                                       read_store_frames, score_calibration)
 from ocrbench.planning.numerics import parse_duration
+from ocrbench.planning.options import plan_options
 from ocrbench.planning.people import Correction
+from ocrbench.planning.routes import parse_plan_route
 from ocrbench.planning.sampling import stratified_sample_size
 
 __all__ = ["PlanRequest", "PlanResult", "PlanResults", "ReportContext", "plan", "load_plan_file", "compute_plan",
@@ -60,6 +62,7 @@ class ReportContext:
     runs: Sequence[Mapping[str, Any]]                       # name, run_id
     accuracy: Mapping[str, tuple[float, float, float]] = dataclasses.field(default_factory=dict)
     page_scores: Mapping[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
+    truth: Path | None = None                               # the report's ground truth (for routes' CER)
 
 
 @dataclass
@@ -139,7 +142,7 @@ def _calibrations(req: PlanRequest, ctx: ReportContext | None) -> tuple[list[str
         raise PlanError("give at least one calibration store (--calibration STORE)")
     names = req.recognisers
     if names is None and ctx is not None and not req.calibration:
-        names = [r["name"] for r in ctx.runs]
+        names = [r["name"] for r in ctx.runs if r.get("kind") != "route"]   # a route's kept text is no recogniser
     return specs, [read_calibration(c, recognisers=names, seed=req.seed) for c in specs]
 
 
@@ -276,6 +279,10 @@ def plan(req: PlanRequest, *, context: ReportContext | None = None,
                         currency=req.currency, alternatives=[a for c in cals for a in c.alternatives])
     say("simulating the archive")
     table = make_plan(models, inputs)
+    table = plan_options(table, inputs, stores=[(str(c.path), c.profile) for c in cals],
+                         truth=req.truth or (context.truth if context is not None else None),
+                         route=parse_plan_route(req.route) if req.route else None, target_cer=req.target_cer,
+                         seed=req.seed, say=say)
     table.attrs["sample_sizes"] = sizes
     table.attrs["cer_margin"] = req.cer_margin
     table.attrs["cer_relative_margin"] = None if req.cer_margin is not None else req.cer_relative_margin
@@ -326,7 +333,8 @@ def _curve(result: PlanResult, req: PlanRequest, max_workers: int) -> tuple[list
 def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: PlanRequest,
                  runs: Sequence[Mapping[str, Any]], *,
                  accuracy: Mapping[str, tuple[float, float, float]] | None = None,
-                 page_scores: Mapping[str, pd.DataFrame] | None = None, curve_max_workers: int = 16) -> dict:
+                 page_scores: Mapping[str, pd.DataFrame] | None = None, curve_max_workers: int = 16,
+                 truth: Path | str | None = None) -> dict:
     """The report's plan section: :func:`plan` with the report as context, plus the workers curve.
 
     ``runs``: the report's runs (``name``, ``run_id``). ``accuracy``: recogniser
@@ -335,7 +343,7 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
     ground-truth sample size. Returns the JSON-ready plan section.
     """
     ctx = ReportContext(store=Path(store), frames=frames, runs=runs, accuracy=dict(accuracy or {}),
-                        page_scores=dict(page_scores or {}))
+                        page_scores=dict(page_scores or {}), truth=None if truth is None else Path(truth))
     result = plan(req, context=ctx)
     table = result.table
     rows = {str(rec["recogniser"]): {k: json_ready(rec.get(k)) for k in ROW_KEYS} for rec in table.to_dict("records")}
@@ -350,7 +358,7 @@ def compute_plan(store: Path | str, frames: Mapping[str, pd.DataFrame], req: Pla
         "recommendation": table.attrs.get("recommendation"), "crossover": list(table.attrs.get("crossover", [])),
         "warnings": list(table.attrs.get("warnings", [])), "sample_sizes": table.attrs.get("sample_sizes", {}),
         "sample_failures": [{"page": p, "error": e} for p, e in result.sample_failures],
-        "curve": curve, "curve_axis": "; ".join(sorted(axis)) or None,
+        "curve": curve, "curve_axis": "; ".join(sorted(axis)) or None, **options_json(table),
         "scaling_measured": sorted({k.split("/")[-1] for k in result.inputs.scaling}),
     })
 
@@ -381,8 +389,16 @@ def plan_json(table: pd.DataFrame) -> dict:
         "assumptions": table.attrs.get("assumptions", []),
         "archive": table.attrs.get("archive"),
         "ground_truth_sample": table.attrs.get("sample_sizes", {}),
-        "fits": [] if fits is None else fits.to_dict(orient="records"),
+        "fits": [] if fits is None else fits.to_dict(orient="records"), **options_json(table),
     })
+
+
+def options_json(table: pd.DataFrame) -> dict:
+    """The plan's options (singles, variants, routes; frontier and choice marked) and its target, JSON-ready."""
+    return json_ready({"options": list(table.attrs.get("options") or []),
+                       "options_compared_by": table.attrs.get("options_key"),
+                       "options_notes": list(table.attrs.get("options_notes") or []),
+                       "target": table.attrs.get("target")})
 
 
 def json_dumps(obj) -> str:

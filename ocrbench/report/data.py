@@ -300,7 +300,7 @@ def build_report_data(store: Path | str, *, truth: Path | str | None = None,
     _add_quality(data, store, Path(truth) if truth is not None else None, prof.name, sel["run_id"].tolist(),
                  min(n_boot, QUALITY_BOOT), seed)
     if plan is not None:
-        _add_plan(data, store, frames, plan, currency, curve_max_workers)
+        _add_plan(data, store, frames, plan, currency, curve_max_workers, truth)
     else:
         for run in runs:
             run["plan"] = None
@@ -503,7 +503,8 @@ MONEY_FIELDS = {"compute_cost": "", "compute_cost_p90": "", "correction_cost": "
 
 
 def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
-              plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int) -> None:
+              plan: PlanRequest | PlanResults, currency: str, curve_max_workers: int,
+              truth: Path | str | None = None) -> None:
     """The plan section: given results as they are, or a request computed on this store."""
     summary = data.summary
     runs = summary["recognisers"]
@@ -525,7 +526,7 @@ def _add_plan(data: ReportData, store: Path, frames: Mapping[str, pd.DataFrame],
                 if key in data.page_scores:
                     gt_pages[run["name"]] = data.page_scores[key]
         summary["plan"] = compute_plan(store, frames, plan, runs, accuracy=accuracy, page_scores=gt_pages,
-                                       curve_max_workers=curve_max_workers)
+                                       curve_max_workers=curve_max_workers, truth=truth)
         summary["plan"]["accuracy_source"] = ("the post-processed text where stored, else the raw text"
                                               if accuracy else None)
     summary["plan"]["currency"] = cur = currency or summary["plan"].get("currency")
@@ -600,6 +601,16 @@ def figure_index(summary: Mapping) -> list[dict]:
          "recipe": ("x=cer(corpus, 95% interval, post-processed text where stored);y=archive cost P50 "
                     "(compute + correction) with a bar up to its high end;line=budget")},
     ]
+    opts = (plan or {}).get("options") or []
+    if plan and (plan.get("target") or any(o.get("kind") == "route" for o in opts)):    # else no such figure
+        figs.insert(5, {"id": "plan-frontier", "title": "Options: cost against CER, with the frontier",
+                        "shown": sum(o.get("cer") is not None for o in opts) > 1,
+                        "why_not": "fewer than two options have a CER (give ground truth)",
+                        "recipe": ("x=cer(calibration pages' ground truth, 95% interval; routes: each line's kept "
+                                   "reading, scored as score does);y=archive cost P50 (compute + people, or "
+                                   "core-hours where money is not known) with a bar up to its high end;"
+                                   "route=fast all lines + share x slow;line=frontier;filled=chosen;"
+                                   "dashed=target CER (upper bound)")})
     q = summary.get("quality") or {}
     est = any(g.get("est_cer") is not None for sq in q.get("systems") or [] for g in sq["groups"])
     figs.append(

@@ -408,6 +408,7 @@ def _plan(s: Mapping) -> str:
     for c in plan.get("crossover") or []:
         if c.get("text"):
             parts.append(f"<p>Crossover: {_e(c['text'])}.</p>")
+    parts.append(_plan_options(s))
     if plan.get("assumptions"):
         parts.append("<h3>Assumptions</h3><ul>" + "".join(f"<li>{_e(a)}</li>" for a in plan["assumptions"])
                      + "</ul>")
@@ -419,6 +420,57 @@ def _plan(s: Mapping) -> str:
         parts.append('<h3>Warnings from the planner</h3><ul class="warn">'
                      + "".join(f"<li>{_e(w)}</li>" for w in plan["warnings"]) + "</ul>")
     return "".join(parts)
+
+
+def _plan_options(s: Mapping) -> str:
+    """The plan's options (recognisers, variants, routes at thresholds): cost against CER, the frontier and the
+    choice for a target CER; route thresholds off the frontier folded away."""
+    plan = s.get("plan") or {}
+    opts = plan.get("options") or []
+    if not plan.get("target") and not any(o.get("kind") == "route" for o in opts):
+        return ""           # the recognisers alone: the side-by-side table and the cost-accuracy figure show them
+    by_cost = plan.get("options_compared_by") == "cost"
+    cur = _e(plan.get("currency") or "")
+
+    def row(i: int, o: Mapping) -> str:
+        base = f"plan.options.{i}"
+        mark = "chosen" if o.get("chosen") else ("on the frontier" if o.get("frontier") else "dominated")
+        share = figure(s, f"{base}.routed_share", "pct1") if o.get("kind") == "route" else "–"
+        cost = (figure(s, f"{base}.cost", "money") if by_cost else f'{figure(s, f"{base}.core_hours", "f1")} '
+                "core-hours")
+        return (f'<tr{" class=chosen" if o.get("chosen") else ""}><td>{figure(s, f"{base}.option", "text")}</td>'
+                f"<td>{_e(o.get('kind'))}</td><td class=n>{share}</td>"
+                f"<td class=n>{_interval(s, f'{base}.cer', f'{base}.cer_low', f'{base}.cer_high', 'pct')}</td>"
+                f"<td class=n>{figure(s, f'{base}.compute_cost', 'money')}</td>"
+                f"<td class=n>{figure(s, f'{base}.people_cost', 'money')}</td><td class=n>{cost}</td>"
+                f"<td>{_e(mark)}</td><td>{_e(o.get('lost') or '')}</td></tr>")
+
+    shown = [(i, o) for i, o in enumerate(opts) if o.get("kind") != "route" or o.get("frontier") or o.get("chosen")]
+    rest = [(i, o) for i, o in enumerate(opts) if (i, o) not in shown]
+    key = (lambda t: (t[1].get("cost") is None, t[1].get("cost") or 0.0)) if by_cost else \
+        (lambda t: t[1].get("core_hours") or 0.0)
+    head = ('<thead><tr><th>option</th><th>kind</th><th class="n">lines routed</th><th class="n">CER [95 % '
+            f'interval]</th><th class="n">compute, {cur}</th><th class="n">people, {cur}</th>'
+            f'<th class="n">{"total, " + cur if by_cost else "compute"}</th><th>frontier</th>'
+            "<th>why not chosen</th></tr></thead>")
+    target = plan.get("target") or {}
+    out = ['<h3 id="plan-options">Options: cost against accuracy</h3>'
+           "<p>Every way of reading the archive the plan priced: each recogniser (a quantised variant is one, "
+           "with its own measured times and CER), and each route (the first recogniser on every line, the second "
+           "on the lines the first doubts) at the thresholds tried. A route's cost is the first recogniser's on "
+           "every line plus the second's on the routed share; its CER is measured on the calibration pages' "
+           "ground truth, each line taking the reading the route would keep. Costs are P50 "
+           + ("(compute and people)." if by_cost else "core-hours (money not known for every option).") + "</p>"]
+    if target:
+        out.append(f'<p class="verdict">{figure(s, "plan.target.text", "text")}</p>')
+    out.append(f"<table><caption>Options, cheapest first (the frontier: no other option is both cheaper and more "
+               f"accurate)</caption>{head}<tbody>" + "".join(row(i, o) for i, o in sorted(shown, key=key))
+               + "</tbody></table>")
+    if rest:
+        out.append(f"<details><summary>{len(rest)} route thresholds off the frontier</summary><table>{head}<tbody>"
+                   + "".join(row(i, o) for i, o in sorted(rest, key=key)) + "</tbody></table></details>")
+    out += [f'<p class="note">{_e(n)}</p>' for n in plan.get("options_notes") or []]
+    return "".join(out)
 
 
 def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
@@ -438,6 +490,10 @@ def _figures(s: Mapping, svgs: Mapping[str, str | None]) -> str:
                        "length; a CTC recogniser reads a line in one pass.",
         "plan-workers": "The archive's planned wall-clock as workers are added: P50 line, P10-P90 band, and the "
                         "deadline (named at the top instead when it lies far above every curve).",
+        "plan-frontier": "Every option the plan priced, routes at each threshold tried included: archive cost (P50, "
+                         "compute and people; the bar reaches the high end) against CER with its 95 % interval. The "
+                         "line joins the frontier (no option both cheaper and more accurate); the filled mark is the "
+                         "option chosen; the dashed line is the target CER, met when an interval ends left of it.",
         "cost-accuracy": "Each option of the plan: its archive cost (compute and correction; the bar reaches the "
                          "cost's high end) against its CER with the 95 % interval. The filled mark is the "
                          "recommended option; the dashed line is the budget. Money in "

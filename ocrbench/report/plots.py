@@ -398,6 +398,71 @@ def quality_cer(summary: Mapping) -> str | None:
         return _to_svg(fig)
 
 
+def plan_frontier(summary: Mapping) -> str | None:
+    """Every option of the plan (routes at each threshold included): cost against CER with intervals, the
+    frontier joined, the chosen option filled, the target CER dashed."""
+    plan = summary.get("plan") or {}
+    by_cost = plan.get("options_compared_by") == "cost"
+    key = "cost" if by_cost else "core_hours"
+    opts = [o for o in plan.get("options") or [] if o.get(key) is not None and o.get("cer") is not None]
+    if len(opts) < 2 or not (plan.get("target") or any(o.get("kind") == "route" for o in opts)):
+        return None
+    cur = plan.get("currency") or ""
+    plt = _plt()
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 4.2), layout="constrained")
+        singles = [o for o in opts if o.get("kind") != "route"]
+        for i, o in enumerate(singles):
+            st = _style(i)
+            x, y = 100 * o["cer"], float(o[key])
+            ax.errorbar([x], [y], xerr=_err(x, _pct_or_none(o.get("cer_low")), _pct_or_none(o.get("cer_high"))),
+                        yerr=_err(y, None, o.get("cost_high") if by_cost else o.get("core_hours")), fmt=st["marker"],
+                        color=st["color"], ms=7, capsize=3, mfc=st["color"] if o.get("chosen") else "white",
+                        mec=st["color"], elinewidth=1.0, label=_label(f"{o['option']} ({o.get('kind')})"))
+        for j, (pair, group) in enumerate(_by_route(opts).items()):
+            st = _style(len(singles) + j)
+            ax.plot([], [], st["marker"], color=st["color"], ms=4, mfc="white", linestyle="none",
+                    label=_label(f"route {pair}, each threshold"))
+            for o in group:
+                x, y = 100 * o["cer"], float(o[key])
+                shown = o.get("frontier") or o.get("chosen")     # bars on the frontier only, or the plot is a thicket
+                ax.errorbar([x], [y], xerr=_err(x, _pct_or_none(o.get("cer_low")), _pct_or_none(o.get("cer_high")))
+                            if shown else None, fmt=st["marker"], color=st["color"], ms=7 if o.get("chosen") else 4,
+                            capsize=2, mfc=st["color"] if o.get("chosen") else "white", mec=st["color"],
+                            elinewidth=0.6, alpha=1.0 if shown else 0.6)
+        front = sorted((100 * o["cer"], float(o[key])) for o in opts if o.get("frontier"))
+        if len(front) > 1:
+            ax.plot(*zip(*front), color=INK, linestyle="-", linewidth=0.9, label="frontier")
+        chosen = next((o for o in opts if o.get("chosen")), None)
+        if chosen is not None:
+            ax.annotate(_label(f"chosen: {chosen['option']}"), (100 * chosen["cer"], float(chosen[key])),
+                        textcoords="offset points", xytext=(8, 6), fontsize=8, fontweight="bold")
+        target = (plan.get("target") or {}).get("target_cer")
+        if target is not None:
+            ax.axvline(100 * target, color=INK, linestyle=(0, (6, 3)), linewidth=1.0)
+            ax.annotate("target CER", (100 * target, ax.get_ylim()[1]), textcoords="offset points", xytext=(4, -10),
+                        fontsize=8)
+        ax.set_xlabel("CER, % (95 % interval; calibration pages with ground truth)")
+        ax.set_ylabel(_label(f"archive cost, P50{', ' + cur if cur and by_cost else ''}" if by_cost else
+                             "archive compute, core-hours (P50)"))
+        ax.set_xlim(left=0)         # cost axis not from 0: the options often differ by a few per cent of it
+        _legend(ax)
+        ax.set_title("Lower left is cheaper and more accurate", fontsize=9, loc="left")
+        return _to_svg(fig)
+
+
+def _pct_or_none(v) -> float | None:
+    return None if v is None else 100 * float(v)
+
+
+def _by_route(opts) -> dict[str, list]:
+    out: dict[str, list] = {}
+    for o in opts:
+        if o.get("kind") == "route":
+            out.setdefault(f"{o.get('route_fast')} -> {o.get('route_slow')}", []).append(o)
+    return out
+
+
 def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
                    line_times: pd.DataFrame | None) -> dict[str, str | None]:
     """Figure id -> SVG text (None where there is nothing to draw)."""
@@ -408,5 +473,6 @@ def render_figures(summary: Mapping, *, page_scores: Mapping[str, pd.DataFrame],
         "decode-time": decode_time(summary, line_times),
         "plan-workers": plan_workers(summary),
         "cost-accuracy": cost_accuracy(summary),
+        "plan-frontier": plan_frontier(summary),
         "quality-cer": quality_cer(summary),
     }
