@@ -893,11 +893,11 @@ def write_readme_block():
     row("ONNX bytes (all graphs)", lambda f: f"{f['onnx_bytes']:,}")
     row("held-out DejaVu text lines: CER, greedy, whitespace collapsed",
         lambda f: f"{100 * f['heldout_cer_ws_collapsed']:.2f}% ({f['heldout_lines']} lines)")
+    row("same, raw (no whitespace collapsing)", lambda f: f"{100 * f['heldout_cer_raw']:.2f}%")
+    row("held-out lines incl. random-character strings", lambda f: f"{100 * f['heldout_cer_ws_collapsed_with_random_chars']:.2f}%")
     row("held-out design families, clean: CER, greedy, whitespace collapsed",
         lambda f: f"{100 * f['heldout_families_cer_clean']:.2f}% ({f['heldout_families_lines']} lines)")
     row("held-out design families, degraded", lambda f: f"{100 * f['heldout_families_cer_degraded']:.2f}%")
-    row("same, raw (no whitespace collapsing)", lambda f: f"{100 * f['heldout_cer_raw']:.2f}%")
-    row("held-out lines incl. random-character strings", lambda f: f"{100 * f['heldout_cer_ws_collapsed_with_random_chars']:.2f}%")
     row("onnxruntime vs torch, max abs diff",
         lambda f: (f"{f['parity_max_abs_diff']:.1e}" if not isinstance(f['parity_max_abs_diff'], dict)
                    else ", ".join(f"{k} {v:.1e}" for k, v in f['parity_max_abs_diff'].items())))
