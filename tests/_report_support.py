@@ -110,6 +110,8 @@ def parse_shown(text: str, kind: str) -> tuple[float | str | bool | None, float]
     if kind == "text":
         return t, 0.0
     if kind == "bool":
+        if t.startswith("unknown ("):                  # a goal the plan could not judge: no value
+            return None, 0.0
         assert t in ("yes", "no"), t
         return t == "yes", 0.0
 

@@ -230,8 +230,11 @@ def _holds(s: Mapping, path: str) -> str:
     if what == "meets_budget":
         why = [f"not priced: {u}" for u in get(base + ".unpriced") or []] + \
               [f"not known: {u}" for u in get(base + ".unknown") or []]
-        return "unknown (" + _e("; ".join(why) or "not judged") + ")"
-    return "unknown (correctors not given)"
+        text = "unknown (" + "; ".join(why or ["not judged"]) + ")"
+    else:
+        text = "unknown (correctors not given)"
+    # still the figure's cell (its JSON path named), showing why the plan could not judge it
+    return f'<span data-key="{html.escape(path, quote=True)}" data-fmt="bool">{_e(text)}</span>'
 
 
 def _side_by_side(s: Mapping) -> str:
