@@ -26,6 +26,20 @@ def need_demo(folder: Path) -> Path:
     return folder
 
 
+def open_demo(folder: Path, **input_fields):
+    """A demo recogniser opened as a run opens it; ``input_fields`` override its card's [input]
+    (e.g. ``flatten=False``: crops as cut)."""
+    import dataclasses
+
+    from ocrbench.recognisers.card import load_card
+    from ocrbench.recognisers.registry import open_recogniser
+
+    card = load_card(need_demo(folder))
+    if input_fields:
+        card = dataclasses.replace(card, input=dataclasses.replace(card.input, **input_fields))
+    return open_recogniser(card)
+
+
 def demo_pages(tmp_path: Path, n: int = 2) -> Path:
     """A folder with n demo pages: the first n of scans_demo/ when present, else freshly invented ones."""
     out = tmp_path / "pages"

@@ -17,7 +17,7 @@ from PIL import Image
 from skimage import data as skdata
 from typer.testing import CliRunner
 
-from _runner_support import DEMO_CTC, DEMO_SEQ, need_demo
+from _runner_support import DEMO_CTC, DEMO_SEQ, need_demo, open_demo
 from ocrbench.cli.app import app
 from ocrbench.errors import PageError
 from ocrbench.pages import (PageRef, analyse_page, check_page, clean_crop, detect_rotation, load_page,
@@ -30,17 +30,6 @@ def _boxes(layout) -> list[tuple[int, int, int, int]]:
     return [(ln.x0, ln.y0, ln.x1, ln.y1) for ln in layout.lines]
 
 
-def _recogniser(folder: Path, **input_fields):
-    """A demo recogniser; ``input_fields`` override its card's [input] (e.g. ``flatten=False``: crops as cut)."""
-    import dataclasses
-
-    from ocrbench.recognisers.card import load_card
-    from ocrbench.recognisers.registry import open_recogniser
-
-    card = load_card(need_demo(folder))
-    if input_fields:
-        card = dataclasses.replace(card, input=dataclasses.replace(card.input, **input_fields))
-    return open_recogniser(card)
 
 
 def _texts(rec, crops) -> list[str]:
@@ -59,7 +48,7 @@ def test_pdf_pages_give_the_same_boxes_and_text_as_the_pngs(tmp_path, demo_dir):
     pals[0].save(tmp_path / "box.pdf", save_all=True, append_images=pals[1:], resolution=200)
     refs = scan_pages(tmp_path).refs
     assert [r.id for r in refs] == ["box.pdf#1", "box.pdf#2"]
-    rec = _recogniser(DEMO_CTC)
+    rec = open_demo(DEMO_CTC)
     for ref, name, grey in zip(refs, DEMO_PNG, greys):
         page = load_page(ref)
         png = load_page(PageRef(demo_dir / name))
@@ -184,7 +173,7 @@ def test_turned_pages_are_flagged_and_read_upright_with_auto_rotate(demo_dir, tu
     fixed = analyse_page(turned, auto_rotate=True)
     upright = analyse_page(png)
     assert fixed.rotation == turn and _boxes(fixed) == _boxes(upright)
-    rec = _recogniser(DEMO_CTC)
+    rec = open_demo(DEMO_CTC)
     assert _texts(rec, [ln.crop for ln in fixed.lines]) == _texts(rec, [ln.crop for ln in upright.lines])
 
 
@@ -253,7 +242,7 @@ def test_over_wide_lines_are_cut_at_gaps_instead_of_squeezed(demo_dir):
         parts.append(p)
         used.append(c)
     wide = np.hstack(parts)
-    rec = _recogniser(DEMO_CTC)
+    rec = open_demo(DEMO_CTC)
     limit = rec.spec.max_width / rec.spec.height
     spans = cut_overwide(wide, limit)
     assert len(spans) > 1 and all(b - a <= limit * h for a, b in spans)
@@ -293,7 +282,7 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
     # 2.1 % -> 0.43 %. remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
-    rec = _recogniser(folder, flatten=False)                           # (the demo cards flatten: off here)
+    rec = open_demo(folder, flatten=False)                           # (the demo cards flatten: off here)
     plain = _cer(PAGE_BODY, _texts(rec, crops))
     flat = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True) for c in crops]))
     both = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True, remove_rules=True) for c in crops]))
@@ -338,7 +327,7 @@ def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):
     # Measured: ledger-ctc reads the ruled lines at 25.2 % CER against its reading of the same
     # lines without rules, 2.7 % after remove_crop_rules (ledger-seq: 146.5 % -> 2.7 %).
     layout = analyse_page(load_page(PageRef(demo_dir / DEMO_PNG[0])).gray)
-    rec = _recogniser(DEMO_CTC)
+    rec = open_demo(DEMO_CTC)
     crops = [ln.crop for ln in layout.lines[2:12]]
     ruled = []
     for c in crops:

@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from rapidfuzz.distance import Levenshtein
 
-from _runner_support import DEMO_CTC, DEMO_SEQ, need_demo
+from _runner_support import DEMO_CTC, DEMO_SEQ, open_demo
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 sys.path.insert(0, str(MODELS))
@@ -36,16 +36,6 @@ TARGET = {"ctc": 0.02, "seq": 0.03}
 SHIPPED = {("ctc", False): 0.0470, ("ctc", True): 0.1136, ("seq", False): 0.4021, ("seq", True): 0.5459}
 
 
-def _recogniser(folder: Path, **input_fields):
-    import dataclasses
-
-    from ocrbench.recognisers.card import load_card
-    from ocrbench.recognisers.registry import open_recogniser
-
-    card = load_card(need_demo(folder))
-    if input_fields:
-        card = dataclasses.replace(card, input=dataclasses.replace(card.input, **input_fields))
-    return open_recogniser(card)
 
 
 def _read(rec, images) -> list[str]:
@@ -84,7 +74,7 @@ def test_heldout_families_are_whole_families_never_trained_on():
 @pytest.mark.parametrize("degraded", [False, True], ids=["clean", "degraded"])
 def test_heldout_font_families_are_read_within_the_target(kind, folder, degraded):
     lines = _heldout(degraded)
-    hyps = _read(_recogniser(folder), [im for im, _, _ in lines])
+    hyps = _read(open_demo(folder), [im for im, _, _ in lines])
     cer = _cer([t for _, t, _ in lines], hyps)
     print(f"{kind} {'degraded' if degraded else 'clean'}: CER {100 * cer:.2f} % on {len(lines)} lines")
     assert cer <= SHIPPED[kind, degraded] * 1.05, f"{kind}: {100 * cer:.2f} %, worse than the shipped models"

@@ -6,7 +6,8 @@ side by side (``--before DIR`` holding ledger-ctc/ and ledger-seq/):
 * held-out design families (models/linegen.py), clean and degraded: CER, greedy,
   whitespace collapsed, with a Wilson interval on the character error rate
   (characters treated as trials: an approximation) and per family;
-* the browser-rendered set (tests/fixtures/browser_set, if present);
+* the browser-rendered set (tests/fixtures/browser_set, if present; measured by its test helper,
+  tests/_browser_set.py, with its 95 % bootstrap over lines);
 * scikit-image's photographed ``page`` (reference data), its five body lines;
 * the demo archive's first pages: the seq model on whole table lines against the
   same lines cut at wide gaps (the card's ``split_gap``);
@@ -85,18 +86,16 @@ def families(rec, name: str, lines, label: str) -> float:
     return e / n
 
 
-def browser_set(rec, name: str) -> float | None:
-    folder = ROOT / "tests" / "fixtures" / "browser_set"
-    truth = folder / "truth.tsv"
-    if not truth.exists():
+def browser_set(folder: Path, name: str) -> float | None:
+    """The committed browser-rendered set, measured by its own test helper (tests/_browser_set.py)."""
+    if not (ROOT / "tests" / "fixtures" / "browser_set" / "truth.tsv").exists():
         say(f"{name} browser set: not present")
         return None
-    from PIL import Image
-    rows = [ln.split("\t", 1) for ln in truth.read_text(encoding="utf-8").splitlines() if "\t" in ln]
-    imgs = [np.asarray(Image.open(folder / f).convert("L")) for f, _ in rows]
-    e, n = errors([t for _, t in rows], read(rec, imgs))
-    say(f"{name} browser-rendered set: {fmt(e, n)}")
-    return e / n
+    sys.path.insert(0, str(ROOT / "tests"))
+    from _browser_set import measure
+    score = measure(folder)
+    say(f"{name} browser-rendered set: {score.summary()}")
+    return score.cer
 
 
 def photographed_page(rec, name: str) -> float:
@@ -155,7 +154,7 @@ def main(argv=None) -> int:
             rec = open_rec(folder)
             c = families(rec, name, clean, "clean")
             d = families(rec, name, degraded, "degraded")
-            b = browser_set(rec, name)
+            b = browser_set(folder, name)
             p = photographed_page(rec, name)
             print(f"RATIO {build}_{kind}_heldout_clean_cer {c:.4f} <={0.02 if kind == 'ctc' else 0.03}")
             print(f"RATIO {build}_{kind}_heldout_degraded_cer {d:.4f} <={0.02 if kind == 'ctc' else 0.03}")
