@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import io
 import math
+import os
 import random
 import sys
 from dataclasses import dataclass
@@ -383,10 +384,14 @@ TRAIN_FACES_CACHE: list = []
 
 
 def train_line(rng: random.Random) -> tuple[Image.Image, str]:
-    """One training line: 80 % in the training families, 20 % the demo pages' own generator."""
+    """One training line: 80 % in the training families, 20 % the demo pages' own generator.
+
+    ``OCRBENCH_BUILD_DEMO_SHARE`` sets the demo generator's share (0.2 by default): a fine-tuning run that
+    drifted away from the demo pages is brought back with a larger share."""
     if not TRAIN_FACES_CACHE:
         TRAIN_FACES_CACHE.extend(faces(TRAIN_FAMILIES))
-    if rng.random() < 0.2 or len(TRAIN_FACES_CACHE) < 2:         # (no font packages: the demo generator)
+    share = float(os.environ.get("OCRBENCH_BUILD_DEMO_SHARE", "0.2"))
+    if rng.random() < share or len(TRAIN_FACES_CACHE) < 2:         # (no font packages: the demo generator)
         return synth.line_sample(rng)
     img, text, _, _ = render_line(rng, TRAIN_FACES_CACHE, degrade=rng.random() < 0.85)
     return img, text

@@ -231,8 +231,8 @@ def measure_demo_scaling(store: Path, scans: Path, models: list[Path], per_machi
     """Measure pages per second at 1 and ``per_machine`` worker processes on ``pages`` of the demo pages,
     for each recogniser not yet measured in ``store`` (card hash), into the store's scaling table.
 
-    Returns the names measured now. Uses :func:`ocrbench.run.measure.measure_scaling` (each worker a real runner
-    process over the same pages, started together) and :func:`ocrbench.planning.inputs.save_scaling`.
+    Returns the names measured now. Uses :func:`ocrbench.run.measure.measure_scaling` (the serial runner, then a Dask run of the
+    workers sharing the pages, as ``run --workers K`` runs them) and :func:`ocrbench.planning.inputs.save_scaling`.
     """
     import pandas as pd
 

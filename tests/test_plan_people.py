@@ -194,6 +194,29 @@ def test_whole_process_time_counts_each_job(ctc_model):
     assert jobs["wall_seconds_p50"] - one["wall_seconds_p50"] == pytest.approx(9 * 2.4, rel=1e-9)
 
 
+def test_a_dask_run_pays_its_measured_start_and_close(ctc_model):
+    """Two workers on one machine are one Dask run: its start and close as measure-scaling timed a K-worker run.
+
+    Hand-worked: process 0.5 s; a serial session's start-up 1.3 s and close 0.1 s; a measured 2-worker Dask run
+    started in 2.9 s and closed in 0.5 s (3.4 s). 1 worker: 0.5 + 1.3 + 0.1 = 1.9 s; 2 workers: 0.5 + 3.4 = 3.9 s,
+    of which the cluster's share 3.4 - 1.4 = 2.0 s. Without the K-worker measurement the older cluster figure
+    (1.2 s) is added to the serial start-up: 1.9 + 1.2 = 3.1 s.
+    """
+    import dataclasses
+
+    m = dataclasses.replace(ctc_model, startup_s=1.3, close_s=0.1, process_start_s=0.5, cluster_start_s=1.2,
+                            dask_start_close_s={2: 3.4})
+    scaling = ScalingFit(pd.DataFrame({"workers": [1, 2], "threads": [1, 1], "pages_per_second": [1.0, 1.2]}))
+    one = _plan(m, correction=Correction(review="none"), goals=Goals(), scaling=scaling).iloc[0]
+    two = _plan(m, correction=Correction(review="none"), goals=Goals(), scaling=scaling,
+                resources=Resources(workers=2)).iloc[0]
+    assert one["startup_seconds"] == pytest.approx(1.9) and one["cluster_start_seconds"] == 0
+    assert two["startup_seconds"] == pytest.approx(3.9) and two["cluster_start_seconds"] == pytest.approx(2.0)
+    older = _plan(dataclasses.replace(m, dask_start_close_s={}), correction=Correction(review="none"), goals=Goals(),
+                  scaling=scaling, resources=Resources(workers=2)).iloc[0]
+    assert older["startup_seconds"] == pytest.approx(3.1)
+
+
 def test_measure_scaling_explains_a_speedup_below_one_and_never_prints_negative_time():
     base = {"recogniser": "x", "workers": 1, "threads": 1, "pages": 10, "pages_per_second": 2.0,
             "busy_seconds": 5.0, "gap_seconds_per_page": -0.05, "host_json": '{"cores": 2}',

@@ -323,6 +323,8 @@ class CostModel:
     pieces_per_line: float = 1.0       # pieces per line seen in calibration (split_gap > 0)
     process_start_s: float = 0.0       # a new process: interpreter and imports, before the run starts (measured)
     cluster_start_s: float = 0.0       # a local Dask cluster's start and close, once per run of several workers
+    close_s: float = 0.0               # the last page until a serial run returned (the store finished; measured)
+    dask_start_close_s: dict = field(default_factory=dict)   # K -> a measured K-worker Dask run's start + close
     figures: dict = field(default_factory=dict)   # the calibration pages' look (medians), see page_figures
     slower_than: str | None = None     # measured slower than another configuration of it (planning.configs)
 
@@ -726,6 +728,8 @@ def fit_cost_model(frames: Mapping[str, pd.DataFrame], recogniser: str, *,
         speed_cv=bp.speed_cv, split_gap=float(split_gap or 0.0),
         process_start_s=max(0.0, float((session or {}).get("process_start_seconds") or 0.0)),
         cluster_start_s=max(0.0, float((session or {}).get("cluster_start_seconds") or 0.0)),
+        close_s=max(0.0, float((session or {}).get("close_seconds") or 0.0)),
+        dask_start_close_s={int(k): max(0.0, float(v)) for k, v in ((session or {}).get("dask_start_close") or {}).items()},
         figures=_calibration_figures(cal, po),
         pieces_per_line=float(batches["n_lines"].sum() / max(1.0, float(po.lines.sum()))) if split_gap else 1.0)
 

@@ -256,22 +256,31 @@ def _pct(a: np.ndarray, q: float) -> float:
 
 
 def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
-    """Per-job costs outside the pages: process start, model loading and warm-up, paid by every job.
+    """Per-job costs outside the pages: process start, card check, model loading and warm-up, close.
 
     Without ``pages_per_job`` every worker runs one job (one start each, all in parallel); with it the
     archive is ``ceil(pages / pages_per_job)`` jobs, run in waves over the workers, each wave starting anew.
     Several workers of one machine without ``pages_per_job`` are one Dask run (``run --workers K``), which
-    also starts and closes its cluster (``cluster_start_s``, measured by ``measure-scaling --workers K``):
-    without it the 2-worker plan missed a Dask run's whole command by -47 % on a loaded 2-core machine
-    (bench_distributed --plan; the pages' own part within 5 %), with it by -23 % (DEVELOPERS.md, Scale-out).
+    also starts and closes its cluster. ``measure-scaling --workers K`` times such a run: its start (card
+    check, cluster, every worker's sessions) and close are taken as measured for that K. Stores measured
+    before that have only the cluster's start and close (``cluster_start_s``), added to a serial session's
+    start-up: that plan missed a Dask run's whole command by -23 % on a loaded 2-core machine and by -18 %
+    on a quiet one, the start-up and close being 2.4 s planned against 3.9 s measured (DEVELOPERS.md, Scale-out).
     """
-    per_job = m.process_start_s + m.startup_s
+    per_job = m.process_start_s + m.startup_s + m.close_s
     total_workers = res.workers * res.machines
     jobs = math.ceil(n_pages / res.pages_per_job) if res.pages_per_job else total_workers
     waves = math.ceil(jobs / total_workers)
-    cluster = m.cluster_start_s if res.workers > 1 and not res.pages_per_job else 0.0
+    cluster = 0.0
+    load = m.startup_s + m.close_s
+    if res.workers > 1 and not res.pages_per_job:
+        measured = m.dask_start_close_s.get(int(res.workers))
+        if measured is not None:       # a measured Dask run of K workers: its start and close replace the serial ones
+            cluster = max(0.0, measured - load)
+        else:
+            cluster = m.cluster_start_s
     return {"jobs": jobs, "pages_per_job": res.pages_per_job, "process_start_seconds": m.process_start_s,
-            "load_warmup_seconds": m.startup_s, "startup_seconds_per_job": per_job,
+            "load_warmup_seconds": load, "startup_seconds_per_job": per_job,
             "cluster_start_seconds": cluster, "startup_seconds": waves * per_job + cluster}
 
 

@@ -191,6 +191,20 @@ def _process_start(host_json: pd.Series, key: str = "process_start_seconds") -> 
     return float(np.median(got)) if got else None
 
 
+def _dask_start_close(rows: pd.DataFrame) -> dict[int, float]:
+    """Per worker count K > 1: a measured Dask run's start (card check, cluster, sessions) and close, median seconds.
+
+    Only rows that noted their close (``measure-scaling`` since the K-worker rows are real Dask runs) count."""
+    out: dict[int, float] = {}
+    for k, g in rows[rows["workers"] > 1].groupby("workers"):
+        closes = [json.loads(h or "{}").get("close_seconds") for h in g["host_json"]]
+        got = [float(a) + float(c) for a, c in zip(g["startup_seconds"], closes)
+               if isinstance(c, (int, float)) and a is not None and not pd.isna(a)]
+        if got:
+            out[int(k)] = float(np.median(got))
+    return out
+
+
 @dataclass
 class Calibration:
     """Everything one calibration store gives the planner."""
@@ -240,7 +254,9 @@ def read_calibration(spec: str | Path, *, recognisers: Sequence[str] | None = No
                                                          / one["pages"].sum()),
                            "run_id": None if rid is None or pd.isna(rid) else int(rid),
                            "process_start_seconds": _process_start(one["host_json"]),
-                           "cluster_start_seconds": _process_start(one["host_json"], "cluster_start_seconds")}
+                           "cluster_start_seconds": _process_start(one["host_json"], "cluster_start_seconds"),
+                           "close_seconds": _process_start(one["host_json"], "close_seconds"),
+                           "dask_start_close": _dask_start_close(mine[mine["card_hash"] == last.get("card_hash")])}
             scaling[n] = ScalingFit(mine[["workers", "threads", "pages_per_second"]].copy(), recogniser=n)
         try:
             m = fit_cost_model(frames, n, profile=name, line_height=height, width_multiple=multiple,

@@ -1,7 +1,7 @@
 """What a throughput measurement means: speed-up with an interval, and why it is below 1 when it is.
 
-``ocrbench measure-scaling`` times one worker, then k workers side by side on the
-same pages. Each page's own time is known at every count, so the speed-up
+``ocrbench measure-scaling`` times one worker (the serial runner), then a Dask run of k
+workers sharing the same pages (``run --workers K``), each in a fresh process. Each page's own time is known at every count, so the speed-up
 k x (mean page time at 1 worker) / (mean page time at k workers) gets a
 bootstrap interval over pages (Efron & Tibshirani 1993, percentile interval).
 When k workers are slower than one, the page times say why: each page took
@@ -145,7 +145,7 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
 
     Configurations asking for more cores than the machine has are skipped; the rest are timed most
     promising first (:func:`grid_order`) and none is started that would likely end past ``max_seconds``. Each is timed with
-    the real runner (k workers side by side, as ``measure-scaling`` does) into a scratch store;
+    the real runner (a Dask run of k workers, as ``measure-scaling`` does) into a scratch store;
     the fastest (pages per second of the whole machine) is then timed once more into ``store``,
     with its throughput rows at each worker count, so ``ocrbench plan`` calibrates on it and
     ranks its worker counts. Every other batch size timed at the chosen threads is timed once more into

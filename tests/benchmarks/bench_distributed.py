@@ -23,8 +23,8 @@ and close it. Per side, from one run:
 Ratios: whole command (what a user waits for) and pages phase (the steady state, without the
 fixed start-up) apart. The sides alternate ``--repeats`` times and the best of each is kept (the
 least disturbed by other work). ``--old`` also times one worker the pre-pipelining way (one page a
-task, no prefetch). ``--plan`` calibrates on other pages (``measure_table``: one session and two
-separate serial-runner processes, as ``ocrbench measure-scaling --workers 2`` does), asks the
+task, no prefetch). ``--plan`` calibrates on other pages (``measure_table``: one serial session, then a Dask run of
+2 workers in a fresh process, as ``ocrbench measure-scaling --workers 2`` does), asks the
 planner for the whole command's time on these pages with 2 workers, and compares its P50 with the
 measured 2-worker side.
 
