@@ -73,7 +73,7 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     import pandas as pd
 
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.run.measure import (measure_cluster_start, measure_process_start, measure_scaling, measure_session,
+    from ocrbench.run.measure import (measure_cluster_start, measure_fresh, measure_process_start, measure_scaling,
                                       session_options)
 
     say = progress or (lambda _m: None)
@@ -86,7 +86,7 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     rows = []
     for card in cards:
         say(f"timing {card} on one worker")
-        rows.append(measure_session(target, card, store=store,
+        rows.append(measure_fresh(target, card, store=store,
                                     options=session_options(engine, threads, batch_size)))
         if workers > 1:
             say(f"timing {card} on 2..{workers} workers")
@@ -163,7 +163,7 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
 
     from ocrbench.pages import list_pages
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.run.measure import measure_process_start, measure_scaling, measure_session, session_options
+    from ocrbench.run.measure import measure_fresh, measure_process_start, measure_scaling, session_options
 
     say = progress or (lambda _m: None)
     cores = int(cores or os.cpu_count() or 1)
@@ -196,10 +196,10 @@ def tune(target, card, *, store, threads: Sequence[int] = (1, 2), batch_sizes: S
         others = sorted({g["batch_size"] for g in done if g["threads"] == best["threads"]} - {best["batch_size"]})
         for b in others:         # kept as runs of their own: the plan ranks batch sizes by what was measured
             say(f"timing batch size {b} into the calibration store")
-            measure_session(subset, card, store=store, options=session_options(None, best["threads"], b))
+            measure_fresh(subset, card, store=store, options=session_options(None, best["threads"], b))
         say("timing the chosen configuration into the calibration store")
         opts = session_options(None, best["threads"], best["batch_size"])
-        rows = [measure_session(subset, card, store=store, options=opts)]
+        rows = [measure_fresh(subset, card, store=store, options=opts)]
         more = [w for w in sorted(set(workers)) if w > 1 and w * best["threads"] <= cores]
         if more:
             rows += measure_scaling(subset, card, workers=more, threads=best["threads"],

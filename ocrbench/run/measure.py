@@ -128,10 +128,10 @@ def session_options(engine, intra: int, batch_size: int):
 
 
 def _worker(args: tuple) -> None:
-    pages, card_path, store, intra, batch_size, engine, barrier, queue, dask = args
+    pages, card_path, store, options, barrier, queue, dask = args
     try:
         row = measure_session(pages, card_path, store=store, barrier=barrier, clock=time.perf_counter,
-                              options=session_options(engine, intra, batch_size), dask=dask)
+                              options=options, dask=dask)
         queue.put(("ok", row))
     except BaseException as e:  # noqa: BLE001 - reported to the parent, which raises it
         try:
@@ -161,7 +161,6 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
     ws = sorted({int(w) for w in workers})
     if not ws or ws[0] < 1:
         raise PlanError("worker counts must be at least 1")
-    ctx = mp.get_context("spawn")
     rows = []
     with tempfile.TemporaryDirectory(prefix="ocrbench-scaling-", dir=work_dir) as tmp:
         for k, w in enumerate(ws):
@@ -171,24 +170,8 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
                 # a few calibration pages one page a task, none pipelined, and a speed-up no archive run sees)
                 per_task = max(1, -(-len(list_pages(pages)) // w))
                 dask = DaskOptions(workers=w, threads_per_worker=1, pages_per_task=per_task)
-            # a fresh process, as a command is: what it imports on first use (Dask, the card checker) is timed
-            queue = ctx.Queue()
-            proc = ctx.Process(target=_worker, args=((str(pages), str(card_path), str(Path(tmp) / f"w{w}.sqlite"),
-                                                      threads, batch_size, engine, None, queue, dask),),
-                               daemon=dask is None)        # a daemon process may not start Dask's worker processes
-            with sigint_ignored():                 # Ctrl-C reaches this process only; it stops the run
-                proc.start()
-            try:
-                status, got = queue.get(timeout=timeout)
-            except BaseException:
-                proc.terminate()                  # interrupted or failed: stop it now, not after 30 s
-                raise
-            finally:
-                proc.join(timeout=30)
-                if proc.is_alive():
-                    proc.terminate()
-            if status != "ok":
-                raise OcrbenchError(f"measuring {w} worker(s) failed: {got}")
+            got = measure_fresh(pages, card_path, store=Path(tmp) / f"w{w}.sqlite",
+                                options=session_options(engine, threads, batch_size), dask=dask, timeout=timeout)
             rows.append(got | {"workers": w, "run_id": None})
             if progress:
                 progress(k + 1, len(ws))
@@ -198,8 +181,37 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
     return df
 
 
+def measure_fresh(pages: Path | str, card_path: Path | str, *, store: Path | str, options=None, dask=None,
+                  timeout: float = 3600.0) -> dict:
+    """:func:`measure_session` in a fresh process, as a command runs: what it imports and sets up on first use
+    (the card checker, onnxruntime's first session, Dask) is timed, whatever this process did before.
+
+    Measured in one process, a second recogniser's start-up was 0.46 s against the first's 1.39 s (6 demo
+    pages): the first had paid those costs for both, and a run of the second alone pays them again.
+    """
+    ctx = mp.get_context("spawn")
+    queue = ctx.Queue()
+    proc = ctx.Process(target=_worker, args=((str(pages), str(card_path), str(store), options, None, queue, dask),),
+                       daemon=dask is None)        # a daemon process may not start Dask's worker processes
+    with sigint_ignored():                         # Ctrl-C reaches this process only; it stops the run
+        proc.start()
+    try:
+        status, got = queue.get(timeout=timeout)
+    except BaseException:
+        proc.terminate()                          # interrupted or failed: stop it now, not after 30 s
+        raise
+    finally:
+        proc.join(timeout=30)
+        if proc.is_alive():
+            proc.terminate()
+    if status != "ok":
+        raise OcrbenchError(f"measuring {pages} with {card_path} failed: {got}")
+    return got
+
+
 def measure_process_start(repeats: int = 3, *, timeout: float = 120.0) -> float:
-    """Seconds a new worker process takes before it can run: the interpreter, ocrbench and onnxruntime imported.
+    """Seconds a new process takes before it can run: the interpreter, ocrbench's command line and runner and
+    onnxruntime imported (and the interpreter's exit, which the probe pays too).
 
     The median of ``repeats`` fresh processes (what every job of a split archive pays before its
     sessions open; the sessions' loading and warm-up are timed by :func:`measure_session`).
@@ -211,7 +223,8 @@ def measure_process_start(repeats: int = 3, *, timeout: float = 120.0) -> float:
     times = []
     for _ in range(max(1, repeats)):
         t0 = time.perf_counter()
-        done = subprocess.run([sys.executable, "-c", "import ocrbench.run.engine, onnxruntime"],
+        # what `ocrbench run` imports before its run starts: the command line, the runner, onnxruntime
+        done = subprocess.run([sys.executable, "-c", "import ocrbench.cli.app, ocrbench.run.engine, onnxruntime"],
                               capture_output=True, timeout=timeout, check=False)
         if done.returncode != 0:
             raise PlanError(f"a fresh process could not import the runner: {done.stderr.decode(errors='replace')[-300:]}")

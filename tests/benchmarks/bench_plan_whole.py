@@ -111,7 +111,26 @@ def run_and_compare(name: str, card: Path, held: Path, r: dict, store: Path) -> 
     print(f"{name} ({r['kind']}), {r['pages']} pages: predicted P50 {r['wall_seconds_p50']:.1f} s "
           f"[{r['wall_seconds_p10']:.1f}-{r['wall_seconds_p90']:.1f}], measured {wall:.1f} s "
           f"(/usr/bin/time), error {100 * err:+.1f}%, inside P10-P90: {inside}", flush=True)
+    pages = pages_phase(store)
+    print(f"  where: pages phase predicted {r['wall_seconds_p50'] - r['startup_seconds']:.1f} s, measured "
+          f"{pages:.1f} s (store timestamps); the rest (start-up, close) predicted {r['startup_seconds']:.1f} s, "
+          f"measured {wall - pages:.1f} s", flush=True)
     return err, inside
+
+
+def pages_phase(store: Path) -> float:
+    """The first page's start to the last page's write, from the store's microsecond timestamps."""
+    import datetime as dt
+    import sqlite3
+
+    con = sqlite3.connect(str(store))
+    try:
+        rows = con.execute("SELECT finished_at, t_total FROM pages WHERE status = 'done'").fetchall()
+    finally:
+        con.close()
+    ends = [(dt.datetime.fromisoformat(f).timestamp(), float(t or 0.0)) for f, t in rows]
+    first = min(ends)
+    return max(e for e, _ in ends) - (first[0] - first[1])
 
 
 def print_ratios(prefix: str, results: dict[tuple[str, int], list[tuple[float, bool]]]) -> None:
