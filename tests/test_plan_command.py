@@ -289,16 +289,19 @@ def test_measure_scaling_and_tune_on_the_real_runner(calibrated, tmp_path):
     d, _ = calibrated
     store = tmp_path / "m.sqlite"
     res = cli.invoke(app, ["measure-scaling", str(d / "pages"), "-r", str(d / "ctc"), "--store", str(store),
-                           "--workers", "2", "--json"])
+                           "--workers", "2", "--sessions", "2", "--json"])
     assert res.exit_code == 0, res.output
     doc = json.loads(res.stdout)
     rows = doc["scaling"]
-    assert [r["workers"] for r in rows] == [1, 2]
+    assert [r["workers"] for r in rows] == [1, 1, 2]     # two one-worker sessions, then a 2-worker Dask run
     for r in rows:
         assert r["process_start_seconds"] > 0 and r["startup_seconds"] > 0
         assert r["idle_seconds_per_page"] >= 0 and r["overlap_seconds_per_page"] >= 0
-    assert rows[1]["speedup_low"] <= rows[1]["speedup_high"]
-    assert len(doc["explanations"]) == (rows[1]["speedup"] < 1)
+    assert rows[2]["speedup_low"] <= rows[2]["speedup_high"]
+    assert len(doc["explanations"]) == (rows[2]["speedup"] < 1)
+    # the 2-worker speed-up is over the mean of the two sessions
+    assert rows[2]["speedup"] == pytest.approx(rows[2]["pages_per_second"] /
+                                               ((rows[0]["pages_per_second"] + rows[1]["pages_per_second"]) / 2))
     back = planio.load_scaling(store)
     assert json.loads(back["host_json"].iloc[0])["process_start_seconds"] == pytest.approx(
         rows[0]["process_start_seconds"])

@@ -21,8 +21,12 @@ def measure_scaling_cmd(
     recogniser: list[Path] = typer.Option(..., "--recogniser", "-r", help="A recogniser card; repeat for more."),
     store: Path = typer.Option(..., "--store", help="The calibration store: the timed run and the throughput "
                                                     "table are added to it."),
-    workers: int = typer.Option(1, "--workers", min=1, help="Measure 1..K worker processes."),
+    workers: int = typer.Option(1, "--workers", min=1,
+                                help="Measure 1..K workers (2 or more: a local Dask run, as 'ocrbench run --workers K')."),
     threads: int = typer.Option(1, "--threads", min=1, help="Intra-op threads per worker."),
+    sessions: int = typer.Option(2, "--sessions", min=1,
+                                 help="Time one worker this many times (each a fresh process): the plan's range "
+                                      "includes their spread."),
     batch_size: int = typer.Option(16, "--batch-size", min=1,
                                    help="Lines per model batch (as 'ocrbench run --batch-size')."),
     inter_threads: int = typer.Option(1, "--inter-threads", min=1, help="As 'ocrbench run --inter-threads'."),
@@ -48,7 +52,7 @@ def measure_scaling_cmd(
     try:
         with err.status("timing the recognisers on this machine") as status:
             df, notes = measure_table(target, recogniser, store=store, workers=workers, threads=threads,
-                                      batch_size=batch_size, engine=engine,
+                                      batch_size=batch_size, engine=engine, sessions=sessions,
                                       progress=lambda m: status.update(m))
     except OcrbenchError as e:
         raise fail(str(e), EXIT_USAGE)

@@ -37,7 +37,7 @@ def calibrate_process(work: Path, models: Path, pages: int, seed: int, calib_pag
     stores = calibrate(work, models, calib_pages, log)
     held, drawn = render_archive(work / "held", pages, seed=seed)
     rows = predict(stores, held, pages, drawn, draws=draws, seed=seed)
-    keep = ("kind", "pages", "wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90")
+    keep = ("kind", "pages", "wall_seconds_p10", "wall_seconds_p50", "wall_seconds_p90", "startup_seconds")
     (work / "plan.json").write_text(json.dumps({n: {k: r[k] for k in keep} for n, r in rows.items()}),
                                     encoding="utf-8")
 
