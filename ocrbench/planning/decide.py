@@ -16,8 +16,8 @@ import pandas as pd
 from ocrbench.errors import PlanError
 from ocrbench.planning.archive import Archive
 from ocrbench.planning.costmodel import CostModel
-from ocrbench.planning.estimate import (SPEED_DRIFT, AccuracyInput, Correction, Goals, Option, Resources,
-                                        estimate_serial, evaluate_option)
+from ocrbench.planning.estimate import (SEQ_SPEED_DRIFT, SPEED_DRIFT, AccuracyInput, Correction, Goals, Option,
+                                        Resources, estimate_serial, evaluate_option)
 from ocrbench.planning.numerics import ScalingFit, format_duration
 from ocrbench.planning.people import DEFAULT_HOURS_PER_WEEK
 
@@ -301,7 +301,8 @@ def _assumptions(models: Sequence[CostModel], inputs: PlanInputs) -> list[str]:
         "money: " + (f"every amount in {inputs.currency} (ISO 4217)" if inputs.currency else
                      "no currency given (--currency, an ISO 4217 code)"),
         f"the machine's speed may differ between calibration and run with a coefficient of variation of "
-        f"{inputs.speed_drift:g}" + (" (default: measured on a shared virtual machine; 0 for a dedicated one)"
+        f"{inputs.speed_drift:g}" + (f" (default: measured on a shared virtual machine, {SEQ_SPEED_DRIFT:g} for "
+                                     "seq recognisers, whose runs moved more; 0 for a dedicated one)"
                                      if inputs.speed_drift == SPEED_DRIFT else " (given)")
         + ", or the calibration's own session-to-session spread where larger; it widens P10-P90",
         "whole-process time: every job pays the process start-up"
