@@ -562,6 +562,23 @@ def test_default_speed_drift_widens_the_band_as_a_normal_factor():
         PlanInputs(archive=archive, speed_drift=1.5)
 
 
+@pytest.mark.slow
+def test_a_seq_recogniser_gets_the_wider_default_drift_it_was_measured_to_need():
+    """The seq default (0.11, measured from same-page runs minutes apart: estimate.SEQ_SPEED_DRIFT) spans
+    2 x 1.2816 x 0.11 = 0.282 of the median (normal quantiles); a drift given explicitly is used as given."""
+    from ocrbench.planning.estimate import SEQ_SPEED_DRIFT, default_drift
+
+    frames = calibrate(noise=0.0, kinds=("seq",))
+    archive = Archive.from_numbers(5000, "24", "40", page_size=(1100, 1430))
+    m = fit_cost_model(frames, "demo-seq", n_boot=20, session={"speed_cv": 0.0, "sessions": 3,
+                                                                 "gap_seconds_per_page": 0.0})
+    r = make_plan([m], PlanInputs(archive=archive, draws=2000)).iloc[0]
+    band = (r["wall_seconds_p90"] - r["wall_seconds_p10"]) / r["wall_seconds_p50"]
+    assert 0.25 < band < 0.32
+    assert default_drift("seq", 0.08) == SEQ_SPEED_DRIFT == 0.11
+    assert default_drift("ctc", 0.08) == 0.08 and default_drift("seq", 0.02) == 0.02
+
+
 def test_timeline_reads_microsecond_and_whole_second_timestamps():
     """Start-up and gaps from ISO timestamps as the store writes them (datetime.isoformat, the reference).
 
