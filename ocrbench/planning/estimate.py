@@ -276,7 +276,8 @@ def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
     archive is ``ceil(pages / pages_per_job)`` jobs, run in waves over the workers, each wave starting anew.
     Several workers of one machine without ``pages_per_job`` are one Dask run (``run --workers K``), which
     also starts and closes its cluster. ``measure-scaling --workers K`` times such a run: its start (card
-    check, cluster, every worker's sessions) and close are taken as measured for that K. Stores measured
+    check, cluster, every worker's sessions) and close are taken as measured for that K (for a K not
+    measured, those of the most workers measured). Stores measured
     before that have only the cluster's start and close (``cluster_start_s``), added to a serial session's
     start-up: that plan missed a Dask run's whole command by -23 % on a loaded 2-core machine and by -18 %
     on a quiet one, the start-up and close being 2.4 s planned against 3.9 s measured (DEVELOPERS.md, Scale-out).
@@ -289,6 +290,8 @@ def _whole_process(m: CostModel, res: Resources, n_pages: int) -> dict:
     load = m.startup_s + m.close_s
     if res.workers > 1 and not res.pages_per_job:
         measured = m.dask_start_close_s.get(int(res.workers))
+        if measured is None and m.dask_start_close_s:      # K not measured: the most workers that were
+            measured = m.dask_start_close_s[max(m.dask_start_close_s)]
         if measured is not None:       # a measured Dask run of K workers: its start and close replace the serial ones
             cluster = max(0.0, measured - load)
         else:

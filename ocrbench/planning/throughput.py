@@ -71,23 +71,19 @@ def measure_table(target, cards, *, store, workers: int = 1, threads: int = 1, b
     (2026-12-02): a single short session can be such an outlier, and nothing in it shows that it is.
 
     Returns the rows with speed-up intervals and the positive idle/overlap figures, and the
-    explanations of every speed-up below 1. The process start-up (and, with several workers, the
-    start and close of a local Dask cluster of that many) is measured too and noted in the rows'
-    host description (the planner reads it from there).
+    explanations of every speed-up below 1. The process start-up is measured too and noted in the rows'
+    host description (the planner reads it from there); a K-worker row is a whole Dask run, its start
+    and close in the row itself.
     """
     import pandas as pd
 
     from ocrbench.planning.inputs import save_scaling
-    from ocrbench.run.measure import (measure_cluster_start, measure_fresh, measure_process_start, measure_scaling,
-                                      session_options)
+    from ocrbench.run.measure import measure_fresh, measure_process_start, measure_scaling, session_options
 
     say = progress or (lambda _m: None)
     say("timing a fresh process start")
     proc = measure_process_start()
     extra = {"process_start_seconds": proc}
-    if workers > 1:      # several workers on one machine run on Dask (run --workers K): its cluster costs too
-        say(f"timing the start and close of a local Dask cluster of {workers} workers")
-        extra["cluster_start_seconds"] = measure_cluster_start(workers)
     rows = []
     for card in cards:
         for i in range(max(1, sessions)):

@@ -49,7 +49,7 @@ def _now() -> str:
 
 
 def measure_session(pages: Path | str, card, *, store: Path | str, options=None, clock: Clock = time.perf_counter,
-                    fresh: bool = True, barrier=None, dask=None) -> dict:
+                    fresh: bool = True, dask=None) -> dict:
     """Run one recogniser over ``pages`` with the real runner, timing the session around it.
 
     ``dask`` (:class:`ocrbench.run.distributed.DaskOptions`): the pages run as ``run --workers K`` runs them,
@@ -60,8 +60,7 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
     the run returned), ``busy_seconds`` (the pages' own ``t_total`` summed),
     ``gap_seconds_per_page`` (time between pages outside their own timing;
     negative when the runner overlaps pages, e.g. by loading ahead) and
-    ``pages_per_second``. ``barrier`` (multiprocessing) makes several workers
-    start their first page together.
+    ``pages_per_second``.
     """
     from ocrbench.recognisers.base import EngineOptions
     from ocrbench.recognisers.card import Card, load_card
@@ -78,8 +77,6 @@ def measure_session(pages: Path | str, card, *, store: Path | str, options=None,
 
     def progress(ev) -> None:
         if ev.kind == "start":
-            if barrier is not None:
-                barrier.wait()
             tl.t_begin = clock()
         elif ev.kind == "page" and not ev.skipped:
             tl.page_ends.append(clock())
@@ -128,17 +125,11 @@ def session_options(engine, intra: int, batch_size: int):
 
 
 def _worker(args: tuple) -> None:
-    pages, card_path, store, options, barrier, queue, dask = args
+    pages, card_path, store, options, queue, dask = args
     try:
-        row = measure_session(pages, card_path, store=store, barrier=barrier, clock=time.perf_counter,
-                              options=options, dask=dask)
+        row = measure_session(pages, card_path, store=store, clock=time.perf_counter, options=options, dask=dask)
         queue.put(("ok", row))
     except BaseException as e:  # noqa: BLE001 - reported to the parent, which raises it
-        try:
-            if barrier is not None:
-                barrier.abort()
-        except Exception:  # noqa: BLE001
-            pass
         queue.put(("error", f"{type(e).__name__}: {e}"))
 
 
@@ -191,7 +182,7 @@ def measure_fresh(pages: Path | str, card_path: Path | str, *, store: Path | str
     """
     ctx = mp.get_context("spawn")
     queue = ctx.Queue()
-    proc = ctx.Process(target=_worker, args=((str(pages), str(card_path), str(store), options, None, queue, dask),),
+    proc = ctx.Process(target=_worker, args=((str(pages), str(card_path), str(store), options, queue, dask),),
                        daemon=dask is None)        # a daemon process may not start Dask's worker processes
     with sigint_ignored():                         # Ctrl-C reaches this process only; it stops the run
         proc.start()
@@ -229,47 +220,4 @@ def measure_process_start(repeats: int = 3, *, timeout: float = 120.0) -> float:
         if done.returncode != 0:
             raise PlanError(f"a fresh process could not import the runner: {done.stderr.decode(errors='replace')[-300:]}")
         times.append(time.perf_counter() - t0)
-    return float(statistics.median(times))
-
-
-#: Run in a fresh process by :func:`measure_cluster_start`: argv = workers. Prints the start and the close, seconds.
-_CLUSTER_PROBE = r"""
-import sys, time
-from ocrbench.run.distributed import DaskOptions, connect
-
-def ready():
-    import ocrbench.run.engine, onnxruntime  # what a worker imports before its first recogniser opens
-    return True
-
-t0 = time.perf_counter()
-with connect(DaskOptions(workers=int(sys.argv[1]))) as cl:
-    cl.client.run(ready)
-    t1 = time.perf_counter()
-t2 = time.perf_counter()
-print(f"CLUSTER {t1 - t0:.6f} {t2 - t1:.6f}")
-"""
-
-
-def measure_cluster_start(workers: int = 2, repeats: int = 1, *, timeout: float = 300.0) -> float:
-    """Seconds a Dask run of ``workers`` local workers spends on its cluster, beyond a serial run's own start-up.
-
-    In a fresh process (the interpreter and the runner already counted by :func:`measure_process_start`):
-    importing Dask, starting the scheduler and the worker processes, each worker importing the runner and
-    onnxruntime, and closing it all at the end. The median of ``repeats``. The recognisers' loading and
-    warm-up are not in it: every worker does that in parallel, as one serial run does.
-    """
-    import statistics
-    import subprocess
-    import sys
-
-    times = []
-    for _ in range(max(1, repeats)):
-        done = subprocess.run([sys.executable, "-c", _CLUSTER_PROBE, str(int(workers))], capture_output=True,
-                              text=True, timeout=timeout, check=False)
-        line = next((ln for ln in done.stdout.splitlines() if ln.startswith("CLUSTER ")), None)
-        if done.returncode != 0 or line is None:
-            raise PlanError(f"a local Dask cluster of {workers} workers could not be started and timed: "
-                            f"{done.stderr[-300:]}")
-        start, close = (float(x) for x in line.split()[1:3])
-        times.append(start + close)
     return float(statistics.median(times))
