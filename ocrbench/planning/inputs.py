@@ -180,15 +180,17 @@ def _card_geometry(card_path: str | None) -> tuple[int | None, int | None, float
 def _process_start(host_json: pd.Series, key: str = "process_start_seconds") -> float | None:
     """The median process start-up (or another figure ``key``) measured with the sessions (``ocrbench
     measure-scaling`` notes it in host_json)."""
-    got = []
-    for h in host_json:
-        try:
-            v = json.loads(h or "{}").get(key)
-        except (TypeError, ValueError, AttributeError):
-            v = None
-        if isinstance(v, (int, float)) and v >= 0:
-            got.append(float(v))
+    got = [v for v in (_host_figure(h, key) for h in host_json) if v is not None]
     return float(np.median(got)) if got else None
+
+
+def _host_figure(host_json: str | None, key: str) -> float | None:
+    """One non-negative figure a measurement noted in a row's host description, or None."""
+    try:
+        v = json.loads(host_json or "{}").get(key)
+    except (TypeError, ValueError, AttributeError):
+        return None
+    return float(v) if isinstance(v, (int, float)) and v >= 0 else None
 
 
 def _dask_start_close(rows: pd.DataFrame) -> dict[int, float]:
@@ -197,9 +199,8 @@ def _dask_start_close(rows: pd.DataFrame) -> dict[int, float]:
     Only rows that noted their close (``measure-scaling`` since the K-worker rows are real Dask runs) count."""
     out: dict[int, float] = {}
     for k, g in rows[rows["workers"] > 1].groupby("workers"):
-        closes = [json.loads(h or "{}").get("close_seconds") for h in g["host_json"]]
-        got = [float(a) + float(c) for a, c in zip(g["startup_seconds"], closes)
-               if isinstance(c, (int, float)) and a is not None and not pd.isna(a)]
+        closes = [_host_figure(h, "close_seconds") for h in g["host_json"]]
+        got = [float(a) + c for a, c in zip(g["startup_seconds"], closes) if c is not None and not pd.isna(a)]
         if got:
             out[int(k)] = float(np.median(got))
     return out

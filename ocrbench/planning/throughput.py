@@ -1,7 +1,8 @@
 """What a throughput measurement means: speed-up with an interval, and why it is below 1 when it is.
 
 ``ocrbench measure-scaling`` times one worker (the serial runner), then a Dask run of k
-workers sharing the same pages (``run --workers K``), each in a fresh process. Each page's own time is known at every count, so the speed-up
+workers sharing the same pages (``run --workers K``), each in a fresh process. Each page's
+own time is known at every count, so the speed-up
 k x (mean page time at 1 worker) / (mean page time at k workers) gets a
 bootstrap interval over pages (Efron & Tibshirani 1993, percentile interval).
 When k workers are slower than one, the page times say why: each page took

@@ -153,17 +153,16 @@ def measure_scaling(pages: Path | str, card_path: Path | str, *, workers: Sequen
     if not ws or ws[0] < 1:
         raise PlanError("worker counts must be at least 1")
     rows = []
+    n_pages = len(list_pages(pages))
     with tempfile.TemporaryDirectory(prefix="ocrbench-scaling-", dir=work_dir) as tmp:
         for k, w in enumerate(ws):
-            dask = None
-            if w > 1:
-                # one task per worker: each pipelines its share as over a long archive (auto chunking would give
-                # a few calibration pages one page a task, none pipelined, and a speed-up no archive run sees)
-                per_task = max(1, -(-len(list_pages(pages)) // w))
-                dask = DaskOptions(workers=w, threads_per_worker=1, pages_per_task=per_task)
+            # one task per worker: each pipelines its share as over a long archive (auto chunking would give
+            # a few calibration pages one page a task, none pipelined, and a speed-up no archive run sees)
+            dask = DaskOptions(workers=w, threads_per_worker=1, pages_per_task=max(1, -(-n_pages // w))) \
+                if w > 1 else None
             got = measure_fresh(pages, card_path, store=Path(tmp) / f"w{w}.sqlite",
                                 options=session_options(engine, threads, batch_size), dask=dask, timeout=timeout)
-            rows.append(got | {"workers": w, "run_id": None})
+            rows.append(got | {"run_id": None})      # its store is gone with the scratch folder
             if progress:
                 progress(k + 1, len(ws))
     df = pd.DataFrame(rows)
