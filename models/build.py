@@ -6,6 +6,10 @@ Usage (needs the ``train`` extra: ``pip install -e .[train]``)::
     python models/build.py train seq --minutes 90 --threads 1
     python models/build.py export            # ONNX, parity checks, cards, figures
 
+On a machine with an accelerator and many cores (one drawing core feeds neither)::
+
+    python models/build.py train ctc --minutes 8 --device cuda --workers 14 --batch 64
+
 Training is deterministic by seed for a given number of steps; the time budget
 decides how many steps are run, so the figures of a rebuild may differ slightly.
 Checkpoints go to ``models/_work/`` (ignored by git) so training can resume.
@@ -91,6 +95,64 @@ def heldout_lines(n: int = 300, seed: int = 987654, *, kinds=("ledger", "prose",
 TEXT_KINDS = ("ledger", "prose", "numbers")
 
 
+def draw_pool(key, n: int) -> list[tuple[np.ndarray, str]]:
+    """``n`` training lines drawn from the seed ``key`` (resized to the model's height, none wider than
+    MAX_TRAIN_WIDTH), sorted by width so batches cut from it carry little padding. No torch."""
+    rng = random.Random(key)
+    pool = []
+    while len(pool) < n:
+        im, t = linegen.train_line(rng)
+        r = resize_line(np.asarray(im), SPEC)
+        if r.shape[1] <= MAX_TRAIN_WIDTH and t:
+            pool.append((r, t))
+    pool.sort(key=lambda p: p[0].shape[1])
+    return pool
+
+
+class LineFeed:
+    """Batches of training lines, drawn in this process (``workers`` 0) or by worker processes.
+
+    Line drawing costs about 5 ms a line on one core; on a machine whose accelerator trains far faster
+    than one core draws, ``workers`` processes keep ``2 x workers`` pools in flight. Every pool is a
+    function of its seed alone, so a run is reproducible for a given seed, start step and worker count."""
+
+    def __init__(self, seed: int, start_step: int, batch_size: int, workers: int = 0):
+        self.seed, self.start, self.batch, self.workers = seed, start_step, batch_size, workers
+        self.queue: list = []
+        self.drawn = 0
+        self.pending: list = []
+        self.pool = None
+        if workers > 0:
+            import multiprocessing
+            self.pool = multiprocessing.get_context("fork").Pool(workers)
+
+    def _key(self, step: int):
+        if self.pool is None:
+            return self.seed * 1_000_003 + step
+        self.drawn += 1
+        return f"{self.seed}:{self.start}:{self.drawn}"
+
+    def next(self, step: int) -> list[tuple[np.ndarray, str]]:
+        if not self.queue:
+            if self.pool is None:
+                key = self._key(step)
+                pool = draw_pool(key, self.batch * 4)
+            else:
+                while len(self.pending) < 2 * self.workers:
+                    key = self._key(step)
+                    self.pending.append((key, self.pool.apply_async(draw_pool, (key, self.batch * 4))))
+                key, res = self.pending.pop(0)
+                pool = res.get()
+            self.queue = [pool[i:i + self.batch] for i in range(0, len(pool), self.batch)]
+            random.Random(str(key)).shuffle(self.queue)
+        return self.queue.pop()
+
+    def close(self) -> None:
+        if self.pool is not None:
+            self.pool.terminate()
+            self.pool = None
+
+
 def collapse_ws(s: str) -> str:
     return " ".join(s.split())
 
@@ -135,7 +197,7 @@ def build_modules():
 
     def sinusoid(positions, d):
         # positions: float tensor (...,); returns (..., d)
-        i = torch.arange(d // 2, dtype=torch.float32)
+        i = torch.arange(d // 2, dtype=torch.float32, device=positions.device)
         freq = torch.exp(-math.log(10000.0) * 2 * i / d)
         ang = positions.unsqueeze(-1) * freq
         return torch.cat([torch.sin(ang), torch.cos(ang)], dim=-1)
@@ -162,7 +224,7 @@ def build_modules():
 
         def memory_from(self, f):
             T = f.shape[1]
-            pos = sinusoid(torch.arange(T, dtype=torch.float32), D_MODEL)
+            pos = sinusoid(torch.arange(T, dtype=torch.float32, device=f.device), D_MODEL)
             return self.norm(self.proj(f) + pos)
 
         def memory(self, image):
@@ -223,14 +285,15 @@ def build_modules():
         def run(self, tokens, start, past_k, past_v, cross_k, cross_v, mem_mask):
             """tokens (B,t) at positions start..start+t-1; past (L,B,H,start,dh)."""
             B, t = tokens.shape
-            pos = torch.arange(t, dtype=torch.float32) + start.to(torch.float32)
+            dev = tokens.device
+            pos = torch.arange(t, dtype=torch.float32, device=dev) + start.to(torch.float32)
             x = self.emb(tokens) * math.sqrt(D_MODEL) + sinusoid(pos, D_MODEL)
             tp = past_k.shape[3]
             # causal mask over [past + new]: new position i sees past and new j <= i
-            qi = torch.arange(t).unsqueeze(1)
-            kj = torch.arange(tp + t).unsqueeze(0) - tp
-            self_mask = torch.where(kj <= qi, torch.zeros((), dtype=torch.float32),
-                                    torch.full((), -1e9, dtype=torch.float32))
+            qi = torch.arange(t, device=dev).unsqueeze(1)
+            kj = torch.arange(tp + t, device=dev).unsqueeze(0) - tp
+            self_mask = torch.where(kj <= qi, torch.zeros((), dtype=torch.float32, device=dev),
+                                    torch.full((), -1e9, dtype=torch.float32, device=dev))
             ks, vs = [], []
             for l, layer in enumerate(self.layers):
                 x, k, v = layer(x, past_k[l], past_v[l], self_mask, cross_k[l], cross_v[l], mem_mask)
@@ -254,8 +317,9 @@ def build_modules():
             m = self.encoder.memory_from(f)
             ck, cv = self.encoder.kv(m)
             B = image.shape[0]
-            empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS)
-            logits, _, _ = self.decoder.run(tokens_in, torch.zeros((), dtype=torch.int64), empty, empty, ck, cv, mem_mask)
+            empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS, device=image.device)
+            logits, _, _ = self.decoder.run(tokens_in, torch.zeros((), dtype=torch.int64, device=image.device),
+                                            empty, empty, ck, cv, mem_mask)
             if with_ctc:
                 return logits, self.ctc_head(f)
             return logits
@@ -432,11 +496,13 @@ def freeze_batch_norm(model) -> None:
 
 
 
-def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float):
+def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
+          device: str = "cpu", workers: int = 0):
     import torch
     from torch import nn
     torch.manual_seed(seed)
     torch.set_num_threads(threads)
+    dev = torch.device(device)
     CRNN, Seq2Seq, _, _ = build_modules()
     WORK.mkdir(parents=True, exist_ok=True)
     ckpt = WORK / f"{kind}.pt"
@@ -452,7 +518,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     step, elapsed0 = 0, 0.0
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
     if source is not None:
-        st = torch.load(source, weights_only=False)
+        st = torch.load(source, weights_only=False, map_location="cpu")
         model.load_state_dict(st["model"])
         if "opt" in st:
             opt.load_state_dict(st["opt"])
@@ -463,13 +529,20 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     heldout_fam = [(resize_line(np.asarray(im), SPEC), t) for im, t, _ in linegen.heldout_family_lines(100, degraded=True)]
     ctc_loss = nn.CTCLoss(blank=0, zero_infinity=True)
     ce = nn.CrossEntropyLoss(ignore_index=PAD, label_smoothing=0.1)
+    model.to(dev)
+    for state in opt.state.values():                     # optimiser moments follow the weights
+        for k, v in state.items():
+            if torch.is_tensor(v) and k != "step":
+                state[k] = v.to(dev)
     t0 = time.time() - elapsed0
     last_ck = time.time()
     last_eval = time.time()
     warm = 100
     last_commit = time.time()
-    queue: list = []
+    feed = LineFeed(seed, step, batch_size, workers)
     log = open(WORK / f"{kind}.log", "a")
+    if device != "cpu" or workers:
+        print(f"{kind}: training on {dev}, {workers} line-drawing processes", file=log, flush=True)
     while True:
         elapsed = time.time() - t0
         if elapsed > budget:
@@ -478,22 +551,10 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         cur_lr = lr * min(1.0, (step + 1) / warm) * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * frac)))
         for g in opt.param_groups:
             g["lr"] = cur_lr * g.get("lr_scale", 1.0)
-        if not queue:
-            # draw a pool of lines, sort by width, cut into batches: little padding
-            rng = random.Random(seed * 1_000_003 + step)
-            pool = []
-            while len(pool) < batch_size * 4:
-                im, t = linegen.train_line(rng)
-                r = resize_line(np.asarray(im), SPEC)
-                if r.shape[1] <= MAX_TRAIN_WIDTH and t:
-                    pool.append((r, t))
-            pool.sort(key=lambda p: p[0].shape[1])
-            queue = [pool[i:i + batch_size] for i in range(0, len(pool), batch_size)]
-            rng.shuffle(queue)
-        chunk = queue.pop()
+        chunk = feed.next(step)
         batch, widths = make_batch([c[0] for c in chunk], SPEC)
         texts = [c[1] for c in chunk]
-        x = torch.from_numpy(batch)
+        x = torch.from_numpy(batch).to(dev)
         model.train()
         freeze_batch_norm(model)
         if kind == "ctc":
@@ -502,7 +563,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
             lp = logits.log_softmax(-1).transpose(0, 1)        # (T,B,C)
             in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
             tgt_len = torch.tensor([len(t) for t in targets])
-            flat = torch.tensor([c for t in targets for c in t], dtype=torch.long)
+            flat = torch.tensor([c for t in targets for c in t], dtype=torch.long).to(dev)
             loss = ctc_loss(lp, flat, in_len, tgt_len)
         else:
             seqs = encode_seq(texts)
@@ -512,13 +573,13 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
             for i, s in enumerate(seqs):
                 tin[i, : len(s) + 1] = [BOS] + s
                 tout[i, : len(s) + 1] = s + [EOS]
-            mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1]))
-            logits, aux = model(x, mm, torch.from_numpy(tin), with_ctc=True)
-            loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).reshape(-1))
+            mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1])).to(dev)
+            logits, aux = model(x, mm, torch.from_numpy(tin).to(dev), with_ctc=True)
+            loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).to(dev).reshape(-1))
             ctargets = encode_ctc(texts)
             in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
             tgt_len = torch.tensor([len(t) for t in ctargets])
-            flat = torch.tensor([c for t in ctargets for c in t], dtype=torch.long)
+            flat = torch.tensor([c for t in ctargets for c in t], dtype=torch.long).to(dev)
             loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), flat, in_len, tgt_len)
         opt.zero_grad()
         loss.backward()
@@ -543,6 +604,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
             torch.set_num_threads(2)
             threads = 2
             print("seq: ctc finished, now 2 threads", file=log, flush=True)
+    feed.close()
     save_ckpt(ckpt, model, opt, step, time.time() - t0)
     save_ckpt(committed, model, None, step, time.time() - t0)
     c = evaluate(kind, model, heldout)
@@ -557,9 +619,9 @@ def save_ckpt(path, model, opt, step, elapsed):
     import torch
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_suffix(".tmp")
-    st = {"model": model.state_dict(), "step": step, "elapsed": elapsed}
+    st = {"model": {k: v.cpu() for k, v in model.state_dict().items()}, "step": step, "elapsed": elapsed}
     if opt is not None:
-        st["opt"] = opt.state_dict()
+        st["opt"] = opt.state_dict()            # (loaded with map_location="cpu", moved on resume)
     torch.save(st, tmp)
     os.replace(tmp, path)
 
@@ -572,9 +634,10 @@ def evaluate(kind, model, lines, batch=32) -> float:
         for i in range(0, len(lines), batch):
             chunk = lines[i: i + batch]
             b, widths = make_batch([c[0] for c in chunk], SPEC)
-            x = torch.from_numpy(b)
+            dev = next(model.parameters()).device
+            x = torch.from_numpy(b).to(dev)
             if kind == "ctc":
-                hyps += greedy_ctc(model(x).numpy(), widths)
+                hyps += greedy_ctc(model(x).cpu().numpy(), widths)
             else:
                 hyps += greedy_seq_torch(model, x, mem_mask_for(widths, b.shape[-1]))
             refs += [c[1] for c in chunk]
@@ -584,18 +647,19 @@ def evaluate(kind, model, lines, batch=32) -> float:
 
 def greedy_seq_torch(model, x, mm):
     import torch
-    mm = torch.from_numpy(mm)
+    dev = x.device
+    mm = torch.from_numpy(mm).to(dev)
     ck, cv = model.encoder(x)
     B = x.shape[0]
     dh = D_MODEL // N_HEADS
-    pk = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh)
-    pv = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh)
-    tok = torch.full((B, 1), BOS, dtype=torch.long)
+    pk = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh, device=dev)
+    pv = torch.zeros(N_LAYERS, B, N_HEADS, 0, dh, device=dev)
+    tok = torch.full((B, 1), BOS, dtype=torch.long, device=dev)
     done = torch.zeros(B, dtype=torch.bool)
     out = [[] for _ in range(B)]
     for step in range(MAX_TOKENS):
-        logits, pk, pv = model.decoder.run(tok, torch.tensor(step), pk, pv, ck, cv, mm)
-        nxt = logits[:, -1].argmax(-1)
+        logits, pk, pv = model.decoder.run(tok, torch.tensor(step, device=dev), pk, pv, ck, cv, mm)
+        nxt = logits[:, -1].argmax(-1).cpu()
         for b in range(B):
             if not done[b]:
                 if nxt[b].item() == EOS:
@@ -604,7 +668,7 @@ def greedy_seq_torch(model, x, mm):
                     out[b].append(SEQ_VOCAB[nxt[b].item()])
         if done.all():
             break
-        tok = nxt.unsqueeze(1)
+        tok = nxt.unsqueeze(1).to(dev)
     return ["".join(o) for o in out]
 
 
@@ -633,7 +697,7 @@ def export(opset: int = 17, only: str | None = None):
     # ---- CTC
     if (WORK / "ctc.pt").exists() and only in (None, "ctc"):
         m = CRNN(len(CTC_CLASSES))
-        m.load_state_dict(torch.load(WORK / "ctc.pt", weights_only=False)["model"])
+        m.load_state_dict(torch.load(WORK / "ctc.pt", weights_only=False, map_location="cpu")["model"])
         m.eval()
         out = OUT / CTC_NAME
         out.mkdir(exist_ok=True)
@@ -667,7 +731,7 @@ def export(opset: int = 17, only: str | None = None):
     # ---- seq
     if (WORK / "seq.pt").exists() and only in (None, "seq"):
         m = Seq2Seq(len(SEQ_VOCAB))
-        m.load_state_dict(torch.load(WORK / "seq.pt", weights_only=False)["model"])
+        m.load_state_dict(torch.load(WORK / "seq.pt", weights_only=False, map_location="cpu")["model"])
         m.eval()
         enc = m.encoder.eval()
         step_w = StepWrapper(m.decoder).eval()
@@ -931,6 +995,9 @@ def main(argv=None):
     t.add_argument("--seed", type=int, default=7)
     t.add_argument("--batch", type=int, default=32)
     t.add_argument("--lr", type=float, default=None)
+    t.add_argument("--device", default="cpu", help="torch device to train on (cpu, cuda)")
+    t.add_argument("--workers", type=int, default=0,
+                   help="processes drawing training lines (0: in the training process)")
     e = sub.add_parser("export")
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
@@ -938,7 +1005,7 @@ def main(argv=None):
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
-        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr)
+        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers)
     elif a.cmd == "readme":
         write_readme_block()
     else:

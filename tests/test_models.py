@@ -214,6 +214,15 @@ def test_build_script_data_generator_runs_without_torch():
         "assert len(linegen.faces(linegen.TRAIN_FAMILIES)) >= 9\n"               # DejaVu at the least
         "lines = linegen.heldout_family_lines(6, degraded=True)\n"
         "assert len(lines) == 6 and all(t for _, t, _ in lines)\n"
+        # lines drawn by worker processes (the accelerator path): each pool is a function of its seed
+        "feed = build.LineFeed(3, 0, 2, workers=2)\n"
+        "got = [feed.next(0) for _ in range(8)]\n"
+        "feed.close()\n"
+        "assert all(len(c) == 2 for c in got)\n"
+        "again = build.draw_pool('3:0:1', 8)\n"
+        "firsts = sorted(t for c in got[:4] for _, t in c)\n"
+        "assert firsts == sorted(t for _, t in again), (firsts, again)\n"
+        "assert all(r.shape[0] == 32 and r.shape[1] <= build.MAX_TRAIN_WIDTH for c in got for r, _ in c)\n"
         "print('ok', b.shape)\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
