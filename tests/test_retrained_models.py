@@ -31,9 +31,10 @@ N_LINES = 150          # per condition (clean, degraded); fixed seed inside line
 # The targets: held-out families, clean and degraded, greedy.
 TARGET = {"ctc": 0.02, "seq": 0.03}
 # What the shipped models measure on these lines (models/README.md), a regression guard while the
-# targets are not met: ledger-ctc retrained (previous build: 31.8 % clean, 42.4 % degraded);
+# targets are not met: ledger-ctc retrained twice (first build: 31.8 % clean, 42.4 % degraded; first
+# retraining 4.68 % / 11.29 %);
 # ledger-seq is still the previous build.
-SHIPPED = {("ctc", False): 0.0470, ("ctc", True): 0.1136, ("seq", False): 0.4021, ("seq", True): 0.5459}
+SHIPPED = {("ctc", False): 0.0236, ("ctc", True): 0.0770, ("seq", False): 0.4021, ("seq", True): 0.5459}
 
 
 
