@@ -275,11 +275,12 @@ def _cer(truth: list[str], hyp: list[str]) -> float:
     return sum(Levenshtein.distance(t, h) for t, h in zip(truth, hyp)) / sum(len(t) for t in truth)
 
 
-@pytest.mark.parametrize("folder, before_at_least, after_at_most", [(DEMO_CTC, 0.015, 0.01), (DEMO_SEQ, 0.25, 0.08)])
+@pytest.mark.parametrize("folder, before_at_least, after_at_most", [(DEMO_CTC, 0.01, 0.01), (DEMO_SEQ, 0.25, 0.08)])
 def test_flattening_crops_of_the_photographed_page(folder, before_at_least, after_at_most):
     # Measured (CER on the 5 body lines) with [input] flatten: ledger-seq 32.5 % -> 4.3 %; the first
-    # ledger-ctc 21.4 % -> 2.1 %, the retrained one (trained on shaded, unevenly lit lines too)
-    # 2.1 % -> 0.43 %. remove_rules changes nothing here (no rules cross these lines).
+    # ledger-ctc 21.4 % -> 2.1 %, the first retrained one (trained on shaded, unevenly lit lines too)
+    # 2.1 % -> 0.43 %, the second 1.28 % -> 0.43 % (3 edits -> 1 in 234 characters).
+    # remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
     rec = open_demo(folder, flatten=False)                           # (the demo cards flatten: off here)
@@ -324,10 +325,12 @@ def test_card_flatten_and_remove_rules_clean_every_crop_before_it_is_read(tmp_pa
 
 
 def test_rules_crossing_and_bounding_a_line_are_painted_out(demo_dir):
-    # Measured: ledger-ctc reads the ruled lines at 25.2 % CER against its reading of the same
-    # lines without rules, 2.7 % after remove_crop_rules (ledger-seq: 146.5 % -> 2.7 %).
+    # Measured: the first ledger-ctc read the ruled lines at 25.2 % CER against its reading of the same
+    # lines without rules, 2.7 % after remove_crop_rules (ledger-seq: 146.5 % -> 2.7 %). The
+    # retrained ledger-ctc (trained on lines with column rules and cell borders) reads them at 2.2 %,
+    # 1.3 % after: too small a gap to show what the step does, so the check runs on ledger-seq.
     layout = analyse_page(load_page(PageRef(demo_dir / DEMO_PNG[0])).gray)
-    rec = open_demo(DEMO_CTC)
+    rec = open_demo(DEMO_SEQ)
     crops = [ln.crop for ln in layout.lines[2:12]]
     ruled = []
     for c in crops:
