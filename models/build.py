@@ -361,6 +361,16 @@ def mem_mask_for(widths, W):
     return m
 
 
+def ctc_targets(texts, widths, dev):
+    """CTC loss arguments after the scores: (targets, input lengths, target lengths); targets on ``dev``."""
+    import torch
+    targets = encode_ctc(texts)
+    in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
+    tgt_len = torch.tensor([len(t) for t in targets])
+    flat = torch.tensor([c for t in targets for c in t], dtype=torch.long).to(dev)
+    return flat, in_len, tgt_len
+
+
 def encode_ctc(texts):
     idx = {c: i + 1 for i, c in enumerate(synth.ALPHABET)}
     return [[idx[c] for c in t if c in idx] for t in texts]
@@ -558,13 +568,9 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         model.train()
         freeze_batch_norm(model)
         if kind == "ctc":
-            targets = encode_ctc(texts)
             logits = model(x)                                  # (B,T,C)
             lp = logits.log_softmax(-1).transpose(0, 1)        # (T,B,C)
-            in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
-            tgt_len = torch.tensor([len(t) for t in targets])
-            flat = torch.tensor([c for t in targets for c in t], dtype=torch.long).to(dev)
-            loss = ctc_loss(lp, flat, in_len, tgt_len)
+            loss = ctc_loss(lp, *ctc_targets(texts, widths, dev))
         else:
             seqs = encode_seq(texts)
             L = max(len(s) for s in seqs) + 1
@@ -576,11 +582,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
             mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1])).to(dev)
             logits, aux = model(x, mm, torch.from_numpy(tin).to(dev), with_ctc=True)
             loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).to(dev).reshape(-1))
-            ctargets = encode_ctc(texts)
-            in_len = torch.from_numpy(np.ceil(widths / SPEC.width_multiple).astype(np.int64))
-            tgt_len = torch.tensor([len(t) for t in ctargets])
-            flat = torch.tensor([c for t in ctargets for c in t], dtype=torch.long).to(dev)
-            loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), flat, in_len, tgt_len)
+            loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), *ctc_targets(texts, widths, dev))
         opt.zero_grad()
         loss.backward()
         nn.utils.clip_grad_norm_(model.parameters(), 5.0)
@@ -630,11 +632,11 @@ def evaluate(kind, model, lines, batch=32) -> float:
     import torch
     model.eval()
     refs, hyps = [], []
+    dev = next(model.parameters()).device
     with torch.no_grad():
         for i in range(0, len(lines), batch):
             chunk = lines[i: i + batch]
             b, widths = make_batch([c[0] for c in chunk], SPEC)
-            dev = next(model.parameters()).device
             x = torch.from_numpy(b).to(dev)
             if kind == "ctc":
                 hyps += greedy_ctc(model(x).cpu().numpy(), widths)

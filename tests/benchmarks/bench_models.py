@@ -10,7 +10,8 @@ side by side (``--before DIR`` holding ledger-ctc/ and ledger-seq/):
   tests/_browser_set.py, with its 95 % bootstrap over lines);
 * scikit-image's photographed ``page`` (reference data), its five body lines;
 * the demo archive's first pages: the seq model on whole table lines against the
-  same lines cut at wide gaps (the card's ``split_gap``);
+  same lines cut at wide gaps (the card's ``split_gap``); with ``--before``, every demo page read by
+  both builds, edits paired over pages (a 95 % bootstrap);
 * lines per second at batch 16 (the held-out lines), new against before, timed
   alternately in one run (a ratio; absolute figures depend on the machine's load).
 
@@ -35,6 +36,7 @@ sys.path.insert(0, str(ROOT / "models"))
 import linegen  # noqa: E402
 
 from ocrbench.intervals import wilson_interval  # noqa: E402
+from ocrbench.pages import IMAGE_SUFFIXES  # noqa: E402
 from ocrbench.recognisers.card import load_card  # noqa: E402
 from ocrbench.recognisers.engine import EngineOptions  # noqa: E402
 from ocrbench.recognisers.registry import open_recogniser  # noqa: E402
@@ -124,6 +126,27 @@ def demo_pages(folder: Path, name: str, n_pages: int) -> tuple[float, float]:
     return ew / nn, ec / nn
 
 
+def demo_archive_paired(now: Path, before: Path, name: str, n_pages: int) -> None:
+    """Page text (lines joined, whitespace collapsed per line) of the demo archive read by two builds,
+    edits summed over pages, and the paired difference with a 95 % bootstrap over pages."""
+    from ocrbench.pages import PageRef, analyse_page, load_page
+    pages = sorted(p for p in SCANS.glob("page_*") if p.suffix.lower() in IMAGE_SUFFIXES)[:n_pages]
+    recs = {"now": open_rec(now), "before": open_rec(before)}
+    edits = {k: [] for k in recs}
+    chars = 0
+    for p in pages:
+        ref = "\n".join(ws(t) for t in p.with_suffix(".txt").read_text(encoding="utf-8").splitlines())
+        crops = [ln.crop for ln in analyse_page(load_page(PageRef(p)).gray).lines]
+        chars += len(ref)
+        for k, rec in recs.items():
+            edits[k].append(Levenshtein.distance(ref, "\n".join(ws(t) for t in read(rec, crops))))
+    d = np.array(edits["now"]) - np.array(edits["before"])
+    boot = d[np.random.default_rng(0).integers(0, len(d), (10_000, len(d)))].sum(1) / chars
+    say(f"{name} demo archive ({len(pages)} pages, {chars} chars): now {sum(edits['now'])} edits, "
+        f"before {sum(edits['before'])}; paired difference {100 * d.sum() / chars:+.3f} points, "
+        f"95 % bootstrap over pages [{100 * np.percentile(boot, 2.5):+.3f}, {100 * np.percentile(boot, 97.5):+.3f}]")
+
+
 def speed(folders: list[tuple[str, Path]], lines, rounds: int = 3) -> dict[str, float]:
     recs = {name: open_rec(f) for name, f in folders}
     imgs = [np.asarray(im) for im, _, _ in lines]
@@ -142,6 +165,7 @@ def main(argv=None) -> int:
     ap.add_argument("--before", type=Path, default=None, help="an earlier build (ledger-ctc/, ledger-seq/) to compare")
     ap.add_argument("--lines", type=int, default=200)
     ap.add_argument("--pages", type=int, default=4)
+    ap.add_argument("--archive-pages", type=int, default=24, help="demo pages read by both builds (with --before)")
     a = ap.parse_args(argv)
     models = find_models(a.models, "bench_models")
     clean = linegen.heldout_family_lines(a.lines, degraded=False)
@@ -165,6 +189,7 @@ def main(argv=None) -> int:
         print(f"RATIO {build}_seq_whole_over_cut_cer {w / max(c, 1e-9):.3f} <=1.5")
     if a.before:
         for kind in ("ctc", "seq"):
+            demo_archive_paired(models / f"ledger-{kind}", a.before / f"ledger-{kind}", kind, a.archive_pages)
             lps = speed([("now", models / f"ledger-{kind}"), ("before", a.before / f"ledger-{kind}")], clean[:128])
             say(f"{kind} lines/s at batch 16: now {lps['now']:.1f}, before {lps['before']:.1f}")
             print(f"RATIO {kind}_lines_per_s_now_over_before {lps['now'] / lps['before']:.3f} >=0.8")
