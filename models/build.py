@@ -312,8 +312,8 @@ def build_modules():
             self.decoder = Decoder(vocab)
             self.ctc_head = nn.Linear(256, len(CTC_CLASSES))
 
-        def forward(self, image, mem_mask, tokens_in, with_ctc: bool = False):
-            f = self.encoder.features(image)
+        def forward(self, image, mem_mask, tokens_in, with_ctc: bool = False, features=None):
+            f = self.encoder.features(image) if features is None else features
             m = self.encoder.memory_from(f)
             ck, cv = self.encoder.kv(m)
             B = image.shape[0]
@@ -506,8 +506,22 @@ def freeze_batch_norm(model) -> None:
 
 
 
+def transplant_encoder(model, ctc_ckpt: Path) -> None:
+    """Give the seq model the convolutions and LSTM of a trained CTC model (and its classifier as
+    the auxiliary CTC head): the encoder then reads exactly what the CTC recogniser reads."""
+    import torch
+    st = torch.load(ctc_ckpt, weights_only=False, map_location="cpu")["model"]
+    state = model.state_dict()
+    for k, v in st.items():
+        if k.startswith(("conv.", "rnn.")):
+            state["encoder." + k] = v.clone()
+        elif k.startswith("fc."):
+            state["ctc_head." + k[3:]] = v.clone()
+    model.load_state_dict(state)
+
+
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
-          device: str = "cpu", workers: int = 0):
+          device: str = "cpu", workers: int = 0, encoder_from: Path | None = None):
     import torch
     from torch import nn
     torch.manual_seed(seed)
@@ -525,7 +539,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     other = [p for n, p in model.named_parameters() if not (n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head"))]
     groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": enc_params, "lr_scale": 0.5}] if enc_params else [])
     opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
-    step, elapsed0 = 0, 0.0
+    step, elapsed0, warm_from, frozen = 0, 0.0, 0, False
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
     if source is not None:
         st = torch.load(source, weights_only=False, map_location="cpu")
@@ -533,7 +547,19 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         if "opt" in st:
             opt.load_state_dict(st["opt"])
         step, elapsed0 = st["step"], st["elapsed"]
+        warm_from, frozen = st.get("warm_from", 0), st.get("frozen_encoder", False)
         print(f"resumed {kind} from {source} at step {step}, {elapsed0 / 60:.1f} min", flush=True)
+    if kind == "seq" and encoder_from is not None and not frozen:
+        # a new stage: the encoder becomes the CTC model's and stays frozen; the decoder (and the
+        # projection to it) keep their weights and start a new warm-up and cosine schedule
+        transplant_encoder(model, encoder_from)
+        frozen, elapsed0, warm_from = True, 0.0, step
+        print(f"seq: encoder taken from {encoder_from} and frozen; new schedule from step {step}", flush=True)
+    if frozen:
+        for n, p in model.named_parameters():
+            if n.startswith(("encoder.conv", "encoder.rnn", "ctc_head")):
+                p.requires_grad_(False)
+    extra = {"warm_from": warm_from, "frozen_encoder": frozen}
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
     heldout_fam = [(resize_line(np.asarray(im), SPEC), t) for im, t, _ in linegen.heldout_family_lines(100, degraded=True)]
@@ -558,7 +584,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         if elapsed > budget:
             break
         frac = min(1.0, elapsed / budget)
-        cur_lr = lr * min(1.0, (step + 1) / warm) * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * frac)))
+        cur_lr = lr * min(1.0, (step + 1 - warm_from) / warm) * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * frac)))
         for g in opt.param_groups:
             g["lr"] = cur_lr * g.get("lr_scale", 1.0)
         chunk = feed.next(step)
@@ -580,9 +606,15 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
                 tin[i, : len(s) + 1] = [BOS] + s
                 tout[i, : len(s) + 1] = s + [EOS]
             mm = torch.from_numpy(mem_mask_for(widths, batch.shape[-1])).to(dev)
-            logits, aux = model(x, mm, torch.from_numpy(tin).to(dev), with_ctc=True)
-            loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).to(dev).reshape(-1))
-            loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), *ctc_targets(texts, widths, dev))
+            if frozen:                                         # no gradient through the CTC encoder
+                with torch.no_grad():
+                    f = model.encoder.features(x)
+                logits = model(x, mm, torch.from_numpy(tin).to(dev), features=f)
+                loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).to(dev).reshape(-1))
+            else:
+                logits, aux = model(x, mm, torch.from_numpy(tin).to(dev), with_ctc=True)
+                loss = ce(logits.reshape(-1, logits.shape[-1]), torch.from_numpy(tout).to(dev).reshape(-1))
+                loss = loss + 0.3 * ctc_loss(aux.log_softmax(-1).transpose(0, 1), *ctc_targets(texts, widths, dev))
         opt.zero_grad()
         loss.backward()
         nn.utils.clip_grad_norm_(model.parameters(), 5.0)
@@ -597,18 +629,18 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
                   file=log, flush=True)
             last_eval = time.time()
         if time.time() - last_commit > 600:
-            save_ckpt(committed, model, None, step, time.time() - t0)
+            save_ckpt(committed, model, None, step, time.time() - t0, extra)
             last_commit = time.time()
         if time.time() - last_ck > 120:
-            save_ckpt(ckpt, model, opt, step, time.time() - t0)
+            save_ckpt(ckpt, model, opt, step, time.time() - t0, extra)
             last_ck = time.time()
         if kind == "seq" and threads == 1 and (WORK / "ctc.done").exists() and os.environ.get("OCRBENCH_BUILD_GROW", "1") == "1":
             torch.set_num_threads(2)
             threads = 2
             print("seq: ctc finished, now 2 threads", file=log, flush=True)
     feed.close()
-    save_ckpt(ckpt, model, opt, step, time.time() - t0)
-    save_ckpt(committed, model, None, step, time.time() - t0)
+    save_ckpt(ckpt, model, opt, step, time.time() - t0, extra)
+    save_ckpt(committed, model, None, step, time.time() - t0, extra)
     c = evaluate(kind, model, heldout)
     cf = evaluate(kind, model, heldout_fam)
     print(f"{kind} FINAL step {step} CER(ws collapsed) DejaVu {c:.4f} held-out families {cf:.4f}", file=log, flush=True)
@@ -616,12 +648,13 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
                                                    "heldout_cer": c, "heldout_families_cer": cf}))
 
 
-def save_ckpt(path, model, opt, step, elapsed):
+def save_ckpt(path, model, opt, step, elapsed, extra=None):
     """Full checkpoint (with the optimiser) in the work folder; weights only (opt None) for git."""
     import torch
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_suffix(".tmp")
-    st = {"model": {k: v.cpu() for k, v in model.state_dict().items()}, "step": step, "elapsed": elapsed}
+    st = {"model": {k: v.cpu() for k, v in model.state_dict().items()}, "step": step, "elapsed": elapsed,
+          **(extra or {})}
     if opt is not None:
         st["opt"] = opt.state_dict()            # (loaded with map_location="cpu", moved on resume)
     torch.save(st, tmp)
@@ -1000,6 +1033,8 @@ def main(argv=None):
     t.add_argument("--device", default="cpu", help="torch device to train on (cpu, cuda)")
     t.add_argument("--workers", type=int, default=0,
                    help="processes drawing training lines (0: in the training process)")
+    t.add_argument("--encoder-from", type=Path, default=None,
+                   help="seq: take the encoder from this CTC checkpoint, freeze it and start a new schedule")
     e = sub.add_parser("export")
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
@@ -1007,7 +1042,7 @@ def main(argv=None):
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
-        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers)
+        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from)
     elif a.cmd == "readme":
         write_readme_block()
     else:
