@@ -521,7 +521,7 @@ def transplant_encoder(model, ctc_ckpt: Path) -> None:
 
 
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
-          device: str = "cpu", workers: int = 0, encoder_from: Path | None = None):
+          device: str = "cpu", workers: int = 0, encoder_from: Path | None = None, unfreeze: bool = False):
     import torch
     from torch import nn
     torch.manual_seed(seed)
@@ -539,7 +539,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     other = [p for n, p in model.named_parameters() if not (n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head"))]
     groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": enc_params, "lr_scale": 0.5}] if enc_params else [])
     opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
-    step, elapsed0, warm_from, frozen = 0, 0.0, 0, False
+    step, elapsed0, warm_from, frozen, taken = 0, 0.0, 0, False, False
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
     if source is not None:
         st = torch.load(source, weights_only=False, map_location="cpu")
@@ -548,18 +548,27 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
             opt.load_state_dict(st["opt"])
         step, elapsed0 = st["step"], st["elapsed"]
         warm_from, frozen = st.get("warm_from", 0), st.get("frozen_encoder", False)
+        taken = st.get("encoder_taken", frozen)
         print(f"resumed {kind} from {source} at step {step}, {elapsed0 / 60:.1f} min", flush=True)
-    if kind == "seq" and encoder_from is not None and not frozen:
+    if kind == "seq" and encoder_from is not None and not taken:
         # a new stage: the encoder becomes the CTC model's and stays frozen; the decoder (and the
         # projection to it) keep their weights and start a new warm-up and cosine schedule
         transplant_encoder(model, encoder_from)
-        frozen, elapsed0, warm_from = True, 0.0, step
+        frozen, taken, elapsed0, warm_from = True, True, 0.0, step
         print(f"seq: encoder taken from {encoder_from} and frozen; new schedule from step {step}", flush=True)
+    if frozen and unfreeze:
+        # the taken encoder trains on with the decoder (joint CTC-attention, the auxiliary CTC loss
+        # keeps it a CTC reader); moments left from before it was taken are dropped
+        frozen = False
+        for n, p in model.named_parameters():
+            if n.startswith(("encoder.conv", "encoder.rnn", "ctc_head")):
+                opt.state.pop(p, None)
+        print(f"seq: encoder unfrozen at step {step}", flush=True)
     if frozen:
         for n, p in model.named_parameters():
             if n.startswith(("encoder.conv", "encoder.rnn", "ctc_head")):
                 p.requires_grad_(False)
-    extra = {"warm_from": warm_from, "frozen_encoder": frozen}
+    extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken}
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
     heldout_fam = [(resize_line(np.asarray(im), SPEC), t) for im, t, _ in linegen.heldout_family_lines(100, degraded=True)]
@@ -1035,6 +1044,8 @@ def main(argv=None):
                    help="processes drawing training lines (0: in the training process)")
     t.add_argument("--encoder-from", type=Path, default=None,
                    help="seq: take the encoder from this CTC checkpoint, freeze it and start a new schedule")
+    t.add_argument("--unfreeze", action="store_true",
+                   help="seq: train a taken (frozen) encoder on with the decoder from here")
     e = sub.add_parser("export")
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
@@ -1042,7 +1053,7 @@ def main(argv=None):
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
-        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from)
+        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from, a.unfreeze)
     elif a.cmd == "readme":
         write_readme_block()
     else:
