@@ -506,6 +506,9 @@ def freeze_batch_norm(model) -> None:
 
 
 
+CTC_PART = ("encoder.conv", "encoder.rnn", "ctc_head")     # the seq parameters a CTC model also has
+
+
 def transplant_encoder(model, ctc_ckpt: Path) -> None:
     """Give the seq model the convolutions and LSTM of a trained CTC model (and its classifier as
     the auxiliary CTC head): the encoder then reads exactly what the CTC recogniser reads."""
@@ -535,9 +538,9 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     if not ckpt.exists() and not committed.exists():
         # the previous build's weights (read back from the shipped ONNX graphs) are the start
         warm_start(kind, model)
-    enc_params = [p for n, p in model.named_parameters() if n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head")]
-    other = [p for n, p in model.named_parameters() if not (n.startswith("encoder.conv") or n.startswith("encoder.rnn") or n.startswith("ctc_head"))]
-    groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": enc_params, "lr_scale": 0.5}] if enc_params else [])
+    ctc_part = [p for n, p in model.named_parameters() if n.startswith(CTC_PART)]   # (empty for a CTC model)
+    other = [p for n, p in model.named_parameters() if not n.startswith(CTC_PART)]
+    groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": ctc_part, "lr_scale": 0.5}] if ctc_part else [])
     opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
     step, elapsed0, warm_from, frozen, taken = 0, 0.0, 0, False, False
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
@@ -560,14 +563,12 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         # the taken encoder trains on with the decoder (joint CTC-attention, the auxiliary CTC loss
         # keeps it a CTC reader); moments left from before it was taken are dropped
         frozen = False
-        for n, p in model.named_parameters():
-            if n.startswith(("encoder.conv", "encoder.rnn", "ctc_head")):
-                opt.state.pop(p, None)
+        for p in ctc_part:
+            opt.state.pop(p, None)
         print(f"seq: encoder unfrozen at step {step}", flush=True)
     if frozen:
-        for n, p in model.named_parameters():
-            if n.startswith(("encoder.conv", "encoder.rnn", "ctc_head")):
-                p.requires_grad_(False)
+        for p in ctc_part:
+            p.requires_grad_(False)
     extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken}
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
