@@ -57,6 +57,7 @@ SEQ_VOCAB = ["<pad>", "<bos>", "<eos>"] + list(synth.ALPHABET)
 PAD, BOS, EOS = 0, 1, 2
 D_MODEL, N_HEADS, N_LAYERS, D_FF = 192, 4, 3, 576
 MAX_TOKENS = 200
+JOINT_WEIGHT = 0.5              # the seq card's seq.ctc.weight (chosen on training-family lines: models/README.md)
 
 
 # --------------------------------------------------------------------------- data (no torch)
@@ -302,9 +303,10 @@ def build_modules():
             return self.out(self.ln(x)), torch.stack(ks), torch.stack(vs)
 
     class Seq2Seq(nn.Module):
-        """Encoder-decoder. During training an auxiliary CTC head on the encoder memory
-        (joint CTC-attention training) speeds up learning where to attend; the head is
-        not exported and plays no part in decoding."""
+        """Encoder-decoder. During training an auxiliary CTC head on the encoder features
+        (joint CTC-attention training) speeds up learning where to attend; it is exported
+        as a third encoder output, and the card's [seq.ctc] table lets ocrbench decode
+        jointly with its prefix scores (ocrbench/recognisers/joint.py)."""
 
         def __init__(self, vocab: int):
             super().__init__()
@@ -323,6 +325,18 @@ def build_modules():
             if with_ctc:
                 return logits, self.ctc_head(f)
             return logits
+
+    class EncoderExport(nn.Module):
+        """The encoder graph as shipped: cross-attention keys/values and the CTC head's log-probabilities."""
+
+        def __init__(self, model):
+            super().__init__()
+            self.m = model
+
+        def forward(self, image):
+            f = self.m.encoder.features(image)
+            ck, cv = self.m.encoder.kv(self.m.encoder.memory_from(f))
+            return ck, cv, torch.log_softmax(self.m.ctc_head(f), dim=-1)
 
     class StepWrapper(nn.Module):
         """Decoder step graph: one token per line, with the key/value cache in and out."""
@@ -348,6 +362,7 @@ def build_modules():
             logits, _, _ = self.dec.run(tokens, torch.zeros((), dtype=torch.int64), empty, empty, cross_k, cross_v, memory_mask)
             return torch.log_softmax(logits[:, -1, :], dim=-1)
 
+    Seq2Seq.Export = EncoderExport
     return CRNN, Seq2Seq, StepWrapper, FullWrapper
 
 
@@ -778,7 +793,7 @@ def export(opset: int = 17, only: str | None = None):
         m = Seq2Seq(len(SEQ_VOCAB))
         m.load_state_dict(torch.load(WORK / "seq.pt", weights_only=False, map_location="cpu")["model"])
         m.eval()
-        enc = m.encoder.eval()
+        enc = Seq2Seq.Export(m).eval()
         step_w = StepWrapper(m.decoder).eval()
         full_w = FullWrapper(m.decoder).eval()
         out = OUT / SEQ_NAME
@@ -787,12 +802,13 @@ def export(opset: int = 17, only: str | None = None):
         x = torch.from_numpy(b)
         mm = torch.from_numpy(mem_mask_for(w, b.shape[-1]))
         torch.onnx.export(enc, (x,), str(out / "encoder.onnx"), input_names=["image"],
-                          output_names=["cross_k", "cross_v"],
+                          output_names=["cross_k", "cross_v", "ctc_log_probs"],
                           dynamic_axes={"image": {0: "batch", 3: "width"},
-                                        "cross_k": {1: "batch", 3: "frames"}, "cross_v": {1: "batch", 3: "frames"}},
+                                        "cross_k": {1: "batch", 3: "frames"}, "cross_v": {1: "batch", 3: "frames"},
+                                        "ctc_log_probs": {0: "batch", 1: "frames"}},
                           opset_version=opset, dynamo=False, external_data=False)
         with torch.no_grad():
-            ck, cv = enc(x)
+            ck, cv, clp = enc(x)
         B = 2
         dh = D_MODEL // N_HEADS
         pk = torch.randn(N_LAYERS, B, N_HEADS, 3, dh)
@@ -822,8 +838,9 @@ def export(opset: int = 17, only: str | None = None):
         es = ort.InferenceSession(str(out / "encoder.onnx"), so, providers=["CPUExecutionProvider"])
         ss = ort.InferenceSession(str(out / "decoder_step.onnx"), so, providers=["CPUExecutionProvider"])
         fs = ort.InferenceSession(str(out / "decoder_full.onnx"), so, providers=["CPUExecutionProvider"])
-        ok, ov = es.run(None, {"image": x.numpy()})
-        diffs["encoder"] = float(max(np.abs(ok - ck.numpy()).max(), np.abs(ov - cv.numpy()).max()))
+        ok, ov, oc = es.run(None, {"image": x.numpy()})
+        diffs["encoder"] = float(max(np.abs(ok - ck.numpy()).max(), np.abs(ov - cv.numpy()).max(),
+                                     np.abs(oc - clp.numpy()).max()))
         with torch.no_grad():
             ref = step_w(tok, stp, pk, pv, ck, cv, mm)
             reff = full_w(toks, ck, cv, mm)
@@ -840,6 +857,8 @@ def export(opset: int = 17, only: str | None = None):
         _, c_any = cer_on(heldout_any, dec_seq)
         fam_cer = {d: cer_on(fam[d], dec_seq)[1] for d in (False, True)}
         (out / "vocab.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in SEQ_VOCAB) + "\n", encoding="utf-8")
+        (out / "ctc_alphabet.txt").write_text("\n".join(json.dumps(c, ensure_ascii=False) for c in CTC_CLASSES) + "\n",
+                                              encoding="utf-8")
         done = json.loads((WORK / "seq.done").read_text()) if (WORK / "seq.done").exists() else {}
         figures[SEQ_NAME] = {"parameters": sum(p.numel() for p in m.parameters()),
                              "onnx_bytes": sum((out / f"{n}.onnx").stat().st_size for n in ["encoder", "decoder_step", "decoder_full"]),
@@ -849,11 +868,34 @@ def export(opset: int = 17, only: str | None = None):
                              "heldout_families_cer_clean": fam_cer[False], "heldout_families_cer_degraded": fam_cer[True],
                              "heldout_families_lines": len(fam[False]),
                              "train_steps": done.get("step"), "train_minutes": done.get("minutes")}
+        # the figures above are the decoder alone (greedy); the card decodes jointly with the CTC output:
+        # the same lines through ocrbench's own seq recogniser as the card ships it
+        (out / "card.toml").write_text(SEQ_CARD.format(name=SEQ_NAME, weight=JOINT_WEIGHT))
+        figures[SEQ_NAME]["decoding"] = "figures without a suffix: the decoder alone, greedy"
+        for suffix, lines in (("heldout_cer_ws_collapsed_joint", heldout),
+                              ("heldout_families_cer_clean_joint", fam[False]),
+                              ("heldout_families_cer_degraded_joint", fam[True])):
+            figures[SEQ_NAME][suffix] = joint_cer(out, lines)
         print(json.dumps(figures[SEQ_NAME], indent=1))
 
     for name, fig in figures.items():
         (OUT / name / "figures.json").write_text(json.dumps(fig, indent=1) + "\n")
     write_cards()
+
+
+def joint_cer(card_dir: Path, lines) -> float:
+    """Whitespace-collapsed CER of the card in ``card_dir`` as ocrbench runs it (greedy, the card's joint
+    decoding), over already-resized held-out lines (the card's own resize then leaves them as they are)."""
+    from ocrbench.recognisers.base import EngineOptions
+    from ocrbench.recognisers.registry import open_recogniser
+    import dataclasses
+    from ocrbench.recognisers.card import load_card
+
+    card = load_card(card_dir)
+    card = dataclasses.replace(card, input=dataclasses.replace(card.input, flatten=False, split_gap=0.0))
+    rec = open_recogniser(card, options=EngineOptions(batch_size=16, decoding="greedy"))
+    results, _ = rec.recognise([c[0] for c in lines])
+    return cer([collapse_ws(c[1]) for c in lines], [collapse_ws(r.text) for r in results])
 
 
 def cer_on(lines, decode, batch: int = 32):
@@ -868,7 +910,7 @@ def cer_on(lines, decode, batch: int = 32):
 
 
 def greedy_seq_ort(es, ss, batch, mm):
-    ck, cv = es.run(None, {"image": batch})
+    ck, cv = es.run(["cross_k", "cross_v"], {"image": batch})
     B = batch.shape[0]
     dh = D_MODEL // N_HEADS
     pk = np.zeros((N_LAYERS, B, N_HEADS, 0, dh), np.float32)
@@ -950,6 +992,14 @@ input = "image"
 outputs = ["cross_k", "cross_v"]
 layout = "LBHTD"            # layers, batch, heads, frames, head size
 
+[seq.ctc]                   # the encoder's CTC head: joint decoding (see models/README.md)
+output = "ctc_log_probs"
+layout = "BTC"
+output_kind = "log_probs"
+alphabet = "ctc_alphabet.txt"
+blank_index = 0
+weight = {weight}
+
 [seq.decoder_step]
 model = "decoder_step.onnx"
 tokens = "tokens"
@@ -974,7 +1024,7 @@ def write_cards():
     if (OUT / CTC_NAME / "model.onnx").exists():
         (OUT / CTC_NAME / "card.toml").write_text(CTC_CARD.format(name=CTC_NAME))
     if (OUT / SEQ_NAME / "encoder.onnx").exists():
-        (OUT / SEQ_NAME / "card.toml").write_text(SEQ_CARD.format(name=SEQ_NAME))
+        (OUT / SEQ_NAME / "card.toml").write_text(SEQ_CARD.format(name=SEQ_NAME, weight=JOINT_WEIGHT))
 
 
 README_START = "<!-- build-figures:start (written by models/build.py readme) -->"

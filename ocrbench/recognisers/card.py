@@ -135,6 +135,19 @@ class DecoderFirstSpec:
 
 
 @dataclass(frozen=True)
+class JointCtcSpec:
+    """The ``[seq.ctc]`` table: a CTC output of the encoder whose prefix scores steer decoding (recognisers/joint.py)."""
+
+    output: str                      # an output of the encoder graph: per-frame class scores
+    layout: str                      # "BTC" or "TBC"
+    output_kind: str                 # "logits" | "log_probs" | "probs"
+    blank_index: int
+    symbols: tuple[str, ...]         # class index -> text ("" for the blank)
+    token_class: tuple[int, ...]     # decoder token -> CTC class (-1: none)
+    weight: float                    # share of the CTC prefix score in the joint score (0: attention only)
+
+
+@dataclass(frozen=True)
 class SeqSpec:
     """The ``[seq]`` tables: encoder, cached and/or uncached decoder, vocabulary."""
 
@@ -154,6 +167,7 @@ class SeqSpec:
     tokenizer: Path | None = None            # a tokenizer.json decoding whole sequences (else ``symbols``)
     vocab_size: int = 0                      # entries of the symbol table or tokenizer
     repeat: RepeatGuard = RepeatGuard()      # the repetition guard (recognisers/repeat.py)
+    ctc: JointCtcSpec | None = None          # joint decoding with the encoder's CTC scores (recognisers/joint.py)
 
 
 @dataclass(frozen=True)
@@ -292,6 +306,15 @@ SEQ_SCHEMA = {
     "decoder_step": Key((dict,)),
     "decoder_full": Key((dict,)),
     "decoder_first": Key((dict,)),
+    "ctc": Key((dict,)),
+}
+JOINT_SCHEMA = {
+    "output": _str(required=True),
+    "layout": _str("BTC", choices=CTC_LAYOUTS),
+    "output_kind": _str("log_probs", choices=OUTPUT_KINDS),
+    "alphabet": _str(required=True),
+    "blank_index": Key((int,), 0, low=0),
+    "weight": Key((float,), 0.5, low=0, high=0.99),
 }
 _SCORES = {"log_probs": _str(), "logits": _str()}
 STEP_SCHEMA = {
@@ -605,12 +628,44 @@ def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
     _check_first_and_static(p, step, first)
     special = frozenset({bos, eos, pad, *extra, *tok_special})
     syms = [("" if i in special else s) for i, s in enumerate(symbols)]
+    joint = (_load_joint(p, checked(p, t["ctc"], JOINT_SCHEMA, "seq.ctc."), enc, syms, files)
+             if t["ctc"] is not None else None)
     return SeqSpec(symbols=tuple(syms), bos_index=bos, eos_index=eos, pad_index=pad, special=special,
                    max_tokens=t["max_tokens"], frames_per_pixel=t["frames_per_pixel"],
                    mask_valid=t["memory_mask_valid"], mask_padded=t["memory_mask_padded"], encoder=enc,
                    decoder_step=step, decoder_full=full, decoder_first=first, tokenizer=tokenizer, vocab_size=n,
                    repeat=RepeatGuard(t["repeat_guard"], t["repeat_max_ngram"], t["repeat_min_copies"],
-                                      t["repeat_min_tokens"], t["repeat_min_filler_tokens"]))
+                                      t["repeat_min_tokens"], t["repeat_min_filler_tokens"]), ctc=joint)
+
+
+def _load_joint(p: Path, t: dict, enc: EncoderSpec, token_texts: list[str], files: _Files) -> JointCtcSpec:
+    """``[seq.ctc]``: the encoder output exists with rank 3, the alphabet has as many entries as it scores
+    classes (when the graph fixes that axis; else the warm-up checks it), and every text token of the
+    vocabulary is one class of the alphabet (joint decoding cannot score a token the CTC output lacks)."""
+    from ocrbench.recognisers.joint import token_classes
+
+    if t["output"] in enc.outputs:
+        raise CardError(p, f"field 'seq.ctc.output': '{t['output']}' is one of seq.encoder.outputs (the decoder's "
+                           "memory); name the encoder's CTC scores output")
+    ot = need_tensor(p, "encoder", enc.graph, t["output"], output=True, rank=3, key="seq.ctc.output")
+    sym_path = files(t["alphabet"], "seq.ctc.alphabet", "ctc_alphabet")
+    symbols = _read_symbols(p, "seq.ctc.alphabet", sym_path)
+    blank = t["blank_index"]
+    if blank >= len(symbols):
+        raise CardError(p, f"field 'seq.ctc.blank_index': {blank} is outside the alphabet ({len(symbols)} entries)")
+    n_out = class_count(ot, 2)
+    if n_out is not None and n_out != len(symbols):
+        raise CardError(p, f"field 'seq.ctc.alphabet': {sym_path.name} has {len(symbols)} entries (blank included) "
+                           f"but output '{t['output']}' scores {n_out} classes per frame")
+    syms = list(symbols)
+    syms[blank] = ""
+    tc = token_classes(token_texts, syms, blank)
+    missing = [s for s, c in zip(token_texts, tc) if s and c < 0]
+    if missing:
+        raise CardError(p, f"field 'seq.ctc.alphabet': {len(missing)} token(s) of the vocabulary are not entries of "
+                           f"{sym_path.name} (joint decoding scores tokens of one CTC class each)")
+    return JointCtcSpec(output=t["output"], layout=t["layout"], output_kind=t["output_kind"], blank_index=blank,
+                        symbols=tuple(syms), token_class=tuple(int(c) for c in tc), weight=float(t["weight"]))
 
 
 def _check_first_and_static(p: Path, step: DecoderStepSpec | None, first: DecoderFirstSpec | None) -> None:

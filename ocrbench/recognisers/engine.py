@@ -30,7 +30,9 @@ class EngineOptions:
     its outputs. ``encoder_per_line`` (seq): encode each line alone so its memory
     does not depend on the padding of its batch (see ``SeqRecogniser.encode``).
     ``ctc_prune``: in CTC beam search, classes whose posterior is below this are
-    not tried at a frame (0 tries every class).
+    not tried at a frame (0 tries every class). ``ctc_weight`` (seq cards with a
+    ``[seq.ctc]`` output): the CTC prefix scores' share in joint decoding, in
+    place of the card's ``seq.ctc.weight``; 0 decodes with the decoder alone.
     """
 
     intra_threads: int = 1
@@ -46,6 +48,7 @@ class EngineOptions:
     encoder_per_line: bool = True
     max_pad_ratio: float = 1.3
     ctc_prune: float = 1e-3
+    ctc_weight: float | None = None
     allow_cpu_fallback: bool = False
     provider_options: tuple[tuple[str, str], ...] = ()   # (key, value) for the first requested provider
 
@@ -60,6 +63,8 @@ class EngineOptions:
         for name in ("intra_threads", "inter_threads", "batch_size", "beam_width"):
             if getattr(self, name) < (0 if name.endswith("threads") else 1):
                 raise OcrbenchError(f"{name.replace('_', ' ')} must be at least 1, not {getattr(self, name)}")
+        if self.ctc_weight is not None and not 0.0 <= self.ctc_weight < 1.0:
+            raise OcrbenchError(f"CTC weight must be at least 0 and below 1, not {self.ctc_weight}")
         if self.max_tokens is not None and self.max_tokens < 1:
             raise OcrbenchError(f"max tokens must be at least 1, not {self.max_tokens}")
         if self.max_pad_ratio < 1.0:

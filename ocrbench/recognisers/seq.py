@@ -41,6 +41,7 @@ from ocrbench.recognisers.batching import PreparedBatch, valid_frames, warm_up_l
 from ocrbench.recognisers.engine import BatchTiming, Clock, EngineOptions, make_session, onnx_dtype, share_time
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.ctc import log_softmax
+from ocrbench.recognisers.joint import PrefixScorer, class_scores
 from ocrbench.recognisers.repeat import RepeatGuard, RepeatState, advance, filler_tokens
 from ocrbench.recognisers.tokens import SymbolTable, TokenizerFile
 
@@ -180,6 +181,16 @@ class SeqRecogniser(Recogniser):
         self.max_tokens = options.max_tokens or s.max_tokens
         self.detok = TokenizerFile(s.tokenizer, card.path) if s.tokenizer else SymbolTable(s.symbols)
         self.guard = _Guard(s.repeat, self.detok.texts()) if s.repeat.enabled else None
+        # joint decoding with the encoder's CTC scores: the card's weight, or the run's (0 turns it off)
+        w = s.ctc.weight if s.ctc is not None else 0.0
+        if options.ctc_weight is not None:
+            if s.ctc is None and options.ctc_weight > 0:
+                raise OcrbenchError(f"{card.path}: a CTC weight was given but the card declares no [seq.ctc] "
+                                    "output to take CTC scores from")
+            w = options.ctc_weight
+        self.ctc_weight = float(w)
+        self.joint = s.ctc if (s.ctc is not None and self.ctc_weight > 0) else None
+        self.token_class = np.asarray(s.ctc.token_class, np.int64) if self.joint else None
         d = s.decoder_step if self.cached else s.decoder_full
         g = d.graph
         self.tok_dtype = onnx_dtype(g.inputs[d.tokens].elem_type, np.int64)
@@ -208,30 +219,51 @@ class SeqRecogniser(Recogniser):
         output then does not depend on which wider lines share the batch, so a line reads the same whatever
         page or batch it comes in. Otherwise the padded batch is encoded at once.
         """
+        memory, valid, _ = self._encode(tensor, widths)
+        return memory, self._mask(valid, memory[0].shape[self.s.encoder.frames_axis])
+
+    def _encode(self, tensor: np.ndarray, widths: np.ndarray) -> tuple[list[np.ndarray], np.ndarray, PrefixScorer | None]:
+        """(memory, valid frames per line, the CTC prefix scorer when decoding is joint)."""
         e = self.s.encoder
         fa, ba, wa = e.frames_axis, e.batch_axis, self.spec.width_axis
+        fetch = list(e.outputs) + ([self.joint.output] if self.joint else [])
+        axes = [(fa, ba)] * len(e.outputs)
+        if self.joint:
+            axes.append((self.joint.layout.index("T"), self.joint.layout.index("B")))
         if not self.options.encoder_per_line or tensor.shape[0] == 1:
-            memory = self.encoder.run(list(e.outputs), {e.input: tensor})
-            S = memory[0].shape[fa]
-            return memory, self._mask(valid_frames(widths, tensor.shape[wa], S, self.s.frames_per_pixel), S)
-        m = self.spec.width_multiple
-        parts, valid = [], []
-        for i, w in enumerate(widths):
-            W_i = self.spec.width or -(-int(w) // m) * m
-            line = np.take(tensor[i:i + 1], np.arange(W_i), axis=wa)
-            out = self.encoder.run(list(e.outputs), {e.input: line})
-            parts.append(out)
-            valid.append(int(valid_frames([w], W_i, out[0].shape[fa], self.s.frames_per_pixel)[0]))
-        S = max(p[0].shape[fa] for p in parts)
-        memory = []
-        for j in range(len(e.outputs)):
-            pieces = []
-            for p in parts:
-                pad = [(0, 0)] * p[j].ndim
-                pad[fa] = (0, S - p[j].shape[fa])
-                pieces.append(np.pad(p[j], pad) if pad[fa][1] else p[j])
-            memory.append(np.concatenate(pieces, axis=ba))
-        return memory, self._mask(np.asarray(valid), S)
+            outs = self.encoder.run(fetch, {e.input: tensor})
+            valid = valid_frames(widths, tensor.shape[wa], outs[0].shape[fa], self.s.frames_per_pixel)
+        else:
+            m = self.spec.width_multiple
+            parts, vl = [], []
+            for i, w in enumerate(widths):
+                W_i = self.spec.width or -(-int(w) // m) * m
+                line = np.take(tensor[i:i + 1], np.arange(W_i), axis=wa)
+                out = self.encoder.run(fetch, {e.input: line})
+                parts.append(out)
+                vl.append(int(valid_frames([w], W_i, out[0].shape[fa], self.s.frames_per_pixel)[0]))
+            valid = np.asarray(vl)
+            outs = []
+            for j, (f_ax, b_ax) in enumerate(axes):
+                S = max(p[j].shape[f_ax] for p in parts)
+                pieces = []
+                for p in parts:
+                    pad = [(0, 0)] * p[j].ndim
+                    pad[f_ax] = (0, S - p[j].shape[f_ax])
+                    pieces.append(np.pad(p[j], pad) if pad[f_ax][1] else p[j])
+                outs.append(np.concatenate(pieces, axis=b_ax))
+        memory = outs[:len(e.outputs)]
+        scorer = None
+        if self.joint:
+            y = outs[-1] if self.joint.layout == "BTC" else np.swapaxes(outs[-1], 0, 1)
+            if y.shape[2] != len(self.joint.symbols):
+                raise CardError(self.card.path, f"field 'seq.ctc.alphabet': the alphabet has {len(self.joint.symbols)} "
+                                                f"entries but output '{self.joint.output}' scores {y.shape[2]} classes")
+            # the CTC output's real frames in proportion to the memory's (the same when both come from one stack)
+            ctc_valid = np.ceil(valid * y.shape[1] / max(1, memory[0].shape[fa])).astype(np.int64)
+            scorer = PrefixScorer(class_scores(y, self.joint.output_kind), ctc_valid, self.joint.blank_index,
+                                  self.token_class, self.s.eos_index)
+        return memory, valid, scorer
 
     def _mask(self, valid: np.ndarray, S: int) -> np.ndarray | None:
         """The (B, S) memory mask in the card's values: real frames ``< valid``, the rest padding."""
@@ -317,9 +349,19 @@ class SeqRecogniser(Recogniser):
 
     # ------------------------------------------------------------------ greedy
 
+    def _joint(self, lp: np.ndarray, scorer: PrefixScorer | None) -> tuple[np.ndarray, np.ndarray | None]:
+        """The step's scores: the decoder's own, or mixed with the CTC prefix scores (recognisers/joint.py);
+        also the CTC part, which the scorer needs when the chosen tokens are applied."""
+        if scorer is None:
+            return lp, None
+        g = scorer.next_scores(lp.shape[1])
+        w = self.ctc_weight
+        with np.errstate(invalid="ignore"):
+            return ((1.0 - w) * lp.astype(np.float64) + w * g), g
+
     def greedy(self, memory, mask, *, timer: _Timer | None = None, max_tokens: int | None = None,
-               batch_mode: str | None = None) -> list[Decoded]:
-        """Batched greedy decoding of every line of the batch."""
+               batch_mode: str | None = None, scorer: PrefixScorer | None = None) -> list[Decoded]:
+        """Batched greedy decoding of every line of the batch (joint with the CTC scores when ``scorer``)."""
         timer = timer or _Timer(time.perf_counter)
         max_tokens = max_tokens or self.max_tokens
         mode = batch_mode or self.options.batch_mode
@@ -332,10 +374,13 @@ class SeqRecogniser(Recogniser):
         cache = self._init_cache(B) if self.cached else None
         rep = RepeatState(B, self.guard.g, self.guard.filler) if self.guard else None
         for step in range(max_tokens):
-            lp, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
-            nxt = np.argmax(lp, axis=1)
+            lp_att, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
+            bad = _bad_rows(lp_att)
+            lp, g = self._joint(lp_att, scorer)
+            nxt = np.argmax(np.where(np.isnan(lp), -np.inf, lp), axis=1)
             best = lp[np.arange(len(nxt)), nxt]
-            bad = _bad_rows(lp)
+            if scorer is not None:
+                scorer.advance(np.where(bad, s.eos_index, nxt), g[np.arange(len(nxt)), nxt])
             fin = (nxt == s.eos_index) | bad
             cut = rep.step(hist, nxt) if rep is not None else None      # None: no line cut this step
             for r in (range(len(rows)) if mode == "drop" else np.flatnonzero(active)):
@@ -362,6 +407,8 @@ class SeqRecogniser(Recogniser):
                     memory, mask, cache = self._take_rows(memory, mask, cache, keep)
                     if rep is not None:
                         rep.take(keep)
+                    if scorer is not None:
+                        scorer.take(keep)
             else:
                 active &= ~fin
                 if not active.any():
@@ -373,8 +420,10 @@ class SeqRecogniser(Recogniser):
     # ------------------------------------------------------------------ beam
 
     def beam(self, memory, mask, *, timer: _Timer | None = None, beam_width: int | None = None,
-             max_tokens: int | None = None) -> list[Decoded]:
-        """Beam search for every line of the batch, all hypotheses in one decoder call per step."""
+             max_tokens: int | None = None, scorer: PrefixScorer | None = None) -> list[Decoded]:
+        """Beam search for every line of the batch, all hypotheses in one decoder call per step (scores joint
+        with the CTC prefix scores when ``scorer``: a hypothesis' score is then (1 - w) x its decoder
+        log-probabilities + w x its CTC prefix score)."""
         timer = timer or _Timer(time.perf_counter)
         K = beam_width or self.options.beam_width
         max_tokens = max_tokens or self.max_tokens
@@ -392,9 +441,10 @@ class SeqRecogniser(Recogniser):
         row_lines = np.arange(B)
         mem_rows, mask_rows = memory, mask
         for step in range(max_tokens):
-            lp, new_cache = self.decoder(hist, cache, mem_rows, mask_rows, step, timer)
-            for rr in np.flatnonzero(_bad_rows(lp)):
+            lp_att, new_cache = self.decoder(hist, cache, mem_rows, mask_rows, step, timer)
+            for rr in np.flatnonzero(_bad_rows(lp_att)):
                 failed.add(hyps[rr][0])
+            lp, g = self._joint(lp_att, scorer)
             V = lp.shape[1]
             n_top = min(V, K + 1)
             top = np.argpartition(-lp, n_top - 1, axis=1)[:, :n_top] if n_top < V else np.tile(np.arange(V), (len(lp), 1))
@@ -417,6 +467,9 @@ class SeqRecogniser(Recogniser):
             if not new_hyps:
                 break
             idx = np.asarray(parents)
+            if scorer is not None:
+                scorer.take(idx)
+                scorer.advance(np.asarray(next_tok, np.int64), g[idx, np.asarray(next_tok, np.int64)])
             hist = np.concatenate([hist[idx], np.asarray(next_tok, np.int64)[:, None]], axis=1)
             if new_cache is not None:
                 ca = s.decoder_step.batch_axis
@@ -441,13 +494,14 @@ class SeqRecogniser(Recogniser):
     def run_batch(self, pb: PreparedBatch, *, clock: Clock = time.perf_counter,
                   max_tokens: int | None = None) -> tuple[list[LineResult], BatchTiming]:
         t0 = clock()
-        memory, mask = self.encode(pb.tensor, pb.widths)
+        memory, valid, scorer = self._encode(pb.tensor, pb.widths)
+        mask = self._mask(valid, memory[0].shape[self.s.encoder.frames_axis])
         t1 = clock()
         timer = _Timer(clock)
         if self.options.decoding == "beam":
-            decoded = self.beam(memory, mask, timer=timer, max_tokens=max_tokens)
+            decoded = self.beam(memory, mask, timer=timer, max_tokens=max_tokens, scorer=scorer)
         else:
-            decoded = self.greedy(memory, mask, timer=timer, max_tokens=max_tokens)
+            decoded = self.greedy(memory, mask, timer=timer, max_tokens=max_tokens, scorer=scorer)
         results = []
         for b, d in enumerate(decoded):
             text, conf, chars = self.detokenise(d)
