@@ -275,11 +275,12 @@ def _cer(truth: list[str], hyp: list[str]) -> float:
     return sum(Levenshtein.distance(t, h) for t, h in zip(truth, hyp)) / sum(len(t) for t in truth)
 
 
-@pytest.mark.parametrize("folder, before_at_least, after_at_most", [(DEMO_CTC, 0.01, 0.01), (DEMO_SEQ, 0.25, 0.08)])
+@pytest.mark.parametrize("folder, before_at_least, after_at_most", [(DEMO_CTC, 0.01, 0.01), (DEMO_SEQ, 0.005, 0.005)])
 def test_flattening_crops_of_the_photographed_page(folder, before_at_least, after_at_most):
     # Measured (CER on the 5 body lines) with [input] flatten: ledger-seq 32.5 % -> 4.3 %; the first
     # ledger-ctc 21.4 % -> 2.1 %, the first retrained one (trained on shaded, unevenly lit lines too)
-    # 2.1 % -> 0.43 %, the second 1.28 % -> 0.43 % (3 edits -> 1 in 234 characters).
+    # 2.1 % -> 0.43 %, the second 1.28 % -> 0.43 % (3 edits -> 1 in 234 characters); the retrained ledger-seq
+    # (joint decoding with its CTC output) 0.85 % -> 0.00 % (2 edits -> none).
     # remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
