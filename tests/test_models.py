@@ -98,10 +98,11 @@ def test_seq_graphs_onnxruntime_equal_reference_evaluator():
     from onnx.reference import ReferenceEvaluator
     batch, widths = _one_line_batch()
     enc = ort.InferenceSession(str(SEQ / "encoder.onnx"), providers=["CPUExecutionProvider"])
-    ck, cv = enc.run(None, {"image": batch})
-    rk, rv = ReferenceEvaluator(str(SEQ / "encoder.onnx")).run(None, {"image": batch})
+    ck, cv, cl = enc.run(None, {"image": batch})             # cross-attention keys, values; CTC log-probs
+    rk, rv, rl = ReferenceEvaluator(str(SEQ / "encoder.onnx")).run(None, {"image": batch})
     np.testing.assert_allclose(ck, rk, rtol=1e-3, atol=1e-3)
     np.testing.assert_allclose(cv, rv, rtol=1e-3, atol=1e-3)
+    np.testing.assert_allclose(cl, rl, rtol=1e-3, atol=1e-3)
     L, B, H, S, D = ck.shape
     mask = np.zeros((B, S), np.float32)
     rng = np.random.default_rng(0)
@@ -133,7 +134,10 @@ def test_card_loads_and_alphabet_matches_output(folder):
         assert out.shape[-1] == n
     else:
         from ocrbench.recognisers.card import load_card as _lc  # noqa: F401
-        ck, cv = ort.InferenceSession(str(folder / "encoder.onnx"), providers=["CPUExecutionProvider"]).run(None, {"image": batch})
+        ck, cv, cl = ort.InferenceSession(str(folder / "encoder.onnx"), providers=["CPUExecutionProvider"]).run(
+            None, {"image": batch})
+        assert cl.shape[-1] == len((folder / "ctc_alphabet.txt").read_text(encoding="utf-8").splitlines())
+        np.testing.assert_allclose(np.exp(cl).sum(-1), 1.0, atol=1e-4)       # log-probabilities per frame
         L, B, H, S, D = ck.shape
         lp = ort.InferenceSession(str(folder / "decoder_full.onnx"), providers=["CPUExecutionProvider"]).run(
             None, {"tokens": np.array([[1]], np.int64), "cross_k": ck, "cross_v": cv,

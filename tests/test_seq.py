@@ -222,9 +222,31 @@ def test_reference_evaluator_agrees_with_onnxruntime_demo():
 
 
 @pytest.mark.slow
+def _ctc_prefix_loop(x: np.ndarray, blank: int, rn: np.ndarray, rb: np.ndarray, last: int | None):
+    """Every class's CTC prefix score after the prefix whose forward variables are ``rn``/``rb``, written as
+    the textbook loop over frames (Graves 2012, section 7.5; the form hybrid CTC/attention decoders use,
+    common practice), one frame at a time in log space: (psi per class, rn per class, rb per class)."""
+    T, C = x.shape
+    phi = np.logaddexp(rb, rn)[:, None].repeat(C, axis=1)
+    if last is not None:
+        phi[:, last] = rb
+    r_n = np.full((T, C), -np.inf)
+    r_b = np.full((T, C), -np.inf)
+    if last is None:
+        r_n[0] = x[0]
+    psi = r_n[0].copy()
+    for t in range(1, T):
+        r_n[t] = np.logaddexp(r_n[t - 1], phi[t - 1]) + x[t]
+        r_b[t] = np.logaddexp(r_n[t - 1], r_b[t - 1]) + x[t, blank]
+        psi = np.logaddexp(psi, phi[t - 1] + x[t])
+    return psi, r_n, r_b
+
+
 def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
-    # The runner's text must equal a plain script: bare onnxruntime, one line at a time, uncached greedy loop.
-    # The runner runs the same graph here (uncached, batch 1) so the two compute the very same numbers; cached
+    # The runner's text must equal a plain script: bare onnxruntime, one line at a time, uncached greedy loop,
+    # joint with the encoder's CTC output as the card says (the CTC prefix scores by the frame-by-frame loop
+    # above, not the runner's cumulative-sum solution), and with the decoder alone (--ctc-weight 0). The
+    # runner runs the same graphs here (uncached, batch 1) so the two compute the very same numbers; cached
     # decoding is compared with uncached decoding in test_demo_cached_uncached_and_beam_one.
     folder = need_demo(DEMO_SEQ)
     from ocrbench.pages import analyse_page, list_pages, load_page
@@ -233,31 +255,53 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
 
     pages = demo_pages(tmp_path, n=1)
     vocab = read_symbols(folder / "vocab.txt")
+    classes = read_symbols(folder / "ctc_alphabet.txt")
+    cls_of = {t: classes.index(vocab[t]) for t in range(3, len(vocab))}       # token -> CTC class, by text
+    weight = load_card(folder).seq.ctc.weight
     enc = ort.InferenceSession(str(folder / "encoder.onnx"), providers=["CPUExecutionProvider"])
     dec = ort.InferenceSession(str(folder / "decoder_full.onnx"), providers=["CPUExecutionProvider"])
-    direct = {}
+    direct: dict[float, dict] = {0.0: {}, weight: {}}
     for ref in list_pages(pages):
-        texts = []
-        for lb in analyse_page(load_page(ref).gray).lines:
-            x, w = direct_line_tensor(lb.crop)
-            ck, cv = enc.run(None, {"image": x})
-            mask = np.where(np.arange(ck.shape[3]) < math.ceil(w / 4), 0.0, -1e9).astype(np.float32)[None]
-            toks = [1]                                           # <bos>
-            for _ in range(200):
-                lp = dec.run(None, {"tokens": np.array([toks]), "cross_k": ck, "cross_v": cv, "memory_mask": mask})[0]
-                k = int(np.argmax(lp[0]))
-                if k == 2:                                       # <eos>
-                    break
-                toks.append(k)
-            texts.append("".join(vocab[t] for t in toks[1:] if t > 2))
-        direct[ref.id] = texts
-    with RunStore(tmp_path / "s.sqlite") as st:
-        # The direct path reads whole lines as cut, so the runner does too here (the card's split_gap and
-        # flatten off).
-        import dataclasses
-        from ocrbench.recognisers.card import load_card
-        card = load_card(folder)
-        card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0, flatten=False))
-        summary = run_pages(pages, [card], store=st, options=EngineOptions(batch_size=1, use_cache=False))
-        got = st.page_texts(summary.recognisers[0].run_id)
-    assert got == direct
+        lines = analyse_page(load_page(ref).gray).lines
+        for w_ctc in direct:
+            texts = []
+            for lb in lines:
+                x, w = direct_line_tensor(lb.crop)
+                ck, cv, ctc = enc.run(["cross_k", "cross_v", "ctc_log_probs"], {"image": x})
+                frames = math.ceil(w / 4)
+                mask = np.where(np.arange(ck.shape[3]) < frames, 0.0, -1e9).astype(np.float32)[None]
+                xc = ctc[0, :frames].astype(np.float64)
+                rn = np.full(frames, -np.inf)
+                rb = np.cumsum(xc[:, 0])
+                last, score = None, 0.0
+                toks = [1]                                       # <bos>
+                for _ in range(200):
+                    lp = dec.run(None, {"tokens": np.array([toks]), "cross_k": ck, "cross_v": cv,
+                                        "memory_mask": mask})[0][0].astype(np.float64)
+                    if w_ctc:
+                        psi, r_n, r_b = _ctc_prefix_loop(xc, 0, rn, rb, last)
+                        g = np.full(len(vocab), -np.inf)
+                        for t, c in cls_of.items():
+                            g[t] = psi[c]
+                        g[2] = np.logaddexp(rn[-1], rb[-1])           # <eos>: the labelling is the prefix
+                        lp = (1 - w_ctc) * lp + w_ctc * np.minimum(g - score, 0.0)
+                    k = int(np.argmax(lp))
+                    if k == 2:                                   # <eos>
+                        break
+                    toks.append(k)
+                    if w_ctc:
+                        c = cls_of[k]
+                        rn, rb, last, score = r_n[:, c], r_b[:, c], c, psi[c]
+                texts.append("".join(vocab[t] for t in toks[1:] if t > 2))
+            direct[w_ctc][ref.id] = texts
+    import dataclasses
+    card = load_card(folder)
+    # The direct path reads whole lines as cut, so the runner does too here (the card's flatten off).
+    card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0, flatten=False))
+    for w_ctc in direct:
+        with RunStore(tmp_path / f"s{w_ctc}.sqlite") as st:
+            summary = run_pages(pages, [card], store=st,
+                                options=EngineOptions(batch_size=1, use_cache=False, ctc_weight=w_ctc))
+            got = st.page_texts(summary.recognisers[0].run_id)
+        assert got == direct[w_ctc], w_ctc
+    assert direct[0.0] != direct[weight]
