@@ -108,10 +108,34 @@ def _texts(card, **opts) -> list[str]:
 
 
 def test_shipped_seq_card_declares_joint_decoding():
+    from typer.testing import CliRunner
+
+    from ocrbench.cli.app import app
+
     card = load_card(SEQ)
     assert card.seq.ctc is not None and 0 < card.seq.ctc.weight < 1
     # every text token of the decoder is one class of the CTC alphabet
     assert all(c >= 0 for s, c in zip(card.seq.symbols, card.seq.ctc.token_class) if s)
+    res = CliRunner().invoke(app, ["card", "check", str(SEQ)])
+    assert res.exit_code == 0 and "decoding: joint with the encoder's CTC output 'ctc_log_probs'" in res.output
+
+
+def test_a_ctc_weight_on_the_command_line_without_a_ctc_output_is_one_line(tmp_path):
+    from typer.testing import CliRunner
+
+    from ocrbench.cli.app import app
+
+    alone = tmp_path / "alone"
+    shutil.copytree(SEQ, alone)
+    text = (alone / "card.toml").read_text(encoding="utf-8")
+    (alone / "card.toml").write_text(re.sub(r"\[seq\.ctc\][^\[]*", "", text), encoding="utf-8")
+    pages = tmp_path / "pages"
+    pages.mkdir()
+    Image.fromarray(np.full((200, 300), 255, np.uint8)).save(pages / "p1.png")
+    res = CliRunner().invoke(app, ["run", str(pages), "--recogniser", str(alone), "--store",
+                                   str(tmp_path / "s.sqlite"), "--ctc-weight", "0.3"])
+    assert res.exit_code == 2 and "declares no [seq.ctc] output" in res.output
+    assert "Traceback" not in res.output
 
 
 @pytest.mark.slow

@@ -82,6 +82,9 @@ def _check(path: Path, allow_outside: bool, provider: list[str], allow_cpu_fallb
                f"(card hash {card.card_hash[:16]}, providers {', '.join(rec.providers)})")
     for role, f in sorted(card.files.items()):
         typer.echo(f"  {role}: {f}")
+    if card.seq is not None and card.seq.ctc is not None:
+        typer.echo(f"  decoding: joint with the encoder's CTC output '{card.seq.ctc.output}' "
+                   f"(weight {card.seq.ctc.weight:g}; --ctc-weight 0 for the decoder alone)")
     for w in card.warnings:
         typer.echo(f"warning: {w}", err=True)
     raise typer.Exit(EXIT_OK)
