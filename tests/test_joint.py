@@ -97,6 +97,12 @@ def test_scorer_rows_follow_take_and_score_kinds_agree():
     assert np.allclose(a.next_scores(5), g[[1, 1, 0]])
 
 
+def _drop_joint_table(folder: Path) -> None:
+    """Remove the [seq.ctc] table from the card in ``folder`` (the decoder alone)."""
+    text = (folder / "card.toml").read_text(encoding="utf-8")
+    (folder / "card.toml").write_text(re.sub(r"\[seq\.ctc\][^\[]*", "", text), encoding="utf-8")
+
+
 def _crops(n: int) -> list[np.ndarray]:
     truth = read_truth()[:: max(1, len(read_truth()) // n)][:n]
     return [np.asarray(Image.open(SET_DIR / name).convert("L")) for name, _ in truth]
@@ -127,8 +133,7 @@ def test_a_ctc_weight_on_the_command_line_without_a_ctc_output_is_one_line(tmp_p
 
     alone = tmp_path / "alone"
     shutil.copytree(SEQ, alone)
-    text = (alone / "card.toml").read_text(encoding="utf-8")
-    (alone / "card.toml").write_text(re.sub(r"\[seq\.ctc\][^\[]*", "", text), encoding="utf-8")
+    _drop_joint_table(alone)
     pages = tmp_path / "pages"
     pages.mkdir()
     Image.fromarray(np.full((200, 300), 255, np.uint8)).save(pages / "p1.png")
@@ -145,8 +150,7 @@ def test_greedy_joint_equals_beam_of_one_and_weight_zero_is_the_decoder_alone(tm
     assert greedy == _texts(card, decoding="beam", beam_width=1)
     alone = tmp_path / "alone"
     shutil.copytree(SEQ, alone)
-    text = (alone / "card.toml").read_text(encoding="utf-8")
-    (alone / "card.toml").write_text(re.sub(r"\[seq\.ctc\][^\[]*", "", text), encoding="utf-8")
+    _drop_joint_table(alone)
     assert load_card(alone).seq.ctc is None
     assert _texts(card, ctc_weight=0.0) == _texts(load_card(alone))
 
@@ -187,8 +191,7 @@ def test_alphabet_lacking_tokens_or_of_the_wrong_size_is_refused(tmp_path):
 def test_ctc_weight_needs_a_ctc_output(tmp_path):
     alone = tmp_path / "alone"
     shutil.copytree(SEQ, alone)
-    text = (alone / "card.toml").read_text(encoding="utf-8")
-    (alone / "card.toml").write_text(re.sub(r"\[seq\.ctc\][^\[]*", "", text), encoding="utf-8")
+    _drop_joint_table(alone)
     with pytest.raises(OcrbenchError, match="no \\[seq.ctc\\]"):
         open_recogniser(load_card(alone), options=EngineOptions(ctc_weight=0.5))
     with pytest.raises(OcrbenchError, match="CTC weight"):

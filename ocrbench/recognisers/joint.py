@@ -33,6 +33,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ocrbench.recognisers.ctc import log_softmax
+
 FLOOR = -1e4        # log-probabilities are clamped here: exp(-1e4) is 0 in float64, and cumulative sums over a
                     # few thousand frames stay near 1e7, where float64 still resolves 1e-9
 
@@ -43,10 +45,7 @@ def class_scores(scores: np.ndarray, kind: str) -> np.ndarray:
     if kind == "probs":
         with np.errstate(divide="ignore"):
             return np.log(x)
-    if kind == "logits":
-        m = x.max(axis=-1, keepdims=True)
-        return x - (m + np.log(np.exp(x - m).sum(axis=-1, keepdims=True)))
-    return x
+    return log_softmax(x) if kind == "logits" else x
 
 
 class PrefixScorer:
@@ -105,7 +104,7 @@ class PrefixScorer:
             same = self.started
             if same.any():
                 rs = np.flatnonzero(same)
-                prb = self._shifted(self.rb)[rs]
+                prb = np.concatenate([np.full((len(rs), 1), -np.inf), self.rb[rs, :-1]], axis=1)
                 m2 = prb.max(axis=1, keepdims=True)
                 m2 = np.where(np.isfinite(m2), m2, 0.0)
                 psi[rs, self.last[rs]] = m2[:, 0] + np.log(np.einsum("rt,rt->r", np.exp(prb - m2),
