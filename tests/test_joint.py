@@ -25,8 +25,8 @@ from PIL import Image
 from _browser_set import SET_DIR, read_truth
 from ocrbench.errors import CardError, OcrbenchError
 from ocrbench.recognisers.base import EngineOptions
-from ocrbench.recognisers.card import load_card
-from ocrbench.recognisers.joint import PrefixScorer, class_scores, token_classes
+from ocrbench.recognisers.card import load_card, token_classes
+from ocrbench.recognisers.joint import PrefixScorer, class_scores
 from ocrbench.recognisers.registry import open_recogniser
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -638,12 +638,20 @@ def _load_seq(p: Path, raw: dict, spec: InputSpec, files: _Files) -> SeqSpec:
                                       t["repeat_min_tokens"], t["repeat_min_filler_tokens"]), ctc=joint)
 
 
+def token_classes(token_texts: list[str] | tuple[str, ...], class_texts: list[str] | tuple[str, ...],
+                  blank: int) -> "np.ndarray":
+    """The CTC class of each decoder token, matched by text (-1 where none: special tokens, or text the
+    CTC alphabet lacks). Here, not in recognisers/joint.py, so that loading a card imports no engine."""
+    import numpy as np
+
+    index = {t: i for i, t in enumerate(class_texts) if i != blank and t}
+    return np.array([index.get(t, -1) if t else -1 for t in token_texts], dtype=np.int64)
+
+
 def _load_joint(p: Path, t: dict, enc: EncoderSpec, token_texts: list[str], files: _Files) -> JointCtcSpec:
     """``[seq.ctc]``: the encoder output exists with rank 3, the alphabet has as many entries as it scores
     classes (when the graph fixes that axis; else the warm-up checks it), and every text token of the
     vocabulary is one class of the alphabet (joint decoding cannot score a token the CTC output lacks)."""
-    from ocrbench.recognisers.joint import token_classes
-
     if t["output"] in enc.outputs:
         raise CardError(p, f"field 'seq.ctc.output': '{t['output']}' is one of seq.encoder.outputs (the decoder's "
                            "memory); name the encoder's CTC scores output")

@@ -147,10 +147,3 @@ class PrefixScorer:
         self.last[rs], self.started[rs] = c, True
         self.score[rs] = self.score[rs] + np.asarray(gain, dtype=np.float64)[rs]
 
-
-def token_classes(token_texts: list[str] | tuple[str, ...], class_texts: list[str] | tuple[str, ...],
-                  blank: int) -> np.ndarray:
-    """The CTC class of each decoder token, matched by text (-1 where none: special tokens, or text the
-    CTC alphabet lacks)."""
-    index = {t: i for i, t in enumerate(class_texts) if i != blank and t}
-    return np.array([index.get(t, -1) if t else -1 for t in token_texts], dtype=np.int64)
