@@ -350,7 +350,9 @@ def build_modules():
             return torch.log_softmax(logits[:, -1, :], dim=-1), k, v
 
     class FullWrapper(nn.Module):
-        """Uncached decoder graph: the whole prefix every step."""
+        """Uncached decoder graph: the whole prefix in one pass, the next-token log-probabilities after every
+        position (batch, length, vocabulary): read at its last position it decodes a step; read at every
+        position it checks a drafted reading in one pass (ocrbench's drafted greedy decoding)."""
 
         def __init__(self, dec):
             super().__init__()
@@ -360,7 +362,7 @@ def build_modules():
             B = tokens.shape[0]
             empty = torch.zeros(N_LAYERS, B, N_HEADS, 0, D_MODEL // N_HEADS)
             logits, _, _ = self.dec.run(tokens, torch.zeros((), dtype=torch.int64), empty, empty, cross_k, cross_v, memory_mask)
-            return torch.log_softmax(logits[:, -1, :], dim=-1)
+            return torch.log_softmax(logits, dim=-1)
 
     Seq2Seq.Export = EncoderExport
     return CRNN, Seq2Seq, StepWrapper, FullWrapper
@@ -829,7 +831,7 @@ def export(opset: int = 17, only: str | None = None):
                           input_names=["tokens", "cross_k", "cross_v", "memory_mask"], output_names=["log_probs"],
                           dynamic_axes={"tokens": {0: "batch", 1: "length"}, "cross_k": {1: "batch", 3: "frames"},
                                         "cross_v": {1: "batch", 3: "frames"}, "memory_mask": {0: "batch", 1: "frames"},
-                                        "log_probs": {0: "batch"}},
+                                        "log_probs": {0: "batch", 1: "length"}},
                           opset_version=opset, dynamo=False, external_data=False)
         diffs = {}
         for name in ["encoder", "decoder_step", "decoder_full"]:

@@ -247,7 +247,9 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
     # joint with the encoder's CTC output as the card says (the CTC prefix scores by the frame-by-frame loop
     # above, not the runner's cumulative-sum solution), and with the decoder alone (--ctc-weight 0). The
     # runner runs the same graphs here (uncached, batch 1) so the two compute the very same numbers; cached
-    # decoding is compared with uncached decoding in test_demo_cached_uncached_and_beam_one.
+    # decoding is compared with uncached decoding in test_demo_cached_uncached_and_beam_one. With the CTC
+    # weight the runner decodes drafted (recognisers/verify.py: the CTC best path checked in one pass of the
+    # same graph), so this also checks that drafting reads what a token-by-token loop reads.
     folder = need_demo(DEMO_SEQ)
     from ocrbench.pages import analyse_page, list_pages, load_page
     from ocrbench.run.engine import run_pages
@@ -277,7 +279,7 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
                 toks = [1]                                       # <bos>
                 for _ in range(200):
                     lp = dec.run(None, {"tokens": np.array([toks]), "cross_k": ck, "cross_v": cv,
-                                        "memory_mask": mask})[0][0].astype(np.float64)
+                                        "memory_mask": mask})[0][0, -1].astype(np.float64)
                     if w_ctc:
                         psi, r_n, r_b = _ctc_prefix_loop(xc, 0, rn, rb, last)
                         g = np.full(len(vocab), -np.inf)

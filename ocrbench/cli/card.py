@@ -85,6 +85,12 @@ def _check(path: Path, allow_outside: bool, provider: list[str], allow_cpu_fallb
     if card.seq is not None and card.seq.ctc is not None:
         typer.echo(f"  decoding: joint with the encoder's CTC output '{card.seq.ctc.output}' "
                    f"(weight {card.seq.ctc.weight:g}; --ctc-weight 0 for the decoder alone)")
+        if getattr(rec, "drafting", False):
+            typer.echo("  greedy decoding is drafted: the CTC best path is checked in one pass of "
+                       f"'{card.seq.decoder_full.model.name}', which scores every position (--no-draft: token by token)")
+        elif card.seq.decoder_full is not None and card.seq.decoder_full.graph.outputs[card.seq.decoder_full.log_probs].rank != 3:
+            typer.echo(f"  greedy decoding is token by token ('{card.seq.decoder_full.model.name}' scores the last "
+                       "position only, so a draft cannot be checked in one pass)")
     for w in card.warnings:
         typer.echo(f"warning: {w}", err=True)
     raise typer.Exit(EXIT_OK)

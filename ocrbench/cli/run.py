@@ -66,6 +66,10 @@ def run(
     ctc_weight: Optional[float] = typer.Option(None, "--ctc-weight", min=0.0, max=0.99,
                                                help="Seq recognisers with a CTC output ([seq.ctc]): its share in "
                                                     "joint decoding (default: the card's; 0: the decoder alone)."),
+    no_draft: bool = typer.Option(False, "--no-draft",
+                                  help="Seq recognisers with a CTC output: decode token by token instead of "
+                                       "checking the CTC head's reading in one decoder pass (the same text; "
+                                       "for comparison)."),
     fresh: bool = typer.Option(False, "--fresh", help="Start new runs instead of resuming matching ones."),
     workers: Optional[int] = typer.Option(None, "--workers", min=1,
                                           help="Read pages on a Dask cluster of N workers started on this machine."),
@@ -105,7 +109,7 @@ def run(
     as_json: bool = typer.Option(False, "--json", help="Print machine-readable JSON to stdout, nothing else."),
 ) -> None:
     """Recognise every page with every recogniser and record texts and timings in the run store."""
-    # Over 80 lines only because typer declares the 30 options in the signature; the body is short.
+    # Over 80 lines only because typer declares the 31 options in the signature; the body is short.
     from ocrbench.postprocess.config import load_pipeline
 
     if workers is None and scheduler is None and (threads_per_worker != 1 or not processes or pages_per_task is not None
@@ -124,7 +128,7 @@ def run(
                            provider_options=provider_options(provider_option),
                            batch_size=batch_size, decoding=decoding.value,
                            beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens,
-                           ctc_weight=ctc_weight)
+                           ctc_weight=ctc_weight, draft=not no_draft)
     dask = None
     if workers is not None or scheduler is not None:       # checked before anything is opened or started
         from ocrbench.run.distributed import DaskOptions

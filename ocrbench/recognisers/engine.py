@@ -33,6 +33,11 @@ class EngineOptions:
     not tried at a frame (0 tries every class). ``ctc_weight`` (seq cards with a
     ``[seq.ctc]`` output): the CTC prefix scores' share in joint decoding, in
     place of the card's ``seq.ctc.weight``; 0 decodes with the decoder alone.
+    ``draft`` (seq greedy, joint decoding, a ``decoder_full`` graph that scores
+    every position): the CTC head's best path is a draft that the decoder checks in
+    one pass over all its positions; the decoder steps on from a line's first
+    disagreement with a new pass (same text as token-by-token greedy; fewer decoder
+    calls). False decodes token by token.
     """
 
     intra_threads: int = 1
@@ -49,6 +54,7 @@ class EngineOptions:
     max_pad_ratio: float = 1.3
     ctc_prune: float = 1e-3
     ctc_weight: float | None = None
+    draft: bool = True
     allow_cpu_fallback: bool = False
     provider_options: tuple[tuple[str, str], ...] = ()   # (key, value) for the first requested provider
 

@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -44,6 +45,7 @@ from ocrbench.recognisers.ctc import log_softmax
 from ocrbench.recognisers.joint import PrefixScorer, class_scores
 from ocrbench.recognisers.repeat import RepeatGuard, RepeatState, advance, filler_tokens
 from ocrbench.recognisers.tokens import SymbolTable, TokenizerFile
+from ocrbench.recognisers.verify import DraftCheck, best_paths
 
 
 @dataclass
@@ -176,8 +178,9 @@ class SeqRecogniser(Recogniser):
         self.step_session = make_session(s.decoder_step.model, options, "decoder_step") if self.cached else None
         self.first_session = (make_session(s.decoder_first.model, options, "decoder_first")
                               if self.cached and s.decoder_first is not None else None)
-        self.full_session = (make_session(s.decoder_full.model, options, "decoder_full")
-                             if not self.cached else None)
+        # drafted greedy decoding (recognisers/verify.py): the CTC head's reading checked by the uncached
+        # decoder graph in one pass, which needs that graph to score every position
+
         self.max_tokens = options.max_tokens or s.max_tokens
         self.detok = TokenizerFile(s.tokenizer, card.path) if s.tokenizer else SymbolTable(s.symbols)
         self.guard = _Guard(s.repeat, self.detok.texts()) if s.repeat.enabled else None
@@ -191,6 +194,12 @@ class SeqRecogniser(Recogniser):
         self.ctc_weight = float(w)
         self.joint = s.ctc if (s.ctc is not None and self.ctc_weight > 0) else None
         self.token_class = np.asarray(s.ctc.token_class, np.int64) if self.joint else None
+        df = s.decoder_full
+        self.can_draft = bool(self.joint is not None and df is not None and df.graph.outputs[df.log_probs].rank == 3)
+        self.drafting = bool(options.draft and options.decoding == "greedy" and self.can_draft)
+        self.full_session = (make_session(df.model, options, "decoder_full")
+                             if not self.cached or self.drafting else None)
+        self.full_tok_dtype = onnx_dtype(df.graph.inputs[df.tokens].elem_type, np.int64) if df is not None else None
         d = s.decoder_step if self.cached else s.decoder_full
         g = d.graph
         self.tok_dtype = onnx_dtype(g.inputs[d.tokens].elem_type, np.int64)
@@ -359,9 +368,30 @@ class SeqRecogniser(Recogniser):
         with np.errstate(invalid="ignore"):
             return ((1.0 - w) * lp.astype(np.float64) + w * g), g
 
+    def _score_all(self, memory, mask, timer: _Timer) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
+        """For drafted decoding: the uncached graph's (rows, positions, V) log-probabilities of ``tokens`` fed to
+        lines ``lines`` of this batch's memory."""
+        df, ba = self.s.decoder_full, self.s.encoder.batch_axis
+        B = memory[0].shape[ba]
+
+        def score_all(tokens: np.ndarray, lines: np.ndarray) -> np.ndarray:
+            whole = len(lines) == B and np.array_equal(lines, np.arange(B))
+            mem = memory if whole else [np.take(m, lines, axis=ba) for m in memory]
+            feeds = self._memory_feeds(df, mem, None if mask is None else (mask if whole else mask[lines]))
+            feeds[df.tokens] = tokens.astype(self.full_tok_dtype, copy=False)
+            y = self._run(self.full_session, [df.log_probs], feeds, timer)[0]
+            return log_softmax(y.astype(np.float32, copy=False), axis=-1) if df.scores_are_logits else y
+
+        return score_all
+
     def greedy(self, memory, mask, *, timer: _Timer | None = None, max_tokens: int | None = None,
-               batch_mode: str | None = None, scorer: PrefixScorer | None = None) -> list[Decoded]:
-        """Batched greedy decoding of every line of the batch (joint with the CTC scores when ``scorer``)."""
+               batch_mode: str | None = None, scorer: PrefixScorer | None = None,
+               drafted: bool | None = None) -> list[Decoded]:
+        """Batched greedy decoding of every line of the batch (joint with the CTC scores when ``scorer``).
+
+        ``drafted`` (default: the recogniser's setting, with ``scorer``): the decoder's scores come from
+        one-pass checks of the CTC head's best path (recognisers/verify.py) instead of one call per token;
+        the tokens chosen are the same."""
         timer = timer or _Timer(time.perf_counter)
         max_tokens = max_tokens or self.max_tokens
         mode = batch_mode or self.options.batch_mode
@@ -371,10 +401,19 @@ class SeqRecogniser(Recogniser):
         rows = np.arange(B)                     # line of each decoder row
         active = np.ones(B, bool)               # mask mode: rows still running
         hist = np.full((B, 1), s.bos_index, np.int64)
-        cache = self._init_cache(B) if self.cached else None
+        use_draft = scorer is not None and (self.drafting if drafted is None else
+                                            drafted and self.can_draft and self.full_session is not None)
+        check = (DraftCheck(best_paths(scorer), self._score_all(memory, mask, timer),
+                            s.eos_index, s.eos_index if s.pad_index is None else s.pad_index,
+                            max_tokens) if use_draft else None)
+        cache = self._init_cache(B) if self.cached and check is None else None
         rep = RepeatState(B, self.guard.g, self.guard.filler) if self.guard else None
+        self.last_check = check                 # (the last batch's draft checks: passes, lines fed; diagnostics)
         for step in range(max_tokens):
-            lp_att, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
+            if check is not None:
+                lp_att, new_cache = check.next_scores(hist, rows, active if mode == "mask" else None), None
+            else:
+                lp_att, new_cache = self.decoder(hist, cache, memory, mask, step, timer)
             bad = _bad_rows(lp_att)
             lp, g = self._joint(lp_att, scorer)
             nxt = np.argmax(np.where(np.isnan(lp), -np.inf, lp), axis=1)
@@ -404,7 +443,8 @@ class SeqRecogniser(Recogniser):
                 if fin.any():
                     keep = np.flatnonzero(~fin)
                     rows, nxt, hist = rows[keep], nxt[keep], hist[keep]
-                    memory, mask, cache = self._take_rows(memory, mask, cache, keep)
+                    if check is None:
+                        memory, mask, cache = self._take_rows(memory, mask, cache, keep)
                     if rep is not None:
                         rep.take(keep)
                     if scorer is not None:
