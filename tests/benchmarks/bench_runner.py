@@ -169,7 +169,8 @@ class PlainScript:
         feeds[s.decoder_full.memory_mask] = mask
         for _ in range(s.max_tokens):
             feeds[s.decoder_full.tokens] = np.array([toks], np.int64)
-            k = int(np.argmax(self.dec.run(None, feeds)[0][0]))
+            y = self.dec.run(None, feeds)[0]
+            k = int(np.argmax(y[0, -1] if y.ndim == 3 else y[0]))     # (a graph may score every position)
             if k == s.eos_index:
                 break
             toks.append(k)
@@ -238,7 +239,9 @@ def bare_greedy_seq(rec, pb) -> tuple[float, float]:
 
 
 def overhead(card, crops, threads: int, repeats: int) -> None:
-    rec = open_recogniser(card, options=EngineOptions(batch_size=16, intra_threads=threads))
+    # like for like with the bare loop: the seq decoder alone, token by token (no CTC scores, no draft)
+    extra = dict(ctc_weight=0.0, draft=False) if card.kind == "seq" and card.seq.ctc is not None else {}
+    rec = open_recogniser(card, options=EngineOptions(batch_size=16, intra_threads=threads, **extra))
     batches = rec.prepare(crops)
     best = {"bare_model": math.inf, "bare_total": math.inf, "runner_model": math.inf, "runner_total": math.inf}
     for _ in range(repeats):
@@ -282,7 +285,9 @@ def vs_plain_script(card, pages: Path, threads: int, repeats: int, tmp: Path) ->
     from ocrbench.run.engine import RunOptions
 
     plain = PlainScript(card, threads)
-    engine = EngineOptions(batch_size=16, intra_threads=threads)
+    # the same job as the plain script: a seq card's decoder alone (no CTC scores, so no draft either)
+    extra = dict(ctc_weight=0.0) if card.kind == "seq" and card.seq.ctc is not None else {}
+    engine = EngineOptions(batch_size=16, intra_threads=threads, **extra)
     n_pages = len(list_pages(pages))
     best = {"plain": math.inf, "serial": math.inf, "prefetch": math.inf}
     rec = {"plain": math.inf, "serial": math.inf}
@@ -339,24 +344,32 @@ def compare(label: str, key: str, card, crops, a: dict, b: dict, threads: int, r
 
 
 def slope(cards: dict, threads: int, repeats: int, counts=(10, 20, 40, 60, 80), n_lines: int = 16) -> None:
+    """ms per line against characters per line: CTC, seq token by token (the autoregressive cost), and seq
+    as its card decodes (drafted when it has a CTC output: recognisers/verify.py)."""
     recs = {k: open_recogniser(c, options=EngineOptions(intra_threads=threads, batch_size=16))
             for k, c in cards.items()}
+    recs["seq_tok"] = open_recogniser(cards["seq"], options=EngineOptions(intra_threads=threads, batch_size=16,
+                                                                          draft=False))
+    drafted = getattr(recs["seq"], "drafting", False)
     rows = []
     for n in counts:
         crops, texts = lines_of_length(n, n_lines)
         chars = float(np.mean([len(t) for t in texts]))
-        (tc, ts), _ = best_of(repeats, lambda: recs["ctc"].recognise(crops), lambda: recs["seq"].recognise(crops))
-        rows.append((chars, 1000 * tc / n_lines, 1000 * ts / n_lines))
-    say(f"  {'chars/line':>10s} {'CTC ms/line':>12s} {'seq ms/line':>12s} {'seq/CTC':>8s}")
-    for chars, c, s in rows:
-        say(f"  {chars:10.1f} {c:12.2f} {s:12.2f} {s / c:8.2f}")
+        (tc, ts, td), _ = best_of(repeats, lambda: recs["ctc"].recognise(crops),
+                                  lambda: recs["seq_tok"].recognise(crops), lambda: recs["seq"].recognise(crops))
+        rows.append((chars, 1000 * tc / n_lines, 1000 * ts / n_lines, 1000 * td / n_lines))
+    say(f"  {'chars/line':>10s} {'CTC ms/line':>12s} {'seq ms/line':>12s} {'seq/CTC':>8s} "
+        f"{'seq drafted' if drafted else 'seq (card)':>12s}")
+    for chars, c, s_, d in rows:
+        say(f"  {chars:10.1f} {c:12.2f} {s_:12.2f} {s_ / c:8.2f} {d:12.2f}")
     x = np.array([r[0] for r in rows])
     fit = {}
-    for j, kind in ((1, "ctc"), (2, "seq")):
+    for j, kind in ((1, "ctc"), (2, "seq"), (3, "seq_drafted")):
         k, b = np.polyfit(x, np.array([r[j] for r in rows]), 1)
         fit[kind] = (k, b)
-        say(f"  {kind:4s} fit: {k:.3f} ms per character + {b:.2f} ms per line")
-    say(f"  the autoregressive slope is {fit['seq'][0] / fit['ctc'][0]:.1f}x the CTC slope per character")
+        say(f"  {kind:11s} fit: {k:.3f} ms per character + {b:.2f} ms per line")
+    say(f"  the autoregressive slope is {fit['seq'][0] / fit['ctc'][0]:.1f}x the CTC slope per character "
+        f"(token by token); {fit['seq_drafted'][0] / fit['ctc'][0]:.1f}x {'drafted' if drafted else 'as the card decodes'}")
     c2, c1, c0 = np.polyfit(x, np.array([r[2] for r in rows]), 2)
     say(f"  seq quadratic fit: {c2 * 1000:.2f} us/char^2 + {c1:.3f} ms/char + {c0:.2f} ms (each step attends to "
         f"every memory frame and every earlier position, and both grow with the line)")
@@ -394,18 +407,25 @@ def main(argv=None) -> dict:
         say("\n3. CTC batching")
         compare("CTC lines/s batch 16 vs batch 1", "ctc_batch", cards["ctc"], crops,
                 dict(batch_size=16), dict(batch_size=1), a.threads, a.repeats)
-        say("\n4. seq key/value cache at ~40 characters per line")
+        say("\n4. seq key/value cache at ~40 characters per line (token by token, no draft)")
         c40, _ = lines_of_length(40, 32)
-        compare("seq cached vs uncached", "seq_cache", cards["seq"], c40, dict(use_cache=True),
-                dict(use_cache=False), a.threads, a.repeats)
-        say("\n5. seq batching")
+        tok = dict(draft=False)
+        compare("seq cached vs uncached", "seq_cache", cards["seq"], c40, dict(use_cache=True, **tok),
+                dict(use_cache=False, **tok), a.threads, a.repeats)
+        if cards["seq"].seq.ctc is not None:
+            say("   drafted greedy (the CTC best path checked in one decoder pass) vs token by token")
+            compare("seq drafted vs token by token, ~40 characters", "seq_draft_40", cards["seq"], c40,
+                    dict(draft=True), tok, a.threads, a.repeats)
+            compare("seq drafted vs token by token (page lines)", "seq_draft_pages", cards["seq"], crops,
+                    dict(draft=True), tok, a.threads, a.repeats)
+        say("\n5. seq batching (token by token)")
         compare("seq batched greedy (16) vs one line at a time", "seq_batch", cards["seq"], c40,
-                dict(batch_size=16), dict(batch_size=1), a.threads, a.repeats)
+                dict(batch_size=16, **tok), dict(batch_size=1, **tok), a.threads, a.repeats)
         compare("seq finished lines dropped vs masked (page lines)", "seq_drop_mask", cards["seq"], crops,
-                dict(batch_mode="drop"), dict(batch_mode="mask"), a.threads, a.repeats)
+                dict(batch_mode="drop", **tok), dict(batch_mode="mask", **tok), a.threads, a.repeats)
         compare("seq encoder on each line alone vs on the padded batch (page lines)", "seq_encoder_per_line",
-                cards["seq"], crops, dict(encoder_per_line=True), dict(encoder_per_line=False), a.threads,
-                a.repeats)
+                cards["seq"], crops, dict(encoder_per_line=True, **tok), dict(encoder_per_line=False, **tok),
+                a.threads, a.repeats)
         one = open_recogniser(cards["seq"], options=EngineOptions(intra_threads=a.threads, batch_size=1))
         base = [r.text for r in one.recognise(crops)[0]]
         for per_line in (True, False):
@@ -435,12 +455,15 @@ def ratio_lines(res: dict) -> None:
             say(f"RATIO pages_per_hour_vs_plain_script_with_prefetch_{k} {v['ratio_prefetch']:.3f} info")
             say(f"RATIO pages_per_hour_vs_plain_script_ceiling_{k} {v['ceiling_full_overlap']:.3f} info")
     for key, name in (("ctc_batch", "ctc_lines_per_s_batch16_vs_batch1"), ("seq_cache", "seq_cached_vs_uncached"),
+                      ("seq_draft_40", "seq_drafted_vs_token_by_token_40_chars"),
+                      ("seq_draft_pages", "seq_drafted_vs_token_by_token_page_lines"),
                       ("seq_batch", "seq_batched_greedy_vs_per_line"), ("seq_drop_mask", "seq_drop_vs_mask")):
         if key in res:
             say(f"RATIO {name} {res[key]['ratio']:.3f} info")
     if "slope" in res and res["slope"]["fit_ms_per_char"]["ctc"] > 0:
         f = res["slope"]["fit_ms_per_char"]
         say(f"RATIO seq_vs_ctc_ms_per_character_slope {f['seq'] / f['ctc']:.3f} info")
+        say(f"RATIO seq_drafted_vs_ctc_ms_per_character_slope {f['seq_drafted'] / f['ctc']:.3f} info")
 
 
 def test_runner_benchmarks():
