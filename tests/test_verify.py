@@ -9,7 +9,8 @@ in one pass.
 * On the shipped ledger-seq model: drafted greedy reads exactly what token-by-token greedy reads (cached
   and uncached, drop and mask batches; browser-rendered table rows and demo lines, which the model reads
   with disagreements between its two heads), with fewer decoder calls; a ``decoder_full`` graph that
-  scores only the last position is read token by token, with the same text, and ``card check`` says which.
+  scores only the last position is read token by token, with the same text, and ``card check`` says which;
+  ``run --token-by-token`` stores the same text and records the setting.
 """
 
 from __future__ import annotations
@@ -157,3 +158,27 @@ def test_a_decoder_scoring_the_last_position_only_is_read_token_by_token(tmp_pat
     assert res.exit_code == 0 and "greedy decoding is token by token" in res.output, res.output
     res = CliRunner().invoke(app, ["card", "check", str(DEMO_SEQ)])
     assert res.exit_code == 0 and "greedy decoding is drafted" in res.output, res.output
+
+
+def test_run_token_by_token_stores_the_same_text(tmp_path):
+    from typer.testing import CliRunner
+
+    from ocrbench.cli.app import app
+    from ocrbench.store import RunStore
+
+    pages = tmp_path / "pages"
+    pages.mkdir()
+    src = sorted((DEMO_SEQ.parents[1] / "scans_demo").glob("page_001.*"))
+    for p in src:
+        shutil.copy(p, pages / p.name)
+    texts, settings = {}, {}
+    for flag in ([], ["--token-by-token"]):
+        store = tmp_path / f"s{len(flag)}.sqlite"
+        res = CliRunner().invoke(app, ["run", str(pages), "--recogniser", str(need_demo(DEMO_SEQ)),
+                                       "--store", str(store), *flag])
+        assert res.exit_code == 0, res.output
+        with RunStore(store) as st:
+            texts[len(flag)] = st.page_texts(st.run_ids()[0])
+            settings[len(flag)] = st.run_info(st.run_ids()[0]).settings
+    assert texts[0] == texts[1] and sum(len(t) for v in texts[0].values() for t in v) > 500
+    assert settings[0]["draft"] is True and settings[1]["draft"] is False     # recorded with each run

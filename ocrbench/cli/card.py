@@ -87,7 +87,7 @@ def _check(path: Path, allow_outside: bool, provider: list[str], allow_cpu_fallb
                    f"(weight {card.seq.ctc.weight:g}; --ctc-weight 0 for the decoder alone)")
         if getattr(rec, "drafting", False):
             typer.echo("  greedy decoding is drafted: the CTC best path is checked in one pass of "
-                       f"'{card.seq.decoder_full.model.name}', which scores every position (--no-draft: token by token)")
+                       f"'{card.seq.decoder_full.model.name}', which scores every position (--token-by-token: one call per token)")
         elif card.seq.decoder_full is not None and card.seq.decoder_full.graph.outputs[card.seq.decoder_full.log_probs].rank != 3:
             typer.echo(f"  greedy decoding is token by token ('{card.seq.decoder_full.model.name}' scores the last "
                        "position only, so a draft cannot be checked in one pass)")

@@ -66,10 +66,10 @@ def run(
     ctc_weight: Optional[float] = typer.Option(None, "--ctc-weight", min=0.0, max=0.99,
                                                help="Seq recognisers with a CTC output ([seq.ctc]): its share in "
                                                     "joint decoding (default: the card's; 0: the decoder alone)."),
-    no_draft: bool = typer.Option(False, "--no-draft",
-                                  help="Seq recognisers with a CTC output: decode token by token instead of "
-                                       "checking the CTC head's reading in one decoder pass (the same text; "
-                                       "for comparison)."),
+    token_by_token: bool = typer.Option(False, "--token-by-token",
+                                        help="Seq recognisers with a CTC output: one decoder call per token instead "
+                                             "of checking the CTC head's reading in one pass (the same text; for "
+                                             "comparison)."),
     fresh: bool = typer.Option(False, "--fresh", help="Start new runs instead of resuming matching ones."),
     workers: Optional[int] = typer.Option(None, "--workers", min=1,
                                           help="Read pages on a Dask cluster of N workers started on this machine."),
@@ -128,7 +128,7 @@ def run(
                            provider_options=provider_options(provider_option),
                            batch_size=batch_size, decoding=decoding.value,
                            beam_width=beam_width, use_cache=not no_cache, max_tokens=max_tokens,
-                           ctc_weight=ctc_weight, draft=not no_draft)
+                           ctc_weight=ctc_weight, draft=not token_by_token)
     dask = None
     if workers is not None or scheduler is not None:       # checked before anything is opened or started
         from ocrbench.run.distributed import DaskOptions
