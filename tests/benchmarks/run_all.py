@@ -54,7 +54,7 @@ QUICK_ARGS = {
 #: Benchmarks that take ``--models DIR`` (a folder with ledger-ctc/ and ledger-seq/).
 TAKES_MODELS = {"bench_distributed", "bench_memory", "bench_runner", "bench_planner", "bench_postprocess",
                 "bench_variant", "bench_route", "bench_quality", "bench_tune", "bench_repeat_guard",
-                "bench_plan_whole", "bench_plan_later"}
+                "bench_plan_whole", "bench_plan_later", "bench_heldout_strata"}
 
 RATIO_RE = re.compile(r"^RATIO\s+(\S+)\s+(\S+)\s*(.*)$")
 TARGET_RE = re.compile(r"^(>=|<=|>|<)\s*([0-9.]+)\s*x?$")
