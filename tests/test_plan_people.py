@@ -75,6 +75,26 @@ def test_correction_decides_the_deadline_hand_worked(ctc_model):
     assert rec["change"] == "correctors 2 -> 4"
 
 
+def test_more_correctors_alone_never_mend_a_budget(ctc_model):
+    """The same 133.333 hours of people at GBP 20 an hour: GBP 2,666.67 at the upper CER whoever does them,
+    plus a little compute. With a budget of GBP 1,000 and a one-week deadline both goals fail; 4 correctors
+    mend the deadline only, so the recommendation names both changes, never the correctors alone."""
+    goals = Goals(deadline_s=WEEK, budget=1000.0)
+    p = _plan(ctc_model, correction=Correction(correctors=2, price_hour=20.0), goals=goals,
+              resources=Resources(price_core_hour=0.12))
+    r = p.iloc[0]
+    assert r["meets_deadline"] == False and r["meets_budget"] == False  # noqa: E712
+    assert r["people_cost_high"] == pytest.approx(133.333333 * 20.0, rel=1e-6)
+    rec = p.attrs["recommendation"]
+    assert rec["change"].startswith("correctors 2 -> 4; budget -> GBP 2,6"), rec
+    assert "no single change is enough" in rec["text"] and "raise the budget to GBP 2,6" in rec["text"]
+    # with the budget raised as it says, 4 correctors meet both goals
+    need = float(rec["change"].split("GBP ")[1].replace(",", ""))
+    four = _plan(ctc_model, correction=Correction(correctors=4, price_hour=20.0),
+                 goals=Goals(deadline_s=WEEK, budget=need + 0.01), resources=Resources(price_core_hour=0.12))
+    assert four.iloc[0]["meets_deadline"] == True and four.iloc[0]["meets_budget"] == True  # noqa: E712
+
+
 def test_review_modes_hand_worked():
     """Targeted: 10 % of lines read, holding 60 % of the errors; none: nobody reads.
 

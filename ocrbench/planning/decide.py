@@ -162,10 +162,12 @@ def _fit_text(r: Mapping, inputs: PlanInputs) -> str:
     return f" ({'; '.join(what)})" if what else ""
 
 
-def _change(kind: int, size: float, o: Option, r: Mapping, change: str, text: str, **over) -> tuple:
+def _change(kind: int, size: float, o: Option, r: Mapping, change: str, text: str, *, two: bool = False,
+            **over) -> tuple:
     m = o.serial.model
+    lead = "no single change is enough; the smallest pair: " if two else "the smallest change: "
     d = {"recogniser": m.recogniser, "profile": m.profile, "workers": r["workers"], "machines": r["machines"],
-         "change": change, "text": "no option meets the goals as given; the smallest change: " + text}
+         "change": change, "text": "no option meets the goals as given; " + lead + text}
     return (kind, size, _key(o), d | over)
 
 
@@ -202,23 +204,40 @@ def _more_resources(o: Option, res: Resources, inputs: PlanInputs) -> list[tuple
 
 
 def _other_changes(o: Option, inputs: PlanInputs) -> list[tuple]:
-    """More correctors, a later deadline, a larger budget."""
+    """More correctors, a later deadline, a larger budget; where the deadline and the budget both fail, the
+    two changes together (more correctors, or a later deadline, and a larger budget): more correctors do
+    not change the cost (the same hours of work), so they alone never mend a budget."""
     m, r, goals, out = o.serial.model, o.row, inputs.goals, []
-    if r.get("correction_meets_deadline") is False and r.get("correctors_needed"):
-        out.append(_change(0, r["correctors_needed"] - (r["correctors"] or 0), o, r,
-                           f"correctors {r['correctors']} -> {r['correctors_needed']}",
-                           f"{r['correctors_needed']} correctors instead of {r['correctors']} for {m.recogniser}'s "
-                           f"{r['people_hours_high']:,.0f} hours of review and correction"))
-    if r["meets_deadline"] is False and r["meets_budget"] is not False:
+    over_budget = r["meets_budget"] is False
+    if over_budget:
+        budget_need = r["cost_high"] if r["cost_high"] is not None else r["cost_priced_part_high"]
+        raise_budget = (f"raise the budget to {money_text(budget_need, inputs.currency)} for {m.recogniser} on "
+                        f"{m.profile} ({money_text(goals.budget, inputs.currency)} given)")
+    if (r.get("correction_meets_deadline") is False and r.get("correctors_needed")
+            and r.get("recognition_meets_deadline") is not False):
+        change = f"correctors {r['correctors']} -> {r['correctors_needed']}"
+        text = (f"{r['correctors_needed']} correctors instead of {r['correctors']} for {m.recogniser}'s "
+                f"{r['people_hours_high']:,.0f} hours of review and correction")
+        if not over_budget:
+            out.append(_change(0, r["correctors_needed"] - (r["correctors"] or 0), o, r, change, text))
+        else:
+            out.append(_change(4, budget_need / goals.budget, o, r,
+                               f"{change}; budget -> {money_text(budget_need, inputs.currency)}",
+                               f"{text}, and {raise_budget}", two=True))
+    if r["meets_deadline"] is False:
         need = max(r["wall_seconds_p90"], r.get("people_seconds_high") or 0.0)
-        out.append(_change(2, need / goals.deadline_s, o, r, f"deadline -> {format_duration(need)}",
-                           f"extend the deadline to {format_duration(need)} (recognition and correction of "
-                           f"{m.recogniser} on {m.profile}, {format_duration(goals.deadline_s)} given)"))
-    if r["meets_budget"] is False and r["meets_deadline"] is not False:
-        need = r["cost_high"] if r["cost_high"] is not None else r["cost_priced_part_high"]
-        out.append(_change(3, need / goals.budget, o, r, f"budget -> {money_text(need, inputs.currency)}",
-                           f"raise the budget to {money_text(need, inputs.currency)} for {m.recogniser} on "
-                           f"{m.profile} ({money_text(goals.budget, inputs.currency)} given)"))
+        change = f"deadline -> {format_duration(need)}"
+        text = (f"extend the deadline to {format_duration(need)} (recognition and correction of "
+                f"{m.recogniser} on {m.profile}, {format_duration(goals.deadline_s)} given)")
+        if not over_budget:
+            out.append(_change(2, need / goals.deadline_s, o, r, change, text))
+        else:
+            out.append(_change(5, budget_need / goals.budget, o, r,
+                               f"{change}; budget -> {money_text(budget_need, inputs.currency)}",
+                               f"{text}, and {raise_budget}", two=True))
+    if over_budget and r["meets_deadline"] is not False:
+        out.append(_change(3, budget_need / goals.budget, o, r,
+                           f"budget -> {money_text(budget_need, inputs.currency)}", raise_budget))
     return out
 
 
