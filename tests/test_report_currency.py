@@ -146,3 +146,22 @@ def test_a_budget_with_unpriced_correction_is_never_met_in_the_report(store):
                          for _tag, cell, _m in row[1:]]
     assert len(budget_cells) >= 2 * len(rows)          # the decision table and the side-by-side table
     assert all(cell.startswith("unknown (not priced: review and correction") for cell in budget_cells), budget_cells
+
+
+def test_the_decision_tables_money_columns_add_up_to_the_total(store):
+    # compute + review and correction = total, row by row (as shown, to the cent; the plan's own sum)
+    root, pages, db = store
+    files = write_report(db, root / "sum", truth=pages, plan=PlanRequest(**PLAN, currency="GBP"), n_boot=100,
+                         curve_max_workers=2, table_formats=("csv",))
+    c = Cells()
+    c.feed(files.html.read_text(encoding="utf-8"))
+    c.close()
+    table = next(t for t in c.tables if any(h.startswith("review and correction") for h in t["head"]))
+    col = {h.split(",")[0]: k for k, h in enumerate(table["head"])}
+    amount = lambda cell: float(re.search(r"[\d,]+\.\d\d", cell).group(0).replace(",", ""))  # noqa: E731
+    checked = 0
+    for row in table["rows"]:
+        parts = amount(row[col["compute"]][1]) + amount(row[col["review and correction"]][1])
+        assert parts == pytest.approx(amount(row[col["total"]][1]), abs=0.011), row
+        checked += 1
+    assert checked >= 1

@@ -146,7 +146,8 @@ def _best_accuracy(r: Mapping) -> tuple[str, str] | None:
 
 
 def _decision(s: Mapping) -> str:
-    """The decision in a few lines: the verdict, each option's time, cost (compute and correction) and
+    """The decision in a few lines: the verdict, each option's time, cost (compute, and people's review and
+    correction, which add up to the total) and
     accuracy with intervals, whether the goals hold, and the warnings that matter most."""
     runs = s["recognisers"]
     plan = s.get("plan") or {}
@@ -170,7 +171,7 @@ def _decision(s: Mapping) -> str:
     if has_plan:
         head += ["archive time P50 (P90)"]
     if money:
-        head += [f"compute, {cur}", f"correction, {cur}", f"total, {cur} (up to)"]
+        head += [f"compute, {cur}", f"review and correction, {cur}", f"total, {cur} (up to)"]
     if has_plan:
         head += ["deadline", "budget"]
     rows = []
@@ -185,7 +186,7 @@ def _decision(s: Mapping) -> str:
         if has_plan:
             cells.append(f'{figure(s, p + ".wall_seconds_p50", "dur")} ({figure(s, p + ".wall_seconds_p90", "dur")})')
         if money:
-            cells += [figure(s, p + ".compute_cost", "money"), figure(s, p + ".correction_cost", "money"),
+            cells += [figure(s, p + ".compute_cost", "money"), figure(s, p + ".people_cost", "money"),
                       f'{figure(s, p + ".cost", "money")} ({figure(s, p + ".cost_high", "money")})']
         if has_plan:
             cells += [_holds(s, p + ".meets_deadline"), _holds(s, p + ".meets_budget")]
@@ -195,8 +196,8 @@ def _decision(s: Mapping) -> str:
                                                 for k, h in enumerate(head))
                  + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
     if money:
-        parts.append('<p class="note">Cost = compute (machine time) + correction (people fixing the errors the '
-                     "CER implies); the plan counts both.</p>")
+        parts.append('<p class="note">Cost = compute (machine time) + review and correction (people reading the '
+                     "lines the review mode reads and fixing the errors the CER implies); the plan counts both.</p>")
     warnings = list(plan.get("warnings") or [])[:2]
     failed = sum(int(r.get("pages_failed") or 0) for r in runs)
     if failed:
