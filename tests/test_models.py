@@ -117,9 +117,17 @@ def test_seq_graphs_onnxruntime_equal_reference_evaluator():
         np.testing.assert_allclose(g, r, rtol=1e-3, atol=1e-3)
     feeds_full = {"tokens": np.array([[1, 5, 9]], np.int64), "cross_k": ck, "cross_v": cv, "memory_mask": mask}
     full = ort.InferenceSession(str(SEQ / "decoder_full.onnx"), providers=["CPUExecutionProvider"])
-    np.testing.assert_allclose(full.run(None, feeds_full)[0],
-                               ReferenceEvaluator(str(SEQ / "decoder_full.onnx")).run(None, feeds_full)[0],
+    every = full.run(None, feeds_full)[0]
+    np.testing.assert_allclose(every, ReferenceEvaluator(str(SEQ / "decoder_full.onnx")).run(None, feeds_full)[0],
                                rtol=1e-3, atol=1e-3)
+    # the uncached graph scores every position (drafted decoding reads them all): position i equals the cached
+    # step graph fed tokens 0..i one at a time
+    assert every.shape[:2] == (1, 3)
+    pk = pv = np.zeros((L, B, H, 0, D), np.float32)
+    for i, t in enumerate([1, 5, 9]):
+        lp, pk, pv = step.run(None, {"tokens": np.array([[t]], np.int64), "step": np.array(i, np.int64),
+                                     "past_k": pk, "past_v": pv, "cross_k": ck, "cross_v": cv, "memory_mask": mask})
+        np.testing.assert_allclose(every[:, i], lp, rtol=1e-4, atol=1e-4)
 
 
 @pytest.mark.parametrize("folder", [CTC, SEQ], ids=lambda p: p.name)
