@@ -85,6 +85,15 @@ class PrefixScorer:
         idx = np.asarray(idx, dtype=np.int64)
         for name in ("rows", "rn", "rb", "last", "started", "score"):
             setattr(self, name, getattr(self, name)[idx])
+        self._rows_p = None
+
+    _rows_p: np.ndarray | None = None
+
+    def _p(self) -> np.ndarray:
+        """(rows, T, C) class probabilities of the rows' lines, gathered once per set of rows."""
+        if self._rows_p is None:
+            self._rows_p = self.p[self.rows]
+        return self._rows_p
 
     def _shifted(self, a: np.ndarray) -> np.ndarray:
         """``a[t-1]`` per row, with the empty prefix's start value (1, or 0 once it has a label) at t = 0."""
@@ -95,7 +104,7 @@ class PrefixScorer:
         """(rows, V): ``log P_ctc(h + c...) - log P_ctc(h...)`` for every token ``c``; the end token gets
         ``log P_ctc(h) - log P_ctc(h...)``; tokens without a class get minus infinity."""
         R = len(self.rows)
-        p = self.p[self.rows]                                  # (R, T, C)
+        p = self._p()                                          # (R, T, C)
         phi = self._shifted(np.logaddexp(self.rb, self.rn))
         m = phi.max(axis=1, keepdims=True)
         m = np.where(np.isfinite(m), m, 0.0)
@@ -125,10 +134,9 @@ class PrefixScorer:
             return
         rs = np.flatnonzero(move)
         c = self.token_class[tokens[rs]]
-        lp = self.lp[self.rows[rs]]                            # (r, T, C)
-        ar = np.arange(len(rs))
-        xc = lp[ar, :, c]                                      # (r, T)
-        xb = lp[:, :, self.blank]
+        lines = self.rows[rs]
+        xc = self.lp[lines[:, None], np.arange(self.lp.shape[1])[None, :], c[:, None]]   # (r, T)
+        xb = self.lp[lines, :, self.blank]
         started = self.started[rs]
         phi = np.where((c == self.last[rs])[:, None] & started[:, None], self.rb[rs],
                        np.logaddexp(self.rb[rs], self.rn[rs]))
