@@ -178,9 +178,6 @@ class SeqRecogniser(Recogniser):
         self.step_session = make_session(s.decoder_step.model, options, "decoder_step") if self.cached else None
         self.first_session = (make_session(s.decoder_first.model, options, "decoder_first")
                               if self.cached and s.decoder_first is not None else None)
-        # drafted greedy decoding (recognisers/verify.py): the CTC head's reading checked by the uncached
-        # decoder graph in one pass, which needs that graph to score every position
-
         self.max_tokens = options.max_tokens or s.max_tokens
         self.detok = TokenizerFile(s.tokenizer, card.path) if s.tokenizer else SymbolTable(s.symbols)
         self.guard = _Guard(s.repeat, self.detok.texts()) if s.repeat.enabled else None
@@ -194,9 +191,11 @@ class SeqRecogniser(Recogniser):
         self.ctc_weight = float(w)
         self.joint = s.ctc if (s.ctc is not None and self.ctc_weight > 0) else None
         self.token_class = np.asarray(s.ctc.token_class, np.int64) if self.joint else None
+        # drafted greedy decoding (recognisers/verify.py): the CTC head's reading checked by the uncached
+        # decoder graph in one pass, which needs that graph to score every position
         df = s.decoder_full
-        self.can_draft = bool(self.joint is not None and df is not None and df.graph.outputs[df.log_probs].rank == 3)
-        self.drafting = bool(options.draft and options.decoding == "greedy" and self.can_draft)
+        self.drafting = bool(options.draft and options.decoding == "greedy" and self.joint is not None
+                             and df is not None and df.graph.outputs[df.log_probs].rank == 3)
         self.full_session = (make_session(df.model, options, "decoder_full")
                              if not self.cached or self.drafting else None)
         self.full_tok_dtype = onnx_dtype(df.graph.inputs[df.tokens].elem_type, np.int64) if df is not None else None
@@ -385,11 +384,10 @@ class SeqRecogniser(Recogniser):
         return score_all
 
     def greedy(self, memory, mask, *, timer: _Timer | None = None, max_tokens: int | None = None,
-               batch_mode: str | None = None, scorer: PrefixScorer | None = None,
-               drafted: bool | None = None) -> list[Decoded]:
+               batch_mode: str | None = None, scorer: PrefixScorer | None = None) -> list[Decoded]:
         """Batched greedy decoding of every line of the batch (joint with the CTC scores when ``scorer``).
 
-        ``drafted`` (default: the recogniser's setting, with ``scorer``): the decoder's scores come from
+        When the recogniser is ``drafting`` (and there is a ``scorer``), the decoder's scores come from
         one-pass checks of the CTC head's best path (recognisers/verify.py) instead of one call per token;
         the tokens chosen are the same."""
         timer = timer or _Timer(time.perf_counter)
@@ -401,11 +399,9 @@ class SeqRecogniser(Recogniser):
         rows = np.arange(B)                     # line of each decoder row
         active = np.ones(B, bool)               # mask mode: rows still running
         hist = np.full((B, 1), s.bos_index, np.int64)
-        use_draft = scorer is not None and (self.drafting if drafted is None else
-                                            drafted and self.can_draft and self.full_session is not None)
         check = (DraftCheck(best_paths(scorer), self._score_all(memory, mask, timer),
                             s.eos_index, s.eos_index if s.pad_index is None else s.pad_index,
-                            max_tokens) if use_draft else None)
+                            max_tokens) if self.drafting and scorer is not None else None)
         cache = self._init_cache(B) if self.cached and check is None else None
         rep = RepeatState(B, self.guard.g, self.guard.filler) if self.guard else None
         self.last_check = check                 # (the last batch's draft checks: passes, lines fed; diagnostics)
