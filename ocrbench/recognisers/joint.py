@@ -79,6 +79,7 @@ class PrefixScorer:
         self.last = np.full(L, -1, np.int64)
         self.started = np.zeros(L, bool)
         self.score = np.zeros(L)
+        self._rows_p: np.ndarray | None = None     # p of the current rows (gathered once per set of rows)
 
     def take(self, idx: np.ndarray) -> None:
         """Keep rows ``idx`` (in that order; a row may appear twice)."""
@@ -86,8 +87,6 @@ class PrefixScorer:
         for name in ("rows", "rn", "rb", "last", "started", "score"):
             setattr(self, name, getattr(self, name)[idx])
         self._rows_p = None
-
-    _rows_p: np.ndarray | None = None
 
     def _p(self) -> np.ndarray:
         """(rows, T, C) class probabilities of the rows' lines, gathered once per set of rows."""

@@ -404,7 +404,6 @@ class SeqRecogniser(Recogniser):
                             max_tokens) if self.drafting and scorer is not None else None)
         cache = self._init_cache(B) if self.cached and check is None else None
         rep = RepeatState(B, self.guard.g, self.guard.filler) if self.guard else None
-        self.last_check = check                 # (the last batch's draft checks: passes, lines fed; diagnostics)
         for step in range(max_tokens):
             if check is not None:
                 lp_att, new_cache = check.next_scores(hist, rows, active if mode == "mask" else None), None

@@ -77,8 +77,6 @@ class DraftCheck:
         self.end, self.pad, self.limit = end, pad, limit
         self.fed: list[list[int] | None] = [None] * len(drafts)
         self.scores: list[np.ndarray | None] = [None] * len(drafts)
-        self.passes = 0          # decoder calls
-        self.rows_fed = 0        # line passes (a call feeds several lines)
 
     def _covered(self, line: int, hist_row: np.ndarray, step: int) -> bool:
         x = self.fed[line]
@@ -106,9 +104,7 @@ class DraftCheck:
             for i, x in enumerate(feeds):
                 self.fed[int(idx[i])] = x
                 self.scores[int(idx[i])] = y[i, : len(x)]
-            self.passes += 1
-            self.rows_fed += len(need)
-        V = next(self.scores[int(line)].shape[1] for r, line in enumerate(lines) if live[r]) if live.any() else 1
-        ended = np.full(V, -np.inf, np.float32)
+        # every line was fed at step 0 (all rows are live then), so its scores give the vocabulary size
+        ended = np.full(self.scores[int(lines[0])].shape[1], -np.inf, np.float32)
         ended[self.end] = 0.0
         return np.stack([self.scores[int(line)][step] if live[r] else ended for r, line in enumerate(lines)])
