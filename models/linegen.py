@@ -9,7 +9,7 @@ figures are measured on shapes the models never saw.
 
 Lines look like crops of real pages: field gaps up to 25 em (table columns),
 cell rules and underlines, zebra shading, stroke-weight and letter-spacing
-variation, x-heights down to about 6 px, curved baselines, uneven illumination,
+variation, x-heights down to 6 px (the face's x measured, ``X_HEIGHT_FLOOR``), curved baselines, uneven illumination,
 JPEG artefacts, plus the degradations of ``ocrbench.synth``. Text beyond cash
 books: register entries, running prose, headings, numbers.
 
@@ -332,9 +332,32 @@ def jpeg(img: Image.Image, rng: random.Random) -> Image.Image:
     return Image.open(buf).convert("L")
 
 
-def stroke_weight(img: Image.Image, rng: random.Random) -> Image.Image:
-    """Heavier or lighter ink (dark ink on light paper: a min filter thickens, a max filter thins)."""
-    return img.filter(ImageFilter.MinFilter(3) if rng.random() < 0.6 else ImageFilter.MaxFilter(3))
+def stroke_weight(img: Image.Image, rng: random.Random, ink: int = 0) -> Image.Image:
+    """Heavier or lighter ink (dark ink on light paper: a min filter thickens, a max filter thins).
+
+    Thinning takes a pixel off each side of every stroke, so strokes two pixels wide vanish: a thin
+    face thinned leaves no text to read. Thinning is kept only where at least half the ink survives;
+    otherwise the line keeps its weight."""
+    if rng.random() < 0.6:
+        return img.filter(ImageFilter.MinFilter(3))
+    thin = img.filter(ImageFilter.MaxFilter(3))
+    level = (ink + 255) / 2
+    before = int((np.asarray(img) < level).sum())
+    return thin if int((np.asarray(thin) < level).sum()) >= 0.5 * before else img
+
+
+X_HEIGHT_FLOOR = 6              # px: the smallest type drawn (the font's x above the baseline)
+_SMALLEST: dict[Path, int] = {}
+
+
+def smallest_size(path: Path) -> int:
+    """The smallest size (9 or more) at which the face's x-height is at least X_HEIGHT_FLOOR pixels."""
+    if path not in _SMALLEST:
+        size = 9
+        while -load_font(path, size).getbbox("x", anchor="ls")[1] < X_HEIGHT_FLOOR and size < 38:
+            size += 1
+        _SMALLEST[path] = size
+    return _SMALLEST[path]
 
 
 # 80 lines: one decision per line property, in order; splitting it scatters the probabilities.
@@ -345,7 +368,8 @@ def render_line(rng: random.Random, face_list: Sequence[tuple[str, Path, bool]],
     fields = [f for f in fields if f]
     family, path, has_onum = face_list[rng.randrange(len(face_list))]
     small = rng.random() < 0.25
-    size = rng.randint(9, 16) if small else rng.randint(16, 38)      # x-height about 0.45-0.5 of the size
+    lo = smallest_size(path)
+    size = rng.randint(lo, max(lo, 16)) if small else rng.randint(max(lo, 16), 38)
     fnt = load_font(path, size)
     feats = ["onum"] if (has_onum and RAQM and rng.random() < 0.4) else None
     ink = rng.randint(0, 40) if rng.random() < 0.75 else rng.randint(50, 130)
@@ -360,7 +384,7 @@ def render_line(rng: random.Random, face_list: Sequence[tuple[str, Path, bool]],
     if not rules and not underline:
         img = synth.crop_ink(img, threshold=min(200, ink + 60))
     if degrade and size >= 20 and rng.random() < 0.15:
-        img = stroke_weight(img, rng)
+        img = stroke_weight(img, rng, ink)
     img = synth.pad_like_segmenter(img, rng)
     if rng.random() < 0.25:                                         # a cell border above or below
         d = ImageDraw.Draw(img)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import random
 import re
 import subprocess
 import sys
@@ -240,6 +241,72 @@ def test_build_script_data_generator_runs_without_torch():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr
     assert out.stdout.startswith("ok")
+
+
+def _linegen():
+    sys.path.insert(0, str(MODELS))
+    try:
+        import linegen  # type: ignore
+    finally:
+        sys.path.pop(0)
+    return linegen
+
+
+def _x_height(lg, path, size) -> int:
+    """The face's lower-case x above the baseline in pixels, as FreeType draws it at that size."""
+    return -lg.load_font(path, size).getbbox("x", anchor="ls")[1]
+
+
+def test_line_generator_keeps_to_the_x_height_floor():
+    """Issue 17 specifies training lines 'x-heights down to 6 px': no line is drawn in smaller type, and the
+    floor is the smallest size that reaches it (the x measured in each face, not a fixed size)."""
+    lg = _linegen()
+    faces = lg.faces(lg.TRAIN_FAMILIES + lg.HELDOUT_FAMILIES)
+    for _, path, _ in faces:
+        lo = lg.smallest_size(path)
+        assert _x_height(lg, path, lo) >= lg.X_HEIGHT_FLOOR == 6
+        assert lo == 9 or _x_height(lg, path, lo - 1) < 6, path.name
+    sizes = []
+    load = lg.load_font
+    lg.load_font = lambda path, size: sizes.append((path, size)) or load(path, size)
+    try:
+        rng = random.Random(5)
+        drawn = []
+        for _ in range(120):
+            sizes.clear()
+            lg.render_line(rng, faces, degrade=True)
+            drawn.append(sizes[-1])
+    finally:
+        lg.load_font = load
+    heights = [_x_height(lg, p, s) for p, s in drawn]
+    assert min(heights) >= 6 and sum(h <= 8 for h in heights) >= 5      # small type is still drawn
+
+
+def test_thinning_never_erases_the_strokes():
+    """Thinning (a 3x3 max filter on dark ink) takes a pixel off each side of a stroke: on a thin face it
+    leaves nothing to read, so it applies only where at least half the ink survives."""
+    from PIL import Image, ImageDraw, ImageFilter
+    lg = _linegen()
+
+    def line(face, size):
+        img = Image.new("L", (40 * size // 2, 2 * size), 255)
+        ImageDraw.Draw(img).text((4, size // 2), "Oct 3 14 7s 6d 627", font=lg.load_font(lg.find_face(face), size),
+                                 fill=0)
+        return img
+
+    class Thin:                      # the rng's draw that picks thinning (not thickening)
+        def random(self):
+            return 0.9
+
+    def ink(img):
+        return int((np.asarray(img) < 128).sum())
+
+    light = line("DejaVuSans-ExtraLight.ttf", 20)
+    assert ink(light.filter(ImageFilter.MaxFilter(3))) < 0.5 * ink(light)
+    assert ink(lg.stroke_weight(light, Thin(), 0)) == ink(light)                       # kept as drawn
+    heavy = line("DejaVuSans-Bold.ttf", 36)
+    thinned = lg.stroke_weight(heavy, Thin(), 0)
+    assert 0.5 * ink(heavy) <= ink(thinned) < ink(heavy)                              # thinned, still legible
 
 
 @pytest.mark.parametrize("folder", [CTC, SEQ], ids=lambda p: p.name)

@@ -6,7 +6,8 @@ the same seeds, and each line's x-height (the font's ``x`` above the baseline, i
 ``render_line`` chose) and ink contrast (the crop's median grey minus its 1st percentile) are recorded
 as it is drawn; the recogniser's CER (greedy as its card decodes, whitespace collapsed; Levenshtein
 distance by rapidfuzz, a reference library) is then reported per stratum. The issue's training spec
-goes down to an x-height of 6 px; the generator also draws smaller type and faint ink.
+goes down to an x-height of 6 px, and so does the generator (``linegen.X_HEIGHT_FLOOR``); it also draws
+faint ink, whose contrast is recorded here.
 
 Run:  .venv/bin/python tests/benchmarks/bench_heldout_strata.py [--models DIR] [--kinds ctc seq] [--lines 150]
 """
@@ -50,7 +51,7 @@ def lines_with_strata(n: int, degraded: bool, seed: int = 20261202):
             used.clear()
             img, text, kind, _ = linegen.render_line(rng, faces, degrade=degraded)
             if kind in linegen.TEST_KINDS and text:
-                path, size = used[0]
+                path, size = used[-1]                  # (the size drawn; smallest_size probes first)
                 xh = -load(path, size).getbbox("x", anchor="ls")[1]
                 a = np.asarray(img, dtype=np.float64)
                 out.append((img, text, xh, float(np.median(a) - np.percentile(a, 1))))
