@@ -540,6 +540,26 @@ def transplant_encoder(model, ctc_ckpt: Path) -> None:
     model.load_state_dict(state)
 
 
+def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> int:
+    """A CTC checkpoint from a seq model's encoder and auxiliary CTC head (the reverse of
+    ``transplant_encoder``): the seq encoder is ledger-ctc's architecture, so its convolutions, LSTM and
+    head are a CTC recogniser of their own, exported by ``export --only ctc``. Returns the step."""
+    import torch
+    st = torch.load(seq_ckpt, weights_only=False, map_location="cpu")
+    ctc = {}
+    for k, v in st["model"].items():
+        if k.startswith(("encoder.conv.", "encoder.rnn.")):
+            ctc[k[len("encoder."):]] = v.clone()
+        elif k.startswith("ctc_head."):
+            ctc["fc." + k[len("ctc_head."):]] = v.clone()
+    CRNN, _, _, _ = build_modules()
+    CRNN(len(CTC_CLASSES)).load_state_dict(ctc)             # every tensor of a CTC model, no other
+    out_ckpt.parent.mkdir(parents=True, exist_ok=True)
+    torch.save({"model": ctc, "step": st["step"], "elapsed": st.get("elapsed", 0.0), "from_seq": str(seq_ckpt)},
+               out_ckpt)
+    return st["step"]
+
+
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
           device: str = "cpu", workers: int = 0, encoder_from: Path | None = None, unfreeze: bool = False):
     import torch
@@ -1106,12 +1126,18 @@ def main(argv=None):
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
     sub.add_parser("readme", help="rewrite the figures and sha256 block of models/README.md")
+    c = sub.add_parser("ctc-from-seq", help="write WORK/ctc.pt from the seq model's encoder and CTC head")
+    c.add_argument("seq_checkpoint", type=Path)
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
         train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from, a.unfreeze)
     elif a.cmd == "readme":
         write_readme_block()
+    elif a.cmd == "ctc-from-seq":
+        step = ctc_from_seq(a.seq_checkpoint, WORK / "ctc.pt")
+        (WORK / "ctc.done").write_text(json.dumps({"step": step, "from_seq": str(a.seq_checkpoint)}))
+        print(f"{WORK / 'ctc.pt'}: the CTC part of {a.seq_checkpoint} (step {step})")
     else:
         export(a.opset, a.only)
         write_readme_block()

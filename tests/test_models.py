@@ -30,13 +30,18 @@ import onnx  # noqa: E402
 import onnxruntime as ort  # noqa: E402
 
 
-def _build_module():
+def _models_module(name: str):
+    """models/build.py or models/linegen.py, imported by name."""
+    import importlib
     sys.path.insert(0, str(MODELS))
     try:
-        import build  # type: ignore
+        return importlib.import_module(name)
     finally:
         sys.path.pop(0)
-    return build
+
+
+def _build_module():
+    return _models_module("build")
 
 
 def _collapse(s: str) -> str:
@@ -244,12 +249,7 @@ def test_build_script_data_generator_runs_without_torch():
 
 
 def _linegen():
-    sys.path.insert(0, str(MODELS))
-    try:
-        import linegen  # type: ignore
-    finally:
-        sys.path.pop(0)
-    return linegen
+    return _models_module("linegen")
 
 
 def _x_height(lg, path, size) -> int:
