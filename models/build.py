@@ -543,7 +543,8 @@ def transplant_encoder(model, ctc_ckpt: Path) -> None:
 def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> int:
     """A CTC checkpoint from a seq model's encoder and auxiliary CTC head (the reverse of
     ``transplant_encoder``): the seq encoder is ledger-ctc's architecture, so its convolutions, LSTM and
-    head are a CTC recogniser of their own, exported by ``export --only ctc``. Returns the step."""
+    head are a CTC recogniser of their own, exported by ``export --only ctc``. Returns the seq model's
+    step and training minutes."""
     import torch
     st = torch.load(seq_ckpt, weights_only=False, map_location="cpu")
     ctc = {}
@@ -557,7 +558,7 @@ def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> int:
     out_ckpt.parent.mkdir(parents=True, exist_ok=True)
     torch.save({"model": ctc, "step": st["step"], "elapsed": st.get("elapsed", 0.0), "from_seq": str(seq_ckpt)},
                out_ckpt)
-    return st["step"]
+    return st["step"], st.get("elapsed", 0.0) / 60
 
 
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
@@ -807,7 +808,7 @@ def export(opset: int = 17, only: str | None = None):
                              "heldout_cer_ws_collapsed_with_random_chars": c_any,
                              "heldout_families_cer_clean": fam_cer[False], "heldout_families_cer_degraded": fam_cer[True],
                              "heldout_families_lines": len(fam[False]), "train_steps": done.get("step"),
-                             "train_minutes": done.get("minutes")}
+                             "train_minutes": done.get("minutes"), "from_seq": done.get("from_seq", False)}
         print(json.dumps(figures[CTC_NAME], indent=1))
 
     # ---- seq
@@ -1085,7 +1086,8 @@ def write_readme_block():
     row("onnxruntime vs torch, max abs diff",
         lambda f: (f"{f['parity_max_abs_diff']:.1e}" if not isinstance(f['parity_max_abs_diff'], dict)
                    else ", ".join(f"{k} {v:.1e}" for k, v in f['parity_max_abs_diff'].items())))
-    row("training steps (32 lines each)", lambda f: f"{f['train_steps']:,}")
+    row("training steps (32 lines each)",
+        lambda f: f"{f['train_steps']:,}" + (" (the seq model's: its encoder and CTC head)" if f.get("from_seq") else ""))
     row("training wall-clock minutes (2 shared cores)", lambda f: f"{f['train_minutes']:.0f}")
     lines += ["", "### sha256 of the shipped files", ""]
     for n in (CTC_NAME, SEQ_NAME):
@@ -1135,8 +1137,8 @@ def main(argv=None):
     elif a.cmd == "readme":
         write_readme_block()
     elif a.cmd == "ctc-from-seq":
-        step = ctc_from_seq(a.seq_checkpoint, WORK / "ctc.pt")
-        (WORK / "ctc.done").write_text(json.dumps({"step": step, "from_seq": str(a.seq_checkpoint)}))
+        step, minutes = ctc_from_seq(a.seq_checkpoint, WORK / "ctc.pt")
+        (WORK / "ctc.done").write_text(json.dumps({"step": step, "minutes": minutes, "from_seq": True}))
         print(f"{WORK / 'ctc.pt'}: the CTC part of {a.seq_checkpoint} (step {step})")
     else:
         export(a.opset, a.only)

@@ -191,8 +191,10 @@ def test_variant_command_static_calibration_folder(source, tmp_path):
 @pytest.mark.slow
 def test_demo_ctc_variant_against_reference_evaluator(tmp_path):
     """The demo CTC model's dynamic int8 copy (LSTM, MatMul) on one batch of two real demo lines against the
-    float graph in the reference implementation; tolerance as in the tiny test above (posteriors within
-    0.05, best class equal at 99 % of frames: measured 0.024 and 99.95 % on 8 lines)."""
+    float graph in the reference implementation: the best class equal at 99 % of frames, posteriors within
+    0.1. (Measured on 8 demo lines: the model shipped until 2026-12-03 0.024 and 99.95 %; the one shipped
+    since, the seq model's encoder and CTC head, 0.033-0.061 and 99.8-100 %, and its int8 copy reads all
+    227 lines of the first 8 demo pages exactly as the float model does. The tiny test above keeps 0.05.)"""
     from ocrbench.pages import analyse_page, list_pages, load_page
 
     src = load_card(rs.need_demo(rs.DEMO_CTC))
@@ -203,5 +205,5 @@ def test_demo_ctc_variant_against_reference_evaluator(tmp_path):
     want = softmax(ReferenceEvaluator(onnx.load(str(src.ctc.model))).run(None, {"image": x})[0])
     got = softmax(ort.InferenceSession(str(res.card.ctc.model), providers=["CPUExecutionProvider"])
                   .run(None, {"image": x})[0])
-    assert np.abs(got - want).max() <= 0.05
+    assert np.abs(got - want).max() <= 0.1
     assert (got.argmax(-1) == want.argmax(-1)).mean() >= 0.99
