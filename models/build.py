@@ -540,7 +540,7 @@ def transplant_encoder(model, ctc_ckpt: Path) -> None:
     model.load_state_dict(state)
 
 
-def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> int:
+def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> tuple[int, float]:
     """A CTC checkpoint from a seq model's encoder and auxiliary CTC head (the reverse of
     ``transplant_encoder``): the seq encoder is ledger-ctc's architecture, so its convolutions, LSTM and
     head are a CTC recogniser of their own, exported by ``export --only ctc``. Returns the seq model's

@@ -9,8 +9,9 @@ figures are measured on shapes the models never saw.
 
 Lines look like crops of real pages: field gaps up to 25 em (table columns),
 cell rules and underlines, zebra shading, stroke-weight and letter-spacing
-variation, x-heights down to 6 px (the face's x measured, ``X_HEIGHT_FLOOR``), curved baselines, uneven illumination,
-JPEG artefacts, plus the degradations of ``ocrbench.synth``. Text beyond cash
+variation, x-heights down to 6 px (each face's x measured: ``X_HEIGHT_FLOOR``),
+curved baselines, uneven illumination, JPEG artefacts, plus the degradations
+of ``ocrbench.synth``. Text beyond cash
 books: register entries, running prose, headings, numbers.
 
 Font packages (Debian): fonts-dejavu-core fonts-dejavu-extra fonts-liberation2
@@ -350,11 +351,17 @@ X_HEIGHT_FLOOR = 6              # px: the smallest type drawn (the font's x abov
 _SMALLEST: dict[Path, int] = {}
 
 
+def x_height(path: Path, size: int) -> int:
+    """The face's lower-case x above the baseline, in pixels at that size (FreeType's glyph box; the rows
+    an x drawn there actually inks differ from it by a pixel in some faces)."""
+    return -load_font(path, size).getbbox("x", anchor="ls")[1]
+
+
 def smallest_size(path: Path) -> int:
     """The smallest size (9 or more) at which the face's x-height is at least X_HEIGHT_FLOOR pixels."""
     if path not in _SMALLEST:
         size = 9
-        while -load_font(path, size).getbbox("x", anchor="ls")[1] < X_HEIGHT_FLOOR and size < 38:
+        while x_height(path, size) < X_HEIGHT_FLOOR and size < 38:
             size += 1
         _SMALLEST[path] = size
     return _SMALLEST[path]

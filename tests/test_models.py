@@ -252,11 +252,6 @@ def _linegen():
     return _models_module("linegen")
 
 
-def _x_height(lg, path, size) -> int:
-    """The face's lower-case x above the baseline in pixels, as FreeType draws it at that size."""
-    return -lg.load_font(path, size).getbbox("x", anchor="ls")[1]
-
-
 def test_line_generator_keeps_to_the_x_height_floor():
     """Issue 17 specifies training lines 'x-heights down to 6 px': no line is drawn in smaller type, and the
     floor is the smallest size that reaches it (the x measured in each face, not a fixed size)."""
@@ -264,8 +259,8 @@ def test_line_generator_keeps_to_the_x_height_floor():
     faces = lg.faces(lg.TRAIN_FAMILIES + lg.HELDOUT_FAMILIES)
     for _, path, _ in faces:
         lo = lg.smallest_size(path)
-        assert _x_height(lg, path, lo) >= lg.X_HEIGHT_FLOOR == 6
-        assert lo == 9 or _x_height(lg, path, lo - 1) < 6, path.name
+        assert lg.x_height(path, lo) >= lg.X_HEIGHT_FLOOR == 6
+        assert lo == 9 or lg.x_height(path, lo - 1) < 6, path.name
     sizes = []
     load = lg.load_font
     lg.load_font = lambda path, size: sizes.append((path, size)) or load(path, size)
@@ -278,7 +273,7 @@ def test_line_generator_keeps_to_the_x_height_floor():
             drawn.append(sizes[-1])
     finally:
         lg.load_font = load
-    heights = [_x_height(lg, p, s) for p, s in drawn]
+    heights = [lg.x_height(p, s) for p, s in drawn]
     assert min(heights) >= 6 and sum(h <= 8 for h in heights) >= 5      # small type is still drawn
 
 

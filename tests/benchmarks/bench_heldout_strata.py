@@ -52,7 +52,7 @@ def lines_with_strata(n: int, degraded: bool, seed: int = 20261202):
             img, text, kind, _ = linegen.render_line(rng, faces, degrade=degraded)
             if kind in linegen.TEST_KINDS and text:
                 path, size = used[-1]                  # (the size drawn; smallest_size probes first)
-                xh = -load(path, size).getbbox("x", anchor="ls")[1]
+                xh = linegen.x_height(path, size)
                 a = np.asarray(img, dtype=np.float64)
                 out.append((img, text, xh, float(np.median(a) - np.percentile(a, 1))))
     finally:
