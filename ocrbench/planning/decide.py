@@ -213,28 +213,28 @@ def _other_changes(o: Option, inputs: PlanInputs) -> list[tuple]:
         budget_need = r["cost_high"] if r["cost_high"] is not None else r["cost_priced_part_high"]
         raise_budget = (f"raise the budget to {money_text(budget_need, inputs.currency)} for {m.recogniser} on "
                         f"{m.profile} ({money_text(goals.budget, inputs.currency)} given)")
+
+    def offer(alone: int, pair: int, size: float, change: str, text: str) -> None:
+        """The change alone (rank ``alone``) where the budget holds; with the budget raised too (rank ``pair``)
+        where it fails as well."""
+        if not over_budget:
+            out.append(_change(alone, size, o, r, change, text))
+        else:
+            out.append(_change(pair, budget_need / goals.budget, o, r,
+                               f"{change}; budget -> {money_text(budget_need, inputs.currency)}",
+                               f"{text}, and {raise_budget}", two=True))
+
     if (r.get("correction_meets_deadline") is False and r.get("correctors_needed")
             and r.get("recognition_meets_deadline") is not False):
-        change = f"correctors {r['correctors']} -> {r['correctors_needed']}"
-        text = (f"{r['correctors_needed']} correctors instead of {r['correctors']} for {m.recogniser}'s "
-                f"{r['people_hours_high']:,.0f} hours of review and correction")
-        if not over_budget:
-            out.append(_change(0, r["correctors_needed"] - (r["correctors"] or 0), o, r, change, text))
-        else:
-            out.append(_change(4, budget_need / goals.budget, o, r,
-                               f"{change}; budget -> {money_text(budget_need, inputs.currency)}",
-                               f"{text}, and {raise_budget}", two=True))
+        offer(0, 4, r["correctors_needed"] - (r["correctors"] or 0),
+              f"correctors {r['correctors']} -> {r['correctors_needed']}",
+              f"{r['correctors_needed']} correctors instead of {r['correctors']} for {m.recogniser}'s "
+              f"{r['people_hours_high']:,.0f} hours of review and correction")
     if r["meets_deadline"] is False:
         need = max(r["wall_seconds_p90"], r.get("people_seconds_high") or 0.0)
-        change = f"deadline -> {format_duration(need)}"
-        text = (f"extend the deadline to {format_duration(need)} (recognition and correction of "
-                f"{m.recogniser} on {m.profile}, {format_duration(goals.deadline_s)} given)")
-        if not over_budget:
-            out.append(_change(2, need / goals.deadline_s, o, r, change, text))
-        else:
-            out.append(_change(5, budget_need / goals.budget, o, r,
-                               f"{change}; budget -> {money_text(budget_need, inputs.currency)}",
-                               f"{text}, and {raise_budget}", two=True))
+        offer(2, 5, need / goals.deadline_s, f"deadline -> {format_duration(need)}",
+              f"extend the deadline to {format_duration(need)} (recognition and correction of "
+              f"{m.recogniser} on {m.profile}, {format_duration(goals.deadline_s)} given)")
     if over_budget and r["meets_deadline"] is not False:
         out.append(_change(3, budget_need / goals.budget, o, r,
                            f"budget -> {money_text(budget_need, inputs.currency)}", raise_budget))

@@ -147,8 +147,8 @@ def _best_accuracy(r: Mapping) -> tuple[str, str] | None:
 
 def _decision(s: Mapping) -> str:
     """The decision in a few lines: the verdict, each option's time, cost (compute, and people's review and
-    correction, which add up to the total) and
-    accuracy with intervals, whether the goals hold, and the warnings that matter most."""
+    correction, which add up to the total) and accuracy with intervals, whether the goals hold, and the
+    warnings that matter most."""
     runs = s["recognisers"]
     plan = s.get("plan") or {}
     rec = plan.get("recommendation") or {}
