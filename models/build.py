@@ -540,11 +540,13 @@ def transplant_encoder(model, ctc_ckpt: Path) -> None:
     model.load_state_dict(state)
 
 
-def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> tuple[int, float]:
+def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path, new_schedule: bool = False) -> tuple[int, float]:
     """A CTC checkpoint from a seq model's encoder and auxiliary CTC head (the reverse of
     ``transplant_encoder``): the seq encoder is ledger-ctc's architecture, so its convolutions, LSTM and
-    head are a CTC recogniser of their own, exported by ``export --only ctc``. Returns the seq model's
-    step and training minutes."""
+    head are a CTC recogniser of their own, exported by ``export --only ctc``. With ``new_schedule`` the
+    checkpoint starts a training stage of its own (``train ctc`` then fine-tunes it on the CTC loss alone,
+    with a fresh warm-up and cosine over its ``--minutes``). Returns the seq model's step and training
+    minutes."""
     import torch
     st = torch.load(seq_ckpt, weights_only=False, map_location="cpu")
     ctc = {}
@@ -556,8 +558,9 @@ def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path) -> tuple[int, float]:
     CRNN, _, _, _ = build_modules()
     CRNN(len(CTC_CLASSES)).load_state_dict(ctc)             # every tensor of a CTC model, no other
     out_ckpt.parent.mkdir(parents=True, exist_ok=True)
-    torch.save({"model": ctc, "step": st["step"], "elapsed": st.get("elapsed", 0.0), "from_seq": str(seq_ckpt)},
-               out_ckpt)
+    elapsed = 0.0 if new_schedule else st.get("elapsed", 0.0)
+    torch.save({"model": ctc, "step": st["step"], "elapsed": elapsed, "from_seq": str(seq_ckpt),
+                "warm_from": st["step"] if new_schedule else 0}, out_ckpt)
     return st["step"], st.get("elapsed", 0.0) / 60
 
 
@@ -971,6 +974,7 @@ scale = 0.00392156862745098
 mean = 0.0
 std = 1.0
 flatten = true          # the paper's shading divided out of each crop (measured on the demo pages: see models/README.md)
+trim = true             # paper above and below the text cut to a fixed margin (measured: see models/README.md)
 
 [ctc]
 model = "model.onnx"
@@ -997,6 +1001,7 @@ scale = 0.00392156862745098
 mean = 0.0
 std = 1.0
 flatten = true          # the paper's shading divided out of each crop (measured on the demo pages: see models/README.md)
+trim = true             # paper above and below the text cut to a fixed margin (measured: see models/README.md)
 split_gap = 0.0         # whole lines: joint decoding reads across table gaps (1.0 cuts lines at gaps wider than one line height)
 
 [seq]
@@ -1130,6 +1135,8 @@ def main(argv=None):
     sub.add_parser("readme", help="rewrite the figures and sha256 block of models/README.md")
     c = sub.add_parser("ctc-from-seq", help="write WORK/ctc.pt from the seq model's encoder and CTC head")
     c.add_argument("seq_checkpoint", type=Path)
+    c.add_argument("--new-schedule", action="store_true",
+                   help="start a CTC-only fine-tuning stage (train ctc) with its own warm-up and cosine")
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
@@ -1137,8 +1144,9 @@ def main(argv=None):
     elif a.cmd == "readme":
         write_readme_block()
     elif a.cmd == "ctc-from-seq":
-        step, minutes = ctc_from_seq(a.seq_checkpoint, WORK / "ctc.pt")
-        (WORK / "ctc.done").write_text(json.dumps({"step": step, "minutes": minutes, "from_seq": True}))
+        step, minutes = ctc_from_seq(a.seq_checkpoint, WORK / "ctc.pt", a.new_schedule)
+        if not a.new_schedule:                               # (a stage to train is not done)
+            (WORK / "ctc.done").write_text(json.dumps({"step": step, "minutes": minutes, "from_seq": True}))
         print(f"{WORK / 'ctc.pt'}: the CTC part of {a.seq_checkpoint} (step {step})")
     else:
         export(a.opset, a.only)

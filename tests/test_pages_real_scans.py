@@ -301,7 +301,7 @@ def _card_with(folder: Path, tmp_path: Path, extra: str) -> Path:
         if f.is_file() and f.name != "card.toml":
             shutil.copy(f, out / f.name)
     text = "".join(ln for ln in (folder / "card.toml").read_text(encoding="utf-8").splitlines(keepends=True)
-                   if not ln.startswith("flatten ="))                  # the demo cards' own setting left out
+                   if not ln.startswith(("flatten =", "trim =")))     # the demo cards' own settings left out
     text = text.replace("[input]\n", "[input]\n" + extra, 1)
     (out / "card.toml").write_text(text, encoding="utf-8")
     return out

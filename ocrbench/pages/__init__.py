@@ -49,7 +49,7 @@ from ocrbench.pages.analyse import Layout, LineBox, analyse_page, lines_from_ink
 from ocrbench.pages.binarise import MIN_CONTRAST, binarise, flatten_illumination, otsu_threshold
 from ocrbench.pages.components import Components, connected_components, row_runs
 from ocrbench.pages.crops import (CROP_PAD_HORIZONTAL, CROP_PAD_VERTICAL, clean_crop, crop_line, flatten_crop,
-                                  remove_crop_rules)
+                                  remove_crop_rules, trim_crop, trim_rows)
 from ocrbench.pages.listing import (COMPANION_SUFFIXES, IMAGE_SUFFIXES, PAGE_SUFFIXES, PDF_SUFFIXES, Listing, PageRef,
                                     list_pages, scan_pages)
 from ocrbench.pages.load import DEFAULT_MAX_PIXELS, Page, load_page
@@ -64,7 +64,7 @@ __all__ = [
     "COMPANION_SUFFIXES", "CROP_PAD_HORIZONTAL", "CROP_PAD_VERTICAL", "Components", "DEFAULT_MAX_PIXELS",
     "DEFAULT_PDF_DPI", "IMAGE_SUFFIXES", "Listing", "PAGE_SUFFIXES", "PDF_SUFFIXES", "scan_pages",
     "PageCheck", "check_page", "detect_rotation", "turn_upright", "clean_crop", "flatten_crop", "remove_crop_rules",
-    "survey_page", "inspect_page", "cut_overwide",
+    "trim_crop", "trim_rows", "survey_page", "inspect_page", "cut_overwide",
     "Layout", "LineBox", "MIN_CONTRAST", "MIN_DESKEW_DEGREES", "MIN_LINE_HEIGHT", "Page", "PageRef",
     "analyse_page", "binarise", "connected_components", "crop_line", "deskew", "estimate_skew",
     "find_line_boxes", "flatten_illumination", "lines_from_ink", "list_pages", "load_page",

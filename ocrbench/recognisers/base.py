@@ -20,6 +20,7 @@ from ocrbench.recognisers.batching import PreparedBatch, prepare_batches, valid_
 from ocrbench.recognisers.card import Card
 from ocrbench.recognisers.engine import (BATCH_MODES, DECODINGS, GRAPH_LEVELS, BatchTiming, Clock, EngineOptions,
                                          make_session, onnx_dtype, resolve_providers, share_time)
+from ocrbench.pages.crops import clean_crop
 from ocrbench.pages.segment import cut_overwide, split_at_gaps
 from ocrbench.recognisers.preprocess import InputSpec
 
@@ -108,26 +109,45 @@ class Recogniser:
     def _sessions(self) -> list:
         raise NotImplementedError
 
-    def prepare(self, crops: Sequence[np.ndarray], *, clock: Clock = time.perf_counter) -> list[PreparedBatch]:
-        """Resize every crop, group by width, and stack each group into a padded tensor."""
-        return prepare_batches(crops, self.spec, self.options.batch_size, self.options.max_pad_ratio, clock=clock)
+    def prepare(self, crops: Sequence[np.ndarray], *, clock: Clock = time.perf_counter,
+                spent: Sequence[float] | None = None) -> list[PreparedBatch]:
+        """Clean and resize every crop, group by width, and stack each group into a padded tensor
+        (``spent``: :func:`~ocrbench.recognisers.batching.prepare_batches`)."""
+        return prepare_batches(crops, self.spec, self.options.batch_size, self.options.max_pad_ratio, clock=clock,
+                               spent=spent)
 
     def recognise(self, crops: Sequence[np.ndarray], *,
                   clock: Clock = time.perf_counter) -> tuple[list[LineResult], list[BatchTiming]]:
         """Recognise line crops (uint8 grey, ink dark). Results come back in the crops' order.
 
         With the card's ``split_gap`` set, each line is cut at wide blank gaps, the
-        pieces are recognised as lines of their own and joined with one space. A
+        pieces are recognised as lines of their own and joined with one space (with the card's ``trim``, the
+        whole line is cleaned and trimmed first, so every piece keeps the line's height). A
         line wider than the card's ``max_width`` once scaled to its height (cards
         without a fixed ``width``) is cut the same way
         (:func:`~ocrbench.pages.segment.cut_overwide`: at blank gaps, else at the
         column with least ink) instead of being squeezed; pieces cut where there
         was no gap are joined without a space.
         """
+        spent = None
+        if self.spec.trim:
+            crops, spent = self._cleaned(crops, clock)
         spans = [self._spans(np.asarray(c)) for c in crops]
         if self.spec.split_gap > 0 or any(len(sp) > 1 for sp in spans):
-            return self._recognise_split(crops, spans, clock=clock)
-        return self._recognise_whole(crops, clock=clock)
+            return self._recognise_split(crops, spans, clock=clock, spent=spent)
+        return self._recognise_whole(crops, clock=clock, spent=spent)
+
+    def _cleaned(self, crops, clock) -> tuple[list, list[float]]:
+        """Every crop cleaned as the card says (:func:`~ocrbench.pages.crops.clean_crop`) and the seconds each took."""
+        out, spent = [], []
+        sp = self.spec
+        for c in crops:
+            t0 = clock()
+            g = np.asarray(c)
+            out.append(clean_crop(g, flatten=sp.flatten, remove_rules=sp.remove_rules, trim=sp.trim)
+                       if g.ndim == 2 and g.size else g)
+            spent.append(clock() - t0)
+        return out, spent
 
     def _spans(self, g: np.ndarray) -> list[tuple[int, int]]:
         """Column spans of the pieces a crop is read in: one (the whole crop) unless split or over-wide."""
@@ -139,8 +159,8 @@ class Recogniser:
             spans = [(a + c, a + d) for a, b in spans for c, d in cut_overwide(g[:, a:b], max_aspect)]
         return spans
 
-    def _recognise_split(self, crops, spans, *, clock):
-        pieces, owner, glue = [], [], []
+    def _recognise_split(self, crops, spans, *, clock, spent=None):
+        pieces, owner, glue, piece_spent = [], [], [], []
         for i, (c, sp) in enumerate(zip(crops, spans)):
             g = np.asarray(c)
             for k, (a, b) in enumerate(sp):
@@ -148,7 +168,9 @@ class Recogniser:
                 owner.append(i)
                 # a cut where there was no gap (cut_overwide's last resort) leaves adjacent spans: no space
                 glue.append("" if k and sp[k - 1][1] == a else " ")
-        part_results, timings = self._recognise_whole(pieces, clock=clock)
+                piece_spent.append(spent[i] if spent is not None and k == 0 else 0.0)
+        part_results, timings = self._recognise_whole(pieces, clock=clock,
+                                                      spent=piece_spent if spent is not None else None)
         merged: list[LineResult | None] = [None] * len(crops)
         groups: dict[int, list[tuple[LineResult, str]]] = {}
         for i, r, j in zip(owner, part_results, glue):
@@ -181,10 +203,11 @@ class Recogniser:
                                    t_line=sum(r.t_line for r in rs), failure=failure, cut_by=cut_by)
         return merged, timings  # type: ignore[return-value]
 
-    def _recognise_whole(self, crops, *, clock):
+    def _recognise_whole(self, crops, *, clock, spent=None):
+        """``spent``: the crops were cleaned already, in these seconds each."""
         results: list[LineResult | None] = [None] * len(crops)
         timings = []
-        for pb in self.prepare(crops, clock=clock):
+        for pb in self.prepare(crops, clock=clock, spent=spent):
             lines, timing = self.run_batch(pb, clock=clock)
             for i, r in zip(pb.indices, lines):
                 results[i] = r

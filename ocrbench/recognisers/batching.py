@@ -35,27 +35,29 @@ class PreparedBatch:
         return int(self.tensor.shape[self.width_axis])
 
 
-def prepare_line(crop: np.ndarray, spec: InputSpec) -> np.ndarray:
-    """One crop cleaned as the card says (``flatten``, ``remove_rules``: :func:`ocrbench.pages.crops.clean_crop`)
-    and resized to the card's height."""
+def prepare_line(crop: np.ndarray, spec: InputSpec, *, cleaned: bool = False) -> np.ndarray:
+    """One crop cleaned as the card says (``flatten``, ``remove_rules``, ``trim``:
+    :func:`ocrbench.pages.crops.clean_crop`) and resized to the card's height. ``cleaned``: the crop was
+    cleaned already (a trimmed line is cleaned whole before it is cut into pieces)."""
     g = np.asarray(crop)
-    if (spec.flatten or spec.remove_rules) and g.ndim == 2 and g.size:
-        g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules)
+    if not cleaned and (spec.flatten or spec.remove_rules or spec.trim) and g.ndim == 2 and g.size:
+        g = clean_crop(g, flatten=spec.flatten, remove_rules=spec.remove_rules, trim=spec.trim)
     return resize_line(g, spec)
 
 
 def prepare_batches(crops: Sequence[np.ndarray], spec: InputSpec, batch_size: int, max_pad_ratio: float, *,
-                    clock: Clock = time.perf_counter) -> list[PreparedBatch]:
-    """Clean every crop as the card says (``flatten``, ``remove_rules``), resize it, group by width, and
-    stack each group into a padded tensor."""
+                    clock: Clock = time.perf_counter, spent: Sequence[float] | None = None) -> list[PreparedBatch]:
+    """Clean every crop as the card says (``flatten``, ``remove_rules``, ``trim``), resize it, group by width, and
+    stack each group into a padded tensor. ``spent``: the crops were cleaned already, in these seconds each
+    (counted in the batches' preprocessing time)."""
     resized, t_resize = [], []
     for i, c in enumerate(crops):
         t0 = clock()
         try:
-            resized.append(prepare_line(c, spec))
+            resized.append(prepare_line(c, spec, cleaned=spent is not None))
         except ValueError as e:
             raise ValueError(f"line {i + 1}: {e}") from e
-        t_resize.append(clock() - t0)
+        t_resize.append(clock() - t0 + (spent[i] if spent is not None else 0.0))
     groups = width_batches([r.shape[1] for r in resized], batch_size, max_pad_ratio)
     out = []
     for b, idx in enumerate(groups):

@@ -252,6 +252,7 @@ INPUT_SCHEMA = {
     "filter": _str(_D.filter, choices=tuple(FILTERS)),
     "flatten": Key((bool,), _D.flatten),
     "remove_rules": Key((bool,), _D.remove_rules),
+    "trim": Key((bool,), _D.trim),
 }
 TOP_SCHEMA = {
     "name": _str(),

@@ -29,9 +29,9 @@ class InputSpec:
 
     ``mean``/``std``: one value, or one per channel. ``width``: a fixed input width (every line is
     resized to fit it: ``resize = "stretch"`` ignores the aspect ratio, ``"keep_aspect_pad"`` keeps it and
-    pads with paper). ``filter``: the resampling filter. ``flatten`` / ``remove_rules``: clean each crop
-    before it is resized (:func:`ocrbench.pages.crops.clean_crop`: long rules painted out, the paper's shading
-    divided out).
+    pads with paper). ``filter``: the resampling filter. ``flatten`` / ``remove_rules`` / ``trim``: clean each
+    crop before it is resized (:func:`ocrbench.pages.crops.clean_crop`: paper above and below the text cut to a
+    fixed margin, long rules painted out, the paper's shading divided out).
     """
 
     height: int = 32
@@ -50,6 +50,7 @@ class InputSpec:
     filter: str = "bilinear"
     flatten: bool = False
     remove_rules: bool = False
+    trim: bool = False
 
     def per_channel(self, v: float | tuple[float, ...]) -> np.ndarray:
         a = np.asarray(v, np.float32).reshape(-1)
