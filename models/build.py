@@ -40,6 +40,7 @@ sys.path.insert(0, str(HERE))
 
 from ocrbench import synth  # noqa: E402
 import linegen  # noqa: E402  (models/linegen.py: many typefaces, held-out design families)
+from ocrbench.pages.crops import clean_crop  # noqa: E402
 from ocrbench.recognisers.preprocess import InputSpec, make_batch, resize_line  # noqa: E402
 
 WORK = Path(os.environ.get("OCRBENCH_BUILD_WORK", HERE / "_work"))
@@ -96,6 +97,11 @@ def heldout_lines(n: int = 300, seed: int = 987654, *, kinds=("ledger", "prose",
 TEXT_KINDS = ("ledger", "prose", "numbers")
 
 
+#: ``train --clean``: training lines are cleaned as the demo cards clean crops at run time ([input] flatten and
+#: trim: ocrbench.pages.crops.clean_crop) before they are resized.
+CLEAN_AS_CARDS = {"on": False}
+
+
 def draw_pool(key, n: int) -> list[tuple[np.ndarray, str]]:
     """``n`` training lines drawn from the seed ``key`` (resized to the model's height, none wider than
     MAX_TRAIN_WIDTH), sorted by width so batches cut from it carry little padding. No torch."""
@@ -103,7 +109,10 @@ def draw_pool(key, n: int) -> list[tuple[np.ndarray, str]]:
     pool = []
     while len(pool) < n:
         im, t = linegen.train_line(rng)
-        r = resize_line(np.asarray(im), SPEC)
+        a = np.asarray(im)
+        if CLEAN_AS_CARDS["on"]:
+            a = clean_crop(a, flatten=True, trim=True)
+        r = resize_line(a, SPEC)
         if r.shape[1] <= MAX_TRAIN_WIDTH and t:
             pool.append((r, t))
     pool.sort(key=lambda p: p[0].shape[1])
@@ -565,8 +574,10 @@ def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path, new_schedule: bool = False) -> 
 
 
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
-          device: str = "cpu", workers: int = 0, encoder_from: Path | None = None, unfreeze: bool = False):
+          device: str = "cpu", workers: int = 0, encoder_from: Path | None = None, unfreeze: bool = False,
+          clean: bool = False):
     import torch
+    CLEAN_AS_CARDS["on"] = clean
     from torch import nn
     torch.manual_seed(seed)
     torch.set_num_threads(threads)
@@ -613,7 +624,8 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken}
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
-    heldout_fam = [(resize_line(np.asarray(im), SPEC), t) for im, t, _ in linegen.heldout_family_lines(100, degraded=True)]
+    heldout_fam = [(resize_line(clean_crop(np.asarray(im), flatten=True, trim=True) if clean else np.asarray(im), SPEC), t)
+                   for im, t, _ in linegen.heldout_family_lines(100, degraded=True)]
     ctc_loss = nn.CTCLoss(blank=0, zero_infinity=True)
     ce = nn.CrossEntropyLoss(ignore_index=PAD, label_smoothing=0.1)
     model.to(dev)
@@ -630,6 +642,8 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     log = open(WORK / f"{kind}.log", "a")
     if device != "cpu" or workers:
         print(f"{kind}: training on {dev}, {workers} line-drawing processes", file=log, flush=True)
+    if clean:
+        print(f"{kind}: training lines cleaned as the demo cards clean crops (flatten, trim)", file=log, flush=True)
     while True:
         elapsed = time.time() - t0
         if elapsed > budget:
@@ -1129,6 +1143,8 @@ def main(argv=None):
                    help="seq: take the encoder from this CTC checkpoint, freeze it and start a new schedule")
     t.add_argument("--unfreeze", action="store_true",
                    help="seq: train a taken (frozen) encoder on with the decoder from here")
+    t.add_argument("--clean", action="store_true",
+                   help="clean training lines as the demo cards clean crops ([input] flatten, trim) before resizing")
     e = sub.add_parser("export")
     e.add_argument("--opset", type=int, default=17)
     e.add_argument("--only", choices=["ctc", "seq"], default=None)
@@ -1140,7 +1156,8 @@ def main(argv=None):
     a = ap.parse_args(argv)
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
-        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from, a.unfreeze)
+        train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from, a.unfreeze,
+              a.clean)
     elif a.cmd == "readme":
         write_readme_block()
     elif a.cmd == "ctc-from-seq":

@@ -28,7 +28,7 @@ def need_demo(folder: Path) -> Path:
 
 def open_demo(folder: Path, **input_fields):
     """A demo recogniser opened as a run opens it; ``input_fields`` override its card's [input]
-    (e.g. ``flatten=False``: crops as cut)."""
+    (e.g. ``flatten=False, trim=False``: crops as cut)."""
     import dataclasses
 
     from ocrbench.recognisers.card import load_card

@@ -231,10 +231,10 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
             texts.append(greedy_collapse(np.argmax(logits[:frames], axis=1).tolist(), 0, symbols))
         direct[ref.id] = texts
     with RunStore(tmp_path / "s.sqlite") as st:
-        # The direct path reads the crops as cut, so the runner does too here (the card's flatten off).
+        # The direct path reads the crops as cut, so the runner does too here (the card's flatten and trim off).
         import dataclasses
         card = load_card(folder)
-        card = dataclasses.replace(card, input=dataclasses.replace(card.input, flatten=False))
+        card = dataclasses.replace(card, input=dataclasses.replace(card.input, flatten=False, trim=False))
         summary = run_pages(pages, [card], store=st, options=EngineOptions(batch_size=1))
         got = st.page_texts(summary.recognisers[0].run_id)
     assert got == direct

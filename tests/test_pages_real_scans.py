@@ -284,7 +284,7 @@ def test_flattening_crops_of_the_photographed_page(folder, before_at_least, afte
     # remove_rules changes nothing here (no rules cross these lines).
     layout = analyse_page(skdata.page())
     crops = [ln.crop for ln in layout.lines[1:6]]
-    rec = open_demo(folder, flatten=False)                           # (the demo cards flatten: off here)
+    rec = open_demo(folder, flatten=False, trim=False)               # (the demo cards clean crops: off here)
     plain = _cer(PAGE_BODY, _texts(rec, crops))
     flat = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True) for c in crops]))
     both = _cer(PAGE_BODY, _texts(rec, [clean_crop(c, flatten=True, remove_rules=True) for c in crops]))

@@ -298,8 +298,8 @@ def test_demo_pages_equal_a_direct_onnxruntime_path(tmp_path):
             direct[w_ctc][ref.id] = texts
     import dataclasses
     card = load_card(folder)
-    # The direct path reads whole lines as cut, so the runner does too here (the card's flatten off).
-    card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0, flatten=False))
+    # The direct path reads whole lines as cut, so the runner does too here (the card's flatten and trim off).
+    card = dataclasses.replace(card, input=dataclasses.replace(card.input, split_gap=0.0, flatten=False, trim=False))
     for w_ctc in direct:
         with RunStore(tmp_path / f"s{w_ctc}.sqlite") as st:
             summary = run_pages(pages, [card], store=st,
