@@ -190,14 +190,20 @@ def trim_rows(crop: np.ndarray, *, flattened: bool = False) -> tuple[int, int]:
         return whole
     ink = flat <= otsu_threshold(flat)
     h = g.shape[0]
-    runs, starts, ends = row_runs(ink)                 # long row runs: rules and underlines
-    long_rows = [x[(ends - starts) >= RULE_MIN_LENGTH * h] for x in (runs, starts, ends)]
-    cols, starts, ends = row_runs(np.ascontiguousarray(ink.T))    # column rules through the crop
-    long_cols = [x[(ends - starts) > RULE_MIN_HEIGHT * h] for x in (cols, starts, ends)]
-    for r, a, b in zip(*long_rows):
-        ink[r, a:b] = False
-    for c, a, b in zip(*long_cols):
-        ink[a:b, c] = False
+    # long row runs (rules, underlines) and column runs through the crop (column rules), looked for only in
+    # the rows and columns with ink enough to hold one
+    rows_in = np.flatnonzero(ink.sum(axis=1) >= RULE_MIN_LENGTH * h)
+    cols_in = np.flatnonzero(ink.sum(axis=0) > RULE_MIN_HEIGHT * h)
+    if rows_in.size:
+        r, a, b = row_runs(ink[rows_in])
+        keep = (b - a) >= RULE_MIN_LENGTH * h
+        for i, x, y in zip(rows_in[r[keep]], a[keep], b[keep]):
+            ink[i, x:y] = False
+    if cols_in.size:
+        c, a, b = row_runs(np.ascontiguousarray(ink[:, cols_in].T))
+        keep = (b - a) > RULE_MIN_HEIGHT * h
+        for i, x, y in zip(cols_in[c[keep]], a[keep], b[keep]):
+            ink[x:y, i] = False
     rows = _text_rows(ink)
     if rows is None:
         return whole
