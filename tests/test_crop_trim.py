@@ -98,6 +98,16 @@ def test_a_rule_is_not_taken_for_the_text():
     assert top <= off + t0 and bottom >= off + t1 and bottom < y
 
 
+def test_a_crop_holding_two_lines_keeps_both():
+    # A segmenter's box around two lines of text: trimming to one of them would drop the other's words.
+    text = _drawn("DejaVuSerif.ttf", 16)
+    h, w = text.shape
+    crop = np.full((4 * h, w), 240, np.uint8)
+    crop[h // 2: h // 2 + h] = text
+    crop[2 * h: 3 * h] = text
+    assert trim_rows(crop) == (0, crop.shape[0])
+
+
 def _loose_page_crops(monkeypatch, pad: float) -> list[np.ndarray]:
     # ocrbench's segmenter on scikit-image's photographed page, cutting its crops with `pad` of the line
     # height above and below instead of CROP_PAD_VERTICAL (neighbouring lines' ink still blanked).

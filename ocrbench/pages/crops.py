@@ -125,6 +125,9 @@ TRIM_MIN_GAIN = 1.25
 TRIM_CORE_SHARE = 0.3
 #: Ascenders and capitals reach at most this many band heights above the band, descenders below it.
 TRIM_REACH_UP, TRIM_REACH_DOWN = 1.0, 0.8
+#: A second band of rows with at least this share of the first one's ink is a second line of text (a
+#: segmenter's box around two lines): such a crop is not trimmed.
+TRIM_SECOND_LINE = 0.5
 #: A row with this many times the ink of every row two to four rows above and below it is a horizontal
 #: rule (a letter's rows change gradually; a rule is one to three rows thick even blurred).
 TRIM_SPIKE = 3.0
@@ -149,7 +152,8 @@ def _text_rows(ink: np.ndarray) -> tuple[int, int] | None:
     """The rows a line's letters occupy, or None where it has no ink.
 
     Horizontal rules left out (:func:`_rule_rows`), the x-height band is the run of rows with at least
-    TRIM_CORE_SHARE of the fullest row's ink (gaps of one row bridged) that holds the most ink; it is grown
+    TRIM_CORE_SHARE of the fullest row's ink (gaps of two rows bridged) that holds the most ink (None where another
+    such run holds TRIM_SECOND_LINE of its ink: two lines in one crop); it is grown
     through the rows above and below that still hold ink, by at most TRIM_REACH_UP band heights above and
     TRIM_REACH_DOWN below, so specks, rules and a neighbour's strokes far from the text do not count."""
     profile = ink.sum(axis=1).astype(np.float64)
@@ -158,7 +162,10 @@ def _text_rows(ink: np.ndarray) -> tuple[int, int] | None:
         return None
     core = np.flatnonzero(profile >= TRIM_CORE_SHARE * profile.max())
     runs = np.split(core, np.flatnonzero(np.diff(core) > 2) + 1)
-    best = max(runs, key=lambda r: profile[r[0]: r[-1] + 1].sum())
+    ink = sorted((profile[r[0]: r[-1] + 1].sum(), i) for i, r in enumerate(runs))
+    if len(ink) > 1 and ink[-2][0] >= TRIM_SECOND_LINE * ink[-1][0]:
+        return None                            # two lines of text in one crop: which to keep is not ours to say
+    best = runs[ink[-1][1]]
     top, bottom = int(best[0]), int(best[-1]) + 1
     band = bottom - top
     floor = max(1.0, 0.02 * profile.max())
