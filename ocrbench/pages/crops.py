@@ -1,5 +1,6 @@
 """Line crops: the grey page cut around a line box with paper margins, and their clean-up
-(shading flattened, rules painted out) as the card's ``[input] flatten`` / ``remove_rules`` steps."""
+(shading flattened, rules painted out, paper above and below the text trimmed) as the card's
+``[input] flatten`` / ``remove_rules`` / ``trim`` steps."""
 
 from __future__ import annotations
 
@@ -234,14 +235,17 @@ def trim_crop(crop: np.ndarray, *, flattened: bool = False) -> np.ndarray:
 
 def clean_crop(crop: np.ndarray, *, flatten: bool = False, remove_rules: bool = False,
                trim: bool = False) -> np.ndarray:
-    """The card's ``[input] flatten`` / ``remove_rules`` steps on one crop (rules first, then shading).
+    """The card's ``[input] flatten`` / ``remove_rules`` / ``trim`` steps on one crop (rules first, then shading,
+    then the trim, which reuses the flattened crop).
 
     Measured (tests/test_pages_real_scans.py): on scikit-image's photographed ``page``,
     body-line CER 21.4 -> 2.1 % (ledger-ctc) and 32.5 -> 4.3 % (ledger-seq) with
     ``flatten``; on demo lines crossed by table rules, 25.2 -> 2.7 % (ctc) and
     146.5 -> 2.7 % (seq) against the same lines without rules with ``remove_rules``;
     on 8 clean demo pages 0.23 -> 0.22 % (ctc), 0.85 -> 0.83 % (seq) with ``flatten``,
-    no change with ``remove_rules``.
+    no change with ``remove_rules``. With ``trim`` (tests/test_crop_trim.py): the photographed page cut with
+    0.8 of the line height above and below, 29.5 -> 3.4 % (ctc) and 28.2 -> 3.9 % (seq); the held-out-family
+    test lines (models/README.md) 4.00 -> 2.86 % degraded, 0.99 -> 0.81 % clean (ctc).
     """
     out = np.asarray(crop, dtype=np.uint8)
     if remove_rules:
