@@ -369,12 +369,14 @@ def smallest_size(path: Path) -> int:
 
 # 80 lines: one decision per line property, in order; splitting it scatters the probabilities.
 def render_line(rng: random.Random, face_list: Sequence[tuple[str, Path, bool]], *, degrade: bool = True,
-                content: tuple[list[str], str] | None = None) -> tuple[Image.Image, str, str, str]:
-    """One line crop such as the segmenter makes: (image, text, kind, family name)."""
+                content: tuple[list[str], str] | None = None,
+                small_share: float = 0.25) -> tuple[Image.Image, str, str, str]:
+    """One line crop such as the segmenter makes: (image, text, kind, family name). ``small_share``: the share
+    of lines in small type (from the face's smallest size to 16 px; the test lines keep 0.25)."""
     fields, kind = content or line_fields(rng)
     fields = [f for f in fields if f]
     family, path, has_onum = face_list[rng.randrange(len(face_list))]
-    small = rng.random() < 0.25
+    small = rng.random() < small_share
     lo = smallest_size(path)
     size = rng.randint(lo, max(lo, 16)) if small else rng.randint(max(lo, 16), 38)
     fnt = load_font(path, size)
@@ -421,13 +423,15 @@ def train_line(rng: random.Random) -> tuple[Image.Image, str]:
     sans is wider, and condensed faces narrower, than most training faces.
 
     ``OCRBENCH_BUILD_DEMO_SHARE`` sets the demo generator's share (0.2 by default): a fine-tuning run that
-    drifted away from the demo pages is brought back with a larger share."""
+    drifted away from the demo pages is brought back with a larger share. ``OCRBENCH_BUILD_SMALL_SHARE`` sets
+    the share of small type among the rest (0.25 by default, as in the test lines)."""
     if not TRAIN_FACES_CACHE:
         TRAIN_FACES_CACHE.extend(faces(TRAIN_FAMILIES))
     share = float(os.environ.get("OCRBENCH_BUILD_DEMO_SHARE", "0.2"))
     if rng.random() < share or len(TRAIN_FACES_CACHE) < 2:         # (no font packages: the demo generator)
         return synth.line_sample(rng)
-    img, text, _, _ = render_line(rng, TRAIN_FACES_CACHE, degrade=rng.random() < 0.85)
+    small = float(os.environ.get("OCRBENCH_BUILD_SMALL_SHARE", "0.25"))
+    img, text, _, _ = render_line(rng, TRAIN_FACES_CACHE, degrade=rng.random() < 0.85, small_share=small)
     if rng.random() < 0.3:                       # condensed or extended set: faces wider or narrower than any trained
         img = img.resize((max(1, round(img.width * rng.uniform(0.75, 1.35))), img.height), Image.BILINEAR)
     return img, text
