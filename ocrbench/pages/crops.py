@@ -81,6 +81,26 @@ def flatten_crop(crop: np.ndarray) -> np.ndarray:
     return np.clip(g.astype(np.float32) * (255.0 / level[None, :]), 0, 255).astype(np.uint8)
 
 
+def _rule_runs(ink: np.ndarray) -> np.ndarray:
+    """The ink pixels of a crop's rules: row runs of at least RULE_MIN_LENGTH crop heights and column runs over
+    RULE_MIN_HEIGHT of the height (looked for only in the rows and columns with ink enough to hold one)."""
+    h = ink.shape[0]
+    rule = np.zeros_like(ink)
+    rows_in = np.flatnonzero(ink.sum(axis=1) >= RULE_MIN_LENGTH * h)
+    if rows_in.size:
+        r, a, b = row_runs(ink[rows_in])
+        keep = (b - a) >= RULE_MIN_LENGTH * h
+        for i, x, y in zip(rows_in[r[keep]], a[keep], b[keep]):
+            rule[i, x:y] = True
+    cols_in = np.flatnonzero(ink.sum(axis=0) > RULE_MIN_HEIGHT * h)
+    if cols_in.size:
+        c, a, b = row_runs(np.ascontiguousarray(ink[:, cols_in].T))
+        keep = (b - a) > RULE_MIN_HEIGHT * h
+        for i, x, y in zip(cols_in[c[keep]], a[keep], b[keep]):
+            rule[x:y, i] = True
+    return rule
+
+
 def remove_crop_rules(crop: np.ndarray) -> np.ndarray:
     """Paint out long horizontal and vertical rules that cross or bound a line crop.
 
@@ -92,19 +112,11 @@ def remove_crop_rules(crop: np.ndarray) -> np.ndarray:
     g = np.asarray(crop, dtype=np.uint8)
     if g.ndim != 2 or min(g.shape) < 4:
         return g.copy()
-    h, w = g.shape
     flat = flatten_crop(g)                    # shading would pass for ink
     lo, hi = np.percentile(flat, 2), np.percentile(flat, 98)
     if hi - lo < 30:                          # no ink to speak of
         return g.copy()
-    ink = flat <= otsu_threshold(flat)
-    rule = np.zeros_like(ink)
-    rows, starts, ends = row_runs(ink)
-    for r, a, b in zip(*(x[(ends - starts) >= RULE_MIN_LENGTH * h] for x in (rows, starts, ends))):
-        rule[r, a:b] = True
-    cols, starts, ends = row_runs(np.ascontiguousarray(ink.T))
-    for c, a, b in zip(*(x[(ends - starts) > RULE_MIN_HEIGHT * h] for x in (cols, starts, ends))):
-        rule[a:b, c] = True
+    rule = _rule_runs(flat <= otsu_threshold(flat))
     if not rule.any():
         return g.copy()
     grown = rule.copy()
@@ -163,10 +175,10 @@ def _text_rows(ink: np.ndarray) -> tuple[int, int] | None:
         return None
     core = np.flatnonzero(profile >= TRIM_CORE_SHARE * profile.max())
     runs = np.split(core, np.flatnonzero(np.diff(core) > 2) + 1)
-    ink = sorted((profile[r[0]: r[-1] + 1].sum(), i) for i, r in enumerate(runs))
-    if len(ink) > 1 and ink[-2][0] >= TRIM_SECOND_LINE * ink[-1][0]:
+    weights = sorted((profile[r[0]: r[-1] + 1].sum(), i) for i, r in enumerate(runs))
+    if len(weights) > 1 and weights[-2][0] >= TRIM_SECOND_LINE * weights[-1][0]:
         return None                            # two lines of text in one crop: which to keep is not ours to say
-    best = runs[ink[-1][1]]
+    best = runs[weights[-1][1]]
     top, bottom = int(best[0]), int(best[-1]) + 1
     band = bottom - top
     floor = max(1.0, 0.02 * profile.max())
@@ -183,9 +195,8 @@ def trim_rows(crop: np.ndarray, *, flattened: bool = False) -> tuple[int, int]:
     """The rows :func:`trim_crop` keeps, ``(top, bottom)``: the text's rows with TRIM_MARGIN of their height
     above and below, or the whole crop where that would not make it TRIM_MIN_GAIN times lower.
 
-    The text's rows are found on Otsu's ink of the flattened crop (N. Otsu, 1979), without row runs
-    of RULE_MIN_LENGTH crop heights, column runs over RULE_MIN_HEIGHT of it and other rules (:func:`_text_rows`). ``flattened``: the crop's shading
-    was divided out already.
+    The text's rows are found on Otsu's ink of the flattened crop (N. Otsu, 1979), without its rules
+    (:func:`_rule_runs`, :func:`_text_rows`). ``flattened``: the crop's shading was divided out already.
     """
     g = np.asarray(crop, dtype=np.uint8)
     whole = (0, g.shape[0] if g.ndim else 0)
@@ -197,21 +208,7 @@ def trim_rows(crop: np.ndarray, *, flattened: bool = False) -> tuple[int, int]:
     if hi - lo < 30:                          # no ink to speak of
         return whole
     ink = flat <= otsu_threshold(flat)
-    h = g.shape[0]
-    # long row runs (rules, underlines) and column runs through the crop (column rules), looked for only in
-    # the rows and columns with ink enough to hold one
-    rows_in = np.flatnonzero(ink.sum(axis=1) >= RULE_MIN_LENGTH * h)
-    cols_in = np.flatnonzero(ink.sum(axis=0) > RULE_MIN_HEIGHT * h)
-    if rows_in.size:
-        r, a, b = row_runs(ink[rows_in])
-        keep = (b - a) >= RULE_MIN_LENGTH * h
-        for i, x, y in zip(rows_in[r[keep]], a[keep], b[keep]):
-            ink[i, x:y] = False
-    if cols_in.size:
-        c, a, b = row_runs(np.ascontiguousarray(ink[:, cols_in].T))
-        keep = (b - a) > RULE_MIN_HEIGHT * h
-        for i, x, y in zip(cols_in[c[keep]], a[keep], b[keep]):
-            ink[x:y, i] = False
+    ink &= ~_rule_runs(ink)                   # rules, underlines, column rules through the crop
     rows = _text_rows(ink)
     if rows is None:
         return whole
