@@ -307,7 +307,9 @@ def estimate_groups(system: System, cal: Calibration, *, n_boot: int = 400, seed
             is_key = keyed[idx]
             expected = theta_b[:, k] * (counts[:, ~is_key] * xb[:, un]).sum(1)
             num = (counts[:, is_key] * y[kd]).sum(1) + rng.poisson(np.maximum(expected, 0.0))
-            lo, hi = _quantiles(num / (counts * den[idx]).sum(1), expanded_tail(cal.level, n), point)
+            with np.errstate(divide="ignore", invalid="ignore"):   # a resample of pages without text: dropped
+                rates = num / (counts * den[idx]).sum(1)
+            lo, hi = _quantiles(rates, expanded_tail(cal.level, n), point)
         share = float(beyond[idx].sum() / chars[idx].sum()) if chars[idx].sum() > 0 else 0.0
         out[g] = {"est_cer": point, "est_low": lo, "est_high": hi, "factor": float(theta0[k]), "beyond_range": share,
                   "extrapolated": share > RANGE_TOLERANCE}
