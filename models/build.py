@@ -594,7 +594,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     other = [p for n, p in model.named_parameters() if not n.startswith(CTC_PART)]
     groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": ctc_part, "lr_scale": 0.5}] if ctc_part else [])
     opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
-    step, elapsed0, warm_from, frozen, taken = 0, 0.0, 0, False, False
+    step, elapsed0, warm_from, frozen, taken, from_seq = 0, 0.0, 0, False, False, None
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
     if source is not None:
         st = torch.load(source, weights_only=False, map_location="cpu")
@@ -604,6 +604,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         step, elapsed0 = st["step"], st["elapsed"]
         warm_from, frozen = st.get("warm_from", 0), st.get("frozen_encoder", False)
         taken = st.get("encoder_taken", frozen)
+        from_seq = st.get("from_seq")                 # a CTC stage started from a seq model (ctc-from-seq)
         print(f"resumed {kind} from {source} at step {step}, {elapsed0 / 60:.1f} min", flush=True)
     if kind == "seq" and encoder_from is not None and not taken:
         # a new stage: the encoder becomes the CTC model's and stays frozen; the decoder (and the
@@ -621,7 +622,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     if frozen:
         for p in ctc_part:
             p.requires_grad_(False)
-    extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken}
+    extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken, "from_seq": from_seq}
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
     heldout_fam = [(resize_line(clean_crop(np.asarray(im), flatten=True, trim=True) if clean else np.asarray(im), SPEC), t)
@@ -709,8 +710,9 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     c = evaluate(kind, model, heldout)
     cf = evaluate(kind, model, heldout_fam)
     print(f"{kind} FINAL step {step} CER(ws collapsed) DejaVu {c:.4f} held-out families {cf:.4f}", file=log, flush=True)
+    stage = {"from_seq": True, "stage_from": warm_from} if kind == "ctc" and from_seq else {}
     (WORK / f"{kind}.done").write_text(json.dumps({"step": step, "minutes": (time.time() - t0) / 60,
-                                                   "heldout_cer": c, "heldout_families_cer": cf}))
+                                                   "heldout_cer": c, "heldout_families_cer": cf, **stage}))
 
 
 def save_ckpt(path, model, opt, step, elapsed, extra=None):
@@ -825,7 +827,8 @@ def export(opset: int = 17, only: str | None = None):
                              "heldout_cer_ws_collapsed_with_random_chars": c_any,
                              "heldout_families_cer_clean": fam_cer[False], "heldout_families_cer_degraded": fam_cer[True],
                              "heldout_families_lines": len(fam[False]), "train_steps": done.get("step"),
-                             "train_minutes": done.get("minutes"), "from_seq": done.get("from_seq", False)}
+                             "train_minutes": done.get("minutes"), "from_seq": done.get("from_seq", False),
+                             "stage_from": done.get("stage_from")}
         print(json.dumps(figures[CTC_NAME], indent=1))
 
     # ---- seq
@@ -1105,9 +1108,14 @@ def write_readme_block():
     row("onnxruntime vs torch, max abs diff",
         lambda f: (f"{f['parity_max_abs_diff']:.1e}" if not isinstance(f['parity_max_abs_diff'], dict)
                    else ", ".join(f"{k} {v:.1e}" for k, v in f['parity_max_abs_diff'].items())))
-    row("training steps (32 lines each)",
-        lambda f: f"{f['train_steps']:,}" + (" (the seq model's: its encoder and CTC head)" if f.get("from_seq") else ""))
-    row("training wall-clock minutes (2 shared cores)", lambda f: f"{f['train_minutes']:.0f}")
+    def steps(f):
+        if f.get("stage_from"):
+            return (f"{f['train_steps']:,} (the seq model's encoder and CTC head to step {f['stage_from']:,}, then "
+                    f"{f['train_steps'] - f['stage_from']:,} on the CTC loss alone)")
+        return f"{f['train_steps']:,}" + (" (the seq model's: its encoder and CTC head)" if f.get("from_seq") else "")
+    row("training steps (32 lines each)", steps)
+    row("training wall-clock minutes (2 shared cores)",
+        lambda f: f"{f['train_minutes']:.0f}" + (" (the CTC-only stage)" if f.get("stage_from") else ""))
     lines += ["", "### sha256 of the shipped files", ""]
     for n in (CTC_NAME, SEQ_NAME):
         for p in sorted((OUT / n).glob("*")):
