@@ -1125,7 +1125,7 @@ def write_readme_block():
         return f"{f['train_steps']:,}" + (" (the seq model's: its encoder and CTC head)" if f.get("from_seq") else "")
     row("training steps (32 lines each)", steps)
     row("training wall-clock minutes (2 shared cores)",
-        lambda f: f"{f['train_minutes']:.0f}" + (" (the CTC-only stages)" if f.get("stage_from") else ""))
+        lambda f: f"{f['train_minutes']:.0f}" + (" (CTC-only training)" if f.get("stage_from") else ""))
     lines += ["", "### sha256 of the shipped files", ""]
     for n in (CTC_NAME, SEQ_NAME):
         for p in sorted((OUT / n).glob("*")):
