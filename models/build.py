@@ -579,9 +579,24 @@ def ctc_from_seq(seq_ckpt: Path, out_ckpt: Path, new_schedule: bool = False) -> 
     return st["step"], st.get("elapsed", 0.0) / 60
 
 
+def new_stage(meta: dict) -> dict:
+    """The bookkeeping of a checkpoint that starts a new training stage (``train --new-stage``): a fresh
+    warm-up and cosine from its step, its clock at zero. The minutes of the stages before it are kept in
+    ``minutes_before`` and the step where CTC-only training began in ``stage_from``, so the figures of the
+    finished model count every stage. ``meta`` holds a checkpoint's fields (``step``, ``elapsed``,
+    ``warm_from``, ``from_seq``, and ``stage_from``/``minutes_before`` when an earlier stage set them);
+    the weights and optimiser are not touched."""
+    out = dict(meta)
+    out["minutes_before"] = meta.get("minutes_before", 0.0) + meta.get("elapsed", 0.0) / 60
+    if meta.get("from_seq") and meta.get("stage_from") is None:
+        out["stage_from"] = meta.get("warm_from", 0)          # the first CTC-only stage began here
+    out["elapsed"], out["warm_from"] = 0.0, meta["step"]
+    return out
+
+
 def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, lr: float,
           device: str = "cpu", workers: int = 0, encoder_from: Path | None = None, unfreeze: bool = False,
-          clean: bool = False):
+          clean: bool = False, start_stage: bool = False):
     import torch
     from torch import nn
     torch.manual_seed(seed)
@@ -600,9 +615,17 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     groups = [{"params": other, "lr_scale": 1.0}] + ([{"params": ctc_part, "lr_scale": 0.5}] if ctc_part else [])
     opt = torch.optim.AdamW(groups, lr=lr, weight_decay=1e-4)
     step, elapsed0, warm_from, frozen, taken, from_seq = 0, 0.0, 0, False, False, None
+    history = {}                                  # stage_from, minutes_before: what earlier stages did
     source = ckpt if ckpt.exists() else committed if committed.exists() else None
+    if start_stage and source is None:
+        raise SystemExit(f"train --new-stage: no checkpoint to start from ({ckpt} or {committed})")
     if source is not None:
         st = torch.load(source, weights_only=False, map_location="cpu")
+        if start_stage:
+            st = new_stage(st)
+            print(f"{kind}: new stage from step {st['step']} ({st['minutes_before']:.1f} min trained before)",
+                  flush=True)
+        history = {k: st[k] for k in ("stage_from", "minutes_before") if st.get(k) is not None}
         model.load_state_dict(st["model"])
         if "opt" in st:
             opt.load_state_dict(st["opt"])
@@ -629,7 +652,7 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
         for p in ctc_part:
             p.requires_grad_(False)
     extra = {"warm_from": warm_from, "frozen_encoder": frozen, "encoder_taken": taken, "from_seq": from_seq,
-             "clean": clean}
+             "clean": clean, **history}
     CLEAN_AS_CARDS["on"] = clean
     budget = minutes * 60
     heldout = heldout_lines(100, kinds=TEXT_KINDS)
@@ -651,6 +674,9 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     last_commit = time.time()
     feed = LineFeed(seed, step, batch_size, workers)
     log = open(WORK / f"{kind}.log", "a")
+    if start_stage:                  # written at once: a resume (without --new-stage) continues this stage
+        save_ckpt(ckpt, model, opt, step, 0.0, extra)
+        print(f"{kind}: new stage from step {step}, lr {lr:.1e}, {minutes:.0f} min", file=log, flush=True)
     if device != "cpu" or workers:
         print(f"{kind}: training on {dev}, {workers} line-drawing processes", file=log, flush=True)
     if clean:
@@ -720,8 +746,9 @@ def train(kind: str, minutes: float, threads: int, seed: int, batch_size: int, l
     c = evaluate(kind, model, heldout)
     cf = evaluate(kind, model, heldout_fam)
     print(f"{kind} FINAL step {step} CER(ws collapsed) DejaVu {c:.4f} held-out families {cf:.4f}", file=log, flush=True)
-    stage = {"from_seq": True, "stage_from": warm_from} if kind == "ctc" and from_seq else {}
-    (WORK / f"{kind}.done").write_text(json.dumps({"step": step, "minutes": (time.time() - t0) / 60,
+    stage = {"from_seq": True, "stage_from": history.get("stage_from", warm_from)} if kind == "ctc" and from_seq else {}
+    minutes_all = history.get("minutes_before", 0.0) + (time.time() - t0) / 60
+    (WORK / f"{kind}.done").write_text(json.dumps({"step": step, "minutes": minutes_all,
                                                    "heldout_cer": c, "heldout_families_cer": cf, **stage}))
 
 
@@ -1161,6 +1188,9 @@ def main(argv=None):
                    help="seq: take the encoder from this CTC checkpoint, freeze it and start a new schedule")
     t.add_argument("--unfreeze", action="store_true",
                    help="seq: train a taken (frozen) encoder on with the decoder from here")
+    t.add_argument("--new-stage", action="store_true",
+                   help="start a new stage from the checkpoint: fresh warm-up and cosine over --minutes, the "
+                        "earlier stages' minutes kept for the figures (give it once; resume without it)")
     t.add_argument("--clean", action="store_true",
                    help="clean training lines as the demo cards clean crops ([input] flatten, trim) before resizing")
     e = sub.add_parser("export")
@@ -1175,7 +1205,7 @@ def main(argv=None):
     if a.cmd == "train":
         lr = a.lr or (6e-4 if a.kind == "ctc" else 3e-4)     # fine-tuning from the previous build
         train(a.kind, a.minutes, a.threads, a.seed, a.batch, lr, a.device, a.workers, a.encoder_from, a.unfreeze,
-              a.clean)
+              a.clean, a.new_stage)
     elif a.cmd == "readme":
         write_readme_block()
     elif a.cmd == "ctc-from-seq":

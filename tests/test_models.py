@@ -248,6 +248,25 @@ def test_build_script_data_generator_runs_without_torch():
     assert out.stdout.startswith("ok")
 
 
+def test_new_training_stage_keeps_the_earlier_stages():
+    """``build.py train --new-stage``: a stage restarts the warm-up and cosine from the checkpoint's step and
+    its clock at zero, while the step where CTC-only training began and the minutes of every earlier stage
+    are carried on, so the shipped figures count all of them (checked on the two CTC-only stages ledger-ctc
+    went through, as models/README.md records them: from step 13,282 for 55.16 min, then 100 min more)."""
+    build = _build_module()
+    first = {"step": 15515, "elapsed": 55.16 * 60, "warm_from": 13282, "from_seq": "models/_work/seq.pt"}
+    second = build.new_stage(first)
+    assert second["warm_from"] == 15515 and second["elapsed"] == 0.0
+    assert second["stage_from"] == 13282 and second["minutes_before"] == pytest.approx(55.16)
+    assert first["warm_from"] == 13282 and "stage_from" not in first          # the input is left alone
+    after = {**second, "step": 21997, "elapsed": 100.0 * 60}                  # the second stage trained
+    third = build.new_stage(after)
+    assert third["stage_from"] == 13282                                         # not the second stage's start
+    assert third["warm_from"] == 21997 and third["minutes_before"] == pytest.approx(155.16)
+    seq = build.new_stage({"step": 900, "elapsed": 600.0, "warm_from": 0, "from_seq": None})
+    assert "stage_from" not in seq and seq["minutes_before"] == pytest.approx(10.0)
+
+
 def _linegen():
     return _models_module("linegen")
 
