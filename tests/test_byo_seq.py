@@ -108,6 +108,7 @@ def test_drafted_card_says_where_each_field_came_from(tmp_path, style):
     assert "# preprocessor_config.json size.height" in text and "# generation_config.json eos_token_id" in text
     card = load_card(folder)
     assert card.input.channels == 3 and card.input.width == 128 and card.input.resize == "stretch"
+    assert "# flatten = true" in text and not card.input.flatten          # crop clean-up offered, left off
     assert card.seq.tokenizer is not None and card.seq.decoder_first is not None
     if style == "selfcache":
         assert card.seq.bos_index == card.seq.eos_index == 2          # the end token starts the decoder

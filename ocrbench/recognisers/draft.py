@@ -55,6 +55,14 @@ def generation_warnings(folder: Path) -> list[str]:
     return out
 
 
+#: The crop clean-up a card can turn on, drafted as comments: no export says how its lines were cut, so
+#: the draft leaves them off (the card's defaults) and says when each one helps.
+CLEAN_UP = ["# Crop clean-up before resizing, off unless set (models/README.md, the [input] table):",
+            "# flatten = true             # photographed or unevenly lit pages: divide the paper's shading out",
+            "# trim = true                # loose crops (ruled rows, wide leading, another segmenter's boxes)",
+            "# remove_rules = true        # ruled tables whose rules would be read as l or |"]
+
+
 def _q(v) -> str:
     return json.dumps(v, ensure_ascii=False)
 
@@ -106,7 +114,7 @@ def _input_from_processor(folder: Path, enc: GraphInfo, pixel: str) -> list[str]
     if pp.get("do_normalize", False) and "image_mean" in pp and "image_std" in pp:
         lines += [f"mean = {_names(pp['image_mean']).replace(chr(34), '')}    # preprocessor_config.json image_mean",
                   f"std = {_names(pp['image_std']).replace(chr(34), '')}     # preprocessor_config.json image_std"]
-    return lines
+    return lines + CLEAN_UP
 
 
 def _special_ids(folder: Path) -> list[str]:
@@ -315,7 +323,7 @@ def _draft_ctc(folder: Path, model: Path) -> str:
              f'layout = "{layout}"' + ("           # GUESSED from where the graph's channel axis sits")]
     if w:
         lines.append(f"width = {w}                  # the graph's fixed width")
-    lines += ["invert = true                # GUESSED: ink as high values", "",
+    lines += ["invert = true                # GUESSED: ink as high values", *CLEAN_UP, "",
               "[ctc]", f"model = {_q(model.name)}", f"input = {_q(img.name)}", f"output = {_q(out.name)}",
               f'layout = "{"TBC" if tbc else "BTC"}"' + "               # GUESSED from the output's axis names",
               f'output_kind = "{kind}"' + f"       # the graph ends in {op or 'no node'} (checked at warm-up)",
