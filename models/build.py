@@ -103,15 +103,18 @@ TEXT_KINDS = ("ledger", "prose", "numbers")
 CLEAN_AS_CARDS = {"on": False}
 
 
-def draw_pool(key, n: int) -> list[tuple[np.ndarray, str]]:
+def draw_pool(key, n: int, clean: bool | None = None) -> list[tuple[np.ndarray, str]]:
     """``n`` training lines drawn from the seed ``key`` (resized to the model's height, none wider than
-    MAX_TRAIN_WIDTH), sorted by width so batches cut from it carry little padding. No torch."""
+    MAX_TRAIN_WIDTH), sorted by width so batches cut from it carry little padding. ``clean``: clean them
+    as the cards clean crops (``train --clean``; by default as ``CLEAN_AS_CARDS`` says). No torch."""
     rng = random.Random(key)
     pool = []
+    if clean is None:
+        clean = CLEAN_AS_CARDS["on"]
     while len(pool) < n:
         im, t = linegen.train_line(rng)
         a = np.asarray(im)
-        if CLEAN_AS_CARDS["on"]:
+        if clean:
             a = clean_crop(a, flatten=True, trim=True)
         r = resize_line(a, SPEC)
         if r.shape[1] <= MAX_TRAIN_WIDTH and t:
@@ -134,8 +137,10 @@ class LineFeed:
         self.pending: list = []
         self.pool = None
         if workers > 0:
+            # fresh interpreters, not forks: a fork copies whatever lock another thread (a BLAS pool, the
+            # font loader) held at that moment, and a worker waiting on it never returns its pool
             import multiprocessing
-            self.pool = multiprocessing.get_context("fork").Pool(workers)
+            self.pool = multiprocessing.get_context("spawn").Pool(workers)
 
     def _key(self, step: int):
         if self.pool is None:
@@ -151,7 +156,8 @@ class LineFeed:
             else:
                 while len(self.pending) < 2 * self.workers:
                     key = self._key(step)
-                    self.pending.append((key, self.pool.apply_async(draw_pool, (key, self.batch * 4))))
+                    self.pending.append((key, self.pool.apply_async(draw_pool,
+                                                                    (key, self.batch * 4, CLEAN_AS_CARDS["on"]))))
                 key, res = self.pending.pop(0)
                 pool = res.get()
             self.queue = [pool[i:i + self.batch] for i in range(0, len(pool), self.batch)]
@@ -159,9 +165,9 @@ class LineFeed:
         return self.queue.pop()
 
     def close(self) -> None:
-        """Let the workers finish the pools in flight, then end them (rather than ``Pool.terminate``: the
-        build-script test, which ends a feed with pools in flight, ran into its 120 s timeout in 2 of about
-        14 runs on 2026-12-03, not reproduced outside pytest; the cause was not pinned down)."""
+        """Let the workers finish the pools in flight, then end them (rather than ``Pool.terminate``). With
+        forked workers the build-script test, which ends a feed with pools in flight, ran into its 120 s
+        timeout in 2 of about 14 runs on 2026-12-03; the workers are spawned since."""
         if self.pool is not None:
             self.pending.clear()
             self.pool.close()

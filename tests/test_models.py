@@ -241,6 +241,14 @@ def test_build_script_data_generator_runs_without_torch():
         "firsts = sorted(t for c in got[:4] for _, t in c)\n"
         "assert firsts == sorted(t for _, t in again), (firsts, again)\n"
         "assert all(r.shape[0] == 32 and r.shape[1] <= build.MAX_TRAIN_WIDTH for c in got for r, _ in c)\n"
+        # train --clean reaches the workers (spawned: they do not share this process's settings)
+        "build.CLEAN_AS_CARDS['on'] = True\n"
+        "feed = build.LineFeed(4, 0, 2, workers=1)\n"
+        "got = sorted((t, r.shape, r.tobytes()) for c in [feed.next(0) for _ in range(4)] for r, t in c)\n"
+        "feed.close()\n"
+        "want = sorted((t, r.shape, r.tobytes()) for r, t in build.draw_pool('4:0:1', 8, True))\n"
+        "plain = sorted((t, r.shape, r.tobytes()) for r, t in build.draw_pool('4:0:1', 8, False))\n"
+        "assert got == want != plain\n"
         "print('ok', b.shape)\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
