@@ -42,8 +42,10 @@ TARGET = {"ctc": 0.02, "seq": 0.03}
 # 0.58 % / 2.78 % (seq) before their cards trimmed loose crops ([input] trim, tests/test_crop_trim.py), and
 # 0.83 % / 2.90 % (ctc) after. Shipped now: that CTC model trained on for 2,233 steps on the CTC loss
 # alone, on training lines trimmed as the cards trim crops (0.86 % / 2.65 %), then 6,482 steps more with
-# three in five lines in small type (models/README.md).
-SHIPPED = {("ctc", False): 0.0061, ("ctc", True): 0.0223, ("seq", False): 0.0055, ("seq", True): 0.0215}
+# three in five lines in small type (0.61 % / 2.23 %), then a third CTC-only stage of 6,799 steps with seven
+# in ten (models/README.md, "third CTC-only stage"). Its degraded figure, 2.00 %, is inside the 2 % target by a
+# fraction of one edit; the xfail below stays for a machine whose arithmetic moves it by one.
+SHIPPED = {("ctc", False): 0.0070, ("ctc", True): 0.0200, ("seq", False): 0.0055, ("seq", True): 0.0215}
 
 
 
