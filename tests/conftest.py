@@ -2,11 +2,18 @@
 
 from __future__ import annotations
 
+import signal
 from pathlib import Path
 
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
+
+# A suite started in the background by a non-interactive shell (`cmd &`) inherits SIGINT ignored, and
+# every child the tests start would inherit that too: the Ctrl-C tests would then send a signal nobody
+# receives. A handled signal is reset to its default in an exec'd child (POSIX), so handle it here.
+if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 @pytest.fixture(scope="session")
